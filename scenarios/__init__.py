@@ -1,0 +1,1 @@
+"""Invented demo scenarios, shipped as package data (see pyproject.toml)."""

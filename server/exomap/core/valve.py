@@ -1,0 +1,113 @@
+"""Outlet valve: IEC 60534-2-1 liquid flow (incompressible, turbulent, non-choked).
+
+.. math:: q = N_1 K_v f(x) \\sqrt{\\Delta p / (\\rho/\\rho_0)}, \\qquad
+          \\Delta p = p_{head} + \\rho g (h + z) - p_{down}
+
+with :math:`N_1 = 1` for q in m^3/h and Δp in bar, i.e. in SI :math:`q = K_v/3600 \\, f(x)
+\\sqrt{(\\Delta p / 10^5)/(\\rho/\\rho_0)}`. No back-flow: q = 0 when Δp <= 0.
+
+References
+----------
+[1] IEC 60534-2-1:2011, Industrial-process control valves - Part 2-1: Flow capacity - Sizing equations for
+    fluid flow under installed conditions, eq. (1) and Table 1 (N1).
+[2] C. Bell et al., fluids: fluid dynamics component of Chemical Engineering Design Library, ``rho0`` and
+    ``Cv_to_Kv`` (used as a cross-check in the tests).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from exomap.core.errors import ModelInputError
+from exomap.core.scenario import EQUAL_PERCENTAGE, G, LINEAR, QUICK_OPENING, Scenario
+
+#: Density of water at 15 degC, the reference of the relative density in IEC 60534-2-1 [kg/m^3]
+#: (value as used by the fluids package, [2]).
+RHO0 = 999.10329075702327
+#: Kv [m^3/h] per Cv [US gal/min at 1 psi]: Kv = Cv / 1.156 (IEC 60534-1 Annex; equivalently fluids'
+#: Cv_to_Kv, [2]). Computed from the unit definitions rather than rounded.
+_GAL = 3.785411784e-3  # US gallon [m^3], exact by definition
+_PSI = 6894.757293168361  # pound-force per square inch [Pa]
+KV_PER_CV = _GAL * 60.0 * (1e5 / _PSI) ** 0.5
+
+
+def cv_to_kv(cv: float) -> float:
+    """Convert a Cv [US gal/min, 1 psi] to a Kv [m^3/h, 1 bar] (same relative density basis).
+
+    >>> round(cv_to_kv(1.0), 4)
+    0.8649
+    """
+    return cv * KV_PER_CV
+
+
+def characteristic(x: np.ndarray | float, kind: str, rangeability: float) -> np.ndarray | float:
+    """Inherent characteristic f(x) of the valve at relative opening x in 0..1 [-].
+
+    linear: x; equal percentage: R^(x-1); quick opening: sqrt(x).
+    """
+    x = np.clip(x, 0.0, 1.0)
+    if kind == LINEAR:
+        return x
+    if kind == EQUAL_PERCENTAGE:
+        return rangeability ** (x - 1.0)
+    if kind == QUICK_OPENING:
+        return np.sqrt(x)
+    raise ModelInputError(f"unknown valve characteristic {kind!r}", field="outlet_valve.characteristic")
+
+
+def characteristic_slope(x: float, kind: str, rangeability: float) -> float:
+    """df/dx [-] (for the Jacobian)."""
+    x = min(max(x, 0.0), 1.0)
+    if kind == LINEAR:
+        return 1.0
+    if kind == EQUAL_PERCENTAGE:
+        return float(np.log(rangeability) * rangeability ** (x - 1.0))
+    return 0.5 / np.sqrt(x) if x > 1e-12 else 0.5e6
+
+
+def inverse_characteristic(f: float, kind: str, rangeability: float) -> float:
+    """Opening x [-] giving f(x) = f; may fall outside 0..1 when the valve cannot pass the flow."""
+    if kind == LINEAR:
+        return f
+    if kind == EQUAL_PERCENTAGE:
+        return 1.0 + np.log(f) / np.log(rangeability) if f > 0 else -np.inf
+    return f * f
+
+
+def pressure_drop(sc: Scenario, h: float) -> float:
+    """Δp across the valve at level h [Pa]."""
+    return sc.vessel.p_head + sc.rho * G * (h + sc.valve.z_drop) - sc.valve.p_down
+
+
+def flow(sc: Scenario, h: float, x: float) -> float:
+    """Outlet flow q_out [m^3/s] at level h [m] and opening x [-]."""
+    dp = pressure_drop(sc, h)
+    if dp <= 0.0 or x <= 0.0:
+        return 0.0
+    f = float(characteristic(x, sc.valve.characteristic, sc.valve.rangeability))
+    return sc.valve.Kv / 3600.0 * f * np.sqrt(dp / 1e5 / (sc.rho / RHO0))
+
+
+def flow_derivatives(sc: Scenario, h: float, x: float) -> tuple[float, float, float]:
+    """(q_out, dq/dh, dq/dx) at level h and opening x."""
+    dp = pressure_drop(sc, h)
+    if dp <= 0.0 or x <= 0.0:
+        return 0.0, 0.0, 0.0
+    c = sc.valve.Kv / 3600.0 / np.sqrt(1e5 * sc.rho / RHO0)
+    f = float(characteristic(x, sc.valve.characteristic, sc.valve.rangeability))
+    sq = np.sqrt(dp)
+    q = c * f * sq
+    dq_dh = c * f * 0.5 / sq * sc.rho * G
+    dq_dx = c * sq * characteristic_slope(x, sc.valve.characteristic, sc.valve.rangeability) if x < 1.0 else 0.0
+    return q, dq_dh, dq_dx
+
+
+def opening_for_flow(sc: Scenario, q: float, h: float | None = None) -> float:
+    """Opening [-] that passes q [m^3/s] at level h (default: the setpoint). May be > 1 (valve too small),
+    or nan when there is no driving pressure."""
+    h = sc.vessel.h_set if h is None else h
+    dp = pressure_drop(sc, h)
+    if dp <= 0.0:
+        return float("nan")
+    f_needed = q / (sc.valve.Kv / 3600.0 * np.sqrt(dp / 1e5 / (sc.rho / RHO0)))
+    return float(inverse_characteristic(f_needed, sc.valve.characteristic, sc.valve.rangeability))
