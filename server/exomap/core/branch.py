@@ -1,0 +1,441 @@
+"""One-parameter branches of steady states, with their turning points and Hopf points.
+
+Along the feed temperature at fixed residence time the branch is explicit: :math:`T_{in}(\\tau, s)` of the
+steady-state manifold (``exomap.core.manifold``) over the manifold coordinate s. Along the residence time at
+fixed feed temperature the branch is the curve :math:`T_{in}(\\tau, s) = T_{in}` in the (ln τ, s) plane,
+traced by pseudo-arclength continuation from every steady state on the window's edges and from every steady
+state found on interior columns that no traced piece passes through (isolas).
+
+Turning points are where :math:`\\partial T_{in}/\\partial s = 0` on the branch (the steady-state Jacobian is
+singular). ``ignition`` is a local maximum of :math:`T_{in}(s)` at fixed τ: the low branch meets the middle
+one and past it the tank can only jump up; ``extinction`` a local minimum: the high branch meets the middle
+one. Both are solved to machine precision (Brent's method, or a 2-D Newton polish on the branch and fold
+equations). Hopf points are where the leading complex pair of the reduced Jacobian crosses the imaginary
+axis.
+
+References
+----------
+[1] A. Uppal, W. H. Ray, A. B. Poore, Chem. Eng. Sci. 29 (1974) 967-985.
+[2] H. B. Keller, Numerical solution of bifurcation and nonlinear eigenvalue problems, in: Applications of
+    Bifurcation Theory, Academic Press, 1977 (pseudo-arclength continuation).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from scipy.optimize import brentq, fsolve
+
+from exomap.core.errors import ModelInputError
+from exomap.core.manifold import Manifold
+from exomap.core.scenario import Scenario, validate
+from exomap.core.steady import check_point, roots_along
+
+RESIDENCE_TIME, FEED_TEMPERATURE = "residence_time", "feed_temperature"
+ALONG = (RESIDENCE_TIME, FEED_TEMPERATURE)
+
+
+@dataclass(frozen=True)
+class BranchPoint:
+    value: float
+    tau: float
+    T_in: float
+    T: float
+    conversion: float
+    stable: bool
+    oscillatory: bool
+    piece: int
+
+    def to_dict(self) -> dict:
+        return {"value": self.value, "temperature_K": self.T, "conversion": self.conversion,
+                "stable": self.stable, "oscillatory": self.oscillatory, "piece": self.piece}
+
+
+@dataclass(frozen=True)
+class TurningPoint:
+    kind: str
+    tau: float
+    T_in: float
+    T: float
+
+    def to_dict(self) -> dict:
+        return {"kind": self.kind, "residence_time_s": self.tau, "feed_temperature_K": self.T_in,
+                "temperature_K": self.T}
+
+
+@dataclass(frozen=True)
+class HopfPoint:
+    tau: float
+    T_in: float
+    T: float
+    frequency: float
+
+    def to_dict(self) -> dict:
+        return {"residence_time_s": self.tau, "feed_temperature_K": self.T_in, "temperature_K": self.T,
+                "angular_frequency_rad_per_s": self.frequency, "period_s": 2 * math.pi / self.frequency
+                if self.frequency > 0 else None}
+
+
+@dataclass(frozen=True)
+class BranchResult:
+    parameter: str
+    tau: float
+    T_in: float
+    lo: float
+    hi: float
+    points: tuple[BranchPoint, ...]
+    turning_points: tuple[TurningPoint, ...]
+    hopf_points: tuple[HopfPoint, ...]
+    success: bool
+    message: str
+
+    def to_dict(self) -> dict:
+        unit = "s" if self.parameter == RESIDENCE_TIME else "K"
+        return {
+            "parameter": self.parameter,
+            "parameter_unit": unit,
+            "through": {"residence_time_s": self.tau, "feed_temperature_K": self.T_in},
+            "range": [self.lo, self.hi],
+            "points": [p.to_dict() for p in self.points],
+            "turning_points": [t.to_dict() for t in self.turning_points],
+            "hopf_points": [h.to_dict() for h in self.hopf_points],
+            "success": self.success,
+            "message": self.message,
+        }
+
+
+# -- helpers on the manifold ------------------------------------------------------------------------------
+def _one(mf: Manifold, tau: float, s: float):
+    return mf.evaluate(np.array([tau]), np.array([s]))
+
+
+def _fold_kind(mf: Manifold, tau: float, s: float) -> str:
+    """ignition at a local maximum of T_in(s), extinction at a local minimum."""
+    h = 1e-6 * max(abs(s), 1e-12)
+    if mf.explicit:
+        h = min(h, 0.25 * min(s, mf.xi_max - s))
+    d2 = (float(_one(mf, tau, s + h).dTin_ds[0]) - float(_one(mf, tau, s - h).dTin_ds[0])) / (2 * h)
+    return "ignition" if d2 < 0 else "extinction"
+
+
+def _lead(mf: Manifold, tau: float, s: float) -> tuple[float, bool, float]:
+    """(leading real part, complex?, |imag| of the leading pair) of the reduced Jacobian."""
+    smp = _one(mf, tau, s)
+    Jr = mf.reduced_jacobian(np.array([tau]), smp.T, smp.xi)[0]
+    ev = np.linalg.eigvals(Jr)
+    k = int(np.argmax(ev.real))
+    return float(ev[k].real), abs(ev[k].imag) > 1e-12 * max(abs(ev[k].real), 1e-30), float(abs(ev[k].imag))
+
+
+def _conversion(mf: Manifold, xi: np.ndarray) -> float:
+    C = mf.concentrations(xi)
+    return float(mf.conversion(np.array(C[mf.key])))
+
+
+def default_range(sc: Scenario, along: str, tau: float, T_in: float) -> tuple[float, float]:
+    if along == RESIDENCE_TIME:
+        if sc.map is not None:
+            lo, hi = sc.map.tau_range
+            return min(lo, tau), max(hi, tau)
+        return tau / 20.0, tau * 20.0
+    if sc.map is not None:
+        lo, hi = sc.map.T_in_range
+        return min(lo, T_in), max(hi, T_in)
+    return T_in - 50.0, T_in + 50.0
+
+
+# -- along the feed temperature ---------------------------------------------------------------------------
+def _along_feed_temperature(mf: Manifold, tau: float, lo: float, hi: float, n: int):
+    T_lo, T_hi = mf.temperature_window(lo, hi, tau)
+    smp = mf.sample(np.array([tau]), T_lo, T_hi, n)
+    s, T_in, d = smp.s[0], smp.T_in[0], smp.dTin_ds[0]
+    ok = smp.valid[0] & np.isfinite(T_in)
+    lead, cplx = mf.leading_real_part(smp.tau, smp.T, smp.xi)
+    lead, cplx = lead[0], cplx[0]
+    points, turns, hopfs = [], [], []
+    piece, inside_prev = 0, False
+    for k in range(n):
+        inside = bool(ok[k] and lo <= T_in[k] <= hi)
+        if inside:
+            if not inside_prev and points:
+                piece += 1
+            points.append(BranchPoint(float(T_in[k]), tau, float(T_in[k]), float(smp.T[0, k]),
+                                      _conversion(mf, smp.xi[0, k]), bool(lead[k] < 0), bool(cplx[k]), piece))
+        inside_prev = inside
+        if k + 1 >= n or not (ok[k] and ok[k + 1]):
+            continue
+        if d[k] * d[k + 1] < 0:
+            sf = brentq(lambda x: float(_one(mf, tau, x).dTin_ds[0]), s[k], s[k + 1], xtol=1e-300, rtol=1e-15)
+            e = _one(mf, tau, sf)
+            if lo <= e.T_in[0] <= hi:
+                turns.append(TurningPoint(_fold_kind(mf, tau, sf), tau, float(e.T_in[0]), float(e.T[0])))
+        if cplx[k] and cplx[k + 1] and lead[k] * lead[k + 1] < 0:
+            sh = brentq(lambda x: _lead(mf, tau, x)[0], s[k], s[k + 1], xtol=1e-300, rtol=1e-15)
+            e = _one(mf, tau, sh)
+            if lo <= e.T_in[0] <= hi:
+                hopfs.append(HopfPoint(tau, float(e.T_in[0]), float(e.T[0]), _lead(mf, tau, sh)[2]))
+    return points, turns, hopfs
+
+
+# -- along the residence time (continuation) --------------------------------------------------------------
+class _Plane:
+    """Normalised coordinates (X, Y) in [0, 1]^2 for ln(tau) and the manifold coordinate."""
+
+    def __init__(self, mf: Manifold, T_in: float, lo: float, hi: float) -> None:
+        self.mf, self.T_in = mf, T_in
+        self.x0, self.x1 = math.log(lo), math.log(hi)
+        T_lo, T_hi = mf.temperature_window(T_in, T_in, hi)
+        self.T_lo, self.T_hi = T_lo, T_hi
+        if mf.explicit:
+            s_lo = mf.s_bounds(np.array([lo, hi]), T_lo, T_hi)[0].min()
+            s_hi = mf.s_bounds(np.array([lo, hi]), T_lo, T_hi)[1].max()
+            self.y0, self.y1 = self._w(s_lo), self._w(s_hi)
+        else:
+            self.y0, self.y1 = -1.0 / T_lo, -1.0 / T_hi
+        self.scale = 100.0
+
+    def _w(self, s: float) -> float:
+        return math.log(s / (self.mf.xi_max - s))
+
+    def tau_s(self, X: float, Y: float) -> tuple[float, float]:
+        tau = math.exp(self.x0 + X * (self.x1 - self.x0))
+        y = self.y0 + Y * (self.y1 - self.y0)
+        if self.mf.explicit:
+            s = self.mf.xi_max / (1.0 + math.exp(-y))
+        else:
+            s = -1.0 / y
+        return tau, s
+
+    def XY(self, tau: float, s: float) -> tuple[float, float]:
+        y = self._w(s) if self.mf.explicit else -1.0 / s
+        return (math.log(tau) - self.x0) / (self.x1 - self.x0), (y - self.y0) / (self.y1 - self.y0)
+
+    def ds_dY(self, s: float) -> float:
+        if self.mf.explicit:
+            return s * (1.0 - s / self.mf.xi_max) * (self.y1 - self.y0)
+        return s * s * (self.y1 - self.y0)
+
+    def G(self, X: float, Y: float) -> float:
+        tau, s = self.tau_s(X, Y)
+        v = float(_one(self.mf, tau, s).T_in[0])
+        return (v - self.T_in) / self.scale
+
+    def grad(self, X: float, Y: float) -> tuple[float, float, float]:
+        tau, s = self.tau_s(X, Y)
+        e = _one(self.mf, tau, s)
+        g = (float(e.T_in[0]) - self.T_in) / self.scale
+        gy = float(e.dTin_ds[0]) * self.ds_dY(s) / self.scale
+        h = 1e-7
+        gx = (self.G(X + h, Y) - self.G(X - h, Y)) / (2 * h)
+        return g, gx, gy
+
+    def correct(self, X: float, Y: float) -> tuple[float, float, bool]:
+        for _ in range(12):
+            g, gx, gy = self.grad(X, Y)
+            if not all(map(math.isfinite, (g, gx, gy))):
+                return X, Y, False
+            n2 = gx * gx + gy * gy
+            if n2 == 0:
+                return X, Y, False
+            X, Y = X - g * gx / n2, Y - g * gy / n2
+            if abs(g) < 1e-13:
+                return X, Y, True
+        return X, Y, abs(self.G(X, Y)) < 1e-10
+
+
+def _trace(plane: _Plane, X: float, Y: float, direction: float, max_steps: int = 4000):
+    """Pseudo-arclength continuation from (X, Y); returns the list of (X, Y, tX) along the curve."""
+    path = [(X, Y, 0.0)]
+    h = 0.01
+    _, gx, gy = plane.grad(X, Y)
+    tx, ty = gy, -gx
+    norm = math.hypot(tx, ty) or 1.0
+    tx, ty = direction * tx / norm, direction * ty / norm
+    X0, Y0 = X, Y
+    for step in range(max_steps):
+        ok = False
+        while h > 1e-7:
+            Xp, Yp = X + h * tx, Y + h * ty
+            Xc, Yc, conv = plane.correct(Xp, Yp)
+            if conv and math.hypot(Xc - X, Yc - Y) < 2.5 * h:
+                _, gx, gy = plane.grad(Xc, Yc)
+                ntx, nty = gy, -gx
+                nn = math.hypot(ntx, nty) or 1.0
+                ntx, nty = ntx / nn, nty / nn
+                if ntx * tx + nty * ty < 0:
+                    ntx, nty = -ntx, -nty
+                if ntx * tx + nty * ty > 0.95:
+                    ok = True
+                    break
+            h *= 0.5
+        if not ok:
+            break
+        X, Y, tx, ty = Xc, Yc, ntx, nty
+        path.append((X, Y, tx))
+        h = min(h * 1.5, 0.02)
+        if not (-1e-9 <= X <= 1 + 1e-9 and -0.05 <= Y <= 1.05):
+            break
+        if step > 10 and math.hypot(X - X0, Y - Y0) < 0.5 * h:
+            path.append((X0, Y0, tx))  # closed curve (isola)
+            break
+    return path
+
+
+def _along_residence_time(mf: Manifold, T_in: float, lo: float, hi: float):
+    plane = _Plane(mf, T_in, lo, hi)
+    starts: list[tuple[float, float]] = []
+    for tau_edge in (lo, hi):
+        for s in roots_along(mf, tau_edge, T_in, plane.T_lo, plane.T_hi, 1500):
+            starts.append(plane.XY(tau_edge, s))
+    interior = []
+    for tau_c in np.exp(np.linspace(plane.x0, plane.x1, 24))[1:-1]:
+        for s in roots_along(mf, float(tau_c), T_in, plane.T_lo, plane.T_hi, 1500):
+            interior.append(plane.XY(float(tau_c), s))
+    pieces: list[list[tuple[float, float, float]]] = []
+
+    def covered(X: float, Y: float) -> bool:
+        for p in pieces:
+            for a, b in zip(p[:-1], p[1:], strict=False):
+                # distance from the segment a-b
+                ax, ay, bx, by = a[0], a[1], b[0], b[1]
+                dx, dy = bx - ax, by - ay
+                L2 = dx * dx + dy * dy
+                t = 0.0 if L2 == 0 else max(0.0, min(1.0, ((X - ax) * dx + (Y - ay) * dy) / L2))
+                if math.hypot(ax + t * dx - X, ay + t * dy - Y) < 5e-3:
+                    return True
+        return False
+
+    for X, Y in starts:
+        if covered(X, Y):
+            continue
+        direction = 1.0 if X < 0.5 else -1.0
+        _, gx, gy = plane.grad(X, Y)
+        if gy * direction < 0:  # tangent (gy, -gx): make its X component point into the window
+            direction = -direction
+        pieces.append(_trace(plane, X, Y, direction))
+    for X, Y in interior:
+        if covered(X, Y):
+            continue
+        a = _trace(plane, X, Y, 1.0)
+        b = _trace(plane, X, Y, -1.0)
+        pieces.append(list(reversed(b)) + a[1:])
+
+    points, turns, hopfs = [], [], []
+    for k, path in enumerate(pieces):
+        prev = None
+        for X, Y, tx in path:
+            tau, s = plane.tau_s(X, Y)
+            if not (lo * (1 - 1e-12) <= tau <= hi * (1 + 1e-12)):
+                prev = None
+                continue
+            e = _one(mf, tau, s)
+            re, cplx, _ = _lead(mf, tau, s)
+            points.append(BranchPoint(tau, tau, T_in, float(e.T[0]), _conversion(mf, e.xi[0]), re < 0, cplx, k))
+            cur = (X, Y, tx, re, cplx)
+            if prev is not None:
+                if prev[2] * tx < 0:
+                    tp = _refine_fold(plane, 0.5 * (prev[0] + X), 0.5 * (prev[1] + Y))
+                    if tp is not None:
+                        turns.append(tp)
+                if prev[4] and cplx and prev[3] * re < 0:
+                    hp = _refine_hopf(plane, prev, cur)
+                    if hp is not None:
+                        hopfs.append(hp)
+            prev = cur
+    return points, turns, hopfs
+
+
+def _refine_fold(plane: _Plane, X: float, Y: float) -> TurningPoint | None:
+    mf = plane.mf
+
+    def eqs(v: np.ndarray) -> list[float]:
+        tau, s = plane.tau_s(float(v[0]), float(v[1]))
+        e = _one(mf, tau, s)
+        return [(float(e.T_in[0]) - plane.T_in) / plane.scale, float(e.dTin_ds[0]) * plane.ds_dY(s) / plane.scale]
+
+    sol, info, ier, _ = fsolve(eqs, [X, Y], full_output=True, xtol=1e-14)
+    if ier != 1 and max(abs(f) for f in eqs(sol)) > 1e-10:
+        return None
+    tau, s = plane.tau_s(float(sol[0]), float(sol[1]))
+    e = _one(mf, tau, s)
+    return TurningPoint(_fold_kind(mf, tau, s), tau, plane.T_in, float(e.T[0]))
+
+
+def _refine_hopf(plane: _Plane, a: tuple, b: tuple) -> HopfPoint | None:
+    mf = plane.mf
+
+    def lead_on_curve(t: float) -> float:
+        X = a[0] + t * (b[0] - a[0])
+        Y = a[1] + t * (b[1] - a[1])
+        X, Y, _ = plane.correct(X, Y)
+        tau, s = plane.tau_s(X, Y)
+        return _lead(mf, tau, s)[0]
+
+    try:
+        t = brentq(lead_on_curve, 0.0, 1.0, xtol=1e-14)
+    except ValueError:
+        return None
+    X, Y, _ = plane.correct(a[0] + t * (b[0] - a[0]), a[1] + t * (b[1] - a[1]))
+    tau, s = plane.tau_s(X, Y)
+    e = _one(mf, tau, s)
+    return HopfPoint(tau, plane.T_in, float(e.T[0]), _lead(mf, tau, s)[2])
+
+
+# -- public API -------------------------------------------------------------------------------------------
+def branch(sc: Scenario, along: str, tau: float | None = None, T_in: float | None = None, *,
+           lo: float | None = None, hi: float | None = None, c_in: tuple[float, ...] | None = None,
+           T_c: float | None = None, samples: int = 1500) -> BranchResult:
+    """Steady states along one parameter through an operating point.
+
+    Parameters
+    ----------
+    sc : Scenario
+    along : str
+        ``"residence_time"`` or ``"feed_temperature"``.
+    tau : float, optional
+        Residence time held fixed (along the feed temperature) or marked [s]; default the scenario's.
+    T_in : float, optional
+        Feed temperature held fixed (along the residence time) or marked [K]; default the scenario's.
+    lo, hi : float, optional
+        Parameter range [s or K]; default the scenario's map window (or a factor 20 / ±50 K around the point).
+
+    Returns
+    -------
+    BranchResult
+        Points (``value`` is the parameter), turning points (kind, τ, T_in, T) and Hopf points.
+
+    Raises
+    ------
+    ModelInputError
+        Unknown ``along``, a bad point or an empty range.
+    """
+    validate(sc)
+    if along not in ALONG:
+        raise ModelInputError(f"along must be one of {', '.join(ALONG)}", field="along")
+    tau = sc.tau_nominal if tau is None else tau
+    T_in = sc.T_in if T_in is None else T_in
+    check_point(tau, T_in)
+    d_lo, d_hi = default_range(sc, along, tau, T_in)
+    lo = d_lo if lo is None else lo
+    hi = d_hi if hi is None else hi
+    unit = "s" if along == RESIDENCE_TIME else "K"
+    if not (math.isfinite(lo) and math.isfinite(hi) and 0 < lo < hi):
+        raise ModelInputError(f"range must be two increasing positive values in {unit}", field="range")
+    mf = Manifold(sc, c_in=c_in, T_c=T_c)
+    if along == FEED_TEMPERATURE:
+        points, turns, hopfs = _along_feed_temperature(mf, tau, lo, hi, samples)
+    else:
+        points, turns, hopfs = _along_residence_time(mf, T_in, lo, hi)
+    turns.sort(key=lambda t: (t.tau, t.T_in))
+    ok = bool(points)
+    return BranchResult(along, tau, T_in, lo, hi, tuple(points), tuple(turns), tuple(hopfs), ok,
+                        f"{len(points)} points, {len(turns)} turning point(s), {len(hopfs)} Hopf point(s)"
+                        if ok else "no steady state in the range")
+
+
+def turning_points(sc: Scenario, along: str, tau: float | None = None, T_in: float | None = None,
+                   **kwargs: object) -> list[TurningPoint]:
+    """Only the turning points of :func:`branch` (same arguments)."""
+    return list(branch(sc, along, tau, T_in, **kwargs).turning_points)  # type: ignore[arg-type]

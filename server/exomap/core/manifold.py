@@ -1,0 +1,301 @@
+"""The steady-state manifold of the tank at fixed volume, feed composition and coolant temperature.
+
+At steady state the species balances give :math:`C = C_{in} + \\nu \\xi` with extents
+:math:`\\xi_j = \\tau r_j(C, T)` [mol/m^3], and the energy balance then gives the feed temperature *explicitly*:
+
+.. math::
+
+    T_{in}(\\tau, T) = a(\\tau) T - J \\cdot \\xi(\\tau, T) - b(\\tau), \\qquad
+    a = 1 + (\\kappa + \\lambda)\\tau, \\quad b = (\\kappa T_c + \\lambda T_{amb} + p)\\tau
+
+with :math:`J_j = -\\Delta H_j/(\\rho c_p)`, :math:`\\kappa = UA_{jacket}/(\\rho c_p V)`,
+:math:`\\lambda = UA_{loss}/(\\rho c_p V)` and :math:`p = P_{agitator}/(\\rho c_p V)`. So the steady states at
+(τ, T_in) are the roots in T of one scalar equation, every fold (ignition, extinction) is a zero of
+:math:`\\partial T_{in}/\\partial T` at fixed τ, and the map never has to solve a nonlinear system per cell.
+
+For one reaction whose limiting reactant has a positive order the isothermal balance is inverted in closed
+form as well: along the extent ξ, :math:`T(\\tau, \\xi) = (E_a/R) / \\ln(k_0 \\tau g(\\xi)/\\xi)` with
+:math:`g = \\prod_i C_i^{n_i}`, so the whole manifold is explicit in the coordinates (τ, ξ) ("explicit" path).
+Otherwise the coordinate is T and the isothermal balance is solved by a damped Newton iteration, vectorised
+and continued in T ("general" path). Both paths are checked against each other in the tests.
+
+Notes
+-----
+The general path assumes the isothermal mass balance has one solution at each (τ, T), which holds for
+power-law kinetics with non-negative orders in reactants only (no autocatalysis; the scenario validation
+rejects positive orders in a reaction's own products).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from exomap.core.errors import ModelInputError
+from exomap.core.scenario import R_GAS, Scenario
+
+_TINY = 1e-300
+
+
+@dataclass(frozen=True)
+class Samples:
+    """Evaluations of the manifold at coordinates ``s`` (shape (..., N)); arrays broadcast with tau."""
+
+    tau: np.ndarray
+    s: np.ndarray
+    T: np.ndarray
+    xi: np.ndarray  # (..., N, m)
+    T_in: np.ndarray
+    dTin_ds: np.ndarray
+    dT_ds: np.ndarray
+    valid: np.ndarray
+
+
+class Manifold:
+    """Steady states of one scenario at fixed feed composition ``c_in`` and coolant temperature ``T_c``."""
+
+    def __init__(self, sc: Scenario, *, c_in: tuple[float, ...] | None = None, T_c: float | None = None) -> None:
+        self.sc = sc
+        self.nu = sc.nu  # (n, m)
+        self.orders = sc.orders  # (m, n)
+        self.k0 = sc.k0
+        self.E = sc.Ea / R_GAS  # activation temperatures [K]
+        self.J = -sc.dH / (sc.rho * sc.cp)
+        self.c_in = np.asarray(sc.c_in if c_in is None else c_in, dtype=float)
+        if self.c_in.shape != (sc.n_species,) or np.any(~np.isfinite(self.c_in)) or np.any(self.c_in < 0):
+            raise ModelInputError("feed concentrations must be one finite value >= 0 per species",
+                                  field="feed.concentrations")
+        self.T_c = sc.T_c if T_c is None else float(T_c)
+        rhocpV = sc.rho * sc.cp * sc.vessel.V_set
+        self.kappa = sc.UA_jacket / rhocpV
+        self.lam = sc.UA_loss / rhocpV
+        self.p = sc.P_agitator / rhocpV
+        self.m = len(sc.reactions)
+        self.n = sc.n_species
+        # closed-form path: one reaction whose limiting reactant has a positive order
+        self.explicit = False
+        if self.m == 1:
+            nu = self.nu[:, 0]
+            cons = nu < 0
+            with np.errstate(divide="ignore"):
+                lim = np.where(cons, self.c_in / np.where(cons, -nu, 1.0), np.inf)
+            i_lim = int(np.argmin(lim))
+            self.xi_max = float(lim[i_lim])
+            self.explicit = bool(self.orders[0, i_lim] > 0 and self.xi_max > 0)
+        self.key = sc.key_species
+        self.key_feed = float(self.c_in[self.key])
+
+    # -- coefficients ---------------------------------------------------------------------------------
+    def a(self, tau: np.ndarray) -> np.ndarray:
+        return 1.0 + (self.kappa + self.lam) * tau
+
+    def b(self, tau: np.ndarray) -> np.ndarray:
+        return (self.kappa * self.T_c + self.lam * self.sc.T_amb + self.p) * tau
+
+    def conversion(self, C_key: np.ndarray) -> np.ndarray:
+        """Conversion of the first reactant of the first reaction [-]."""
+        if self.key_feed <= 0:
+            return np.zeros_like(C_key)
+        return 1.0 - C_key / self.key_feed
+
+    # -- kinetics (vectorised) ------------------------------------------------------------------------
+    def concentrations(self, xi: np.ndarray) -> np.ndarray:
+        """C = C_in + nu xi, shape (..., n), for xi shape (..., m)."""
+        return self.c_in + xi @ self.nu.T
+
+    def rates(self, C: np.ndarray, T: np.ndarray) -> np.ndarray:
+        """r (..., m) at C (..., n) and T (...)."""
+        Cp = np.maximum(C, 0.0)
+        k = self.k0 * np.exp(-self.E / T[..., None])
+        return k * np.prod(Cp[..., None, :] ** self.orders, axis=-1)
+
+    def rate_derivatives(self, C: np.ndarray, T: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """(r (...,m), dr/dC (...,m,n), dr/dT (...,m))."""
+        Cp = np.maximum(C, 1e-300)
+        r = self.rates(C, T)
+        dr_dC = r[..., :, None] * self.orders / Cp[..., None, :]
+        dr_dT = r * self.E / (T[..., None] ** 2)
+        return r, dr_dC, dr_dT
+
+    # -- the explicit (one reaction) path -------------------------------------------------------------
+    def _g(self, xi: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """g(xi) = prod C_i^n_i and g'/g, for one reaction; xi any shape."""
+        nu = self.nu[:, 0]
+        n = self.orders[0]
+        C = self.c_in + xi[..., None] * nu
+        Cp = np.maximum(C, _TINY)
+        logg = np.sum(np.where(n != 0, n * np.log(Cp), 0.0), axis=-1)
+        dlogg = np.sum(np.where(n != 0, n * nu / Cp, 0.0), axis=-1)
+        return logg, dlogg
+
+    def explicit_eval(self, tau: np.ndarray, xi: np.ndarray) -> Samples:
+        """Manifold at (tau, xi) for the one-reaction path (shapes broadcast)."""
+        tau, xi = np.broadcast_arrays(np.asarray(tau, float), np.asarray(xi, float))
+        E = self.E[0]
+        logg, dlogg = self._g(xi)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            L = np.log(self.k0[0] * tau) + logg - np.log(xi)
+            valid = (L > 0) & (xi > 0) & (xi < self.xi_max)
+            T = np.where(valid, E / np.where(valid, L, 1.0), np.nan)
+            dT_dxi = T * T / E * (1.0 / xi - dlogg)
+        a = self.a(tau)
+        T_in = a * T - self.J[0] * xi - self.b(tau)
+        dTin = a * dT_dxi - self.J[0]
+        return Samples(tau, xi, T, xi[..., None], T_in, dTin, dT_dxi, valid)
+
+    def explicit_xi_at_T(self, tau: np.ndarray, T: np.ndarray, iterations: int = 80) -> np.ndarray:
+        """Extent at (tau, T) by vectorised bisection in log-odds of xi/xi_max (T is monotone in xi)."""
+        tau, T = np.broadcast_arrays(np.asarray(tau, float), np.asarray(T, float))
+        lo = np.full(tau.shape, -60.0)
+        hi = np.full(tau.shape, 60.0)
+        for _ in range(iterations):
+            mid = 0.5 * (lo + hi)
+            xi = self.xi_max / (1.0 + np.exp(-mid))
+            Tm = self.explicit_eval(tau, xi).T
+            up = ~(Tm < T)  # nan (no physical T: xi too large for this tau) counts as "too hot"
+            hi = np.where(up, mid, hi)
+            lo = np.where(up, lo, mid)
+        return self.xi_max / (1.0 + np.exp(-0.5 * (lo + hi)))
+
+    # -- the general path -----------------------------------------------------------------------------
+    def isothermal_extents(self, tau: np.ndarray, T: np.ndarray, xi0: np.ndarray | None = None,
+                           tol: float = 1e-12, max_iter: int = 60) -> np.ndarray:
+        """Solve xi = tau r(C_in + nu xi, T) for xi (..., m) by damped Newton, vectorised."""
+        tau, T = np.broadcast_arrays(np.asarray(tau, float), np.asarray(T, float))
+        if xi0 is None:
+            r0 = self.rates(np.broadcast_to(self.c_in, tau.shape + (self.n,)), T)
+            xi = tau[..., None] * r0
+            xi = self._feasible(np.zeros_like(xi), xi)
+        else:
+            xi = np.array(xi0, dtype=float, copy=True)
+        eye = np.eye(self.m)
+        scale = max(float(np.max(self.c_in)), 1.0)
+        for _ in range(max_iter):
+            C = self.concentrations(xi)
+            r, dr_dC, _ = self.rate_derivatives(C, T)
+            res = xi - tau[..., None] * r
+            if np.all(np.abs(res) <= tol * scale):
+                break
+            jac = eye - tau[..., None, None] * (dr_dC @ self.nu)
+            step = -np.linalg.solve(jac, res[..., None])[..., 0]
+            xi = self._feasible(xi, xi + step)
+        return xi
+
+    def _feasible(self, xi: np.ndarray, target: np.ndarray) -> np.ndarray:
+        """Move from xi towards target, but no further than 99 % of the way to C = 0 or xi = 0."""
+        d = target - xi
+        C = self.concentrations(xi)
+        dC = d @ self.nu.T
+        with np.errstate(divide="ignore", invalid="ignore"):
+            tc = np.where(dC < 0, -C / dC, np.inf)
+            tx = np.where(d < 0, -xi / d, np.inf)
+        t = np.minimum(np.min(tc, axis=-1), np.min(tx, axis=-1))
+        alpha = np.where(t >= 1.0, 1.0, 0.99 * np.maximum(t, 0.0))
+        return xi + alpha[..., None] * d
+
+    def general_eval(self, tau: np.ndarray, T: np.ndarray, xi: np.ndarray | None = None) -> Samples:
+        """Manifold at (tau, T) (shapes broadcast); xi solved unless given."""
+        tau, T = np.broadcast_arrays(np.asarray(tau, float), np.asarray(T, float))
+        if xi is None:
+            xi = self.isothermal_extents(tau, T)
+        C = self.concentrations(xi)
+        _, dr_dC, dr_dT = self.rate_derivatives(C, T)
+        jac = np.eye(self.m) - tau[..., None, None] * (dr_dC @ self.nu)
+        dxi_dT = np.linalg.solve(jac, (tau[..., None] * dr_dT)[..., None])[..., 0]
+        a = self.a(tau)
+        T_in = a * T - xi @ self.J - self.b(tau)
+        dTin = a - dxi_dT @ self.J
+        return Samples(tau, T, T, xi, T_in, dTin, np.ones_like(T), np.isfinite(T_in))
+
+    # -- common interface -----------------------------------------------------------------------------
+    def evaluate(self, tau: np.ndarray, s: np.ndarray) -> Samples:
+        """Manifold at coordinates (tau, s): s is the extent (explicit path) or T (general path)."""
+        return self.explicit_eval(tau, s) if self.explicit else self.general_eval(tau, s)
+
+    def temperature_window(self, T_in_lo: float, T_in_hi: float, tau_hi: float) -> tuple[float, float]:
+        """Bounds on every steady temperature for feed temperatures in [T_in_lo, T_in_hi] [K]."""
+        lo = min(T_in_lo, self.T_c if self.kappa > 0 else np.inf, self.sc.T_amb if self.lam > 0 else np.inf)
+        hi = max(T_in_hi, self.T_c if self.kappa > 0 else -np.inf, self.sc.T_amb if self.lam > 0 else -np.inf)
+        rise = self.max_heat_release()
+        hi = hi + max(rise, 0.0) + self.p * tau_hi
+        lo = lo + min(self.min_heat_release(), 0.0)
+        return max(lo - 2.0, 50.0), hi + 5.0
+
+    def max_heat_release(self) -> float:
+        """Largest adiabatic temperature rise the feed can give, max J.xi over feasible extents [K]."""
+        return self._extreme_release(+1.0)
+
+    def min_heat_release(self) -> float:
+        return self._extreme_release(-1.0)
+
+    def _extreme_release(self, sign: float) -> float:
+        from scipy.optimize import linprog
+
+        # maximise sign * J.xi subject to C_in + nu xi >= 0, xi >= 0
+        res = linprog(-sign * self.J, A_ub=-self.nu, b_ub=self.c_in, bounds=[(0, None)] * self.m, method="highs")
+        if res.status != 0:
+            return 0.0
+        return float(sign * -res.fun)
+
+    def s_bounds(self, tau: np.ndarray, T_lo: float, T_hi: float) -> tuple[np.ndarray, np.ndarray]:
+        """Coordinate bounds covering temperatures T_lo..T_hi at each tau."""
+        tau = np.asarray(tau, float)
+        if self.explicit:
+            return (self.explicit_xi_at_T(tau, np.full(tau.shape, T_lo)),
+                    self.explicit_xi_at_T(tau, np.full(tau.shape, T_hi)))
+        return np.full(tau.shape, T_lo), np.full(tau.shape, T_hi)
+
+    def sample(self, tau: np.ndarray, T_lo: float, T_hi: float, N: int) -> Samples:
+        """Samples along s at each tau (shape (n_tau, N)), spaced evenly in 1/T (general path) or in the
+        log-odds of the conversion (explicit path; nearly even in 1/T at both ends)."""
+        tau = np.asarray(tau, float)
+        s_lo, s_hi = self.s_bounds(tau, T_lo, T_hi)
+        u = np.linspace(0.0, 1.0, N)
+        if self.explicit:
+            w_lo = np.log(s_lo / (self.xi_max - s_lo))
+            w_hi = np.log(s_hi / (self.xi_max - s_hi))
+            w = w_lo[:, None] + (w_hi - w_lo)[:, None] * u
+            s = self.xi_max / (1.0 + np.exp(-w))
+            return self.explicit_eval(tau[:, None], s)
+        inv = 1.0 / T_lo + (1.0 / T_hi - 1.0 / T_lo) * u
+        Tg = np.broadcast_to(1.0 / inv, (tau.size, N))
+        xi = np.empty((tau.size, N, self.m))
+        guess = None
+        for k in range(N):  # continuation in T: each column warm-starts from the previous temperature
+            guess = self.isothermal_extents(tau, Tg[:, k], guess)
+            xi[:, k] = guess
+        return self.general_eval(tau[:, None], Tg, xi)
+
+    # -- stability on the manifold --------------------------------------------------------------------
+    def reduced_jacobian(self, tau: np.ndarray, T: np.ndarray, xi: np.ndarray) -> np.ndarray:
+        """Jacobian of the extent-and-temperature system on the invariant manifold, shape (..., m+1, m+1).
+
+        The full species+energy block has these eigenvalues plus -1/tau once per reaction invariant
+        (n - rank(nu) of them), which are always stable.
+        """
+        C = self.concentrations(xi)
+        _, dr_dC, dr_dT = self.rate_derivatives(C, T)
+        Rn = dr_dC @ self.nu  # (..., m, m)
+        m = self.m
+        out = np.zeros(T.shape + (m + 1, m + 1))
+        out[..., :m, :m] = Rn - np.eye(m) / tau[..., None, None]
+        out[..., :m, m] = dr_dT
+        out[..., m, :m] = np.einsum("j,...jk->...k", self.J, Rn)
+        out[..., m, m] = -self.a(tau) / tau + dr_dT @ self.J
+        return out
+
+    def leading_real_part(self, tau: np.ndarray, T: np.ndarray, xi: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """(max real part of the reduced eigenvalues [1/s], whether the leading pair is complex)."""
+        Jr = self.reduced_jacobian(tau, T, xi)
+        if self.m == 1:
+            tr = Jr[..., 0, 0] + Jr[..., 1, 1]
+            det = Jr[..., 0, 0] * Jr[..., 1, 1] - Jr[..., 0, 1] * Jr[..., 1, 0]
+            disc = tr * tr - 4.0 * det
+            sq = np.sqrt(np.abs(disc))
+            lead = np.where(disc >= 0, 0.5 * (tr + sq), 0.5 * tr)
+            return lead, disc < 0
+        ev = np.linalg.eigvals(Jr)
+        idx = np.argmax(ev.real, axis=-1)
+        lead = np.take_along_axis(ev, idx[..., None], axis=-1)[..., 0]
+        return lead.real, np.abs(lead.imag) > 1e-12 * np.maximum(np.abs(lead.real), 1e-30)

@@ -1,0 +1,281 @@
+"""Every steady state at an operating point, with its stability.
+
+Method: the steady states at (τ, T_in) are the roots of :math:`T_{in}(\\tau, s) - T_{in} = 0` along one
+coordinate s of the steady-state manifold (``exomap.core.manifold``). The coordinate is sampled densely over
+every temperature a steady state can have (bounded by the feed's largest adiabatic rise), sign changes are
+refined with Brent's method, and every extremum of :math:`T_{in}(s)` between two samples is located too, so
+two roots closer together than the sampling (next to a turning point) are not missed. Each root is then
+polished by Newton's method on the full species and energy balances of ``exomap.core.model``, and classified
+from the eigenvalues of the species+energy Jacobian at fixed volume.
+
+Stability (DESIGN.md §2): ``stable`` when every eigenvalue has a negative real part; ``saddle`` when exactly
+one is real and positive (the middle state of a multiplicity); ``unstable`` otherwise. ``oscillatory`` flags
+a leading complex pair. The level block is decoupled at constant density (A dh/dt = q_in - q_out(h) with
+dq_out/dh > 0) and always stable, so it is left out.
+
+References
+----------
+[1] C. van Heerden, Autothermic processes, Ind. Eng. Chem. 45 (1953) 1242-1247.
+[2] A. Uppal, W. H. Ray, A. B. Poore, On the dynamic behavior of continuous stirred tank reactors,
+    Chem. Eng. Sci. 29 (1974) 967-985.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+from scipy.optimize import brentq
+
+from exomap.core import valve as valve_mod
+from exomap.core.errors import ModelInputError
+from exomap.core.manifold import Manifold
+from exomap.core.model import Model, nominal_inputs
+from exomap.core.scenario import Scenario, validate
+
+STABLE, SADDLE, UNSTABLE = "stable", "saddle", "unstable"
+#: Samples along the manifold coordinate for a single operating point.
+POINT_SAMPLES = 3000
+
+
+@dataclass(frozen=True)
+class SteadyState:
+    """One steady state. ``sensitivity`` is dT/dT_in at fixed residence time [-]."""
+
+    T: float
+    C: tuple[float, ...]
+    conversion: float
+    stability: str
+    oscillatory: bool
+    eigenvalues: tuple[complex, ...]
+    valve_opening: float
+    sensitivity: float
+    residual: float
+    species: tuple[str, ...] = field(repr=False, default=())
+
+    @property
+    def stable(self) -> bool:
+        return self.stability == STABLE
+
+    def to_dict(self) -> dict:
+        return {
+            "temperature_K": self.T,
+            "concentrations_mol_per_m3": dict(zip(self.species, self.C, strict=True)),
+            "conversion": self.conversion,
+            "stability": self.stability,
+            "oscillatory": self.oscillatory,
+            "eigenvalues_per_s": [[ev.real, ev.imag] for ev in self.eigenvalues],
+            "valve_opening": _finite_or_none(self.valve_opening),
+            "sensitivity": _finite_or_none(self.sensitivity),
+        }
+
+
+@dataclass(frozen=True)
+class SteadyStateResult:
+    """All steady states at one operating point, sorted by temperature (lowest first)."""
+
+    tau: float
+    T_in: float
+    q: float
+    c_in: tuple[float, ...]
+    T_c: float
+    V: float
+    h: float
+    states: tuple[SteadyState, ...]
+    success: bool
+    message: str
+    species: tuple[str, ...]
+    samples: int
+
+    def to_dict(self) -> dict:
+        return {
+            "operating_point": {
+                "residence_time_s": self.tau,
+                "feed_temperature_K": self.T_in,
+                "flow_m3_per_s": self.q,
+                "feed_concentrations_mol_per_m3": dict(zip(self.species, self.c_in, strict=True)),
+                "coolant_temperature_K": self.T_c,
+                "volume_m3": self.V,
+                "level_m": self.h,
+            },
+            "states": [s.to_dict() for s in self.states],
+            "success": self.success,
+            "message": self.message,
+        }
+
+
+def _finite_or_none(x: float) -> float | None:
+    return float(x) if x is not None and math.isfinite(x) else None
+
+
+def classify(eigenvalues: np.ndarray) -> tuple[str, bool]:
+    """Stability class and oscillatory flag from eigenvalues (DESIGN.md §2)."""
+    ev = np.asarray(eigenvalues)
+    re = ev.real
+    scale = max(float(np.max(np.abs(ev))), 1e-300)
+    pos = re > 1e-10 * scale
+    if not pos.any():
+        kind = STABLE
+    elif pos.sum() == 1 and abs(ev[np.argmax(re)].imag) <= 1e-10 * scale:
+        kind = SADDLE
+    else:
+        kind = UNSTABLE
+    lead = ev[np.argmax(re)]
+    return kind, bool(abs(lead.imag) > 1e-10 * scale)
+
+
+def check_point(tau: float, T_in: float) -> None:
+    if not (isinstance(tau, (int, float)) and math.isfinite(tau) and tau > 0):
+        raise ModelInputError(f"residence time must be a positive number of seconds, got {tau!r}",
+                              field="residence_time")
+    if not (isinstance(T_in, (int, float)) and math.isfinite(T_in) and T_in > 0):
+        raise ModelInputError(f"feed temperature must be a positive absolute temperature in K, got {T_in!r}",
+                              field="feed_temperature")
+
+
+def roots_along(mf: Manifold, tau: float, T_in: float, T_lo: float, T_hi: float,
+                n: int = POINT_SAMPLES) -> list[float]:
+    """Coordinates s of every root of T_in(tau, s) = T_in, for one tau."""
+    smp = mf.sample(np.array([tau]), T_lo, T_hi, n)
+    s = smp.s[0]
+    f = smp.T_in[0] - T_in
+    d = smp.dTin_ds[0]
+    ok = smp.valid[0] & np.isfinite(f)
+
+    def phi(x: float) -> float:
+        return float(mf.evaluate(np.array([tau]), np.array([x])).T_in[0] - T_in)
+
+    def dphi(x: float) -> float:
+        return float(mf.evaluate(np.array([tau]), np.array([x])).dTin_ds[0])
+
+    roots: list[float] = []
+    for k in range(len(s) - 1):
+        if not (ok[k] and ok[k + 1]):
+            continue
+        fa, fb = f[k], f[k + 1]
+        if fa == 0.0:
+            roots.append(float(s[k]))
+            continue
+        if fa * fb < 0:
+            roots.append(brentq(phi, s[k], s[k + 1], xtol=1e-14 * max(abs(s[k]), 1e-300), rtol=1e-15,
+                                maxiter=200))
+        elif d[k] * d[k + 1] < 0:
+            # an extremum between two samples: two roots may hide on its either side
+            se = brentq(dphi, s[k], s[k + 1], xtol=1e-15 * max(abs(s[k]), 1e-300), rtol=1e-15, maxiter=200)
+            fe = phi(se)
+            if fe * fa < 0:
+                roots.append(brentq(phi, s[k], se, rtol=1e-15, maxiter=200))
+                roots.append(brentq(phi, se, s[k + 1], rtol=1e-15, maxiter=200))
+            elif fe == 0.0:
+                roots.append(se)
+    if ok[-1] and f[-1] == 0.0:
+        roots.append(float(s[-1]))
+    return roots
+
+
+def steady_states(sc: Scenario, tau: float, T_in: float, *, c_in: tuple[float, ...] | None = None,
+                  T_c: float | None = None, samples: int = POINT_SAMPLES) -> SteadyStateResult:
+    """Every steady state of the tank at residence time ``tau`` and feed temperature ``T_in``.
+
+    .. math:: 0 = (C_{in} - C)/\\tau + \\nu r(C, T), \\quad
+              0 = (T_{in} - T)/\\tau + J \\cdot r - \\kappa (T - T_c) - \\lambda (T - T_{amb}) + p
+
+    Parameters
+    ----------
+    sc : Scenario
+    tau : float
+        Residence time V_set / q [s].
+    T_in : float
+        Feed temperature [K].
+    c_in : tuple of float, optional
+        Feed concentrations overriding the scenario's [mol/m^3].
+    T_c : float, optional
+        Coolant temperature overriding the scenario's [K].
+
+    Returns
+    -------
+    SteadyStateResult
+        States sorted by temperature, each with concentrations, conversion, stability, eigenvalues, the
+        valve opening that passes the flow at the set level, and dT/dT_in.
+
+    Raises
+    ------
+    ModelInputError
+        For a non-positive or non-finite residence time or feed temperature, or an invalid scenario.
+
+    Notes
+    -----
+    Completeness rests on the sampling resolving every extremum of T_in(s) that is further than one sample
+    from another; the refinement step then catches pairs of roots closer than one sample.
+
+    Examples
+    --------
+    >>> from exomap.core.scenario import *  # doctest: +SKIP
+    """
+    validate(sc)
+    check_point(tau, T_in)
+    mf = Manifold(sc, c_in=c_in, T_c=T_c)
+    T_lo, T_hi = mf.temperature_window(T_in, T_in, tau)
+    roots = roots_along(mf, tau, T_in, T_lo, T_hi, samples)
+    model = Model(sc)
+    q = sc.vessel.V_set / tau
+    u = nominal_inputs(sc, tau=tau, T_in=T_in, c_in=tuple(mf.c_in), T_c=mf.T_c)
+    opening = valve_mod.opening_for_flow(sc, q)
+    states = []
+    for s_root in roots:
+        smp = mf.evaluate(np.array([tau]), np.array([s_root]))
+        T0 = float(smp.T[0])
+        C0 = mf.concentrations(smp.xi[0])
+        C, T, res = _polish(model, u, C0, T0)
+        y = model.pack(sc.vessel.h_set, C, T, 0.0)
+        ev = np.linalg.eigvals(model.reactor_block(y, u))
+        ev = ev[np.argsort(-ev.real)]
+        kind, osc = classify(ev)
+        dT = float(smp.dT_ds[0])
+        dTin = float(smp.dTin_ds[0])
+        sens = dT / dTin if dTin != 0 else math.inf
+        states.append(SteadyState(
+            T=T, C=tuple(float(c) for c in C), conversion=float(mf.conversion(np.array(C[mf.key]))),
+            stability=kind, oscillatory=osc, eigenvalues=tuple(complex(e) for e in ev),
+            valve_opening=opening, sensitivity=sens, residual=res, species=sc.species,
+        ))
+    states.sort(key=lambda st: st.T)
+    ok = bool(states) and all(st.residual < 1e-8 for st in states)
+    msg = f"{len(states)} steady state(s)" if ok else "no steady state converged" if not states else (
+        "a steady state did not polish to tolerance")
+    return SteadyStateResult(tau=tau, T_in=T_in, q=q, c_in=tuple(float(c) for c in mf.c_in), T_c=mf.T_c,
+                             V=sc.vessel.V_set, h=sc.vessel.h_set, states=tuple(states), success=ok,
+                             message=msg, species=sc.species, samples=samples)
+
+
+def _polish(model: Model, u, C: np.ndarray, T: float, iterations: int = 4) -> tuple[np.ndarray, float, float]:
+    """Newton on the species and energy balances at the set level; returns (C, T, relative residual)."""
+    n = model.n
+    h = model.sc.vessel.h_set
+    z = np.concatenate((C, [T]))
+    scale = np.concatenate((np.maximum(np.abs(C), np.max(np.abs(u.c_in)) + 1.0), [T]))
+
+    def residual(zz: np.ndarray) -> np.ndarray:
+        y = model.pack(h, zz[:n], zz[n], 0.0)
+        return model.rhs(0.0, y, u)[1 : n + 2]
+
+    tau = model.sc.vessel.V_set / u.q_in
+    r = residual(z)
+    best = (z.copy(), float(np.max(np.abs(r) * tau / scale)))
+    for _ in range(iterations):
+        y = model.pack(h, z[:n], z[n], 0.0)
+        J = model.reactor_block(y, u)
+        try:
+            dz = np.linalg.solve(J, -r)
+        except np.linalg.LinAlgError:
+            break
+        z = z + dz
+        r = residual(z)
+        err = float(np.max(np.abs(r) * tau / scale))
+        if err < best[1]:
+            best = (z.copy(), err)
+        if err < 1e-14:
+            break
+    zb, err = best
+    return zb[:n], float(zb[n]), err
