@@ -1,0 +1,312 @@
+"""Routes of the JSON API under ``/api/v1``.
+
+Computation answers are exactly the core result's ``to_dict()`` (DESIGN.md §4), serialised once in the worker
+and sent as they are (from the cache on a repeat, marked ``X-Exomap-Cache: hit``). Each computation has a POST
+form (a JSON body, scenario inline or by id) and a GET twin on a stored scenario
+(``/api/v1/scenarios/{id}/map?residence_time=1 min,10 h``), so pages and share links are plain URLs.
+"""
+
+
+import hmac
+import json
+from typing import Annotated, Any
+
+from fastapi import APIRouter, Body, Depends, Path, Query, Request
+from fastapi.exceptions import RequestValidationError
+from fastapi.responses import JSONResponse, Response
+from pydantic import ValidationError
+
+import exomap
+from exomap.web.errors import ApiError, error_responses
+from exomap.web.models import BranchRequest, CheckRequest, MapRequest, SimulateRequest, SteadyRequest
+from exomap.web.service import REQUEST_MODELS, Service
+from exomap.web.settings import Settings
+
+SCENARIO_FORMAT = "exomap-scenario/1"
+
+# -- answer schemas for the OpenAPI document (the keys DESIGN.md §4 fixes; more keys are allowed) ---------------
+_OBJECT = {"type": "object"}
+ANSWER_SCHEMAS: dict[str, dict[str, Any]] = {
+    "steady": {"type": "object", "required": ["operating_point", "states"],
+               "properties": {"operating_point": _OBJECT, "states": {"type": "array", "items": _OBJECT}}},
+    "branch": {"type": "object", "required": ["parameter", "points", "turning_points"],
+               "properties": {"points": {"type": "array"}, "turning_points": {"type": "array"}}},
+    "map": {"type": "object", "required": ["residence_time_s", "feed_temperature_K", "region", "legend"],
+            "properties": {"residence_time_s": {"type": "array"}, "feed_temperature_K": {"type": "array"},
+                           "region": {"type": "array"}, "legend": {"type": "array"}}},
+    "check": {"type": "object", "required": ["verdict", "reasons", "cautions"],
+              "properties": {"verdict": {"type": "string", "enum": ["inside", "marginal", "outside"]},
+                             "reasons": {"type": "array"}, "cautions": {"type": "array"}}},
+    "simulate": {"type": "object"},
+}
+SUMMARIES = {
+    "steady": "Every steady state at an operating point, with its stability",
+    "branch": "A branch of steady states along residence time or feed temperature, with turning points",
+    "map": "Operating map: regions over residence time x feed temperature, with exact boundaries",
+    "check": "Setpoint check: margins, safety figures, upsets, verdict and cautions",
+    "simulate": "Dynamic simulation from a steady state, with events",
+}
+CSV_KINDS = ("map", "simulate")
+
+SCENARIO_SUMMARY = {
+    "type": "object",
+    "required": ["id", "title", "description", "demo", "name"],
+    "properties": {
+        "id": {"type": "string"},
+        "title": {"type": "string"},
+        "description": {"type": "string"},
+        "demo": {"type": "boolean"},
+        "name": {"type": ["string", "null"]},
+    },
+}
+
+
+def get_service(request: Request) -> Service:
+    return request.app.state.service
+
+
+def get_settings(request: Request) -> Settings:
+    return request.app.state.settings
+
+
+ServiceDep = Annotated[Service, Depends(get_service)]
+SettingsDep = Annotated[Settings, Depends(get_settings)]
+
+
+def _answer_response(out: bytes | str, hit: bool, fmt: str, kind: str, scenario: str | None = None) -> Response:
+    headers = {"X-Exomap-Cache": "hit" if hit else "miss"}
+    if fmt == "csv":
+        name = f"{kind}-{scenario}.csv" if scenario else f"{kind}.csv"
+        headers["Content-Disposition"] = f'inline; filename="{name}"'
+        return Response(out, media_type="text/csv; charset=utf-8", headers=headers)
+    return Response(out, media_type="application/json", headers=headers)
+
+
+def _answer_responses(kind: str) -> dict[int | str, dict[str, Any]]:
+    content: dict[str, Any] = {"application/json": {"schema": ANSWER_SCHEMAS[kind]}}
+    if kind in CSV_KINDS:
+        content["text/csv"] = {"schema": {"type": "string"}}
+    return {200: {"description": f"The {kind} answer (DESIGN.md §4).", "content": content},
+            **error_responses(404, 413, 422, 503)}
+
+
+def _number_or_text(value: str | None) -> float | str | None:
+    """A query value: a bare number is SI, anything else a quantity with units."""
+    if value is None:
+        return None
+    try:
+        return float(value)
+    except ValueError:
+        return value.strip()
+
+
+def _pair(value: str | None) -> list[float | str] | str | None:
+    """``"lo,hi"`` -> [lo, hi] (left as text when it is not two items, so validation names the field)."""
+    if value is None:
+        return None
+    parts = [p.strip() for p in value.split(",")]
+    if len(parts) != 2:
+        return value
+    return [_number_or_text(p) for p in parts]  # type: ignore[misc]
+
+
+def _validated(model: type, data: dict[str, Any]) -> Any:
+    """Build a request model from query values; errors become the usual 422 with ``query`` locations."""
+    try:
+        return model.model_validate({k: v for k, v in data.items() if v is not None})
+    except ValidationError as exc:
+        raise RequestValidationError(
+            [{**e, "loc": ("query", *e["loc"])} for e in exc.errors(include_url=False, include_context=False)]
+        ) from None
+
+
+def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
+    """The ``/api/v1`` router. ``example_scenario`` is the OpenAPI example of a scenario body."""
+    router = APIRouter(prefix="/api/v1")
+
+    @router.get("/health", summary="Liveness: answers at once, even while maps compute",
+                responses={200: {"content": {"application/json": {"schema": {
+                    "type": "object", "required": ["status"], "properties": {"status": {"const": "ok"}}}}}}})
+    async def health() -> JSONResponse:
+        return JSONResponse({"status": "ok"})
+
+    @router.get("/version", summary="Version of exomap and of the scenario format it reads",
+                responses={200: {"content": {"application/json": {"schema": {
+                    "type": "object", "required": ["version", "scenario_format"]}}}}})
+    async def version() -> JSONResponse:
+        return JSONResponse({"version": exomap.__version__, "scenario_format": SCENARIO_FORMAT})
+
+    @router.get("/scenarios", summary="Demo and saved scenarios",
+                responses={200: {"content": {"application/json": {"schema": {
+                    "type": "object", "required": ["scenarios"],
+                    "properties": {"scenarios": {"type": "array", "items": SCENARIO_SUMMARY}}}}}}})
+    async def list_scenarios(service: ServiceDep) -> JSONResponse:
+        return JSONResponse({"scenarios": [s.summary() for s in service.store.list()]})
+
+    @router.get("/scenarios/{scenario_id}", summary="The canonical document of one scenario (SI numbers)",
+                responses={200: {"content": {"application/json": {"schema": _OBJECT}}}, **error_responses(404)})
+    async def get_scenario(
+        service: ServiceDep,
+        scenario_id: Annotated[str, Path(description="Scenario id (16 hex digits) or a demo's name.")],
+    ) -> Response:
+        stored = service.store.get(scenario_id)
+        if stored is None:
+            raise ApiError(404, "not_found", f"no scenario with id {scenario_id!r}")
+        return Response(stored.document, media_type="application/json")
+
+    body_example = example_scenario if example_scenario is not None else {"format": SCENARIO_FORMAT}
+
+    @router.post(
+        "/scenarios",
+        status_code=201,
+        summary="Save a scenario (idempotent: the same content always gets the same id)",
+        description="201 when the scenario is new, 200 when it is already stored (demo or saved). Nothing is "
+        "ever overwritten. When the server has a save token, send `Authorization: Bearer <token>`.",
+        responses={
+            201: {"description": "Saved.", "content": {"application/json": {"schema": SCENARIO_SUMMARY}}},
+            200: {"description": "Already stored.", "content": {"application/json": {"schema": SCENARIO_SUMMARY}}},
+            **error_responses(401, 413, 422),
+        },
+    )
+    async def save_scenario(
+        request: Request,
+        service: ServiceDep,
+        settings: SettingsDep,
+        document: Annotated[
+            dict[str, Any], Body(description="A scenario document (DESIGN.md §3).", examples=[body_example])
+        ],
+    ) -> JSONResponse:
+        if settings.save_token:
+            auth = request.headers.get("authorization", "")
+            scheme, _, token = auth.partition(" ")
+            if scheme.lower() != "bearer" or not hmac.compare_digest(token.strip().encode(),
+                                                                    settings.save_token.encode()):
+                raise ApiError(401, "unauthorized", "saving needs the header 'Authorization: Bearer <token>'",
+                               headers={"WWW-Authenticate": "Bearer"})
+        from exomap import schema
+
+        try:
+            stored, created = service.store.save(document)
+        except schema.ScenarioError as exc:
+            raise ApiError(422, "invalid_scenario", "the scenario is not valid; see fields", exc.errors) from None
+        headers = {"Location": f"/api/v1/scenarios/{stored.id}"}
+        return JSONResponse(stored.summary(), status_code=201 if created else 200, headers=headers)
+
+    # -- computations: POST with a body ------------------------------------------------------------------------
+    def post_route(kind: str, model: type) -> None:
+        async def compute(service: ServiceDep, req: Any) -> Response:
+            out, hit = await service.answer(kind, req)
+            return _answer_response(out, hit, "json", kind)
+
+        compute.__annotations__["req"] = Annotated[model, Body()]
+        router.add_api_route(f"/{kind}", compute, methods=["POST"], summary=SUMMARIES[kind],
+                             responses=_answer_responses(kind), response_class=Response, name=f"post_{kind}")
+
+    for kind, model in REQUEST_MODELS.items():
+        post_route(kind, model)
+
+    # -- computations: GET twins on stored scenarios ------------------------------------------------------------
+    Id = Annotated[str, Path(description="Scenario id (16 hex digits) or a demo's name.")]
+    Tau = Annotated[str | None, Query(description="Residence time: '40 min' or seconds.")]
+    Tin = Annotated[str | None, Query(description="Feed temperature: '35 degC' or kelvin.")]
+    Conc = Annotated[str | None, Query(description="Feed concentrations 'A:2 mol/L,B:0' (others as scenario).")]
+    Tc = Annotated[str | None, Query(description="Coolant temperature: '20 degC' or kelvin.")]
+
+    def concentrations(value: str | None) -> dict[str, Any] | str | None:
+        if value is None:
+            return None
+        out: dict[str, Any] = {}
+        for item in value.split(","):
+            name, sep, amount = item.partition(":")
+            if not sep or not name.strip():
+                return value  # not a mapping: validation names the field
+            out[name.strip()] = _number_or_text(amount)
+        return out
+
+    @router.get("/scenarios/{scenario_id}/steady", summary=SUMMARIES["steady"] + " (stored scenario)",
+                responses=_answer_responses("steady"), response_class=Response)
+    async def get_steady(service: ServiceDep, scenario_id: Id, residence_time: Tau = None,
+                         feed_temperature: Tin = None, feed_concentrations: Conc = None,
+                         coolant_temperature: Tc = None) -> Response:
+        req = _validated(SteadyRequest, {
+            "scenario_id": scenario_id, "residence_time": _number_or_text(residence_time),
+            "feed_temperature": _number_or_text(feed_temperature),
+            "feed_concentrations": concentrations(feed_concentrations),
+            "coolant_temperature": _number_or_text(coolant_temperature)})
+        out, hit = await service.answer("steady", req)
+        return _answer_response(out, hit, "json", "steady")
+
+    @router.get("/scenarios/{scenario_id}/branch", summary=SUMMARIES["branch"] + " (stored scenario)",
+                responses=_answer_responses("branch"), response_class=Response)
+    async def get_branch(
+        service: ServiceDep, scenario_id: Id,
+        along: Annotated[str | None, Query(description="'residence_time' or 'feed_temperature'.")] = None,
+        residence_time: Tau = None, feed_temperature: Tin = None,
+        range: Annotated[str | None, Query(description="'lo,hi' of the varying parameter.")] = None,
+        feed_concentrations: Conc = None, coolant_temperature: Tc = None,
+    ) -> Response:
+        req = _validated(BranchRequest, {
+            "scenario_id": scenario_id, "along": along, "residence_time": _number_or_text(residence_time),
+            "feed_temperature": _number_or_text(feed_temperature), "range": _pair(range),
+            "feed_concentrations": concentrations(feed_concentrations),
+            "coolant_temperature": _number_or_text(coolant_temperature)})
+        out, hit = await service.answer("branch", req)
+        return _answer_response(out, hit, "json", "branch")
+
+    @router.get("/scenarios/{scenario_id}/map", summary=SUMMARIES["map"] + " (stored scenario)",
+                responses=_answer_responses("map"), response_class=Response)
+    async def get_map(
+        service: ServiceDep, scenario_id: Id,
+        residence_time: Annotated[str | None, Query(description="Window 'lo,hi', e.g. '1 min,10 h'.")] = None,
+        feed_temperature: Annotated[str | None, Query(description="Window 'lo,hi', e.g. '0 degC,120 degC'.")]
+        = None,
+        points: Annotated[str | None, Query(description="Grid 'n_tau,n_tin', e.g. '200,200'.")] = None,
+        spacing: Annotated[str | None, Query(description="'log' or 'linear' residence-time axis.")] = None,
+        format: Annotated[str, Query(description="'json' or 'csv'.", pattern="^(json|csv)$")] = "json",
+    ) -> Response:
+        pts: Any = None
+        if points is not None:
+            parts = [p.strip() for p in points.split(",")]
+            pts = parts if len(parts) == 2 else points
+        req = _validated(MapRequest, {
+            "scenario_id": scenario_id, "residence_time": _pair(residence_time),
+            "feed_temperature": _pair(feed_temperature), "points": pts, "spacing": spacing})
+        out, hit = await service.answer("map", req, format)
+        return _answer_response(out, hit, format, "map", scenario_id)
+
+    @router.get("/scenarios/{scenario_id}/check", summary=SUMMARIES["check"] + " (stored scenario)",
+                responses=_answer_responses("check"), response_class=Response)
+    async def get_check(
+        service: ServiceDep, scenario_id: Id, residence_time: Tau = None, feed_temperature: Tin = None,
+        branch: Annotated[str | None, Query(description="'low' or 'high': which stable state is assumed.")] = None,
+    ) -> Response:
+        req = _validated(CheckRequest, {
+            "scenario_id": scenario_id, "residence_time": _number_or_text(residence_time),
+            "feed_temperature": _number_or_text(feed_temperature), "branch": branch})
+        out, hit = await service.answer("check", req)
+        return _answer_response(out, hit, "json", "check")
+
+    @router.get("/scenarios/{scenario_id}/simulate", summary=SUMMARIES["simulate"] + " (stored scenario)",
+                responses=_answer_responses("simulate"), response_class=Response)
+    async def get_simulate(
+        service: ServiceDep, scenario_id: Id, residence_time: Tau = None, feed_temperature: Tin = None,
+        start: Annotated[str | None, Query(description="'low' or 'high' starting state.")] = None,
+        duration: Annotated[str | None, Query(description="Simulated time: '2 h' or seconds.")] = None,
+        events: Annotated[str | None, Query(description="The events as a JSON list (URL-encoded).")] = None,
+        format: Annotated[str, Query(description="'json' or 'csv'.", pattern="^(json|csv)$")] = "json",
+    ) -> Response:
+        parsed_events: Any = None
+        if events is not None:
+            try:
+                parsed_events = json.loads(events)
+            except ValueError:
+                raise ApiError(422, "invalid_request", "events: expected a JSON list of events",
+                               [{"field": "events", "message": "expected a JSON list of events"}]) from None
+        req = _validated(SimulateRequest, {
+            "scenario_id": scenario_id, "residence_time": _number_or_text(residence_time),
+            "feed_temperature": _number_or_text(feed_temperature), "start": start,
+            "duration": _number_or_text(duration), "events": parsed_events})
+        out, hit = await service.answer("simulate", req, format)
+        return _answer_response(out, hit, format, "simulate", scenario_id)
+
+    return router

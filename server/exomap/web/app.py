@@ -1,0 +1,107 @@
+"""The application factory: ``create_app(settings)`` builds the whole web service (API, docs page, pages).
+
+Nothing happens at import time. ``create_app`` opens the scenario store in ``settings.data_dir`` and reads the
+demo scenarios; the pool of workers starts on the first computation (or at startup under uvicorn, through the
+lifespan) and stops with the app.
+
+Middleware, outermost first: security headers, gzip (answers over 1 kB), CORS (only when ``cors_origins`` is
+set), the request-body limit. Every failure goes through ``exomap.web.errors``.
+"""
+
+from __future__ import annotations
+
+import json
+import logging
+from collections.abc import AsyncIterator
+from contextlib import asynccontextmanager
+from importlib import resources
+from typing import Any
+
+from fastapi import FastAPI
+from starlette.middleware.cors import CORSMiddleware
+from starlette.middleware.gzip import GZipMiddleware
+
+import exomap
+from exomap.web import apidocs, pages
+from exomap.web.api import build_router
+from exomap.web.errors import install_error_handlers
+from exomap.web.middleware import BodyLimit, SecurityHeaders
+from exomap.web.service import Service
+from exomap.web.settings import Settings
+from exomap.web.store import ScenarioStore, load_demos
+
+log = logging.getLogger("exomap.web")
+
+#: Demo whose document is the OpenAPI example of a scenario body (the first demo when it is missing).
+EXAMPLE_DEMO = "adiabatic"
+
+
+def _example_document(names: list[str]) -> dict[str, Any] | None:
+    """The demo file as written (with units), for the OpenAPI example of ``POST /scenarios``."""
+    if not names:
+        return None
+    name = EXAMPLE_DEMO if EXAMPLE_DEMO in names else names[0]
+    try:
+        text = resources.files("exomap.demos").joinpath(f"{name}.json").read_text(encoding="utf-8")
+        return json.loads(text)
+    except (OSError, ValueError):  # pragma: no cover - the demo was read a moment ago
+        return None
+
+
+def create_app(settings: Settings | None = None, *, warm_up: bool = False) -> FastAPI:
+    """Build the exomap web app.
+
+    Parameters
+    ----------
+    settings : Settings, optional
+        Explicit settings; default ``Settings()`` (reads ``EXOMAP_*`` from the environment).
+    warm_up : bool
+        Start the worker pool at startup (``exomap serve`` does), so the first computation does not wait
+        for the workers to import the core.
+    """
+    settings = settings if settings is not None else Settings()
+    store = ScenarioStore(settings.data_dir, demos=load_demos())
+    service = Service(settings, store)
+
+    @asynccontextmanager
+    async def lifespan(app: FastAPI) -> AsyncIterator[None]:
+        if warm_up:
+            service.runner.warm_up()
+        try:
+            yield
+        finally:
+            service.runner.shutdown()
+            store.close()
+
+    app = FastAPI(
+        title="exomap",
+        version=exomap.__version__,
+        summary="Steady states, operating maps, setpoint checks and dynamics of exothermic stirred tanks.",
+        description="Screening aid, not a design or safety basis. Quantities are SI numbers or strings with "
+        "units. Every error has the shape {\"error\": {status, code, message, fields}}.",
+        openapi_url=apidocs.OPENAPI_PATH,
+        docs_url=None,  # the built-in pages load scripts from a CDN; /api/docs is served offline instead
+        redoc_url=None,
+        lifespan=lifespan,
+    )
+    app.state.settings = settings
+    app.state.store = store
+    app.state.service = service
+
+    install_error_handlers(app)
+    app.include_router(build_router(_example_document([d.name for d in store.demos if d.name])))
+    apidocs.install(app)
+    pages.install(app, settings)
+
+    # add_middleware wraps the app, so the last added is the outermost.
+    app.add_middleware(BodyLimit, max_bytes=settings.max_body_bytes)
+    if settings.cors_origins:
+        app.add_middleware(
+            CORSMiddleware,
+            allow_origins=list(settings.cors_origins),
+            allow_methods=["GET", "POST"],
+            allow_headers=["Content-Type", "Authorization"],
+        )
+    app.add_middleware(GZipMiddleware, minimum_size=1000)
+    app.add_middleware(SecurityHeaders)
+    return app

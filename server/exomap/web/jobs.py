@@ -1,0 +1,125 @@
+"""The computations the API runs off the event loop, in a worker thread or a worker process.
+
+``run_job`` is a module-level function of picklable arguments, so the same call runs in a thread pool or a
+process pool. It serialises the answer in the worker (JSON bytes, or CSV text), so only one flat value crosses
+back to the server, and it returns the core's domain errors as data (``JobError``) rather than raising them:
+an exception pickled across a process boundary loses attributes set in ``__init__`` (``ModelInputError.field``).
+
+This module imports only the standard library at import time; the core is imported inside the job, so a
+worker process does not load FastAPI or pydantic.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import dataclass
+from typing import Any
+
+KINDS = ("steady", "branch", "map", "check", "simulate")
+
+
+@dataclass(frozen=True)
+class JobError:
+    """A domain error raised by the core inside a job: its class name, message and field."""
+
+    kind: str
+    message: str
+    field: str | None = None
+
+
+def _plain(obj: Any) -> Any:
+    """json.dumps fallback for numpy scalars and arrays."""
+    tolist = getattr(obj, "tolist", None)
+    if callable(tolist):
+        return tolist()
+    raise TypeError(f"{type(obj).__name__} is not JSON serialisable")
+
+
+def _finite(obj: Any) -> Any:
+    """NaN and infinities are not JSON: they become null ("no value")."""
+    if isinstance(obj, float):
+        return obj if math.isfinite(obj) else None
+    if isinstance(obj, dict):
+        return {k: _finite(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_finite(v) for v in obj]
+    tolist = getattr(obj, "tolist", None)
+    if callable(tolist):
+        return _finite(tolist())
+    return obj
+
+
+def dumps(doc: Any) -> bytes:
+    """Compact JSON bytes of an answer document (strict JSON: non-finite numbers become null)."""
+    try:
+        text = json.dumps(doc, allow_nan=False, default=_plain, separators=(",", ":"))
+    except ValueError:
+        text = json.dumps(_finite(doc), allow_nan=False, separators=(",", ":"))
+    return text.encode("utf-8")
+
+
+def compute(kind: str, sc: Any, params: dict[str, Any]) -> Any:
+    """Call the core for one kind of answer and return its result object."""
+    if kind == "steady":
+        from exomap.core.steady import steady_states
+
+        return steady_states(sc, params["tau"], params["T_in"], c_in=params.get("c_in"), T_c=params.get("T_c"))
+    if kind == "branch":
+        from exomap.core.branch import branch
+
+        return branch(
+            sc,
+            params["along"],
+            params["tau"],
+            params["T_in"],
+            lo=params.get("lo"),
+            hi=params.get("hi"),
+            c_in=params.get("c_in"),
+            T_c=params.get("T_c"),
+        )
+    if kind == "map":
+        from exomap.core.opmap import operating_map
+
+        return operating_map(
+            sc,
+            tau_range=params.get("tau_range"),
+            T_in_range=params.get("T_in_range"),
+            points=params.get("points"),
+            spacing=params.get("spacing", "log"),
+        )
+    if kind == "check":
+        from exomap.core.check import check_setpoint
+
+        return check_setpoint(sc, tau=params["tau"], T_in=params["T_in"], branch=params.get("branch"))
+    if kind == "simulate":
+        from exomap.core.dynamics import simulate
+
+        return simulate(
+            sc,
+            tau=params["tau"],
+            T_in=params["T_in"],
+            start=params.get("start", "low"),
+            events=params.get("events", ()),
+            duration=params["duration"],
+        )
+    raise ValueError(f"unknown job kind {kind!r}")
+
+
+def run_job(kind: str, sc: Any, params: dict[str, Any], fmt: str = "json") -> bytes | str | JobError:
+    """Run one computation; return JSON bytes (``fmt="json"``), CSV text (``"csv"``) or a ``JobError``."""
+    from exomap.core import errors
+
+    try:
+        result = compute(kind, sc, params)
+    except errors.LimitExceededError as exc:
+        return JobError("limit", str(exc), exc.field)
+    except errors.ModelInputError as exc:
+        return JobError("input", str(exc), exc.field)
+    except errors.ConvergenceError as exc:
+        return JobError("convergence", str(exc))
+    except errors.BudgetExceededError as exc:
+        return JobError("budget", str(exc))
+    if fmt == "csv":
+        return str(result.to_csv())
+    return dumps(result.to_dict())

@@ -1,0 +1,119 @@
+"""ASGI middleware of the app: the request-body size guard and the security headers.
+
+Both are plain ASGI (no BaseHTTPMiddleware), so they add no task per request and never buffer responses.
+"""
+
+from __future__ import annotations
+
+import json
+from collections.abc import Awaitable, Callable, MutableMapping
+from typing import Any
+
+from exomap.web.errors import error_body
+
+Scope = MutableMapping[str, Any]
+Message = MutableMapping[str, Any]
+Receive = Callable[[], Awaitable[Message]]
+Send = Callable[[Message], Awaitable[None]]
+ASGIApp = Callable[[Scope, Receive, Send], Awaitable[None]]
+
+#: Content-Security-Policy of every answer. Scripts only from this server and no eval: plotly's bundle draws
+#: heatmaps and contours without it (its only ``eval``/``new Function`` are fallbacks not reached in a
+#: browser). Inline styles are allowed because plotly writes its own <style> element and style attributes.
+#: data:/blob: images are plotly's "download as PNG".
+CONTENT_SECURITY_POLICY = (
+    "default-src 'self'; script-src 'self'; style-src 'self' 'unsafe-inline'; img-src 'self' data: blob:; "
+    "font-src 'self' data:; connect-src 'self'; object-src 'none'; base-uri 'none'; "
+    "frame-ancestors 'none'; form-action 'self'"
+)
+
+SECURITY_HEADERS = (
+    (b"x-content-type-options", b"nosniff"),
+    (b"x-frame-options", b"DENY"),
+    (b"referrer-policy", b"no-referrer"),
+    (b"content-security-policy", CONTENT_SECURITY_POLICY.encode("ascii")),
+    (b"cross-origin-opener-policy", b"same-origin"),
+)
+
+
+class SecurityHeaders:
+    """Add the security headers to every HTTP answer (a route that set one of them keeps its own)."""
+
+    def __init__(self, app: ASGIApp) -> None:
+        self.app = app
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if scope["type"] != "http":
+            await self.app(scope, receive, send)
+            return
+
+        async def send_with_headers(message: Message) -> None:
+            if message["type"] == "http.response.start":
+                headers = list(message.get("headers", []))
+                present = {k.lower() for k, _ in headers}
+                headers.extend((k, v) for k, v in SECURITY_HEADERS if k not in present)
+                message["headers"] = headers
+            await send(message)
+
+        await self.app(scope, receive, send_with_headers)
+
+
+async def _send_error(send: Send, status: int, code: str, message: str) -> None:
+    body = json.dumps(error_body(status, code, message)).encode("utf-8")
+    headers = [(b"content-type", b"application/json"), (b"content-length", str(len(body)).encode("ascii")),
+               (b"connection", b"close")]
+    await send({"type": "http.response.start", "status": status, "headers": headers})
+    await send({"type": "http.response.body", "body": body})
+
+
+class BodyLimit:
+    """Refuse request bodies over ``max_bytes`` with 413, whether or not they declare a Content-Length.
+
+    A declared length over the limit is refused before reading; otherwise the body is read up to the limit
+    and replayed to the app (bodies are small: the limit is about a megabyte).
+    """
+
+    def __init__(self, app: ASGIApp, max_bytes: int) -> None:
+        self.app = app
+        self.max_bytes = max_bytes
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if scope["type"] != "http" or scope.get("method") in ("GET", "HEAD", "OPTIONS"):
+            await self.app(scope, receive, send)
+            return
+        too_big = f"the request body is larger than the limit of {self.max_bytes} bytes"
+        for key, value in scope.get("headers", []):
+            if key == b"content-length":
+                try:
+                    declared = int(value)
+                except ValueError:
+                    await _send_error(send, 400, "bad_request", "the Content-Length header is not a number")
+                    return
+                if declared > self.max_bytes:
+                    await _send_error(send, 413, "body_too_large", too_big)
+                    return
+        chunks: list[bytes] = []
+        size = 0
+        more = True
+        while more:
+            message = await receive()
+            if message["type"] == "http.disconnect":
+                return
+            chunk = message.get("body", b"")
+            size += len(chunk)
+            if size > self.max_bytes:
+                await _send_error(send, 413, "body_too_large", too_big)
+                return
+            chunks.append(chunk)
+            more = message.get("more_body", False)
+        body = b"".join(chunks)
+        replayed = False
+
+        async def replay() -> Message:
+            nonlocal replayed
+            if not replayed:
+                replayed = True
+                return {"type": "http.request", "body": body, "more_body": False}
+            return await receive()
+
+        await self.app(scope, replay, send)

@@ -1,0 +1,165 @@
+"""Request bodies of the API (pydantic), each with an example for the OpenAPI document.
+
+Every computation names its scenario either inline (``"scenario": {...}``, a scenario document of DESIGN.md
+§3) or by the id of a stored scenario (``"scenario_id"``; a demo can also be named by its file name, e.g.
+``"adiabatic"``). A quantity is a number in SI base units or a string with units: ``"40 min"``, ``"35 degC"``.
+Unknown fields are refused, so a misspelt option is an error rather than silently ignored.
+"""
+
+from __future__ import annotations
+
+from typing import Annotated, Any, Literal
+
+from pydantic import BaseModel, ConfigDict, Field, model_validator
+
+Quantity = Annotated[
+    float | str,
+    Field(description="A number in SI base units, or a string with units such as '40 min' or '35 degC'."),
+]
+Range = Annotated[list[Quantity], Field(min_length=2, max_length=2, description="[lo, hi]")]
+GridPoints = Annotated[
+    list[Annotated[int, Field(ge=2)]],
+    Field(min_length=2, max_length=2, description="[n_residence_time, n_feed_temperature], each at least 2."),
+]
+
+EXAMPLE_ID = "adiabatic"
+"""Demo name used in the examples (any stored scenario id works the same way)."""
+
+
+class ScenarioRef(BaseModel):
+    """Which scenario: inline, or by id."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    scenario: dict[str, Any] | None = Field(
+        default=None, description="A whole scenario document (DESIGN.md §3); give this or scenario_id."
+    )
+    scenario_id: str | None = Field(
+        default=None,
+        min_length=1,
+        max_length=200,
+        description="Id of a stored scenario (16 hex digits) or the name of a demo; give this or scenario.",
+    )
+
+    @model_validator(mode="after")
+    def _one_scenario(self) -> ScenarioRef:
+        if (self.scenario is None) == (self.scenario_id is None):
+            raise ValueError("give exactly one of 'scenario' (a document) or 'scenario_id'")
+        return self
+
+
+class OperatingPoint(ScenarioRef):
+    residence_time: Quantity | None = Field(
+        default=None, description="Residence time V_set/q, e.g. '40 min' or seconds; default: the scenario's feed."
+    )
+    feed_temperature: Quantity | None = Field(
+        default=None, description="Feed temperature, e.g. '35 degC' or kelvin; default: the scenario's feed."
+    )
+
+
+class SteadyRequest(OperatingPoint):
+    """Every steady state at one operating point, with its stability."""
+
+    model_config = ConfigDict(
+        extra="forbid",
+        json_schema_extra={
+            "examples": [{"scenario_id": EXAMPLE_ID, "residence_time": "40 min", "feed_temperature": "35 degC"}]
+        },
+    )
+
+    feed_concentrations: dict[str, Quantity] | None = Field(
+        default=None, description="Feed concentration of some species, e.g. {'A': '2 mol/L'}; others as scenario."
+    )
+    coolant_temperature: Quantity | None = Field(
+        default=None, description="Coolant temperature of the jacket, e.g. '20 degC'; default: the scenario's."
+    )
+
+
+class BranchRequest(OperatingPoint):
+    """A one-parameter branch of steady states, with its turning (ignition/extinction) and Hopf points."""
+
+    model_config = ConfigDict(
+        extra="forbid",
+        json_schema_extra={
+            "examples": [{"scenario_id": EXAMPLE_ID, "along": "feed_temperature", "residence_time": "40 min"}]
+        },
+    )
+
+    along: Literal["residence_time", "feed_temperature"] = Field(
+        default="feed_temperature", description="The parameter that varies; the other one stays fixed."
+    )
+    range: Range | None = Field(
+        default=None, description="[lo, hi] of the varying parameter, in its own unit; default: the map window."
+    )
+    feed_concentrations: dict[str, Quantity] | None = Field(
+        default=None, description="Feed concentration of some species; others as the scenario."
+    )
+    coolant_temperature: Quantity | None = Field(default=None, description="Coolant temperature of the jacket.")
+
+
+class MapRequest(ScenarioRef):
+    """The operating map: regions over residence time x feed temperature, with exact boundaries."""
+
+    model_config = ConfigDict(
+        extra="forbid",
+        json_schema_extra={
+            "examples": [
+                {
+                    "scenario_id": EXAMPLE_ID,
+                    "residence_time": ["1 min", "10 h"],
+                    "feed_temperature": ["0 degC", "120 degC"],
+                    "points": [60, 60],
+                    "spacing": "log",
+                }
+            ]
+        },
+    )
+
+    residence_time: Range | None = Field(default=None, description="[lo, hi]; default: the scenario's map window.")
+    feed_temperature: Range | None = Field(default=None, description="[lo, hi]; default: the scenario's window.")
+    points: GridPoints | None = Field(default=None, description="Grid size; default: the scenario's (or 200 x 200).")
+    spacing: Literal["log", "linear"] = Field(default="log", description="Spacing of the residence-time axis.")
+
+
+class CheckRequest(OperatingPoint):
+    """Setpoint check: states, region, margins, safety figures, upset battery, verdict and cautions."""
+
+    model_config = ConfigDict(
+        extra="forbid",
+        json_schema_extra={
+            "examples": [{"scenario_id": EXAMPLE_ID, "residence_time": "40 min", "feed_temperature": "35 degC"}]
+        },
+    )
+
+    branch: Literal["low", "high"] | None = Field(
+        default=None, description="Which stable state the tank is on where there are several; default: low."
+    )
+
+
+class SimulateRequest(OperatingPoint):
+    """Dynamic response from a steady state, with events."""
+
+    model_config = ConfigDict(
+        extra="forbid",
+        json_schema_extra={
+            "examples": [
+                {
+                    "scenario_id": EXAMPLE_ID,
+                    "residence_time": "40 min",
+                    "feed_temperature": "35 degC",
+                    "start": "low",
+                    "events": [],
+                    "duration": "2 h",
+                }
+            ]
+        },
+    )
+
+    start: Literal["low", "high"] = Field(default="low", description="Steady state the simulation starts from.")
+    events: list[Any] = Field(
+        default_factory=list,
+        description="Events applied during the run, e.g. {'at': '10 min', 'do': 'feed_stop'} (exomap.core.events).",
+    )
+    duration: Quantity | None = Field(
+        default=None, description="Simulated time, e.g. '2 h' or seconds; default: the check policy's upset duration."
+    )

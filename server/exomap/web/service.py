@@ -1,0 +1,277 @@
+"""What the API routes do, apart from HTTP: find the scenario, turn the request into SI core arguments, check
+the limits, look in the answer cache, and run the computation off the event loop within the time budget.
+
+Every request path (POST body or GET query, units or SI) goes through ``Service.answer``, so both spellings of
+one question normalise to the same cache key and the same answer bytes.
+"""
+
+from __future__ import annotations
+
+import json
+import threading
+from collections import OrderedDict
+from dataclasses import dataclass
+from typing import Any
+
+from exomap.web import jobs
+from exomap.web.cache import AnswerCache
+from exomap.web.errors import ApiError
+from exomap.web.models import (
+    BranchRequest,
+    CheckRequest,
+    MapRequest,
+    ScenarioRef,
+    SimulateRequest,
+    SteadyRequest,
+)
+from exomap.web.runner import BudgetExceeded, Runner
+from exomap.web.settings import Settings
+from exomap.web.store import ScenarioStore
+
+#: Event-syntax dimension names (exomap.core.events) -> the schema layer's dimension names.
+EVENT_DIMENSIONS = {"volumetric_flow": "flow", "dimensionless": "fraction"}
+
+
+def _prefixed(errors: list[dict[str, str]], prefix: str) -> list[dict[str, str]]:
+    return [{"field": f"{prefix}.{e['field']}" if prefix else e["field"], "message": e["message"]} for e in errors]
+
+
+def invalid(field: str, message: str, code: str = "invalid_input") -> ApiError:
+    return ApiError(422, code, f"{field}: {message}", [{"field": field, "message": message}])
+
+
+def quantity(value: Any, dimension: str, field: str) -> float:
+    """An SI float from a number or a unit string; a bad one is a 422 naming the field and the unit."""
+    from exomap.schema import ScenarioError
+    from exomap.schema.quantity import parse_quantity
+
+    try:
+        return float(parse_quantity(value, dimension, field))
+    except ScenarioError as exc:
+        raise ApiError(422, "invalid_input", str(exc), exc.errors) from None
+
+
+def event_unit_parser(value: Any, dimension: str, field: str) -> float:
+    """``unit_parser`` for ``exomap.core.events.parse_events``: unit strings through the schema layer."""
+    from exomap.schema.quantity import parse_quantity
+
+    return float(parse_quantity(value, EVENT_DIMENSIONS.get(dimension, dimension), field))
+
+
+@dataclass(frozen=True)
+class Resolved:
+    """A request's scenario: its content id and the core ``Scenario``."""
+
+    id: str
+    scenario: Any
+
+
+class Service:
+    """Scenario resolution, parameter normalisation, limits, cache and pool of one app."""
+
+    def __init__(self, settings: Settings, store: ScenarioStore) -> None:
+        self.settings = settings
+        self.store = store
+        self.runner = Runner(settings.workers, settings.executor)
+        self.cache = AnswerCache(settings.cache_entries, settings.cache_bytes)
+        self._scenarios: OrderedDict[str, Any] = OrderedDict()
+        self._lock = threading.Lock()
+
+    # -- scenarios ----------------------------------------------------------------------------------------------
+    def _core_of_document(self, doc: dict[str, Any], prefix: str) -> tuple[str, Any]:
+        from exomap import schema
+        from exomap.core.errors import ModelInputError
+
+        try:
+            parsed = schema.parse_scenario(doc)
+        except schema.ScenarioError as exc:
+            raise ApiError(
+                422, "invalid_scenario", "the scenario is not valid; see fields", _prefixed(exc.errors, prefix)
+            ) from None
+        sid = schema.scenario_id(parsed)
+        with self._lock:
+            core = self._scenarios.get(sid)
+            if core is not None:
+                self._scenarios.move_to_end(sid)
+                return sid, core
+        try:
+            core = parsed.to_core()
+        except ModelInputError as exc:
+            field = f"{prefix}.{exc.field}" if prefix and exc.field else (exc.field or prefix or "scenario")
+            raise ApiError(422, "invalid_scenario", str(exc), [{"field": field, "message": str(exc)}]) from None
+        except schema.ScenarioError as exc:
+            raise ApiError(
+                422, "invalid_scenario", "the scenario is not valid; see fields", _prefixed(exc.errors, prefix)
+            ) from None
+        with self._lock:
+            self._scenarios[sid] = core
+            while len(self._scenarios) > 64:
+                self._scenarios.popitem(last=False)
+        return sid, core
+
+    def resolve(self, ref: ScenarioRef) -> Resolved:
+        if ref.scenario_id is not None:
+            stored = self.store.get(ref.scenario_id)
+            if stored is None:
+                raise ApiError(404, "not_found", f"no scenario with id {ref.scenario_id!r}",
+                               [{"field": "scenario_id", "message": "no stored scenario has this id"}])
+            sid, core = self._core_of_document(json.loads(stored.document), "")
+            return Resolved(sid, core)
+        assert ref.scenario is not None  # the model validator guarantees one of the two
+        sid, core = self._core_of_document(ref.scenario, "scenario")
+        return Resolved(sid, core)
+
+    # -- parameters ---------------------------------------------------------------------------------------------
+    @staticmethod
+    def _point(req: Any, sc: Any) -> tuple[float, float]:
+        tau = sc.tau_nominal if req.residence_time is None else quantity(req.residence_time, "time", "residence_time")
+        T_in = sc.T_in if req.feed_temperature is None else quantity(
+            req.feed_temperature, "temperature", "feed_temperature")
+        return tau, T_in
+
+    @staticmethod
+    def _feed(req: Any, sc: Any) -> tuple[tuple[float, ...] | None, float | None]:
+        c_in = None
+        if req.feed_concentrations:
+            values = list(sc.c_in)
+            for name, value in req.feed_concentrations.items():
+                field = f"feed_concentrations.{name}"
+                if name not in sc.species:
+                    raise invalid(field, f"unknown species {name!r}; species: {', '.join(sc.species)}")
+                values[sc.species.index(name)] = quantity(value, "concentration", field)
+            c_in = tuple(values)
+        T_c = None
+        if req.coolant_temperature is not None:
+            T_c = quantity(req.coolant_temperature, "temperature", "coolant_temperature")
+        return c_in, T_c
+
+    @staticmethod
+    def _range(values: list[Any] | None, dimension: str, field: str) -> tuple[float, float] | None:
+        if values is None:
+            return None
+        lo = quantity(values[0], dimension, f"{field}[0]")
+        hi = quantity(values[1], dimension, f"{field}[1]")
+        if not lo < hi:
+            raise invalid(field, f"expected [lo, hi] with lo < hi, got [{lo:g}, {hi:g}] in SI units")
+        return lo, hi
+
+    def params(self, kind: str, req: Any, sc: Any) -> dict[str, Any]:
+        """SI keyword arguments of the core call for ``kind``; limits checked (413)."""
+        s = self.settings
+        if kind == "steady":
+            tau, T_in = self._point(req, sc)
+            c_in, T_c = self._feed(req, sc)
+            return {"tau": tau, "T_in": T_in, "c_in": c_in, "T_c": T_c}
+        if kind == "branch":
+            tau, T_in = self._point(req, sc)
+            c_in, T_c = self._feed(req, sc)
+            dim = "time" if req.along == "residence_time" else "temperature"
+            rng = self._range(req.range, dim, "range")
+            return {"along": req.along, "tau": tau, "T_in": T_in, "lo": rng[0] if rng else None,
+                    "hi": rng[1] if rng else None, "c_in": c_in, "T_c": T_c}
+        if kind == "map":
+            tau_range = self._range(req.residence_time, "time", "residence_time")
+            T_in_range = self._range(req.feed_temperature, "temperature", "feed_temperature")
+            points = tuple(req.points) if req.points is not None else None
+            n = points or (sc.map.points if sc.map is not None else (200, 200))
+            cells = int(n[0]) * int(n[1])
+            if cells > s.max_map_cells:
+                raise ApiError(413, "too_many_cells",
+                               f"a {n[0]} x {n[1]} map has {cells} cells; the limit is {s.max_map_cells}",
+                               [{"field": "points", "message": f"at most {s.max_map_cells} cells (n_tau x n_tin)"}])
+            return {"tau_range": tau_range, "T_in_range": T_in_range, "points": points, "spacing": req.spacing}
+        if kind == "check":
+            tau, T_in = self._point(req, sc)
+            return {"tau": tau, "T_in": T_in, "branch": req.branch}
+        if kind == "simulate":
+            from exomap.core.events import parse_events
+
+            tau, T_in = self._point(req, sc)
+            if req.duration is None:
+                duration = float(sc.policy.upset_duration)
+            else:
+                duration = quantity(req.duration, "time", "duration")
+            if not duration > 0:
+                raise invalid("duration", f"expected a positive time, got {duration:g} s")
+            if duration > s.max_duration_s:
+                raise ApiError(413, "too_long",
+                               f"a {duration:g} s simulation is longer than the limit of {s.max_duration_s:g} s",
+                               [{"field": "duration", "message": f"at most {s.max_duration_s:g} s"}])
+            if len(req.events) > s.max_events:
+                raise ApiError(413, "too_many_events",
+                               f"{len(req.events)} events; the limit is {s.max_events}",
+                               [{"field": "events", "message": f"at most {s.max_events} events"}])
+            events = parse_events(req.events, event_unit_parser, species=sc.species, duration=duration)
+            return {"tau": tau, "T_in": T_in, "start": req.start, "events": events, "duration": duration}
+        raise ValueError(f"unknown kind {kind!r}")
+
+    # -- answers ------------------------------------------------------------------------------------------------
+    async def answer(self, kind: str, req: Any, fmt: str = "json") -> tuple[bytes | str, bool]:
+        """The serialised answer of one request and whether it came from the cache."""
+        from exomap import schema
+        from exomap.core.errors import LimitExceededError, ModelInputError
+
+        resolved = self.resolve(req)
+        try:
+            params = self.params(kind, req, resolved.scenario)
+        except LimitExceededError as exc:
+            raise self._limit(exc) from None
+        except ModelInputError as exc:
+            raise self._input(exc) from None
+        except schema.ScenarioError as exc:
+            raise ApiError(422, "invalid_input", str(exc), exc.errors) from None
+        key = (kind, resolved.id, _freeze(params), fmt)
+        cached = self.cache.get(key)
+        if cached is not None:
+            return cached, True
+        try:
+            out = await self.runner.run(
+                jobs.run_job, kind, resolved.scenario, params, fmt, budget_s=self.settings.request_time_budget_s
+            )
+        except BudgetExceeded as exc:
+            raise ApiError(503, "time_budget_exceeded", str(exc), headers={"Retry-After": "5"}) from None
+        if isinstance(out, jobs.JobError):
+            raise self._job_error(out)
+        self.cache.put(key, out)
+        return out, False
+
+    @staticmethod
+    def _limit(exc: Any) -> ApiError:
+        field = exc.field or "request"
+        return ApiError(413, "limit_exceeded", str(exc), [{"field": field, "message": str(exc)}])
+
+    @staticmethod
+    def _input(exc: Any) -> ApiError:
+        field = exc.field or "request"
+        return ApiError(422, "invalid_input", str(exc), [{"field": field, "message": str(exc)}])
+
+    @staticmethod
+    def _job_error(err: jobs.JobError) -> ApiError:
+        field = err.field or "request"
+        if err.kind == "limit":
+            return ApiError(413, "limit_exceeded", err.message, [{"field": field, "message": err.message}])
+        if err.kind == "input":
+            return ApiError(422, "invalid_input", err.message, [{"field": field, "message": err.message}])
+        if err.kind == "convergence":
+            return ApiError(422, "no_convergence", err.message)
+        if err.kind == "budget":
+            return ApiError(503, "time_budget_exceeded", err.message, headers={"Retry-After": "5"})
+        raise RuntimeError(f"unknown job error kind {err.kind!r}")
+
+
+def _freeze(value: Any) -> Any:
+    """A hashable, order-independent form of the parameters (the cache key)."""
+    if isinstance(value, dict):
+        return tuple(sorted((k, _freeze(v)) for k, v in value.items()))
+    if isinstance(value, (list, tuple)):
+        return tuple(_freeze(v) for v in value)
+    return value
+
+
+REQUEST_MODELS = {
+    "steady": SteadyRequest,
+    "branch": BranchRequest,
+    "map": MapRequest,
+    "check": CheckRequest,
+    "simulate": SimulateRequest,
+}

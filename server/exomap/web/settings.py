@@ -1,0 +1,69 @@
+"""Settings of the web service: one pydantic-settings class, read from ``EXOMAP_*`` environment variables.
+
+Nothing is read at import time: ``Settings()`` reads the environment when it is called, and ``create_app``
+takes a ``Settings`` instance, so tests build their apps with explicit values.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Literal
+
+from pydantic import Field
+from pydantic_settings import BaseSettings, SettingsConfigDict
+
+
+class Settings(BaseSettings):
+    """Every setting of ``exomap serve``; each can be set as ``EXOMAP_<NAME>`` (e.g. ``EXOMAP_DATA_DIR``)."""
+
+    model_config = SettingsConfigDict(env_prefix="EXOMAP_", extra="ignore")
+
+    data_dir: Path = Field(
+        default=Path("data"),
+        description="Folder holding the scenario store (scenarios.sqlite3); created if missing.",
+    )
+    host: str = Field(default="127.0.0.1", description="Address the server listens on (loopback by default).")
+    port: int = Field(default=8000, ge=0, le=65535, description="TCP port the server listens on.")
+    max_map_cells: int = Field(
+        default=250_000,
+        gt=0,
+        description="Largest operating map one request may ask for, in grid cells (n_tau x n_tin); 500 x 500.",
+    )
+    max_duration_s: float = Field(
+        default=7 * 24 * 3600.0,
+        gt=0,
+        description="Longest simulated time one simulation request may ask for [s]; 7 days.",
+    )
+    max_events: int = Field(default=200, ge=0, description="Most events one simulation request may list.")
+    max_body_bytes: int = Field(
+        default=1_000_000, gt=0, description="Largest request body accepted [bytes]; larger bodies get 413."
+    )
+    request_time_budget_s: float = Field(
+        default=30.0,
+        gt=0,
+        description="Wall-clock budget of one computation, queueing included [s]; past it the answer is 503.",
+    )
+    save_token: str | None = Field(
+        default=None,
+        description="When set, saving a scenario needs the header 'Authorization: Bearer <token>'.",
+    )
+    cors_origins: list[str] = Field(
+        default_factory=list,
+        description="Origins allowed to call the API from a browser (CORS); empty keeps cross-origin calls closed.",
+    )
+    cache_entries: int = Field(
+        default=256, ge=0, description="Answers kept in the in-memory LRU cache of repeated requests; 0 disables it."
+    )
+    cache_bytes: int = Field(
+        default=64_000_000, ge=0, description="Most bytes of answers the cache holds; the oldest are dropped first."
+    )
+    workers: int = Field(
+        default=2, ge=1, le=64, description="Computations run at once, off the event loop (pool size)."
+    )
+    executor: Literal["process", "thread"] = Field(
+        default="process",
+        description=(
+            "Where computations run: 'process' (a pool of worker processes, so a long map never holds the "
+            "server's interpreter lock) or 'thread' (a thread pool in the server process; lighter, for tests)."
+        ),
+    )
