@@ -1,0 +1,141 @@
+"""Every page and API URL the pages need, built in one place (the browser's twin is ``web/static/urls.js``).
+
+View state lives in the query string of a page URL, in SI numbers so a link is exact and unit-free:
+
+==========================  =============================================================
+``residence_time``          setpoint residence time [s]
+``feed_temperature``        setpoint feed temperature [K]
+``map_residence_time``      map window ``lo,hi`` [s]
+``map_feed_temperature``    map window ``lo,hi`` [K]
+``points``                  map grid ``n_tau,n_tin``
+``branch``                  ``low`` | ``high``: which stable state the check assumes
+``panel``                   open panel: ``check`` | ``curves`` | ``simulate`` | ``editor``
+``upset``                   index of the upset whose response is open
+==========================  =============================================================
+
+The same names (without the ``map_`` prefix for the map window) are the query parameters of the API's GET
+twins, so a page URL maps onto its JSON twin by renaming at most two keys.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from urllib.parse import quote, urlencode
+
+API = "/api/v1"
+
+#: Query keys of a page's view state, in the order they appear in a link.
+VIEW_KEYS = (
+    "residence_time",
+    "feed_temperature",
+    "map_residence_time",
+    "map_feed_temperature",
+    "points",
+    "branch",
+    "panel",
+    "upset",
+)
+PANELS = ("check", "curves", "simulate", "editor")
+BRANCHES = ("low", "high")
+
+
+def _query(params: Mapping[str, object] | None) -> str:
+    if not params:
+        return ""
+    items = [(k, _text(v)) for k, v in params.items() if v is not None and v != ""]
+    return "?" + urlencode(items, safe=",") if items else ""
+
+
+def _text(value: object) -> str:
+    if isinstance(value, (list, tuple)):
+        return ",".join(_text(v) for v in value)
+    if isinstance(value, float):
+        return repr(value)
+    return str(value)
+
+
+def _seg(value: str) -> str:
+    return quote(str(value), safe="")
+
+
+def view_state(query: Mapping[str, str]) -> dict[str, str]:
+    """The view-state keys of a request's query string (unknown keys dropped, order fixed)."""
+    return {k: query[k] for k in VIEW_KEYS if k in query and query[k] != ""}
+
+
+# -- pages ------------------------------------------------------------------------------------------------
+def home() -> str:
+    return "/"
+
+
+def scenario_page(scenario_id: str, state: Mapping[str, object] | None = None) -> str:
+    return f"/scenarios/{_seg(scenario_id)}" + _query(_ordered(state))
+
+
+def print_page(scenario_id: str, state: Mapping[str, object] | None = None) -> str:
+    return f"/scenarios/{_seg(scenario_id)}/print" + _query(_ordered(state))
+
+
+def _ordered(state: Mapping[str, object] | None) -> dict[str, object]:
+    state = state or {}
+    return {k: state[k] for k in VIEW_KEYS if k in state}
+
+
+# -- static files -----------------------------------------------------------------------------------------
+def static(path: str, version: str | None = None) -> str:
+    return "/static/" + path.lstrip("/") + (f"?v={quote(version)}" if version else "")
+
+
+#: Route of plotly's bundle; the version is in the name so the file can be cached for good.
+PLOTLY_ROUTE = "/vendor/plotly-{version}.min.js"
+
+
+def plotly_bundle(plotly_version: str) -> str:
+    """The plotly bundle of one plotly version."""
+    return PLOTLY_ROUTE.format(version=_seg(plotly_version))
+
+
+# -- API --------------------------------------------------------------------------------------------------
+def api_health() -> str:
+    return f"{API}/health"
+
+
+def api_version() -> str:
+    return f"{API}/version"
+
+
+def api_scenarios() -> str:
+    return f"{API}/scenarios"
+
+
+def api_scenario(scenario_id: str) -> str:
+    return f"{API}/scenarios/{_seg(scenario_id)}"
+
+
+def api_answer(scenario_id: str, kind: str, params: Mapping[str, object] | None = None) -> str:
+    """GET twin of an answer: ``kind`` in steady, branch, map, check, simulate."""
+    if kind not in ("steady", "branch", "map", "check", "simulate"):
+        raise ValueError(f"unknown answer kind {kind!r}")
+    return f"{API}/scenarios/{_seg(scenario_id)}/{kind}" + _query(params)
+
+
+def api_twin_of_page(scenario_id: str, state: Mapping[str, object] | None = None) -> str:
+    """The JSON twin of a scenario page: the check at the page's setpoint (and branch)."""
+    state = state or {}
+    params = {k: state[k] for k in ("residence_time", "feed_temperature", "branch") if k in state}
+    return api_answer(scenario_id, "check", params)
+
+
+def api_map_of_page(scenario_id: str, state: Mapping[str, object] | None = None, fmt: str | None = None) -> str:
+    """The map of a page's window (``fmt="csv"`` for the CSV download)."""
+    state = state or {}
+    params: dict[str, object] = {}
+    if "map_residence_time" in state:
+        params["residence_time"] = state["map_residence_time"]
+    if "map_feed_temperature" in state:
+        params["feed_temperature"] = state["map_feed_temperature"]
+    if "points" in state:
+        params["points"] = state["points"]
+    if fmt:
+        params["format"] = fmt
+    return api_answer(scenario_id, "map", params)

@@ -1,0 +1,186 @@
+// The operating map: region heatmap, exact boundary curves, valve-limited dots and the setpoint marker.
+// The numbers are the map answer's own; only the display units change (residence time in min, °C).
+
+import { regionColour, LINES, VALVE_DOT, SETPOINT, steppedScale } from "./palette.js";
+import { toMin, toC, fromMin, fromC } from "./units.js";
+
+// Boundary curves arrive as [[tau, T_in], ...] (null entries break the line) or as a list of such segments.
+export function segments(b) {
+  if (!b) return [];
+  if (!Array.isArray(b) && typeof b === "object") {
+    const tau = b.residence_time_s || [];
+    const tin = b.feed_temperature_K || [];
+    return [tau.map((t, i) => [t, tin[i]])];
+  }
+  if (!Array.isArray(b) || b.length === 0) return [];
+  const isPoint = (p) => Array.isArray(p) && p.length >= 2 && typeof p[0] === "number";
+  if (b.every((p) => p === null || isPoint(p))) {
+    const out = [[]];
+    for (const p of b) (p === null ? out.push([]) : out[out.length - 1].push(p));
+    return out.filter((s) => s.length);
+  }
+  return b.flatMap((s) => segments(s));
+}
+
+export function isLogSpaced(v) {
+  if (!v || v.length < 3 || v[0] <= 0) return false;
+  const r1 = v[1] / v[0], r2 = v[v.length - 1] / v[v.length - 2];
+  const d1 = v[1] - v[0], d2 = v[v.length - 1] - v[v.length - 2];
+  return Math.abs(r1 - r2) < 1e-6 * r1 + 1e-3 && d2 > 1.5 * d1;
+}
+
+function grid2(g, nT, nX) {
+  return Array.isArray(g) && g.length === nT && Array.isArray(g[0]) && g[0].length === nX ? g : null;
+}
+
+// Index of the grid value nearest x (v sorted ascending).
+export function nearest(v, x) {
+  let lo = 0, hi = v.length - 1;
+  while (hi - lo > 1) {
+    const mid = (lo + hi) >> 1;
+    if (v[mid] < x) lo = mid; else hi = mid;
+  }
+  return Math.abs(v[lo] - x) <= Math.abs(v[hi] - x) ? lo : hi;
+}
+
+export function legendEntries(doc) {
+  return (doc.legend || []).map((e, i) => ({ ...e, colour: regionColour(e.key, i) }));
+}
+
+// Plain-word facts of the grid cell nearest (tau [s], T_in [K]).
+export function cellAt(doc, tau, tin) {
+  const xs = doc.residence_time_s, ys = doc.feed_temperature_K;
+  const i = nearest(ys, tin), j = nearest(xs, tau);
+  const code = doc.region[i][j];
+  const entry = (doc.legend || []).find((e) => e.code === code) || {};
+  const sc = grid2(doc.state_count, ys.length, xs.length);
+  const mt = grid2(doc.max_temperature_K, ys.length, xs.length);
+  const vl = grid2(doc.valve_limited, ys.length, xs.length);
+  return {
+    region_key: entry.key, region_label: entry.label || String(code),
+    state_count: sc ? sc[i][j] : null, max_temperature_K: mt ? mt[i][j] : null,
+    valve_limited: vl ? Boolean(vl[i][j]) : null,
+  };
+}
+
+export function traces(doc, setpoint) {
+  const legend = legendEntries(doc);
+  const index = new Map(legend.map((e, i) => [e.code, i]));
+  const x = doc.residence_time_s.map(toMin);
+  const y = doc.feed_temperature_K.map(toC);
+  const z = doc.region.map((row) => row.map((c) => (index.has(c) ? index.get(c) : null)));
+  const n = Math.max(legend.length, 1);
+  const out = [{
+    type: "heatmap", name: "regions", x, y, z, zmin: -0.5, zmax: n - 0.5,
+    colorscale: steppedScale(legend.length ? legend.map((e) => e.colour) : ["#dddddd"]),
+    showscale: false, hoverinfo: "skip", zsmooth: false,
+  }];
+  const vl = grid2(doc.valve_limited, y.length, x.length);
+  if (vl) {
+    // A sparse dot pattern over the cells where the valve cannot pass the flow (an overlay, not a region).
+    const step = Math.max(1, Math.round(Math.max(x.length, y.length) / 40));
+    const px = [], py = [];
+    for (let i = 0; i < y.length; i += step)
+      for (let j = (i / step) % 2 ? Math.floor(step / 2) : 0; j < x.length; j += step)
+        if (vl[i][j]) { px.push(x[j]); py.push(y[i]); }
+    out.push({ type: "scatter", mode: "markers", name: "valve_limited", x: px, y: py, hoverinfo: "skip",
+      marker: { size: 3, color: VALVE_DOT, symbol: "circle" } });
+  }
+  const b = doc.boundaries || {};
+  for (const [key, curve] of Object.entries(b)) {
+    const style = LINES[key] || { color: "#333", width: 1.5, dash: "dot" };
+    segments(curve).forEach((s, k) => {
+      const pts = s.filter((p) => p && Number.isFinite(p[0]) && Number.isFinite(p[1]));
+      if (!pts.length) return;
+      const asPoint = key === "cusp" || pts.length === 1;
+      out.push({
+        type: "scatter", name: `boundary:${key}:${k}`, x: pts.map((p) => toMin(p[0])), y: pts.map((p) => toC(p[1])),
+        mode: asPoint ? "markers" : "lines", hoverinfo: "skip",
+        line: { color: style.color, width: style.width, dash: style.dash },
+        marker: { symbol: "diamond", size: 10, color: style.color, line: { color: "#fff", width: 1.5 } },
+      });
+    });
+  }
+  out.push(setpointTrace(setpoint));
+  return out;
+}
+
+function setpointTrace(sp) {
+  return {
+    type: "scatter", mode: "markers", name: "setpoint", hoverinfo: "skip", cliponaxis: false,
+    x: sp ? [toMin(sp.residence_time)] : [], y: sp ? [toC(sp.feed_temperature)] : [],
+    marker: { symbol: "circle-x-open", size: 16, color: SETPOINT.color, line: { width: 3, color: SETPOINT.color } },
+  };
+}
+
+export function layout(doc, { height = 430, title = "" } = {}) {
+  const logx = isLogSpaced(doc.residence_time_s);
+  const xs = doc.residence_time_s.map(toMin), ys = doc.feed_temperature_K.map(toC);
+  const half = (v, k) => (v.length > 1 ? (v[k === 0 ? 1 : v.length - 1] - v[k === 0 ? 0 : v.length - 2]) / 2 : 0.5);
+  const xr = logx
+    ? [Math.log10(xs[0]) - (Math.log10(xs[1]) - Math.log10(xs[0])) / 2,
+       Math.log10(xs[xs.length - 1]) + (Math.log10(xs[1]) - Math.log10(xs[0])) / 2]
+    : [xs[0] - half(xs, 0), xs[xs.length - 1] + half(xs, 1)];
+  return {
+    title: title ? { text: title, font: { size: 14 } } : undefined,
+    height, margin: { l: 62, r: 14, t: title ? 34 : 10, b: 48 },
+    xaxis: { title: { text: "Residence time [min]" }, type: logx ? "log" : "linear", range: xr, fixedrange: true,
+      showgrid: false, ticks: "outside" },
+    yaxis: { title: { text: "Feed temperature [°C]" }, range: [ys[0] - half(ys, 0), ys[ys.length - 1] + half(ys, 1)],
+      fixedrange: true, showgrid: false, ticks: "outside" },
+    showlegend: false, dragmode: false, hovermode: false, plot_bgcolor: "#ffffff",
+    font: { family: "system-ui, sans-serif", size: 12 },
+  };
+}
+
+// Data coordinates (tau [s], T_in [K]) of a pointer event, or null outside the plot area.
+function pointerToData(gd, ev) {
+  const cover = gd.querySelector(".nsewdrag");
+  if (!cover) return null;
+  const r = cover.getBoundingClientRect();
+  const fx = (ev.clientX - r.left) / r.width, fy = (ev.clientY - r.top) / r.height;
+  if (fx < 0 || fx > 1 || fy < 0 || fy > 1) return null;
+  const xa = gd._fullLayout.xaxis, ya = gd._fullLayout.yaxis;
+  let xv = xa.range[0] + fx * (xa.range[1] - xa.range[0]);
+  if (xa.type === "log") xv = 10 ** xv;
+  const yv = ya.range[1] - fy * (ya.range[1] - ya.range[0]);
+  return { residence_time: fromMin(xv), feed_temperature: fromC(yv) };
+}
+
+// Draw the map into el; callbacks get SI coordinates. Returns {setSetpoint}.
+export async function drawMap(Plotly, el, doc, setpoint, { onPick, onPreview, onHover, staticPlot = false,
+  height } = {}) {
+  const data = traces(doc, setpoint);
+  await Plotly.react(el, data, layout(doc, { height }), { displayModeBar: false, responsive: true, staticPlot });
+  const spIndex = data.length - 1;
+  const setSetpoint = (sp) => Plotly.restyle(el, { x: [[toMin(sp.residence_time)]], y: [[toC(sp.feed_temperature)]] },
+    [spIndex]);
+  if (!staticPlot && !el.dataset.wired) {
+    el.dataset.wired = "1";
+    let dragging = false;
+    el.addEventListener("pointerdown", (ev) => {
+      const p = pointerToData(el, ev);
+      if (!p || ev.button !== 0) return;
+      dragging = true;
+      el.setPointerCapture?.(ev.pointerId);
+      el._exomap.setSetpoint(p);
+      el._exomap.onPreview?.(p);
+      ev.preventDefault();
+    });
+    el.addEventListener("pointermove", (ev) => {
+      const p = pointerToData(el, ev);
+      if (dragging && p) { el._exomap.setSetpoint(p); el._exomap.onPreview?.(p); }
+      else if (p) el._exomap.onHover?.(p);
+    });
+    const end = (ev) => {
+      if (!dragging) return;
+      dragging = false;
+      const p = pointerToData(el, ev);
+      if (p) el._exomap.onPick?.(p);
+    };
+    el.addEventListener("pointerup", end);
+    el.addEventListener("pointercancel", () => { dragging = false; });
+  }
+  el._exomap = { doc, setSetpoint, onPick, onPreview, onHover };
+  return el._exomap;
+}

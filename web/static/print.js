@@ -1,0 +1,84 @@
+// The print view: a review sheet of one setpoint (summary, map, check, upsets, cautions) for A4 or Letter.
+
+import * as urls from "./urls.js";
+import { getJSON, showProblem, wireProblemBox, boot, plotlyReady } from "./api.js";
+import { drawMap, legendEntries } from "./map.js";
+import { renderVerdict, renderList, renderKV, renderStates, renderUpsets, el } from "./check.js";
+import { fmtMin, fmtTemp, fmtNum } from "./units.js";
+
+const $ = (id) => document.getElementById(id);
+const ID = boot().scenario_id;
+const state = urls.readState();
+
+function nominalTau(doc) {
+  const D = doc.vessel.diameter, h = doc.vessel.level_setpoint;
+  return (Math.PI * D * D / 4) * h / doc.feed.flow;
+}
+
+function summaryRows(sc) {
+  const r = [];
+  const q = (v, f) => (typeof v === "number" ? f(v) : v === null || v === undefined ? "—" : String(v));
+  r.push(["Title", sc.title || "—"], ["Description", sc.description || "—"], ["Species", (sc.species || []).join(", ")]);
+  r.push(["Vessel", `diameter ${q(sc.vessel.diameter, (v) => `${fmtNum(v)} m`)}, height ${q(sc.vessel.height, (v) => `${fmtNum(v)} m`)}, level setpoint ${q(sc.vessel.level_setpoint, (v) => `${fmtNum(v)} m`)}`]);
+  const v = sc.outlet_valve || {};
+  r.push(["Outlet valve", `Kv ${fmtNum(v.kv)} m³/h, ${String(v.characteristic || "").replace(/_/g, " ")}` +
+    (v.level_control ? `, level controller gain ${fmtNum(v.level_control.gain)} 1/m, reset ${fmtNum(v.level_control.reset_time)} s`
+      : typeof v.opening === "number" ? `, fixed at ${(100 * v.opening).toFixed(0)} % open` : "")]);
+  r.push(["Liquid", `density ${fmtNum(sc.liquid.density)} kg/m³, heat capacity ${fmtNum(sc.liquid.heat_capacity / 1000)} kJ/(kg·K)`]);
+  (sc.reactions || []).forEach((x, j) => {
+    const st = Object.entries(x.stoichiometry || {}).map(([s, n]) => `${n} ${s}`).join(" + ");
+    r.push([`Reaction ${j + 1}${x.label ? " (" + x.label + ")" : ""}`, `${st} → 0; k0 ${x.pre_exponential.toExponential(3)} (SI), ` +
+      `Ea ${fmtNum(x.activation_energy / 1000)} kJ/mol, ΔH ${fmtNum(x.reaction_enthalpy / 1000)} kJ/mol`]);
+  });
+  const f = sc.feed;
+  r.push(["Feed", `${fmtNum(f.flow * 3600)} m³/h at ${fmtTemp(f.temperature)}; ` +
+    Object.entries(f.concentrations || {}).map(([s, c]) => `${s} ${fmtNum(c / 1000)} mol/L`).join(", ")]);
+  r.push(["Cooling jacket", sc.jacket ? `UA ${fmtNum(sc.jacket.ua / 1000)} kW/K, coolant ${fmtTemp(sc.jacket.coolant_temperature)}` : "none (adiabatic apart from losses)"]);
+  r.push(["Heat loss", sc.heat_loss ? `UA ${fmtNum(sc.heat_loss.ua)} W/K to ${fmtTemp(sc.heat_loss.ambient_temperature)}` : "none"]);
+  const l = sc.limits || {};
+  r.push(["Limits", `maximum ${fmtTemp(l.max_temperature)}` + (l.alarm_temperature ? `, alarm ${fmtTemp(l.alarm_temperature)}` : "") +
+    (l.technical_limit_temperature ? `, MTT ${fmtTemp(l.technical_limit_temperature)}` : "")]);
+  return r;
+}
+
+function table(node, rows) {
+  node.textContent = "";
+  for (const [k, v] of rows) node.append(el("tr", {}, el("th", { scope: "row", text: k }), el("td", { text: v })));
+}
+
+async function main() {
+  wireProblemBox();
+  $("p-date").textContent = new Date().toISOString().slice(0, 16).replace("T", " ") + " UTC";
+  $("p-print").addEventListener("click", () => window.print());
+  try {
+    const sc = await getJSON(urls.apiScenario(ID), "Loading the scenario");
+    $("p-title").textContent = `Setpoint review: ${sc.title || "untitled scenario"}`;
+    document.title = `Review: ${sc.title || ID} · exomap`;
+    const sp = {
+      residence_time: state.residence_time ?? nominalTau(sc),
+      feed_temperature: state.feed_temperature ?? sc.feed.temperature,
+    };
+    const full = { ...state, ...sp };
+    table($("p-summary"), summaryRows(sc));
+    const [Plotly, map, chk] = await Promise.all([plotlyReady(), getJSON(urls.mapOfPage(ID, full), "Computing the map"),
+      getJSON(urls.twinOfPage(ID, full), "Checking the setpoint")]);
+    table($("p-setpoint"), [["Residence time", fmtMin(sp.residence_time, 5)], ["Feed temperature", fmtTemp(sp.feed_temperature)],
+      ["Operating state", state.branch === "high" ? "hot state (high)" : "cold start (low)"]]);
+    renderVerdict($("p-verdict"), chk);
+    renderList($("p-reasons"), chk.reasons);
+    renderKV($("p-margins"), chk.margins);
+    renderKV($("p-safety"), chk.safety);
+    renderStates($("p-states"), Array.isArray(chk.states) ? chk.states : [], chk.operating_state);
+    renderUpsets($("p-upsets"), chk.upsets, null);
+    await drawMap(Plotly, $("p-map"), map, sp, { staticPlot: true, height: 380 });
+    const ul = $("p-legend");
+    for (const e of legendEntries(map)) ul.append(el("li", {}, el("span", { class: "swatch", style: `background:${e.colour}` }), el("span", { text: e.label })));
+    ul.append(el("li", { text: "lines: ignition solid, extinction dashed, oscillation onset dotted, maximum temperature dash-dot; ⊗ setpoint" }));
+    document.body.dataset.ready = "1";
+  } catch (e) {
+    showProblem(e);
+    $("p-verdict").textContent = `The review sheet could not be made: ${e.message}`;
+  }
+}
+
+main();

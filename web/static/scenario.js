@@ -1,0 +1,461 @@
+// The scenario page: setpoint, operating map, panels (check, curves, simulation, editor); state in the URL.
+
+import * as urls from "./urls.js";
+import { getJSON, postJSON, showProblem, wireProblemBox, boot, plotlyReady, ApiError } from "./api.js";
+import { drawMap, cellAt, legendEntries, nearest } from "./map.js";
+import { LINES, VALVE_DOT } from "./palette.js";
+import { drawBranch, drawHeatBalance } from "./curves.js";
+import { renderVerdict, renderList, renderKV, renderStates, renderUpsets, drawResponse, simulationSummary, upsetName,
+  el } from "./check.js";
+import { parseTime, parseTemperature, fmtMin, fmtTemp, fmtPct, toC, toMin } from "./units.js";
+import { Editor } from "./editor.js";
+import { parseEventLines, helpHTML } from "./events.js";
+
+const $ = (id) => document.getElementById(id);
+const B = boot();
+const ID = B.scenario_id;
+let state = urls.readState();
+let Plotly = null;
+const view = { scenario: null, map: null, check: null, mapCtl: null, editor: null, seq: { check: 0, hover: 0, curves: 0 } };
+window.exomap = { view, get state() { return state; } };
+
+// -- URL state ----------------------------------------------------------------------------------------
+function syncURL(push = false) {
+  const path = urls.scenarioPage(ID, state);
+  if (path !== window.location.pathname + window.location.search) {
+    (push ? history.pushState : history.replaceState).call(history, null, "", path);
+  }
+  const twin = urls.twinOfPage(ID, state);
+  $("json-twin").href = twin;
+  $("twin-link").href = twin;
+  $("print-link").href = urls.printPage(ID, state);
+  $("dl-check").href = twin;
+  $("dl-map").href = urls.mapOfPage(ID, state, "csv");
+  $("dl-scenario").href = urls.apiScenario(ID);
+  const lt = $("link-text");
+  if (!lt.hidden) lt.value = urls.absolute(path);
+}
+
+window.addEventListener("popstate", () => {
+  state = urls.readState();
+  fillSetpointInputs();
+  showPanel(state.panel || "check", false);
+  refreshAll();
+});
+
+// -- defaults from the scenario ---------------------------------------------------------------------------
+function nominalTau(doc) {
+  const D = doc.vessel.diameter, h = doc.vessel.level_setpoint;
+  return (Math.PI * D * D / 4) * h / doc.feed.flow;
+}
+const roundTau = (s) => { const m = s / 60; const p = Number(m.toPrecision(3)); return Math.round(p * 60 * 1000) / 1000; };
+const roundTin = (K) => Math.round((Math.round((K - 273.15) * 10) / 10 + 273.15) * 100) / 100;
+const setpoint = () => ({ residence_time: state.residence_time, feed_temperature: state.feed_temperature });
+
+function fillSetpointInputs() {
+  $("sp-tau").value = fmtMin(state.residence_time, 6);
+  $("sp-tin").value = `${Number(toC(state.feed_temperature).toFixed(3))} degC`;
+  $("sp-branch").value = state.branch === "high" ? "high" : "";
+  const m = view.map;
+  const tr = state.map_residence_time || (m ? [m.residence_time_s[0], m.residence_time_s.at(-1)] : null);
+  const tt = state.map_feed_temperature || (m ? [m.feed_temperature_K[0], m.feed_temperature_K.at(-1)] : null);
+  const pts = state.points || (m ? [m.residence_time_s.length, m.feed_temperature_K.length] : null);
+  if (tr) { $("mw-tau-lo").value = fmtMin(tr[0], 5); $("mw-tau-hi").value = fmtMin(tr[1], 5); }
+  if (tt) { $("mw-tin-lo").value = `${Number(toC(tt[0]).toFixed(2))} degC`; $("mw-tin-hi").value = `${Number(toC(tt[1]).toFixed(2))} degC`; }
+  if (pts) $("mw-points").value = `${pts[0]} × ${pts[1]}`;
+}
+
+function fieldError(id, message) {
+  const n = $(id);
+  n.textContent = message || "";
+  n.hidden = !message;
+}
+
+// -- panels ---------------------------------------------------------------------------------------------
+function showPanel(name, push = true) {
+  for (const b of document.querySelectorAll("[role=tab]")) {
+    const on = b.dataset.panel === name;
+    b.setAttribute("aria-selected", on ? "true" : "false");
+    b.tabIndex = on ? 0 : -1;
+    $(b.getAttribute("aria-controls")).hidden = !on;
+  }
+  const changed = state.panel !== name;
+  state.panel = name;
+  if (changed) syncURL(push);
+  if (name === "curves") loadCurves();
+  if (name === "editor") openEditor();
+  if (name === "simulate") $("event-help").innerHTML = helpHTML();
+}
+
+function wireTabs() {
+  const tabs = [...document.querySelectorAll("[role=tab]")];
+  tabs.forEach((b, i) => {
+    b.addEventListener("click", () => showPanel(b.dataset.panel));
+    b.addEventListener("keydown", (ev) => {
+      const k = ev.key === "ArrowRight" ? 1 : ev.key === "ArrowLeft" ? -1 : 0;
+      if (!k) return;
+      const next = tabs[(i + k + tabs.length) % tabs.length];
+      next.focus();
+      showPanel(next.dataset.panel);
+    });
+  });
+}
+
+// -- setpoint ---------------------------------------------------------------------------------------------
+function moveSetpoint(sp, { push = true } = {}) {
+  state.residence_time = sp.residence_time;
+  state.feed_temperature = sp.feed_temperature;
+  state.upset = null;
+  fillSetpointInputs();
+  if (view.mapCtl) view.mapCtl.setSetpoint(setpoint());
+  syncURL(push);
+  loadCheck();
+  if (state.panel === "curves") loadCurves();
+}
+
+function wireSetpoint() {
+  $("setpoint-form").addEventListener("submit", (ev) => {
+    ev.preventDefault();
+    let tau, tin;
+    try { tau = parseTime($("sp-tau").value); fieldError("sp-tau-err", ""); }
+    catch (e) { fieldError("sp-tau-err", e.message); }
+    try { tin = parseTemperature($("sp-tin").value); fieldError("sp-tin-err", ""); }
+    catch (e) { fieldError("sp-tin-err", e.message); }
+    if (tau === undefined || tin === undefined) return;
+    state.branch = $("sp-branch").value || null;
+    moveSetpoint({ residence_time: tau, feed_temperature: tin });
+  });
+  $("sp-branch").addEventListener("change", () => {
+    state.branch = $("sp-branch").value || null;
+    syncURL(true);
+    loadCheck();
+  });
+  $("mw-apply").addEventListener("click", () => {
+    try {
+      const tr = [parseTime($("mw-tau-lo").value), parseTime($("mw-tau-hi").value)];
+      const tt = [parseTemperature($("mw-tin-lo").value), parseTemperature($("mw-tin-hi").value)];
+      const pts = $("mw-points").value.split(/[^0-9]+/).filter(Boolean).map(Number);
+      if (!(tr[0] < tr[1])) throw new Error("The residence-time window must run from low to high.");
+      if (!(tt[0] < tt[1])) throw new Error("The feed-temperature window must run from low to high.");
+      if (pts.length !== 2 || pts.some((n) => !(n >= 2))) throw new Error("Grid: type two whole numbers, e.g. 120 × 120.");
+      fieldError("mw-err", "");
+      state.map_residence_time = tr;
+      state.map_feed_temperature = tt;
+      state.points = pts;
+      syncURL(true);
+      loadMap();
+      if (state.panel === "curves") loadCurves();
+    } catch (e) { fieldError("mw-err", e.message); }
+  });
+  $("mw-reset").addEventListener("click", () => {
+    state.map_residence_time = state.map_feed_temperature = state.points = null;
+    syncURL(true);
+    loadMap();
+  });
+}
+
+// -- map --------------------------------------------------------------------------------------------------
+function renderLegend(doc) {
+  const ul = $("map-legend");
+  ul.textContent = "";
+  for (const e of legendEntries(doc)) {
+    ul.append(el("li", { "data-key": e.key }, el("span", { class: "swatch", style: `background:${e.colour}` }),
+      el("span", { text: e.label })));
+  }
+  const b = doc.boundaries || {};
+  for (const [key, style] of Object.entries(LINES)) {
+    const curve = b[key];
+    if (!curve || (Array.isArray(curve) && !curve.length)) continue;
+    const sw = key === "cusp" ? `<svg width="28" height="12" aria-hidden="true"><path d="M14 1 L20 6 L14 11 L8 6Z" fill="${style.color}"/></svg>`
+      : `<svg width="28" height="12" aria-hidden="true"><line x1="1" y1="6" x2="27" y2="6" stroke="${style.color}" stroke-width="${style.width}" stroke-dasharray="${{ solid: "", dash: "6 3", dot: "2 3", dashdot: "7 3 2 3" }[style.dash]}"/></svg>`;
+    const li = el("li", { "data-key": `line:${key}` });
+    li.innerHTML = sw;
+    li.append(el("span", { text: style.label }));
+    ul.append(li);
+  }
+  if (Array.isArray(doc.valve_limited) && doc.valve_limited.some((r) => r.some(Boolean))) {
+    const li = el("li", { "data-key": "valve_limited" });
+    li.innerHTML = `<svg width="28" height="12" aria-hidden="true"><circle cx="6" cy="6" r="1.6" fill="${VALVE_DOT}"/><circle cx="14" cy="6" r="1.6" fill="${VALVE_DOT}"/><circle cx="22" cy="6" r="1.6" fill="${VALVE_DOT}"/></svg>`;
+    li.append(el("span", { text: "dots: the outlet valve cannot pass this flow at the set level within its usable opening" }));
+    ul.append(li);
+  }
+  const li = el("li", { "data-key": "setpoint" });
+  li.innerHTML = `<svg width="28" height="14" aria-hidden="true"><circle cx="14" cy="7" r="5" fill="none" stroke="#000" stroke-width="2"/><path d="M10.5 3.5 L17.5 10.5 M17.5 3.5 L10.5 10.5" stroke="#000" stroke-width="1.6"/></svg>`;
+  li.append(el("span", { text: "setpoint" }));
+  ul.append(li);
+}
+
+function readoutGrid(sp, extra) {
+  if (!view.map) return;
+  const c = cellAt(view.map, sp.residence_time, sp.feed_temperature);
+  const box = $("readout");
+  box.textContent = "";
+  box.append(el("div", { class: "readout-head", text: `${fmtMin(sp.residence_time, 4)}, ${fmtTemp(sp.feed_temperature)}` }),
+    el("div", {}, el("strong", { text: c.region_label })));
+  if (c.state_count !== null) box.append(el("div", { text: `${c.state_count} steady state${c.state_count === 1 ? "" : "s"}` }));
+  if (c.max_temperature_K !== null) box.append(el("div", { text: `hottest steady state ${fmtTemp(c.max_temperature_K)}` }));
+  if (c.valve_limited) box.append(el("div", { text: "valve cannot pass the flow in its usable range" }));
+  if (extra) box.append(extra);
+}
+
+let hoverTimer = null;
+function hoverAt(sp) {
+  readoutGrid(sp);
+  clearTimeout(hoverTimer);
+  hoverTimer = setTimeout(async () => {
+    const seq = ++view.seq.hover;
+    try {
+      const ans = await getJSON(urls.apiAnswer(ID, "steady", sp), "Reading the steady states");
+      if (seq !== view.seq.hover) return;
+      const list = el("ul", { class: "readout-states" });
+      for (const s of ans.states || []) list.append(el("li", { text: `${fmtTemp(s.temperature_K)}, conversion ${fmtPct(s.conversion)}, ${s.stability}${s.oscillatory ? " (oscillatory)" : ""}` }));
+      readoutGrid(sp, list);
+    } catch { /* the grid readout stays; a failed hover read is not worth an alarm */ }
+  }, 180);
+}
+
+async function loadMap() {
+  const url = urls.mapOfPage(ID, state);
+  try {
+    const doc = await getJSON(url, "Computing the operating map");
+    view.map = doc;
+    renderLegend(doc);
+    fillSetpointInputs();
+    view.mapCtl = await drawMap(Plotly, $("map"), doc, setpoint(), {
+      onPreview: (sp) => readoutGrid(sp),
+      onPick: (sp) => moveSetpoint({ residence_time: roundTau(sp.residence_time), feed_temperature: roundTin(sp.feed_temperature) }),
+      onHover: hoverAt,
+    });
+    $("map").dataset.drawn = String(Date.now());
+  } catch (e) {
+    showProblem(e);
+    if (e instanceof ApiError && e.fields.length) fieldError("mw-err", e.fields.map((f) => f.message).join("; "));
+  }
+}
+
+function wireMapKeys() {
+  const m = $("map");
+  m.tabIndex = 0;
+  m.setAttribute("role", "application");
+  m.setAttribute("aria-label", "Operating map. Arrow keys move the setpoint by one grid step.");
+  let commit = null;
+  m.addEventListener("keydown", (ev) => {
+    const d = { ArrowLeft: [-1, 0], ArrowRight: [1, 0], ArrowUp: [0, 1], ArrowDown: [0, -1] }[ev.key];
+    if (!d || !view.map) return;
+    ev.preventDefault();
+    const xs = view.map.residence_time_s, ys = view.map.feed_temperature_K;
+    const j = Math.min(xs.length - 1, Math.max(0, nearest(xs, state.residence_time) + d[0]));
+    const i = Math.min(ys.length - 1, Math.max(0, nearest(ys, state.feed_temperature) + d[1]));
+    const sp = { residence_time: roundTau(xs[j]), feed_temperature: roundTin(ys[i]) };
+    state.residence_time = sp.residence_time;
+    state.feed_temperature = sp.feed_temperature;
+    view.mapCtl.setSetpoint(sp);
+    readoutGrid(sp);
+    fillSetpointInputs();
+    clearTimeout(commit);
+    commit = setTimeout(() => moveSetpoint(sp), 450);
+  });
+}
+
+// -- check ------------------------------------------------------------------------------------------------
+async function loadCheck() {
+  const seq = ++view.seq.check;
+  const box = $("verdict");
+  box.className = "verdict verdict-pending";
+  box.textContent = "Checking the setpoint…";
+  try {
+    const chk = await getJSON(urls.twinOfPage(ID, state), "Checking the setpoint (steady states, margins, upsets)");
+    if (seq !== view.seq.check) return;
+    view.check = chk;
+    renderCheck(chk);
+    if (state.upset !== null && state.upset !== undefined) openUpset(state.upset, false);
+  } catch (e) {
+    if (seq !== view.seq.check) return;
+    box.className = "verdict verdict-error";
+    box.textContent = `The check could not be made: ${e.message}`;
+  }
+}
+
+function renderCheck(chk) {
+  renderVerdict($("verdict"), chk);
+  const a = chk.assumption;
+  $("assumption").textContent = typeof a === "string" ? a : a ? a.message || a.text || JSON.stringify(a) : "";
+  renderList($("reasons"), chk.reasons);
+  renderKV($("margins"), chk.margins);
+  renderKV($("safety"), chk.safety);
+  const states = Array.isArray(chk.states) ? chk.states : chk.states && chk.states.states;
+  const opIndex = typeof chk.operating_state === "number" ? chk.operating_state : chk.states && chk.states.operating_index;
+  renderStates($("states"), states, opIndex);
+  renderUpsets($("upsets"), chk.upsets, (i) => openUpset(i, true));
+  renderList($("check-cautions"), chk.cautions);
+}
+
+async function openUpset(i, push) {
+  const u = (view.check && view.check.upsets || [])[i];
+  if (!u) return;
+  state.upset = i;
+  syncURL(push);
+  const box = $("upset-view");
+  box.hidden = false;
+  $("upset-title").textContent = `Response: ${upsetName(u, i)}`;
+  const lim = view.scenario.limits || {};
+  try {
+    let sim = u.response || (u.time_s ? u : null);
+    if (!sim) {
+      if (!u.events) throw new Error("This upset does not say which events it applied, so its response cannot be drawn.");
+      const body = { scenario_id: ID, ...setpoint(), start: view.check.branch || state.branch || "low", events: u.events };
+      if (u.duration_s) body.duration = u.duration_s;
+      sim = await postJSON(urls.apiPost("simulate"), body, "Simulating the upset");
+    }
+    if (state.upset !== i) return;
+    await drawResponse(Plotly, $("upset-plot"), sim, { maxK: lim.max_temperature, alarmK: lim.alarm_temperature });
+  } catch (e) {
+    $("upset-plot").textContent = e.message;
+  }
+}
+
+// -- curves -----------------------------------------------------------------------------------------------
+async function loadCurves() {
+  if (!Plotly || !view.scenario) return;
+  const seq = ++view.seq.curves;
+  const sp = setpoint();
+  const maxK = (view.scenario.limits || {}).max_temperature;
+  const ranges = { residence_time: state.map_residence_time, feed_temperature: state.map_feed_temperature };
+  const one = async (along, node) => {
+    const body = { scenario_id: ID, along, ...sp };
+    if (ranges[along]) body.range = ranges[along];
+    try {
+      const doc = await postJSON(urls.apiPost("branch"), body, "Tracing the steady-state curves");
+      if (seq === view.seq.curves) await drawBranch(Plotly, node, doc, sp, maxK);
+    } catch (e) { if (seq === view.seq.curves) node.textContent = `This curve could not be traced: ${e.message}`; }
+  };
+  const heat = async () => {
+    try {
+      await drawHeatBalance(Plotly, $("heat-balance"), view.scenario, sp, maxK);
+    } catch (e) { $("heat-balance").textContent = `The heat balance could not be drawn: ${e.message}`; }
+  };
+  await Promise.all([one("residence_time", $("curve-tau")), one("feed_temperature", $("curve-tin")), heat()]);
+}
+
+// -- simulation ---------------------------------------------------------------------------------------------
+function wireSimulation() {
+  $("sim-form").addEventListener("submit", async (ev) => {
+    ev.preventDefault();
+    fieldError("sim-events-err", "");
+    fieldError("sim-duration-err", "");
+    let events;
+    try { events = parseEventLines($("sim-events").value); } catch (e) { fieldError("sim-events-err", e.message); return; }
+    const body = { scenario_id: ID, ...setpoint(), start: $("sim-start").value, events, duration: $("sim-duration").value };
+    try {
+      const sim = await postJSON(urls.apiPost("simulate"), body, "Simulating");
+      $("sim-summary").textContent = simulationSummary(sim);
+      const lim = view.scenario.limits || {};
+      await drawResponse(Plotly, $("sim-plot"), sim, { maxK: lim.max_temperature, alarmK: lim.alarm_temperature });
+    } catch (e) {
+      const f = (e.fields || []);
+      const ev2 = f.filter((x) => String(x.field).startsWith("events")).map((x) => `${x.field}: ${x.message}`);
+      const du = f.filter((x) => String(x.field).startsWith("duration")).map((x) => x.message);
+      if (ev2.length) fieldError("sim-events-err", ev2.join("; "));
+      if (du.length) fieldError("sim-duration-err", du.join("; "));
+      if (!ev2.length && !du.length) showProblem(e);
+    }
+  });
+}
+
+// -- editor -------------------------------------------------------------------------------------------------
+function openEditor() {
+  if (view.editor || !view.scenario) return;
+  view.editor = new Editor($("editor"), view.scenario, {});
+  $("editor").addEventListener("submit", async (ev) => {
+    ev.preventDefault();
+    await saveEdits();
+  });
+  $("editor-revert").addEventListener("click", () => view.editor.revert());
+}
+
+async function saveEdits() {
+  const doc = view.editor.collect();
+  view.editor.clearErrors();
+  fieldError("editor-error", "");
+  const headers = {};
+  const token = sessionStorage.getItem("exomap-token");
+  if (token) headers.Authorization = `Bearer ${token}`;
+  try {
+    const saved = await postJSON(urls.apiScenarios(), doc, "Checking and saving the scenario", headers);
+    const next = { ...state, panel: "check", upset: null };
+    window.location.assign(urls.scenarioPage(saved.id, next));
+  } catch (e) {
+    if (e.status === 401) {
+      const t = window.prompt("Saving on this server needs its access token:");
+      if (t) { sessionStorage.setItem("exomap-token", t); return saveEdits(); }
+    }
+    const left = view.editor.showErrors(e.fields || []);
+    const msg = left.length ? left.map((f) => `${f.field}: ${f.message}`).join("; ") : e.fields && e.fields.length
+      ? "Some values need fixing; see the messages beside the fields." : e.message;
+    fieldError("editor-error", msg);
+  }
+}
+
+// -- copy link ----------------------------------------------------------------------------------------------
+function wireCopy() {
+  $("copy-link").addEventListener("click", async () => {
+    const href = urls.absolute(urls.scenarioPage(ID, state));
+    const lt = $("link-text");
+    lt.hidden = false;
+    lt.value = href;
+    lt.select();
+    try {
+      await navigator.clipboard.writeText(href);
+      $("copy-link").textContent = "Link copied";
+    } catch {
+      $("copy-link").textContent = "Copy the link shown";
+    }
+    setTimeout(() => { $("copy-link").textContent = "Copy link"; }, 2500);
+  });
+}
+
+// -- start --------------------------------------------------------------------------------------------------
+function refreshAll() {
+  loadMap();
+  loadCheck();
+  if (state.panel === "curves") loadCurves();
+}
+
+async function main() {
+  wireProblemBox();
+  wireTabs();
+  wireSetpoint();
+  wireCopy();
+  wireSimulation();
+  wireMapKeys();
+  $("upset-close").addEventListener("click", () => { state.upset = null; $("upset-view").hidden = true; syncURL(true); });
+  try {
+    view.scenario = await getJSON(urls.apiScenario(ID), "Loading the scenario");
+  } catch (e) {
+    $("scenario-title").textContent = "Scenario not available";
+    $("verdict").textContent = e.message;
+    showProblem(e);
+    return;
+  }
+  const sc = view.scenario;
+  $("scenario-title").textContent = sc.title || "Untitled scenario";
+  document.title = `${sc.title || "Scenario"} · exomap`;
+  if (state.residence_time === null) state.residence_time = nominalTau(sc);
+  if (state.feed_temperature === null) state.feed_temperature = sc.feed.temperature;
+  fillSetpointInputs();
+  syncURL(false);
+  try { Plotly = await plotlyReady(); } catch (e) { showProblem(e); return; }
+  showPanel(state.panel || "check", false);
+  await Promise.all([loadMap(), loadCheck()]);
+  listDemoFlag();
+}
+
+async function listDemoFlag() {
+  try {
+    const list = await getJSON(urls.apiScenarios(), "Listing scenarios");
+    const me = (list.scenarios || []).find((s) => s.id === ID);
+    if (me && me.demo) $("scenario-demo").hidden = false;
+  } catch { /* the demo note is a nicety */ }
+}
+
+main();

@@ -1,0 +1,88 @@
+// Every URL the pages use, built in one place (the server's twin is exomap/web/urls.py).
+// View state lives in the query string in SI numbers: residence_time [s], feed_temperature [K],
+// map_residence_time "lo,hi" [s], map_feed_temperature "lo,hi" [K], points "n_tau,n_tin", branch, panel, upset.
+
+export const API = "/api/v1";
+export const VIEW_KEYS = [
+  "residence_time", "feed_temperature", "map_residence_time", "map_feed_temperature",
+  "points", "branch", "panel", "upset",
+];
+export const PANELS = ["check", "curves", "simulate", "editor"];
+
+const seg = (s) => encodeURIComponent(String(s));
+
+function text(v) {
+  if (Array.isArray(v)) return v.map(text).join(",");
+  if (typeof v === "number") return String(Number(v.toPrecision(12)));
+  return String(v);
+}
+
+function query(params) {
+  const parts = [];
+  for (const [k, v] of Object.entries(params || {})) {
+    if (v === null || v === undefined || v === "") continue;
+    parts.push(`${encodeURIComponent(k)}=${encodeURIComponent(text(v)).replace(/%2C/g, ",")}`);
+  }
+  return parts.length ? "?" + parts.join("&") : "";
+}
+
+function ordered(state) {
+  const out = {};
+  for (const k of VIEW_KEYS) if (state && state[k] !== undefined && state[k] !== null) out[k] = state[k];
+  return out;
+}
+
+// -- view state ---------------------------------------------------------------------------------------
+function pair(s) {
+  if (!s) return null;
+  const v = String(s).split(",").map(Number);
+  return v.length === 2 && v.every(Number.isFinite) ? v : null;
+}
+
+export function readState(search = window.location.search) {
+  const q = new URLSearchParams(search);
+  const num = (k) => (q.has(k) && Number.isFinite(Number(q.get(k))) && q.get(k) !== "" ? Number(q.get(k)) : null);
+  const st = {
+    residence_time: num("residence_time"),
+    feed_temperature: num("feed_temperature"),
+    map_residence_time: pair(q.get("map_residence_time")),
+    map_feed_temperature: pair(q.get("map_feed_temperature")),
+    points: pair(q.get("points")),
+    branch: ["low", "high"].includes(q.get("branch")) ? q.get("branch") : null,
+    panel: PANELS.includes(q.get("panel")) ? q.get("panel") : null,
+    upset: num("upset"),
+  };
+  if (st.points) st.points = st.points.map((n) => Math.round(n));
+  return st;
+}
+
+// -- pages --------------------------------------------------------------------------------------------
+export const home = () => "/";
+export const scenarioPage = (id, state) => `/scenarios/${seg(id)}` + query(ordered(state));
+export const printPage = (id, state) => `/scenarios/${seg(id)}/print` + query(ordered(state));
+export const absolute = (path) => new URL(path, window.location.origin).href;
+
+// -- API ----------------------------------------------------------------------------------------------
+export const apiScenarios = () => `${API}/scenarios`;
+export const apiScenario = (id) => `${API}/scenarios/${seg(id)}`;
+export const apiVersion = () => `${API}/version`;
+export const apiPost = (kind) => `${API}/${seg(kind)}`;
+
+export function apiAnswer(id, kind, params) {
+  if (!["steady", "branch", "map", "check", "simulate"].includes(kind)) throw new Error(`unknown answer ${kind}`);
+  return `${API}/scenarios/${seg(id)}/${kind}` + query(params);
+}
+
+// The JSON twin of a scenario page: the check at its setpoint.
+export function twinOfPage(id, state) {
+  return apiAnswer(id, "check", {
+    residence_time: state.residence_time, feed_temperature: state.feed_temperature, branch: state.branch,
+  });
+}
+
+export function mapOfPage(id, state, format) {
+  return apiAnswer(id, "map", {
+    residence_time: state.map_residence_time, feed_temperature: state.map_feed_temperature,
+    points: state.points, format,
+  });
+}
