@@ -32,7 +32,6 @@ from dataclasses import dataclass
 
 import numpy as np
 import pytest
-
 from exomap.core.scenario import R_GAS, Limits, MapSpec, Reaction, Scenario, Valve, Vessel
 
 #: Liquid and vessel of every fixture (invented, water-like).
@@ -90,9 +89,19 @@ class Cstr:
         return self.k_ref * np.exp(self.E * (1.0 / self.T_in - 1.0 / np.asarray(T, dtype=float)))
 
 
-def make_cstr(gamma: float = 20.0, B: float = 8.0, *, T_in: float = 350.0, k_ref: float = 1e-3,
-              kappa: float = 0.0, T_c: float | None = None, T_max: float = 2000.0, product: bool = True,
-              valve: Valve | None = None, map_spec: MapSpec | None = None) -> Cstr:
+def make_cstr(
+    gamma: float = 20.0,
+    B: float = 8.0,
+    *,
+    T_in: float = 350.0,
+    k_ref: float = 1e-3,
+    kappa: float = 0.0,
+    T_c: float | None = None,
+    T_max: float = 2000.0,
+    product: bool = True,
+    valve: Valve | None = None,
+    map_spec: MapSpec | None = None,
+) -> Cstr:
     """Adiabatic (kappa = 0) or jacketed first-order CSTR A -> P with the given gamma and B at T_in.
 
     ``kappa`` = UA/(rho cp V) [1/s]; the coolant sits at ``T_c`` (default: the feed temperature, y_c = 0).
@@ -234,10 +243,12 @@ class Reference:
         s = 1.0 + y / gamma
         f = math.exp(y / s)
         fy = f / (s * s)
-        return np.array([
-            [-1.0 - Da * f, Da * (1.0 - x) * fy],
-            [-B * Da * f, -(1.0 + beta) + B * Da * (1.0 - x) * fy],
-        ])
+        return np.array(
+            [
+                [-1.0 - Da * f, Da * (1.0 - x) * fy],
+                [-B * Da * f, -(1.0 + beta) + B * Da * (1.0 - x) * fy],
+            ]
+        )
 
 
 @pytest.fixture(scope="session")

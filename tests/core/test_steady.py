@@ -18,16 +18,15 @@ import math
 
 import numpy as np
 import pytest
-from hypothesis import HealthCheck, assume, given, settings
-from hypothesis import strategies as st
-from scipy.optimize import fsolve
-
 from exomap.core import steady as steady_mod
 from exomap.core.errors import ModelInputError
 from exomap.core.manifold import Manifold
 from exomap.core.model import Model, nominal_inputs
 from exomap.core.scenario import R_GAS
 from exomap.core.steady import roots_along, steady_states
+from hypothesis import HealthCheck, assume, given, settings
+from hypothesis import strategies as st
+from scipy.optimize import fsolve
 
 SLOW_OK = settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 
@@ -75,8 +74,17 @@ def test_no_multiplicity_below_the_threshold(cstr, ref, gamma):
 # -- (b) the states found are the roots of x = Da (1 - x) exp(B x / (1 + B x / gamma)) --------------------
 @pytest.mark.parametrize(
     ("gamma", "B", "Da"),
-    [(20.0, 8.0, 0.02), (20.0, 8.0, 0.03), (20.0, 8.0, 0.04), (20.0, 8.0, 0.05), (20.0, 8.0, 0.07),
-     (10.0, 12.0, 0.01), (30.0, 15.0, 0.002), (25.0, 3.0, 0.8), (50.0, 20.0, 3e-4)],
+    [
+        (20.0, 8.0, 0.02),
+        (20.0, 8.0, 0.03),
+        (20.0, 8.0, 0.04),
+        (20.0, 8.0, 0.05),
+        (20.0, 8.0, 0.07),
+        (10.0, 12.0, 0.01),
+        (30.0, 15.0, 0.002),
+        (25.0, 3.0, 0.8),
+        (50.0, 20.0, 3e-4),
+    ],
 )
 def test_states_are_the_dimensionless_roots(cstr, ref, gamma, B, Da):
     c = cstr(gamma, B)
@@ -136,9 +144,16 @@ class _GeneralOnly(Manifold):
         self.explicit = False
 
 
-@pytest.mark.parametrize(("gamma", "B", "Da", "beta"),
-                         [(20.0, 8.0, 0.04, 0.0), (20.0, 8.0, 0.06, 0.0), (25.0, 3.0, 0.8, 0.0),
-                          (20.0, 16.0, 0.05, 3.0), (30.0, 24.0, 0.01, 1.0)])
+@pytest.mark.parametrize(
+    ("gamma", "B", "Da", "beta"),
+    [
+        (20.0, 8.0, 0.04, 0.0),
+        (20.0, 8.0, 0.06, 0.0),
+        (25.0, 3.0, 0.8, 0.0),
+        (20.0, 16.0, 0.05, 3.0),
+        (30.0, 24.0, 0.01, 1.0),
+    ],
+)
 def test_explicit_and_general_paths_agree(cstr, monkeypatch, gamma, B, Da, beta):
     c0 = cstr(gamma, B)
     c = cstr(gamma, B, kappa=beta / c0.tau(Da))
@@ -189,8 +204,7 @@ def test_stability_low_high_stable_middle_saddle(cstr, ref, gamma, B, Da):
         # the reported eigenvalues [1/s] contain those of the 2x2 Jacobian divided by tau, plus -1/tau for the
         # product species (analytic: C_A + C_P relaxes to C_Af at rate 1/tau)
         expected = np.concatenate((np.linalg.eigvals(J) / tau, [-1.0 / tau]))
-        np.testing.assert_allclose(np.sort_complex(ev), np.sort_complex(expected), rtol=1e-7,
-                                   atol=1e-9 / tau)
+        np.testing.assert_allclose(np.sort_complex(ev), np.sort_complex(expected), rtol=1e-7, atol=1e-9 / tau)
 
 
 # -- (f) jacketed: oscillatory states and the Hopf condition -----------------------------------------------
@@ -360,6 +374,13 @@ def test_to_dict_follows_the_answer_format(cstr):
     assert set(doc["operating_point"]) >= {"residence_time_s", "feed_temperature_K"}
     assert [s["stability"] for s in doc["states"]] == ["stable", "saddle", "stable"]
     for s in doc["states"]:
-        assert set(s) >= {"temperature_K", "concentrations_mol_per_m3", "conversion", "stability",
-                          "oscillatory", "eigenvalues_per_s", "valve_opening"}
+        assert set(s) >= {
+            "temperature_K",
+            "concentrations_mol_per_m3",
+            "conversion",
+            "stability",
+            "oscillatory",
+            "eigenvalues_per_s",
+            "valve_opening",
+        }
         assert all(len(pair) == 2 for pair in s["eigenvalues_per_s"])
