@@ -18,6 +18,7 @@ from pydantic import ValidationError
 
 import exomap
 from exomap.web.errors import ApiError, error_responses
+from exomap.web.jobs import Answer
 from exomap.web.models import BranchRequest, CheckRequest, MapRequest, SimulateRequest, SteadyRequest
 from exomap.web.service import REQUEST_MODELS, Service
 from exomap.web.settings import Settings
@@ -73,13 +74,27 @@ ServiceDep = Annotated[Service, Depends(get_service)]
 SettingsDep = Annotated[Settings, Depends(get_settings)]
 
 
-def _answer_response(out: bytes | str, hit: bool, fmt: str, kind: str, scenario: str | None = None) -> Response:
-    headers = {"X-Exomap-Cache": "hit" if hit else "miss"}
+def _accepts_gzip(request: Request) -> bool:
+    for item in request.headers.get("accept-encoding", "").split(","):
+        coding, _, params = item.strip().partition(";")
+        if coding.strip().lower() == "gzip":
+            return params.replace(" ", "") not in ("q=0", "q=0.0", "q=0.00", "q=0.000")
+    return False
+
+
+def _answer_response(request: Request, out: Answer, hit: bool, fmt: str, kind: str,
+                     scenario: str | None = None) -> Response:
+    """The answer as sent: its stored gzip form when the client takes gzip (compressed once, in the worker)."""
+    headers = {"X-Exomap-Cache": "hit" if hit else "miss", "Vary": "Accept-Encoding"}
+    media = "application/json"
     if fmt == "csv":
         name = f"{kind}-{scenario}.csv" if scenario else f"{kind}.csv"
         headers["Content-Disposition"] = f'inline; filename="{name}"'
-        return Response(out, media_type="text/csv; charset=utf-8", headers=headers)
-    return Response(out, media_type="application/json", headers=headers)
+        media = "text/csv; charset=utf-8"
+    if out.gz is not None and _accepts_gzip(request):
+        headers["Content-Encoding"] = "gzip"
+        return Response(out.gz, media_type=media, headers=headers)
+    return Response(out.body, media_type=media, headers=headers)
 
 
 def _answer_responses(kind: str) -> dict[int | str, dict[str, Any]]:
@@ -194,9 +209,9 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
 
     # -- computations: POST with a body ------------------------------------------------------------------------
     def post_route(kind: str, model: type) -> None:
-        async def compute(service: ServiceDep, req: Any) -> Response:
+        async def compute(request: Request, service: ServiceDep, req: Any) -> Response:
             out, hit = await service.answer(kind, req)
-            return _answer_response(out, hit, "json", kind)
+            return _answer_response(request, out, hit, "json", kind)
 
         compute.__annotations__["req"] = Annotated[model, Body()]
         router.add_api_route(f"/{kind}", compute, methods=["POST"], summary=SUMMARIES[kind],
@@ -225,7 +240,7 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
 
     @router.get("/scenarios/{scenario_id}/steady", summary=SUMMARIES["steady"] + " (stored scenario)",
                 responses=_answer_responses("steady"), response_class=Response)
-    async def get_steady(service: ServiceDep, scenario_id: Id, residence_time: Tau = None,
+    async def get_steady(request: Request, service: ServiceDep, scenario_id: Id, residence_time: Tau = None,
                          feed_temperature: Tin = None, feed_concentrations: Conc = None,
                          coolant_temperature: Tc = None) -> Response:
         req = _validated(SteadyRequest, {
@@ -234,12 +249,12 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
             "feed_concentrations": concentrations(feed_concentrations),
             "coolant_temperature": _number_or_text(coolant_temperature)})
         out, hit = await service.answer("steady", req)
-        return _answer_response(out, hit, "json", "steady")
+        return _answer_response(request, out, hit, "json", "steady")
 
     @router.get("/scenarios/{scenario_id}/branch", summary=SUMMARIES["branch"] + " (stored scenario)",
                 responses=_answer_responses("branch"), response_class=Response)
     async def get_branch(
-        service: ServiceDep, scenario_id: Id,
+        request: Request, service: ServiceDep, scenario_id: Id,
         along: Annotated[str | None, Query(description="'residence_time' or 'feed_temperature'.")] = None,
         residence_time: Tau = None, feed_temperature: Tin = None,
         range: Annotated[str | None, Query(description="'lo,hi' of the varying parameter.")] = None,
@@ -251,12 +266,12 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
             "feed_concentrations": concentrations(feed_concentrations),
             "coolant_temperature": _number_or_text(coolant_temperature)})
         out, hit = await service.answer("branch", req)
-        return _answer_response(out, hit, "json", "branch")
+        return _answer_response(request, out, hit, "json", "branch")
 
     @router.get("/scenarios/{scenario_id}/map", summary=SUMMARIES["map"] + " (stored scenario)",
                 responses=_answer_responses("map"), response_class=Response)
     async def get_map(
-        service: ServiceDep, scenario_id: Id,
+        request: Request, service: ServiceDep, scenario_id: Id,
         residence_time: Annotated[str | None, Query(description="Window 'lo,hi', e.g. '1 min,10 h'.")] = None,
         feed_temperature: Annotated[str | None, Query(description="Window 'lo,hi', e.g. '0 degC,120 degC'.")]
         = None,
@@ -272,24 +287,26 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
             "scenario_id": scenario_id, "residence_time": _pair(residence_time),
             "feed_temperature": _pair(feed_temperature), "points": pts, "spacing": spacing})
         out, hit = await service.answer("map", req, format)
-        return _answer_response(out, hit, format, "map", scenario_id)
+        return _answer_response(request, out, hit, format, "map", scenario_id)
 
     @router.get("/scenarios/{scenario_id}/check", summary=SUMMARIES["check"] + " (stored scenario)",
                 responses=_answer_responses("check"), response_class=Response)
     async def get_check(
-        service: ServiceDep, scenario_id: Id, residence_time: Tau = None, feed_temperature: Tin = None,
+        request: Request, service: ServiceDep, scenario_id: Id,
+        residence_time: Tau = None, feed_temperature: Tin = None,
         branch: Annotated[str | None, Query(description="'low' or 'high': which stable state is assumed.")] = None,
     ) -> Response:
         req = _validated(CheckRequest, {
             "scenario_id": scenario_id, "residence_time": _number_or_text(residence_time),
             "feed_temperature": _number_or_text(feed_temperature), "branch": branch})
         out, hit = await service.answer("check", req)
-        return _answer_response(out, hit, "json", "check")
+        return _answer_response(request, out, hit, "json", "check")
 
     @router.get("/scenarios/{scenario_id}/simulate", summary=SUMMARIES["simulate"] + " (stored scenario)",
                 responses=_answer_responses("simulate"), response_class=Response)
     async def get_simulate(
-        service: ServiceDep, scenario_id: Id, residence_time: Tau = None, feed_temperature: Tin = None,
+        request: Request, service: ServiceDep, scenario_id: Id,
+        residence_time: Tau = None, feed_temperature: Tin = None,
         start: Annotated[str | None, Query(description="'low' or 'high' starting state.")] = None,
         duration: Annotated[str | None, Query(description="Simulated time: '2 h' or seconds.")] = None,
         events: Annotated[str | None, Query(description="The events as a JSON list (URL-encoded).")] = None,
@@ -307,6 +324,6 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
             "feed_temperature": _number_or_text(feed_temperature), "start": start,
             "duration": _number_or_text(duration), "events": parsed_events})
         out, hit = await service.answer("simulate", req, format)
-        return _answer_response(out, hit, format, "simulate", scenario_id)
+        return _answer_response(request, out, hit, format, "simulate", scenario_id)
 
     return router

@@ -33,7 +33,7 @@ from exomap.web.store import ScenarioStore, load_demos
 log = logging.getLogger("exomap.web")
 
 #: Demo whose document is the OpenAPI example of a scenario body (the first demo when it is missing).
-EXAMPLE_DEMO = "adiabatic"
+EXAMPLE_DEMO = "adiabatic-second-order"
 
 
 def _example_document(names: list[str]) -> dict[str, Any] | None:

@@ -1,15 +1,15 @@
 """An LRU cache of answers, bounded by entry count and by bytes, safe across threads.
 
 Keys are ``(route, scenario content id, normalized SI parameters, format)``, so the same question asked by a
-POST body or a GET query, with units or in SI, hits the same entry. Values are the serialised answers (JSON
-bytes or CSV text) exactly as first sent.
+POST body or a GET query, with units or in SI, hits the same entry. Values are the serialised answers
+(``exomap.web.jobs.Answer``: body and gzip form) exactly as first sent.
 """
 
 from __future__ import annotations
 
 import threading
 from collections import OrderedDict
-from collections.abc import Hashable
+from collections.abc import Hashable, Sized
 
 
 class AnswerCache:
@@ -18,13 +18,13 @@ class AnswerCache:
     def __init__(self, entries: int, max_bytes: int) -> None:
         self.entries = entries
         self.max_bytes = max_bytes
-        self._data: OrderedDict[Hashable, bytes | str] = OrderedDict()
+        self._data: OrderedDict[Hashable, Sized] = OrderedDict()
         self._bytes = 0
         self._lock = threading.Lock()
         self.hits = 0
         self.misses = 0
 
-    def get(self, key: Hashable) -> bytes | str | None:
+    def get(self, key: Hashable) -> Sized | None:
         with self._lock:
             value = self._data.get(key)
             if value is None:
@@ -34,7 +34,7 @@ class AnswerCache:
             self.hits += 1
             return value
 
-    def put(self, key: Hashable, value: bytes | str) -> None:
+    def put(self, key: Hashable, value: Sized) -> None:
         size = len(value)
         if self.entries <= 0 or size > self.max_bytes:
             return

@@ -11,12 +11,34 @@ worker process does not load FastAPI or pydantic.
 
 from __future__ import annotations
 
+import gzip
 import json
 import math
 from dataclasses import dataclass
 from typing import Any
 
 KINDS = ("steady", "branch", "map", "check", "simulate")
+
+
+#: Answers shorter than this are sent as they are (gzip would not pay for itself).
+GZIP_MIN_BYTES = 1000
+
+
+@dataclass(frozen=True)
+class Answer:
+    """A serialised answer: the body (JSON or CSV, UTF-8) and its gzip form (None when small)."""
+
+    body: bytes
+    gz: bytes | None
+
+    def __len__(self) -> int:
+        return len(self.body) + (len(self.gz) if self.gz else 0)
+
+
+def pack(body: bytes) -> Answer:
+    """The answer with its gzip form, compressed once here so a cached repeat is sent without work."""
+    gz = gzip.compress(body, compresslevel=6, mtime=0) if len(body) >= GZIP_MIN_BYTES else None
+    return Answer(body, gz)
 
 
 @dataclass(frozen=True)
@@ -106,8 +128,8 @@ def compute(kind: str, sc: Any, params: dict[str, Any]) -> Any:
     raise ValueError(f"unknown job kind {kind!r}")
 
 
-def run_job(kind: str, sc: Any, params: dict[str, Any], fmt: str = "json") -> bytes | str | JobError:
-    """Run one computation; return JSON bytes (``fmt="json"``), CSV text (``"csv"``) or a ``JobError``."""
+def run_job(kind: str, sc: Any, params: dict[str, Any], fmt: str = "json") -> Answer | JobError:
+    """Run one computation; return the JSON (``fmt="json"``) or CSV (``"csv"``) ``Answer``, or a ``JobError``."""
     from exomap.core import errors
 
     try:
@@ -121,5 +143,5 @@ def run_job(kind: str, sc: Any, params: dict[str, Any], fmt: str = "json") -> by
     except errors.BudgetExceededError as exc:
         return JobError("budget", str(exc))
     if fmt == "csv":
-        return str(result.to_csv())
-    return dumps(result.to_dict())
+        return pack(str(result.to_csv()).encode("utf-8"))
+    return pack(dumps(result.to_dict()))

@@ -22,7 +22,7 @@ GridPoints = Annotated[
     Field(min_length=2, max_length=2, description="[n_residence_time, n_feed_temperature], each at least 2."),
 ]
 
-EXAMPLE_ID = "adiabatic"
+EXAMPLE_ID = "adiabatic-second-order"
 """Demo name used in the examples (any stored scenario id works the same way)."""
 
 

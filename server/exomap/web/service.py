@@ -206,7 +206,7 @@ class Service:
         raise ValueError(f"unknown kind {kind!r}")
 
     # -- answers ------------------------------------------------------------------------------------------------
-    async def answer(self, kind: str, req: Any, fmt: str = "json") -> tuple[bytes | str, bool]:
+    async def answer(self, kind: str, req: Any, fmt: str = "json") -> tuple[jobs.Answer, bool]:
         """The serialised answer of one request and whether it came from the cache."""
         from exomap import schema
         from exomap.core.errors import LimitExceededError, ModelInputError
@@ -223,7 +223,7 @@ class Service:
         key = (kind, resolved.id, _freeze(params), fmt)
         cached = self.cache.get(key)
         if cached is not None:
-            return cached, True
+            return cached, True  # type: ignore[return-value]
         try:
             out = await self.runner.run(
                 jobs.run_job, kind, resolved.scenario, params, fmt, budget_s=self.settings.request_time_budget_s

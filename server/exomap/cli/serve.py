@@ -1,0 +1,63 @@
+"""``exomap serve``: run the web service (JSON API, API docs, pages) with uvicorn.
+
+Options override the ``EXOMAP_*`` environment settings (``exomap.web.settings.Settings``); the server listens
+on the loopback address unless told otherwise.
+"""
+
+from __future__ import annotations
+
+import argparse
+from pathlib import Path
+
+
+def add_parser(subparsers: argparse._SubParsersAction) -> argparse.ArgumentParser:
+    """Add the ``serve`` sub-command to the ``exomap`` parser."""
+    parser = subparsers.add_parser(
+        "serve",
+        help="run the web service (JSON API and pages)",
+        description="Run the exomap web service: the JSON API under /api/v1, its docs at /api/docs, and the pages.",
+    )
+    parser.add_argument("--host", default=None, help="address to listen on (default 127.0.0.1, or EXOMAP_HOST)")
+    parser.add_argument("--port", type=int, default=None, help="TCP port (default 8000, or EXOMAP_PORT)")
+    parser.add_argument(
+        "--data-dir", type=Path, default=None, help="folder of the scenario store (default ./data, or EXOMAP_DATA_DIR)"
+    )
+    parser.add_argument("--workers", type=int, default=None, help="computations run at once (default 2)")
+    parser.add_argument("--log-level", default="info", choices=["critical", "error", "warning", "info", "debug"],
+                        help="server log level (default info)")
+    parser.set_defaults(run=run)
+    return parser
+
+
+def settings_from_args(args: argparse.Namespace):  # noqa: ANN201 - Settings, imported lazily
+    """Settings from the environment with the command-line options laid over them."""
+    from exomap.web.settings import Settings
+
+    overrides = {
+        key: value
+        for key, value in (("host", args.host), ("port", args.port), ("data_dir", args.data_dir),
+                           ("workers", getattr(args, "workers", None)))
+        if value is not None
+    }
+    return Settings(**overrides)
+
+
+def run(args: argparse.Namespace) -> int:
+    """Run the server until interrupted; return the exit status."""
+    import uvicorn
+    from pydantic import ValidationError
+
+    from exomap.web.app import create_app
+
+    try:
+        settings = settings_from_args(args)
+    except ValidationError as exc:
+        for err in exc.errors():
+            where = ".".join(str(p) for p in err["loc"]) or "settings"
+            print(f"exomap serve: {where}: {err['msg']}")
+        return 2
+    app = create_app(settings, warm_up=True)
+    print(f"exomap: serving on http://{settings.host}:{settings.port}/ (API docs at /api/docs); "
+          f"scenario store in {settings.data_dir.resolve()}")
+    uvicorn.run(app, host=settings.host, port=settings.port, log_level=args.log_level, proxy_headers=False)
+    return 0
