@@ -97,12 +97,12 @@ def _answer_response(request: Request, out: Answer, hit: bool, fmt: str, kind: s
     return Response(out.body, media_type=media, headers=headers)
 
 
-def _answer_responses(kind: str) -> dict[int | str, dict[str, Any]]:
+def _answer_responses(kind: str, post: bool = False) -> dict[int | str, dict[str, Any]]:
     content: dict[str, Any] = {"application/json": {"schema": ANSWER_SCHEMAS[kind]}}
     if kind in CSV_KINDS:
         content["text/csv"] = {"schema": {"type": "string"}}
     return {200: {"description": f"The {kind} answer (DESIGN.md §4).", "content": content},
-            **error_responses(404, 413, 422, 503)}
+            **error_responses(*((400,) if post else ()), 404, 413, 422, 503)}
 
 
 def _number_or_text(value: str | None) -> float | str | None:
@@ -180,7 +180,7 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         responses={
             201: {"description": "Saved.", "content": {"application/json": {"schema": SCENARIO_SUMMARY}}},
             200: {"description": "Already stored.", "content": {"application/json": {"schema": SCENARIO_SUMMARY}}},
-            **error_responses(401, 413, 422),
+            **error_responses(400, 401, 413, 422),
         },
     )
     async def save_scenario(
@@ -215,7 +215,8 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
 
         compute.__annotations__["req"] = Annotated[model, Body()]
         router.add_api_route(f"/{kind}", compute, methods=["POST"], summary=SUMMARIES[kind],
-                             responses=_answer_responses(kind), response_class=Response, name=f"post_{kind}")
+                             responses=_answer_responses(kind, post=True), response_class=Response,
+                             name=f"post_{kind}")
 
     for kind, model in REQUEST_MODELS.items():
         post_route(kind, model)
@@ -282,7 +283,7 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         pts: Any = None
         if points is not None:
             parts = [p.strip() for p in points.split(",")]
-            pts = parts if len(parts) == 2 else points
+            pts = [int(p) if p.lstrip("-").isdigit() else p for p in parts] if len(parts) == 2 else points
         req = _validated(MapRequest, {
             "scenario_id": scenario_id, "residence_time": _pair(residence_time),
             "feed_temperature": _pair(feed_temperature), "points": pts, "spacing": spacing})

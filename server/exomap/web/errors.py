@@ -104,6 +104,7 @@ def error_response(
 #: Responses to list in the OpenAPI document of a route (the shared error shape for each status).
 def error_responses(*statuses: int) -> dict[int | str, dict[str, Any]]:
     descriptions = {
+        400: "The body could not be read (not UTF-8 JSON) or its Content-Length is not a number.",
         401: "A save token is configured and the request did not carry it.",
         404: "No scenario with that id.",
         413: "The body or the requested work (map cells, events, duration) is over the limit.",
@@ -202,6 +203,8 @@ def install_error_handlers(app: FastAPI) -> None:
             message = f"{request.method} is not allowed on {request.url.path}"
         else:
             message = str(exc.detail) if exc.detail else code.replace("_", " ")
+        if status == 400 and request.method == "POST":
+            message = "the request body could not be read as UTF-8 JSON"
         return error_response(status, code, message, headers=getattr(exc, "headers", None))
 
     @app.exception_handler(Exception)

@@ -10,15 +10,16 @@ from __future__ import annotations
 
 from typing import Annotated, Any, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, model_validator
+from pydantic import BaseModel, ConfigDict, Field, StrictFloat, StrictInt, StrictStr, model_validator
 
+# Strict members: JSON true/false is not a quantity (lax pydantic would read it as 1.0/0.0).
 Quantity = Annotated[
-    float | str,
+    StrictFloat | StrictStr,
     Field(description="A number in SI base units, or a string with units such as '40 min' or '35 degC'."),
 ]
 Range = Annotated[list[Quantity], Field(min_length=2, max_length=2, description="[lo, hi]")]
 GridPoints = Annotated[
-    list[Annotated[int, Field(ge=2)]],
+    list[Annotated[StrictInt, Field(ge=2)]],
     Field(min_length=2, max_length=2, description="[n_residence_time, n_feed_temperature], each at least 2."),
 ]
 
