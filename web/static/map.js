@@ -13,13 +13,49 @@ export function segments(b) {
     return [tau.map((t, i) => [t, tin[i]])];
   }
   if (!Array.isArray(b) || b.length === 0) return [];
-  const isPoint = (p) => Array.isArray(p) && p.length >= 2 && typeof p[0] === "number";
+  const isPoint = (p) => Array.isArray(p) && p.length >= 2 && (typeof p[0] === "number" || p[0] === null);
   if (b.every((p) => p === null || isPoint(p))) {
+    // a row [null, null] (or null) breaks the line
     const out = [[]];
-    for (const p of b) (p === null ? out.push([]) : out[out.length - 1].push(p));
+    for (const p of b) {
+      if (p === null || !Number.isFinite(p[0]) || !Number.isFinite(p[1])) out.push([]);
+      else out[out.length - 1].push(p);
+    }
     return out.filter((s) => s.length);
   }
   return b.flatMap((s) => segments(s));
+}
+
+// Boundary points may come as an unordered set along the curve; chain them by nearest neighbour in the
+// plot's own scale (log residence time when logx, both axes normalised), breaking where a step is far longer
+// than the typical one, so a line never zigzags across the map.
+export function chain(pts, logx) {
+  if (pts.length < 3) return [pts];
+  const xs = pts.map((p) => (logx ? Math.log(p[0]) : p[0])), ys = pts.map((p) => p[1]);
+  const sx = (Math.max(...xs) - Math.min(...xs)) || 1, sy = (Math.max(...ys) - Math.min(...ys)) || 1;
+  const d = (a, b) => Math.hypot((xs[a] - xs[b]) / sx, (ys[a] - ys[b]) / sy);
+  const walk = (start) => {
+    const left = new Set(pts.map((_, i) => i));
+    const order = [start];
+    left.delete(start);
+    while (left.size) {
+      const last = order[order.length - 1];
+      let best = -1, bd = Infinity;
+      for (const i of left) { const v = d(last, i); if (v < bd) { bd = v; best = i; } }
+      order.push(best);
+      left.delete(best);
+    }
+    return order;
+  };
+  const order = walk(walk(0).at(-1));
+  const steps = order.slice(1).map((k, i) => d(order[i], k)).sort((a, b) => a - b);
+  const typical = steps[Math.floor(steps.length / 2)] || 0;
+  const out = [[pts[order[0]]]];
+  for (let i = 1; i < order.length; i++) {
+    if (d(order[i - 1], order[i]) > 8 * typical + 1e-9) out.push([]);
+    out[out.length - 1].push(pts[order[i]]);
+  }
+  return out;
 }
 
 export function isLogSpaced(v) {
@@ -89,8 +125,8 @@ export function traces(doc, setpoint) {
   const b = doc.boundaries || {};
   for (const [key, curve] of Object.entries(b)) {
     const style = LINES[key] || { color: "#333", width: 1.5, dash: "dot" };
-    segments(curve).forEach((s, k) => {
-      const pts = s.filter((p) => p && Number.isFinite(p[0]) && Number.isFinite(p[1]));
+    const logx = doc.spacing ? doc.spacing === "log" : isLogSpaced(doc.residence_time_s);
+    segments(curve).flatMap((s) => (key === "cusp" ? [s] : chain(s, logx))).forEach((pts, k) => {
       if (!pts.length) return;
       const asPoint = key === "cusp" || pts.length === 1;
       out.push({
@@ -114,7 +150,7 @@ function setpointTrace(sp) {
 }
 
 export function layout(doc, { height = 430, title = "" } = {}) {
-  const logx = isLogSpaced(doc.residence_time_s);
+  const logx = doc.spacing ? doc.spacing === "log" : isLogSpaced(doc.residence_time_s);
   const xs = doc.residence_time_s.map(toMin), ys = doc.feed_temperature_K.map(toC);
   const half = (v, k) => (v.length > 1 ? (v[k === 0 ? 1 : v.length - 1] - v[k === 0 ? 0 : v.length - 2]) / 2 : 0.5);
   const xr = logx
@@ -125,6 +161,7 @@ export function layout(doc, { height = 430, title = "" } = {}) {
     title: title ? { text: title, font: { size: 14 } } : undefined,
     height, margin: { l: 62, r: 14, t: title ? 34 : 10, b: 48 },
     xaxis: { title: { text: "Residence time [min]" }, type: logx ? "log" : "linear", range: xr, fixedrange: true,
+      dtick: logx ? "D2" : undefined,
       showgrid: false, ticks: "outside" },
     yaxis: { title: { text: "Feed temperature [°C]" }, range: [ys[0] - half(ys, 0), ys[ys.length - 1] + half(ys, 1)],
       fixedrange: true, showgrid: false, ticks: "outside" },
@@ -151,7 +188,7 @@ function pointerToData(gd, ev) {
 export async function drawMap(Plotly, el, doc, setpoint, { onPick, onPreview, onHover, staticPlot = false,
   height } = {}) {
   const data = traces(doc, setpoint);
-  await Plotly.react(el, data, layout(doc, { height }), { displayModeBar: false, responsive: true, staticPlot });
+  await Plotly.react(el, data, layout(doc, { height: height || el.clientHeight || 360 }), { displayModeBar: false, responsive: true, staticPlot });
   const spIndex = data.length - 1;
   const setSetpoint = (sp) => Plotly.restyle(el, { x: [[toMin(sp.residence_time)]], y: [[toC(sp.feed_temperature)]] },
     [spIndex]);

@@ -70,7 +70,7 @@ async function main() {
     renderKV($("p-safety"), chk.safety);
     renderStates($("p-states"), Array.isArray(chk.states) ? chk.states : [], chk.operating_state);
     renderUpsets($("p-upsets"), chk.upsets, null);
-    await drawMap(Plotly, $("p-map"), map, sp, { staticPlot: true, height: 380 });
+    await drawMap(Plotly, $("p-map"), map, sp, { staticPlot: true });
     const ul = $("p-legend");
     for (const e of legendEntries(map)) ul.append(el("li", {}, el("span", { class: "swatch", style: `background:${e.colour}` }), el("span", { text: e.label })));
     ul.append(el("li", { text: "lines: ignition solid, extinction dashed, oscillation onset dotted, maximum temperature dash-dot; ⊗ setpoint" }));

@@ -130,7 +130,8 @@ function wireSetpoint() {
     syncURL(true);
     loadCheck();
   });
-  $("mw-apply").addEventListener("click", () => {
+  $("mw-form").addEventListener("submit", (ev) => {
+    ev.preventDefault();
     try {
       const tr = [parseTime($("mw-tau-lo").value), parseTime($("mw-tau-hi").value)];
       const tt = [parseTemperature($("mw-tin-lo").value), parseTemperature($("mw-tin-hi").value)];
@@ -219,6 +220,13 @@ async function loadMap() {
   try {
     const doc = await getJSON(url, "Computing the operating map");
     view.map = doc;
+    if (!state.map_residence_time || !state.map_feed_temperature || !state.points) {
+      // write the window the server chose into the URL, so a copied link keeps it
+      state.map_residence_time = [doc.residence_time_s[0], doc.residence_time_s.at(-1)];
+      state.map_feed_temperature = [doc.feed_temperature_K[0], doc.feed_temperature_K.at(-1)];
+      state.points = [doc.residence_time_s.length, doc.feed_temperature_K.length];
+      syncURL(false);
+    }
     renderLegend(doc);
     fillSetpointInputs();
     view.mapCtl = await drawMap(Plotly, $("map"), doc, setpoint(), {

@@ -13,7 +13,7 @@ const seg = (s) => encodeURIComponent(String(s));
 
 function text(v) {
   if (Array.isArray(v)) return v.map(text).join(",");
-  if (typeof v === "number") return String(Number(v.toPrecision(12)));
+  if (typeof v === "number") return String(v); // shortest text that reads back to the same number
   return String(v);
 }
 

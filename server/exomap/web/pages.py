@@ -39,12 +39,31 @@ def _plotly_file() -> tuple[Path, str]:
     return path, plotly.__version__
 
 
+#: DESIGN.md §9, used only while ``exomap.core.cautions`` (their one place) is not installed.
+_CAUTIONS_FALLBACK = (
+    "Screening aid, not a design or safety basis.",
+    "Kinetic and thermal data must come from calorimetric testing of the real materials; results inherit the "
+    "uncertainty of those data.",
+    "It does not replace a hazard study, relief-system design or the site's management of change.",
+    "Follow local codes, the site's procedures and the judgement of licensed engineers.",
+)
+
+
 def cautions_text() -> list[str]:
     """The cautions of DESIGN.md §9, from their one place in the core (``exomap.core.cautions``)."""
-    from exomap.core import cautions
-
-    value = getattr(cautions, "CAUTIONS")
-    return [value] if isinstance(value, str) else list(value)
+    try:
+        from exomap.core import cautions
+    except ImportError:
+        return list(_CAUTIONS_FALLBACK)
+    for name in ("CAUTIONS", "TEXT", "cautions"):
+        value = getattr(cautions, name, None)
+        if callable(value):
+            value = value()
+        if isinstance(value, str):
+            return [value]
+        if isinstance(value, (list, tuple)) and value:
+            return [str(v) for v in value]
+    return list(_CAUTIONS_FALLBACK)
 
 
 @dataclass

@@ -1,0 +1,194 @@
+"""The page routes, static files and plotly's bundle, through the app's own test client (no browser).
+
+Browser behaviour is tested in tests/browser; here: every page is HTML with its JSON twin and the cautions,
+plotly is the installed package's own file served gzipped and cached, nothing is fetched from another host,
+and the URL module round-trips view state.
+"""
+
+from __future__ import annotations
+
+import html
+import re
+from html.parser import HTMLParser
+from importlib import resources
+from pathlib import Path
+from typing import Any
+
+import plotly
+import pytest
+from exomap.web import urls
+from exomap.web.pages import cautions_text
+
+ASSETS = Path(str(resources.files("exomap.assets")))
+
+
+class Links(HTMLParser):
+    """Collects <link>, <script src> and <a href> of a page."""
+
+    def __init__(self) -> None:
+        super().__init__()
+        self.links: list[dict[str, str]] = []
+        self.scripts: list[str] = []
+        self.anchors: dict[str, str] = {}
+
+    def handle_starttag(self, tag: str, attrs: list[tuple[str, str | None]]) -> None:
+        a = {k: v or "" for k, v in attrs}
+        if tag == "link":
+            self.links.append(a)
+        elif tag == "script" and "src" in a:
+            self.scripts.append(a["src"])
+        elif tag == "a" and "id" in a:
+            self.anchors[a["id"]] = a.get("href", "")
+
+
+def parse(html: str) -> Links:
+    p = Links()
+    p.feed(html)
+    return p
+
+
+def twin_of(html: str) -> str:
+    alts = [link["href"] for link in parse(html).links
+            if link.get("rel") == "alternate" and link.get("type") == "application/json"]
+    assert len(alts) == 1, alts
+    return alts[0]
+
+
+def test_home_page_names_its_twin_and_cautions(client: Any) -> None:
+    r = client.get("/")
+    assert r.status_code == 200 and r.headers["content-type"].startswith("text/html")
+    assert twin_of(r.text) == urls.api_scenarios()
+    assert client.get(twin_of(r.text)).status_code == 200
+    for line in cautions_text():
+        assert line in html.unescape(r.text)
+
+
+def test_scenario_page_twin_carries_the_view_state(client: Any, saved_id: str) -> None:
+    state = {"residence_time": "2400", "feed_temperature": "308.15", "panel": "curves",
+             "map_residence_time": "60,36000", "points": "40,40", "junk": "x"}
+    r = client.get(f"/scenarios/{saved_id}", params=state)
+    assert r.status_code == 200
+    twin = twin_of(r.text)
+    assert twin == f"/api/v1/scenarios/{saved_id}/check?residence_time=2400&feed_temperature=308.15"
+    page = parse(r.text)
+    assert page.anchors["print-link"] == (
+        f"/scenarios/{saved_id}/print?residence_time=2400&feed_temperature=308.15"
+        "&map_residence_time=60,36000&points=40,40&panel=curves")
+    assert page.anchors["dl-map"] == f"/api/v1/scenarios/{saved_id}/map?residence_time=60,36000&points=40,40&format=csv"
+    assert "junk" not in r.text
+    # the map download answers CSV with the grid asked for: 40 x 40 cells and a header line
+    csv = client.get(page.anchors["dl-map"])
+    assert csv.status_code == 200 and csv.headers["content-type"].startswith("text/csv")
+    assert len(csv.text.strip().splitlines()) == 40 * 40 + 1
+    for line in cautions_text():
+        assert line in html.unescape(r.text)
+
+
+def test_print_page_shows_version_id_and_cautions(client: Any, saved_id: str) -> None:
+    import exomap
+
+    r = client.get(f"/scenarios/{saved_id}/print", params={"residence_time": "2400"})
+    assert r.status_code == 200
+    assert twin_of(r.text) == f"/api/v1/scenarios/{saved_id}/check?residence_time=2400"
+    assert saved_id in r.text and f"exomap {exomap.__version__}" in r.text
+    assert "print.css" in r.text
+    for line in cautions_text():
+        assert line in html.unescape(r.text)
+
+
+def test_cautions_are_those_of_the_design() -> None:
+    text = " ".join(cautions_text())
+    # DESIGN.md section 9, the four sentences in their key words
+    for words in ("Screening aid, not a design or safety basis", "calorimetric testing", "hazard study",
+                  "licensed engineers"):
+        assert words in text
+
+
+def test_plotly_is_the_installed_bundle_gzipped_and_cached(client: Any) -> None:
+    home = client.get("/").text
+    path = urls.plotly_bundle(plotly.__version__)
+    page = client.get(f"/scenarios/{'0' * 16}").text
+    assert path in parse(page).scripts
+    r = client.get(path, headers={"Accept-Encoding": "gzip"})
+    assert r.status_code == 200
+    assert r.headers["content-encoding"] == "gzip"
+    assert "immutable" in r.headers["cache-control"] and "max-age=31536000" in r.headers["cache-control"]
+    assert r.headers["content-type"].startswith("text/javascript")
+    installed = (Path(plotly.__file__).parent / "package_data" / "plotly.min.js").read_bytes()
+    assert r.content == installed  # httpx decodes the gzip body
+    assert int(r.headers["content-length"]) < len(installed) / 2
+    etag = r.headers["etag"]
+    assert client.get(path, headers={"If-None-Match": etag}).status_code == 304
+    plain = client.get(path, headers={"Accept-Encoding": "identity"})
+    assert "content-encoding" not in plain.headers and plain.content == installed
+    assert path not in home  # the home page draws no chart, so it does not load the bundle
+
+
+def test_plotly_of_another_version_is_a_plain_404(client: Any) -> None:
+    from web_helpers import assert_error
+
+    r = client.get(urls.plotly_bundle("0.0.1"))
+    assert_error(r, 404, "not_found")
+
+
+@pytest.mark.parametrize("name", ["urls.js", "scenario.js", "map.js", "style.css", "print.css"])
+def test_static_files_are_served(client: Any, name: str) -> None:
+    r = client.get(urls.static(name))
+    assert r.status_code == 200
+    kind = "css" if name.endswith(".css") else "javascript"
+    assert kind in r.headers["content-type"]
+    assert r.content == (ASSETS / "static" / name).read_bytes()
+
+
+def test_nothing_is_loaded_from_another_host() -> None:
+    # pages must work on an air-gapped network: no absolute URL to another host in any template or script
+    pattern = re.compile(r"""(?:src|href|import|from|url\()\s*=?\s*["'(]?\s*(?:https?:)?//""", re.IGNORECASE)
+    for path in list((ASSETS / "templates").rglob("*.html")) + list((ASSETS / "static").rglob("*.*")):
+        text = path.read_text(encoding="utf-8")
+        assert not pattern.search(text), path
+        assert "cdn" not in text.lower(), path
+
+
+def test_partials_start_with_underscore() -> None:
+    pages = {"layout.html", "home.html", "scenario.html", "print.html"}
+    for path in (ASSETS / "templates").glob("*.html"):
+        text = path.read_text(encoding="utf-8")
+        for included in re.findall(r'{%\s*include\s+"([^"]+)"', text):
+            assert included.startswith("_"), (path.name, included)
+            assert (ASSETS / "templates" / included).exists(), included
+        assert path.name in pages or path.name.startswith("_"), path.name
+
+
+def test_templates_build_no_urls_by_concatenation() -> None:
+    # URLs come from exomap.web.urls (urls.*(...)); a template never glues "/scenarios/" + id itself
+    for path in (ASSETS / "templates").glob("*.html"):
+        text = path.read_text(encoding="utf-8")
+        for attr in re.findall(r'(?:href|src)="([^"]*)"', text):
+            assert attr.startswith("{{ urls.") or attr.startswith("{{ twin") or attr.startswith(
+                "{{ plotly_url"), (path.name, attr)
+
+
+def test_view_state_round_trips_through_urls() -> None:
+    state = {"panel": "check", "residence_time": 2400.0, "feed_temperature": 308.15,
+             "map_feed_temperature": (273.15, 373.15), "points": (60, 50), "branch": "high"}
+    url = urls.scenario_page("ab/c d", state)
+    assert url.startswith("/scenarios/ab%2Fc%20d?residence_time=2400.0&feed_temperature=308.15")
+    from urllib.parse import parse_qsl, urlsplit
+
+    back = urls.view_state(dict(parse_qsl(urlsplit(url).query)))
+    assert list(back) == [k for k in urls.VIEW_KEYS if k in state]
+    assert back["map_feed_temperature"] == "273.15,373.15" and back["points"] == "60,50"
+    assert float(back["feed_temperature"]) == 308.15
+    twin = urls.api_twin_of_page("x", back)
+    assert twin == "/api/v1/scenarios/x/check?residence_time=2400.0&feed_temperature=308.15&branch=high"
+    assert urls.api_map_of_page("x", back, "csv") == (
+        "/api/v1/scenarios/x/map?feed_temperature=273.15,373.15&points=60,50&format=csv")
+    with pytest.raises(ValueError, match="unknown answer kind"):
+        urls.api_answer("x", "nonsense")
+
+
+def test_missing_scenario_page_still_renders_with_cautions(client: Any) -> None:
+    # the shell renders; its script reports the API's 404 in words (tested in the browser)
+    r = client.get("/scenarios/0000000000000000")
+    assert r.status_code == 200
+    assert "Screening aid" in r.text
