@@ -61,8 +61,7 @@ def server(tmp_path_factory: pytest.TempPathFactory) -> Iterator[str]:
     port = _free_port()
     log = open(data / "server.log", "w+b")  # noqa: SIM115 - closed below
     env = {**os.environ, "PYTHONUNBUFFERED": "1"}
-    proc = subprocess.Popen([sys.executable, "-c", SERVER_CODE, str(data), str(port)], stdout=log, stderr=log,
-                            env=env)
+    proc = subprocess.Popen([sys.executable, "-c", SERVER_CODE, str(data), str(port)], stdout=log, stderr=log, env=env)
     base = f"http://127.0.0.1:{port}"
     deadline = time.monotonic() + 60
     try:

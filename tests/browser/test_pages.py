@@ -83,8 +83,9 @@ def test_import_a_scenario_file(page: Any, server: str, api: httpx.Client, tmp_p
     assert "liquid" in page.inner_text("#import-fields")
 
 
-def test_demo_map_shows_regions_boundaries_and_legend(page: Any, server: str, api: httpx.Client,
-                                                      demo: dict[str, Any]) -> None:
+def test_demo_map_shows_regions_boundaries_and_legend(
+    page: Any, server: str, api: httpx.Client, demo: dict[str, Any]
+) -> None:
     page.goto(f"{server}/scenarios/{demo['id']}")
     wait_ready(page, check=False)
     state = query(page.url)
@@ -143,13 +144,16 @@ def test_click_moves_setpoint_and_check_updates(page: Any, server: str, api: htt
     page.mouse.click(box["x"] + 0.25 * box["w"], box["y"] + 0.2 * box["h"])
     page.wait_for_function(
         f"() => new URLSearchParams(location.search).get('residence_time') !== '{before['residence_time']}'",
-        timeout=TIMEOUT)
+        timeout=TIMEOUT,
+    )
     page.wait_for_function(CHECK_DONE, timeout=TIMEOUT)
     after = query(page.url)
     assert after["feed_temperature"] != before["feed_temperature"]
     # the clicked place, read back from the axes: log residence-time axis, linear feed temperature
-    layout = page.evaluate("() => { const l = document.getElementById('map')._fullLayout;"
-                           " return {x: l.xaxis.range, y: l.yaxis.range, type: l.xaxis.type}; }")
+    layout = page.evaluate(
+        "() => { const l = document.getElementById('map')._fullLayout;"
+        " return {x: l.xaxis.range, y: l.yaxis.range, type: l.xaxis.type}; }"
+    )
     x = layout["x"][0] + 0.25 * (layout["x"][1] - layout["x"][0])
     tau_min = 10**x if layout["type"] == "log" else x
     tin_c = layout["y"][1] - 0.2 * (layout["y"][1] - layout["y"][0])
@@ -160,8 +164,9 @@ def test_click_moves_setpoint_and_check_updates(page: Any, server: str, api: htt
     twin = page.get_attribute("link[rel=alternate][type='application/json']", "href")
     assert query(twin)["residence_time"] == after["residence_time"]
     expected = api.get(twin).json()
-    page.wait_for_function(f"() => document.querySelector('#verdict').dataset.verdict === '{expected['verdict']}'",
-                           timeout=TIMEOUT)
+    page.wait_for_function(
+        f"() => document.querySelector('#verdict').dataset.verdict === '{expected['verdict']}'", timeout=TIMEOUT
+    )
     shown_reasons = page.inner_text("#reasons")
     for reason in expected["reasons"]:
         text = reason if isinstance(reason, str) else reason.get("message", "")
@@ -222,8 +227,9 @@ def test_bad_unit_in_editor_is_shown_beside_the_field(page: Any, server: str, te
     screenshot(page, "editor-error")
 
 
-def test_save_copy_link_and_open_in_fresh_browser(new_context: Any, server: str, api: httpx.Client,
-                                                   test_tank: str) -> None:
+def test_save_copy_link_and_open_in_fresh_browser(
+    new_context: Any, server: str, api: httpx.Client, test_tank: str
+) -> None:
     ctx = new_context()
     page = open_page(ctx)
     page.goto(f"{server}/scenarios/{test_tank}?panel=editor")
@@ -267,16 +273,22 @@ def test_save_copy_link_and_open_in_fresh_browser(new_context: Any, server: str,
 def test_curves_and_heat_balance(page: Any, server: str, test_tank: str, api: httpx.Client) -> None:
     page.goto(f"{server}/scenarios/{test_tank}?panel=curves")
     wait_ready(page)
-    page.wait_for_function("() => ['curve-tau','curve-tin','heat-balance'].every("
-                           "id => document.getElementById(id).data)", timeout=TIMEOUT)
+    page.wait_for_function(
+        "() => ['curve-tau','curve-tin','heat-balance'].every(id => document.getElementById(id).data)", timeout=TIMEOUT
+    )
     names = page.evaluate("() => document.getElementById('curve-tin').data.map(t => t.name)")
     assert "stable" in names
     state = query(page.url)
-    branch = api.post("/api/v1/branch", json={"scenario_id": test_tank, "along": "feed_temperature",
-                                              "residence_time": float(state["residence_time"]),
-                                              "feed_temperature": float(state["feed_temperature"]),
-                                              "range": [float(v) for v in state["map_feed_temperature"].split(",")]}
-                      ).json()
+    branch = api.post(
+        "/api/v1/branch",
+        json={
+            "scenario_id": test_tank,
+            "along": "feed_temperature",
+            "residence_time": float(state["residence_time"]),
+            "feed_temperature": float(state["feed_temperature"]),
+            "range": [float(v) for v in state["map_feed_temperature"].split(",")],
+        },
+    ).json()
     if any(not p["stable"] for p in branch["points"]):
         assert "unstable" in names
     if branch["turning_points"]:
@@ -284,8 +296,9 @@ def test_curves_and_heat_balance(page: Any, server: str, test_tank: str, api: ht
     screenshot(page, "curves")
 
 
-def test_heat_generation_matches_first_order_closed_form(page: Any, server: str, api: httpx.Client,
-                                                         test_tank: str) -> None:
+def test_heat_generation_matches_first_order_closed_form(
+    page: Any, server: str, api: httpx.Client, test_tank: str
+) -> None:
     """The client-side heat balance against the closed form of a first-order reaction A -> B (analytic):
     C_A = C_A,in / (1 + k tau), so G(T) = V (-dH) k C_A,in / (1 + k tau), with k = k0 exp(-Ea / (R T))."""
     page.goto(f"{server}/scenarios/{test_tank}")
@@ -358,7 +371,8 @@ def test_print_view_renders(new_context: Any, server: str, test_tank: str) -> No
     assert page.get_attribute("#p-verdict", "data-verdict") in ("inside", "marginal", "outside")
     has_page_rule = page.evaluate(
         "() => [...document.styleSheets].some(s => { try { return [...s.cssRules].some(r => r instanceof CSSPageRule);"
-        " } catch { return false; } })")
+        " } catch { return false; } })"
+    )
     assert has_page_rule
     screenshot(page, "print")
     for fmt in ("A4", "Letter"):

@@ -48,8 +48,11 @@ def parse(html: str) -> Links:
 
 
 def twin_of(html: str) -> str:
-    alts = [link["href"] for link in parse(html).links
-            if link.get("rel") == "alternate" and link.get("type") == "application/json"]
+    alts = [
+        link["href"]
+        for link in parse(html).links
+        if link.get("rel") == "alternate" and link.get("type") == "application/json"
+    ]
     assert len(alts) == 1, alts
     return alts[0]
 
@@ -64,8 +67,14 @@ def test_home_page_names_its_twin_and_cautions(client: Any) -> None:
 
 
 def test_scenario_page_twin_carries_the_view_state(client: Any, saved_id: str) -> None:
-    state = {"residence_time": "2400", "feed_temperature": "308.15", "panel": "curves",
-             "map_residence_time": "60,36000", "points": "40,40", "junk": "x"}
+    state = {
+        "residence_time": "2400",
+        "feed_temperature": "308.15",
+        "panel": "curves",
+        "map_residence_time": "60,36000",
+        "points": "40,40",
+        "junk": "x",
+    }
     r = client.get(f"/scenarios/{saved_id}", params=state)
     assert r.status_code == 200
     twin = twin_of(r.text)
@@ -73,7 +82,8 @@ def test_scenario_page_twin_carries_the_view_state(client: Any, saved_id: str) -
     page = parse(r.text)
     assert page.anchors["print-link"] == (
         f"/scenarios/{saved_id}/print?residence_time=2400&feed_temperature=308.15"
-        "&map_residence_time=60,36000&points=40,40&panel=curves")
+        "&map_residence_time=60,36000&points=40,40&panel=curves"
+    )
     assert page.anchors["dl-map"] == f"/api/v1/scenarios/{saved_id}/map?residence_time=60,36000&points=40,40&format=csv"
     assert "junk" not in r.text
     # the map download answers CSV with the grid asked for: 40 x 40 cells and a header line
@@ -99,8 +109,12 @@ def test_print_page_shows_version_id_and_cautions(client: Any, saved_id: str) ->
 def test_cautions_are_those_of_the_design() -> None:
     text = " ".join(cautions_text())
     # DESIGN.md section 9, the four sentences in their key words
-    for words in ("Screening aid, not a design or safety basis", "calorimetric testing", "hazard study",
-                  "licensed engineers"):
+    for words in (
+        "Screening aid, not a design or safety basis",
+        "calorimetric testing",
+        "hazard study",
+        "licensed engineers",
+    ):
         assert words in text
 
 
@@ -164,13 +178,21 @@ def test_templates_build_no_urls_by_concatenation() -> None:
     for path in (ASSETS / "templates").glob("*.html"):
         text = path.read_text(encoding="utf-8")
         for attr in re.findall(r'(?:href|src)="([^"]*)"', text):
-            assert attr.startswith("{{ urls.") or attr.startswith("{{ twin") or attr.startswith(
-                "{{ plotly_url"), (path.name, attr)
+            assert attr.startswith("{{ urls.") or attr.startswith("{{ twin") or attr.startswith("{{ plotly_url"), (
+                path.name,
+                attr,
+            )
 
 
 def test_view_state_round_trips_through_urls() -> None:
-    state = {"panel": "check", "residence_time": 2400.0, "feed_temperature": 308.15,
-             "map_feed_temperature": (273.15, 373.15), "points": (60, 50), "branch": "high"}
+    state = {
+        "panel": "check",
+        "residence_time": 2400.0,
+        "feed_temperature": 308.15,
+        "map_feed_temperature": (273.15, 373.15),
+        "points": (60, 50),
+        "branch": "high",
+    }
     url = urls.scenario_page("ab/c d", state)
     assert url.startswith("/scenarios/ab%2Fc%20d?residence_time=2400.0&feed_temperature=308.15")
     from urllib.parse import parse_qsl, urlsplit
@@ -182,7 +204,8 @@ def test_view_state_round_trips_through_urls() -> None:
     twin = urls.api_twin_of_page("x", back)
     assert twin == "/api/v1/scenarios/x/check?residence_time=2400.0&feed_temperature=308.15&branch=high"
     assert urls.api_map_of_page("x", back, "csv") == (
-        "/api/v1/scenarios/x/map?feed_temperature=273.15,373.15&points=60,50&format=csv")
+        "/api/v1/scenarios/x/map?feed_temperature=273.15,373.15&points=60,50&format=csv"
+    )
     with pytest.raises(ValueError, match="unknown answer kind"):
         urls.api_answer("x", "nonsense")
 

@@ -147,8 +147,16 @@ def install(app: FastAPI, settings: Any) -> None:
     def plotly_js(version: str, request: Request) -> Response:
         if version != plotly_version:
             return Response(
-                json.dumps({"error": {"status": 404, "code": "not_found", "fields": [],
-                                      "message": f"this server serves plotly {plotly_version}, not {version}"}}),
+                json.dumps(
+                    {
+                        "error": {
+                            "status": 404,
+                            "code": "not_found",
+                            "fields": [],
+                            "message": f"this server serves plotly {plotly_version}, not {version}",
+                        }
+                    }
+                ),
                 status_code=404,
                 media_type="application/json",
             )
