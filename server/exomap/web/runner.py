@@ -92,10 +92,12 @@ class Runner:
             pool.shutdown(wait=False, cancel_futures=True)
 
     def shutdown(self) -> None:
+        """Stop the pool: queued jobs are cancelled; worker processes are joined (a clean exit), threads not
+        (a thread still running an abandoned job ends on its own)."""
         with self._lock:
             pool, self._pool = self._pool, None
         if pool is not None:
-            pool.shutdown(wait=False, cancel_futures=True)
+            pool.shutdown(wait=isinstance(pool, ProcessPoolExecutor), cancel_futures=True)
 
 
 def _warm() -> bool:

@@ -115,6 +115,12 @@ class Service:
             if stored is None:
                 raise ApiError(404, "not_found", f"no scenario with id {ref.scenario_id!r}",
                                [{"field": "scenario_id", "message": "no stored scenario has this id"}])
+            # A stored scenario's id is its content id: a scenario already converted is not parsed again.
+            with self._lock:
+                core = self._scenarios.get(stored.id)
+                if core is not None:
+                    self._scenarios.move_to_end(stored.id)
+                    return Resolved(stored.id, core)
             sid, core = self._core_of_document(json.loads(stored.document), "")
             return Resolved(sid, core)
         assert ref.scenario is not None  # the model validator guarantees one of the two
