@@ -15,6 +15,7 @@ from __future__ import annotations
 import asyncio
 import logging
 import multiprocessing
+import os
 import threading
 from collections.abc import Callable
 from concurrent.futures import Executor, Future, ProcessPoolExecutor, ThreadPoolExecutor
@@ -54,7 +55,9 @@ class Runner:
                     # spawn, not fork: the server process has threads, and forking a threaded process can
                     # copy a held lock into the child.
                     self._pool = ProcessPoolExecutor(
-                        max_workers=self.workers, mp_context=multiprocessing.get_context("spawn")
+                        max_workers=self.workers,
+                        mp_context=multiprocessing.get_context("spawn"),
+                        initializer=_lower_priority,
                     )
                 else:
                     self._pool = ThreadPoolExecutor(max_workers=self.workers, thread_name_prefix="exomap-job")
@@ -98,6 +101,18 @@ class Runner:
             pool, self._pool = self._pool, None
         if pool is not None:
             pool.shutdown(wait=isinstance(pool, ProcessPoolExecutor), cancel_futures=True)
+
+
+#: Scheduling niceness added to worker processes: when the CPUs are busy, the server process (health,
+#: cached answers, request parsing) is scheduled ahead of the computations.
+WORKER_NICENESS = 10
+
+
+def _lower_priority() -> None:
+    try:
+        os.nice(WORKER_NICENESS)
+    except OSError:  # pragma: no cover - not permitted on this platform
+        pass
 
 
 def _warm() -> bool:

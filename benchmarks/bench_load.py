@@ -1,0 +1,164 @@
+"""Load: 20 concurrent clients asking for maps and setpoint checks for a bounded time, on 127.0.0.1 only.
+
+A real uvicorn server (``create_app`` with its default process pool) runs in a child process on a free loopback
+port (see ``bench_http_map.Server``). 20 asyncio clients in this process loop for ``DURATION_S`` seconds; each
+request is a map (60 x 60, one of ``VARIANTS`` windows of the adiabatic demo, so most are cached after their
+first computation and some are not) or a setpoint check at one of ``VARIANTS`` setpoints. A separate prober
+asks ``/api/v1/health`` every 50 ms throughout. Memory of the server and its worker processes is sampled
+every 0.5 s.
+
+Printed: throughput, median and p95 latency of maps and checks, errors (any non-200 answer or failed
+request), health latency median/p99/max under load against health on the idle server (the baseline), and
+the peak server RSS. Targets (project goals): zero errors, health p99 < 50 ms, RSS < 400 MB.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import os
+import random
+import statistics
+import sys
+import time
+from pathlib import Path
+
+sys.path.insert(0, str(Path(__file__).parent))
+
+from bench_http_map import DEMO, Server, tree_rss_bytes  # noqa: E402
+
+CLIENTS = 20
+DURATION_S = 20.0
+VARIANTS = 12
+MAP_POINTS = [60, 60]
+HEALTH_PERIOD_S = 0.05
+
+
+def pct(values: list[float], q: float) -> float:
+    if not values:
+        return float("nan")
+    values = sorted(values)
+    k = min(len(values) - 1, max(0, round(q / 100 * (len(values) - 1))))
+    return values[k]
+
+
+def summary(name: str, values: list[float]) -> str:
+    if not values:
+        return f"  {name:<28} no answers"
+    return (f"  {name:<28} n={len(values):5d}  median {statistics.median(values) * 1e3:7.1f} ms  "
+            f"p95 {pct(values, 95) * 1e3:7.1f} ms  p99 {pct(values, 99) * 1e3:7.1f} ms  "
+            f"max {max(values) * 1e3:7.1f} ms")
+
+
+async def run(url: str, pid: int) -> dict:
+    import httpx
+
+    limits = httpx.Limits(max_connections=CLIENTS + 2, max_keepalive_connections=CLIENTS + 2)
+    async with httpx.AsyncClient(base_url=url, timeout=60, limits=limits) as client:
+        listing = (await client.get("/api/v1/scenarios")).json()["scenarios"]
+        demo = next(s for s in listing if s["name"] == DEMO)
+        scenario = (await client.get(f"/api/v1/scenarios/{demo['id']}")).json()
+        lo_tau, hi_tau = scenario["map"]["residence_time"]
+        lo_T, hi_T = scenario["map"]["feed_temperature"]
+
+        check_ok = (await client.post("/api/v1/check", json={"scenario_id": demo["id"]})).status_code == 200
+
+        # idle baseline for health
+        idle = []
+        for _ in range(40):
+            t0 = time.perf_counter()
+            (await client.get("/api/v1/health")).raise_for_status()
+            idle.append(time.perf_counter() - t0)
+            await asyncio.sleep(0.01)
+
+        stop = time.monotonic() + DURATION_S
+        lat: dict[str, list[float]] = {"map": [], "check": [], "health": []}
+        errors: list[str] = []
+        rss: list[int] = []
+        rng = random.Random(20251202)
+
+        def map_body(k: int) -> dict:
+            return {"scenario_id": demo["id"], "points": MAP_POINTS, "residence_time": [lo_tau, hi_tau],
+                    "feed_temperature": [lo_T, hi_T - 0.5 * k]}
+
+        def check_body(k: int) -> dict:
+            tau = lo_tau * (hi_tau / lo_tau) ** ((k + 0.5) / VARIANTS)
+            return {"scenario_id": demo["id"], "residence_time": tau, "feed_temperature": lo_T + 5.0 * k}
+
+        async def user(seed: int) -> None:
+            r = random.Random(seed)
+            while time.monotonic() < stop:
+                kind = "check" if check_ok and r.random() < 0.4 else "map"
+                k = r.randrange(VARIANTS)
+                body = check_body(k) if kind == "check" else map_body(k)
+                t0 = time.perf_counter()
+                try:
+                    resp = await client.post(f"/api/v1/{kind}", json=body)
+                    await resp.aread()
+                    if resp.status_code != 200:
+                        errors.append(f"{kind} {resp.status_code} {resp.text[:120]}")
+                except httpx.HTTPError as exc:
+                    errors.append(f"{kind} {type(exc).__name__}")
+                    continue
+                lat[kind].append(time.perf_counter() - t0)
+
+        async def prober() -> None:
+            while time.monotonic() < stop:
+                t0 = time.perf_counter()
+                try:
+                    resp = await client.get("/api/v1/health")
+                    if resp.status_code != 200:
+                        errors.append(f"health {resp.status_code}")
+                except httpx.HTTPError as exc:
+                    errors.append(f"health {type(exc).__name__}")
+                lat["health"].append(time.perf_counter() - t0)
+                await asyncio.sleep(HEALTH_PERIOD_S)
+
+        async def memory() -> None:
+            while time.monotonic() < stop:
+                rss.append(tree_rss_bytes(pid))
+                await asyncio.sleep(0.5)
+
+        started = time.monotonic()
+        await asyncio.gather(*(user(rng.randrange(1 << 30)) for _ in range(CLIENTS)), prober(), memory())
+        elapsed = time.monotonic() - started
+        rss.append(tree_rss_bytes(pid))
+    return {"lat": lat, "errors": errors, "rss": rss, "elapsed": elapsed, "idle": idle, "check": check_ok}
+
+
+def main() -> int:
+    import httpx
+
+    server = Server()
+    with server as url:
+        # one computation first, so the run measures the service and not the workers' first imports
+        httpx.post(url + "/api/v1/steady", json={"scenario_id": DEMO}, timeout=60).raise_for_status()
+        out = asyncio.run(run(url, server.pid))
+    lat, errors, rss = out["lat"], out["errors"], out["rss"]
+    done = len(lat["map"]) + len(lat["check"])
+    print(f"exomap load benchmark: {CLIENTS} clients for {DURATION_S:.0f} s on 127.0.0.1, demo '{DEMO}', "
+          f"maps {MAP_POINTS[0]} x {MAP_POINTS[1]} in {VARIANTS} windows, checks at {VARIANTS} setpoints, "
+          f"{os.cpu_count()} CPUs")
+    if not out["check"]:
+        print("  (the check route did not answer 200 before the run: maps only)")
+    print(f"  throughput {done / out['elapsed']:.1f} requests/s ({done} answered in {out['elapsed']:.1f} s)")
+    print(summary("map", lat["map"]))
+    print(summary("check", lat["check"]))
+    print(summary("health, idle server (base)", out["idle"]))
+    print(summary("health, under load", lat["health"]))
+    print(f"  errors {len(errors)}" + (f": first {errors[:3]}" if errors else ""))
+    peak = max(rss) / 2**20 if rss else float("nan")
+    print(f"  server RSS (process and workers) peak {peak:.0f} MB, end {rss[-1] / 2**20:.0f} MB")
+    with open("/proc/loadavg") as f:
+        load = f.read().split()[0]
+    print(f"  machine load average at the end: {load} (other work on the machine inflates times)")
+    p99 = pct(lat["health"], 99)
+    base = statistics.median(out["idle"])
+    print(f"  ratio health p99 under load / idle median: {p99 / base:.1f}")
+    print(f"  target zero errors:       {'met' if not errors else 'NOT met'} ({len(errors)})")
+    print(f"  target health p99 < 50 ms: {'met' if p99 < 0.050 else 'NOT met'} ({p99 * 1e3:.1f} ms)")
+    print(f"  target RSS < 400 MB:      {'met' if peak < 400 else 'NOT met'} ({peak:.0f} MB)")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
