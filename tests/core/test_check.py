@@ -1,0 +1,244 @@
+"""The setpoint check (exomap.core.check): verdicts in each map region, margins against independent fold
+calculations, upsets against the simulator, reasons with numbers and thresholds, errors naming the field.
+
+Scenarios: the dimensionless first-order CSTR of ``conftest.make_cstr`` and the invented demo scenarios in
+``scenarios/`` (loaded through the schema layer).
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import replace
+from pathlib import Path
+
+import numpy as np
+import pytest
+from exomap.core.cautions import CAUTIONS
+from exomap.core.check import check_setpoint
+from exomap.core.dynamics import simulate
+from exomap.core.errors import ModelInputError
+from exomap.core.scenario import CheckPolicy, Limits
+from scipy.optimize import brentq
+
+SCENARIOS = Path(__file__).resolve().parents[2] / "scenarios"
+
+
+def demo(name):
+    from exomap.schema import parse_scenario
+
+    return parse_scenario(json.loads((SCENARIOS / f"{name}.json").read_text())).to_core()
+
+
+def multiple(cstr, ref, **kw):
+    """gamma = 20, B = 8 adiabatic CSTR with its scenario residence time (1000 s) at the geometric mean of the
+    turning-point Damkoehler numbers (conftest.Reference, analytic): three steady states."""
+    Da = math.sqrt(float(np.prod(ref.G(ref.fold_x(8.0, 20.0), 8.0, 20.0))))
+    return cstr(20.0, 8.0, k_ref=Da / 1000.0, **kw)
+
+
+def adiabatic_folds(c, *, tau=None, T_in=None):
+    """Turning points of the adiabatic first-order CSTR, by hand (analytic), lowest temperature first.
+
+    Steady state: F = T - T_in - dT_ad k tau / (1 + k tau) = 0, k = k_ref exp(E (1/T_ref - 1/T)); a fold adds
+    dF/dT = 1 - dT_ad x (1 - x) E / T^2 = 0 with x = k tau / (1 + k tau).
+    At fixed tau: solve dF/dT = 0 for T and read T_in off F = 0. At fixed T_in: x = (T - T_in)/dT_ad turns
+    dF/dT = 0 into T^2 = E (T - T_in)(1 - (T - T_in)/dT_ad), and tau = x / ((1 - x) k).
+    Returns [(T, T_in, tau)].
+    """
+    E, dT = c.E, c.dT_ad
+    out = []
+    if tau is not None:
+
+        def f(T):
+            k = c.k(T)
+            x = k * tau / (1 + k * tau)
+            return 1 - dT * x * (1 - x) * E / T**2
+
+        Ts = np.linspace(c.T_in - 50, c.T_in + dT + 50, 4001)
+        v = np.array([f(T) for T in Ts])
+        for i in np.nonzero(np.sign(v[:-1]) != np.sign(v[1:]))[0]:
+            T = brentq(f, Ts[i], Ts[i + 1], xtol=1e-13)
+            k = c.k(T)
+            out.append((T, T - dT * k * tau / (1 + k * tau), tau))
+    else:
+        # T^2 - E (T - T_in)(1 - (T - T_in)/dT) = 0  ->  (1 + E/dT) T^2 - (E + 2 E T_in/dT) T + E T_in (1 + T_in/dT)
+        a, b, cc = 1 + E / dT, -(E + 2 * E * T_in / dT), E * T_in * (1 + T_in / dT)
+        for T in sorted(np.roots([a, b, cc]).real):
+            x = (T - T_in) / dT
+            out.append((T, T_in, x / ((1 - x) * c.k(T))))
+    return out
+
+
+# -- verdicts by region --------------------------------------------------------------------------------------
+
+
+def test_one_stable_state_far_from_everything_is_inside(cstr):
+    c = cstr(20.0, 2.0)  # B = 2 < 4: one steady state for every Da (van Heerden 1953; analytic bound)
+    r = check_setpoint(c.sc)
+    assert (r.verdict, r.region) == ("inside", "stable")
+    assert len(r.reasons) == 1 and "every margin" in r.reasons[0]
+    assert r.margin("feed_temperature_rise_to_ignition_K").value is None
+    assert "no ignition point" in r.margin("feed_temperature_rise_to_ignition_K").note
+    assert [u.key for u in r.upsets] == [
+        "feed_warmer",
+        "feed_flow_down",
+        "feed_flow_up",
+        "feed_stronger",
+        "feed_stop",
+        "outlet_blocked",
+    ]  # no jacket: no cooling-lost upset
+
+
+def test_multiple_states_are_marginal_and_the_low_state_is_assumed(cstr, ref):
+    c = multiple(cstr, ref)
+    r = check_setpoint(c.sc)
+    assert (r.verdict, r.region, r.state_index) == ("marginal", "multiple", 0)
+    assert "low stable state" in r.assumption
+    assert any("region 'multiple': 3 steady states" in s for s in r.reasons)
+    (T_ign, Tin_ign, _), _ = adiabatic_folds(c, tau=1000.0)
+    m = r.margin("feed_temperature_rise_to_ignition_K")
+    # the ignition feed temperature of the hand calculation above (analytic fold)
+    assert m.value == pytest.approx(Tin_ign - c.T_in, abs=1e-6)
+    (_, _, tau_ign), _ = adiabatic_folds(c, T_in=c.T_in)
+    assert r.margin("residence_time_rise_to_ignition_percent").value == pytest.approx(
+        100 * (tau_ign / 1000.0 - 1), rel=1e-6
+    )
+    # this point lies closer to ignition than the 10 K default threshold of CheckPolicy (DESIGN.md §6), so the
+    # reason must say so with both numbers
+    assert Tin_ign - c.T_in < 10.0
+    assert any(f"is {m.value:.1f} K, below the threshold 10 K (project default" in s for s in r.reasons)
+
+
+def test_the_hot_branch_has_an_extinction_margin(cstr, ref):
+    c = multiple(cstr, ref)
+    r = check_setpoint(c.sc, branch="high")
+    assert r.state_index == 2 and "high stable state" in r.assumption
+    _, (T_ext, Tin_ext, _) = adiabatic_folds(c, tau=1000.0)
+    # the extinction feed temperature of the hand calculation (analytic fold)
+    assert r.margin("feed_temperature_drop_to_extinction_K").value == pytest.approx(c.T_in - Tin_ext, abs=1e-6)
+    assert r.margin("feed_temperature_rise_to_ignition_K").value is None
+    assert "hot branch" in r.margin("feed_temperature_rise_to_ignition_K").note
+
+
+def test_a_hot_stable_state_above_the_limit_is_runaway_and_outside(cstr, ref):
+    c = multiple(cstr, ref)
+    low, mid, high = check_setpoint(c.sc).steady.states
+    sc = replace(c.sc, limits=Limits(T_max=0.5 * (mid.T + high.T)))
+    r = check_setpoint(sc)
+    assert (r.verdict, r.region) == ("outside", "runaway")
+    assert any(f"a reachable steady state at {high.T:.1f} K lies above the maximum temperature" in s for s in r.reasons)
+
+
+def test_steep_single_state_is_sensitive_and_marginal(cstr):
+    c = cstr(20.0, 3.5, k_ref=0.2 / 1000.0)
+    r = check_setpoint(c.sc)
+    st = r.state
+    # dT/dT_in at fixed tau = 1 / (1 - dT_ad x(1-x) E/T^2) for the adiabatic first-order tank (analytic,
+    # implicit differentiation of F = 0 above)
+    k = c.k(st.T)
+    x = k * 1000.0 / (1 + k * 1000.0)
+    sens = 1.0 / (1.0 - c.dT_ad * x * (1 - x) * c.E / st.T**2)
+    assert sens > CheckPolicy().sensitivity
+    assert (r.verdict, r.region) == ("marginal", "sensitive")
+    assert any(f"moves {sens:.2f} K per K" in s and "threshold 3 K/K (project default" in s for s in r.reasons)
+
+
+def test_demo_oscillating_range_is_outside():
+    sc = demo("jacketed-first-order")
+    # the demo's description: residence times of about 65-150 min make the state unstable (invented data)
+    r = check_setpoint(sc, tau=100 * 60.0)
+    assert (r.verdict, r.region) == ("outside", "unstable")
+    assert any("is unstable (oscillatory)" in s for s in r.reasons)
+
+
+def test_demo_runaway_is_outside():
+    sc = demo("adiabatic-second-order")
+    r = check_setpoint(sc)
+    assert (r.verdict, r.region) == ("outside", "runaway")
+
+
+def test_demo_cooling_loss_crossing_the_limit_is_marginal():
+    sc = demo("jacketed-first-order")
+    r = check_setpoint(sc)
+    assert (r.verdict, r.region) == ("marginal", "stable")
+    cool = next(u for u in r.upsets if u.key == "cooling_lost")
+    assert len(r.upsets) == 7 and cool.time_to_max is not None and cool.peak_T > sc.limits.T_max
+    assert any("upset 'cooling lost'" in s and f"{sc.limits.T_max:.1f} K" in s for s in r.reasons)
+    # the upset's time to the maximum temperature, re-simulated to stop there: T is the limit (the simulator)
+    y0 = np.concatenate(([sc.vessel.h_set], r.state.C, [r.state.T, 0.0]))
+    again = simulate(sc, initial=y0, events=[{"at": 0, "do": "cooling_loss"}], duration=cool.time_to_max, rtol=1e-9)
+    assert again.T[-1] == pytest.approx(sc.limits.T_max, rel=1e-6)
+
+
+def test_demo_mild_is_inside_and_a_stricter_policy_makes_it_marginal():
+    sc = demo("mild-single-state")
+    r = check_setpoint(sc)
+    assert r.verdict == "inside"
+    margin = sc.limits.T_max - r.state.T
+    strict = replace(sc, policy=replace(sc.policy, min_temperature_margin=margin + 5.0))
+    r2 = check_setpoint(strict)
+    assert r2.verdict == "marginal"
+    assert any(
+        f"{margin:.1f} K below the maximum temperature" in s
+        and "set in the scenario's check_policy.min_temperature_margin" in s
+        for s in r2.reasons
+    )
+
+
+def test_valve_outside_its_usable_range_is_marginal(cstr):
+    c = cstr(20.0, 2.0)
+    # a valve 10 times larger must sit near 4 % open to pass the same flow (linear characteristic, analytic)
+    sc = replace(c.sc, valve=replace(c.sc.valve, Kv=400.0))
+    r = check_setpoint(sc)
+    assert r.verdict == "marginal"
+    assert any("outside the usable range 20-80 %" in s for s in r.reasons)
+    assert r.margin("valve_opening_to_usable_range_percent").value < 0
+
+
+# -- answer and errors ------------------------------------------------------------------------------------------
+
+
+def test_answer_document(cstr, ref):
+    c = multiple(cstr, ref)
+    d = json.loads(json.dumps(check_setpoint(c.sc).to_dict(), allow_nan=False))
+    for key in (
+        "verdict",
+        "reasons",
+        "states",
+        "margins",
+        "safety",
+        "upsets",
+        "cautions",
+        "assumption",
+        "region",
+        "operating_point",
+    ):
+        assert key in d
+    assert d["cautions"] == list(CAUTIONS)
+    # DESIGN.md §9: the cautions open with the screening-aid sentence
+    assert d["cautions"][0] == "Screening aid, not a design or safety basis."
+    assert [s["temperature_K"] for s in d["states"]] == sorted(s["temperature_K"] for s in d["states"])
+    up = d["upsets"][0]
+    for key in (
+        "peak_temperature_K",
+        "peak_time_s",
+        "time_to_alarm_s",
+        "time_to_max_temperature_s",
+        "level_min_m",
+        "level_max_m",
+        "final_temperature_K",
+        "settled",
+        "stop_reason",
+    ):
+        assert key in up
+
+
+@pytest.mark.parametrize(
+    ("kwargs", "field"),
+    [({"branch": "middle"}, "branch"), ({"tau": -1.0}, "residence_time"), ({"T_in": float("nan")}, "feed_temperature")],
+)
+def test_bad_requests_name_the_field(cstr, kwargs, field):
+    with pytest.raises(ModelInputError, match=field) as info:
+        check_setpoint(cstr(20.0, 2.0).sc, **kwargs)
+    assert info.value.field == field
