@@ -45,7 +45,7 @@ export function renderKV(table, obj) {
     for (const m of obj) rows.push([m.label || plainKey(m.name || m.key || "value"), fmtEntry(m.name || m.key || "", m)]);
   } else if (obj && typeof obj === "object") {
     for (const [k, v] of Object.entries(obj)) {
-      if (k === "units" || k === "notes") continue;
+      if (k === "units") continue;
       rows.push([plainKey(k), v !== null && typeof v === "object" && !Array.isArray(v) ? fmtEntry(k, v) : fmtByKey(k, v)]);
     }
   }
@@ -97,14 +97,15 @@ export function renderUpsets(table, upsets, onOpen) {
     const [, tmax] = pick(u, "time_to_max_temperature_s", "max_temperature_time_s");
     const lmin = u.level_min_m ?? (u.level_range_m ? u.level_range_m[0] : undefined);
     const lmax = u.level_max_m ?? (u.level_range_m ? u.level_range_m[1] : undefined);
-    const settle = u.settles_at_K ?? u.final_temperature_K ?? u.settled_temperature_K;
+    const settle = u.final_temperature_K;
     const crosses = u.crosses_max_temperature ?? (tmax !== null && tmax !== undefined);
     const cells = [
       el("th", { scope: "row", text: upsetName(u, i) }), el("td", { text: fmtTemp(peak) }),
       el("td", { text: fmtTime(peakAt) }), el("td", { text: alarm === null || alarm === undefined ? "none" : fmtTime(alarm) }),
       el("td", { text: tmax === null || tmax === undefined ? "none" : fmtTime(tmax) }),
       el("td", { text: Number.isFinite(lmin) && Number.isFinite(lmax) ? `${lmin.toFixed(2)}–${lmax.toFixed(2)} m` : "—" }),
-      el("td", { text: typeof settle === "number" ? fmtTemp(settle) : u.settles ? String(u.settles) : "—" }),
+      el("td", { text: typeof settle === "number" ? `${fmtTemp(settle)}${u.settled === false ? " (still moving)" : ""}`
+        : "—" }),
     ];
     if (onOpen) {
       const b = el("button", { type: "button", "data-upset": String(i), text: "Show response",
@@ -134,15 +135,15 @@ export async function drawResponse(Plotly, node, sim, { maxK, alarmK, title } = 
   if (alarms.length) tr.push({ type: "scatter", mode: "markers", name: "alarms",
     x: alarms.map((a) => (a.time_s ?? a.at_s) / 60),
     y: alarms.map((a) => toC(a.temperature_K ?? interp(sim.time_s, sim.temperature_K, a.time_s ?? a.at_s))),
-    text: alarms.map((a) => a.label || a.kind || a.name || "alarm"), hovertemplate: "%{text} at %{x:.1f} min<extra></extra>",
+    text: alarms.map((a) => String(a.kind || "alarm").replace(/_/g, " ")), hovertemplate: "%{text} at %{x:.1f} min<extra></extra>",
     marker: { symbol: "triangle-up", size: 11, color: "#111" } });
   const lay = {
-    height: 260, margin: { l: 58, r: 52, t: title ? 28 : 10, b: 44 },
+    height: 300, margin: { l: 58, r: 52, t: title ? 28 : 10, b: 90 },
     title: title ? { text: title, font: { size: 13 } } : undefined,
     xaxis: { title: { text: "Time [min]" }, ticks: "outside" },
     yaxis: { title: { text: "Tank temperature [°C]" }, ticks: "outside" },
     yaxis2: { title: { text: "Level [m]" }, overlaying: "y", side: "right", showgrid: false },
-    legend: { orientation: "h", y: -0.3, font: { size: 11 } }, font: { family: "system-ui, sans-serif", size: 12 },
+    legend: { orientation: "h", y: -0.25, yanchor: "top", font: { size: 11 } }, font: { family: "system-ui, sans-serif", size: 12 },
   };
   await Plotly.react(node, tr, lay, { displayModeBar: false, responsive: true });
 }
@@ -165,7 +166,7 @@ export function simulationSummary(sim) {
   }
   const alarms = sim.alarms || [];
   parts.push(alarms.length ? `${alarms.length} alarm${alarms.length > 1 ? "s" : ""}: ` + alarms.map((a) =>
-    `${a.label || a.kind || a.name || "alarm"} at ${fmtTime(a.time_s ?? a.at_s)}`).join(", ") : "no alarms");
-  if (sim.stopped || sim.stop_reason) parts.push(`stopped: ${sim.stop_reason || sim.stopped}`);
+    `${String(a.kind || "alarm").replace(/_/g, " ")} at ${fmtTime(a.time_s ?? a.at_s)}`).join(", ") : "no alarms");
+  if (sim.stop_reason && sim.stop_reason !== "completed") parts.push(`stopped early: ${sim.stop_reason}`);
   return parts.join(" · ");
 }

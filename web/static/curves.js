@@ -5,8 +5,8 @@ import { heatInputs, heatCurves, windowFor } from "./heat.js";
 import { isLogSpaced } from "./map.js";
 
 const base = (xTitle, logx) => ({
-  height: 250, margin: { l: 58, r: 12, t: 26, b: 44 }, showlegend: true,
-  legend: { orientation: "h", y: -0.32, font: { size: 11 } },
+  height: 290, margin: { l: 58, r: 12, t: 26, b: 96 }, showlegend: true,
+  legend: { orientation: "h", y: -0.3, yanchor: "top", font: { size: 11 } },
   xaxis: { title: { text: xTitle }, type: logx ? "log" : "linear", ticks: "outside" },
   yaxis: { title: { text: "Tank temperature [°C]" }, ticks: "outside" },
   font: { family: "system-ui, sans-serif", size: 12 }, dragmode: "zoom",

@@ -116,6 +116,9 @@ export function ancestors(path) {
   return out;
 }
 
+// "kJ/(kg*K)" -> "kJ/(kg·K)", "m^3/h" -> "m³/h" (shown; what is sent keeps the plain spelling)
+const pretty = (u) => String(u).replace(/\^3/g, "³").replace(/\^2/g, "²").replace(/\*/g, "·").replace(/degC/g, "°C");
+
 function fieldId(path) { return "f-" + path.replace(/[^A-Za-z0-9_-]/g, "_"); }
 
 export class Editor {
@@ -161,7 +164,7 @@ export class Editor {
     input.setAttribute("aria-describedby", `${id}-err`);
     row.append(input);
     const unit = kind === "k0" ? extra : UNIT_SHOWN[kind] ?? (UNITS[kind] ? UNITS[kind][0] : "");
-    row.append(el("span", { class: "unit", text: unit }));
+    row.append(el("span", { class: "unit", text: pretty(unit) }));
     row.append(el("span", { id: `${id}-err`, class: "field-error", role: "alert", hidden: "" }));
     this.inputs.set(path, { input, kind, original, unit: kind === "k0" ? "" : UNITS[kind] ? UNITS[kind][0] : "" });
     return row;

@@ -26,8 +26,11 @@ function summaryRows(sc) {
       : typeof v.opening === "number" ? `, fixed at ${(100 * v.opening).toFixed(0)} % open` : "")]);
   r.push(["Liquid", `density ${fmtNum(sc.liquid.density)} kg/m³, heat capacity ${fmtNum(sc.liquid.heat_capacity / 1000)} kJ/(kg·K)`]);
   (sc.reactions || []).forEach((x, j) => {
-    const st = Object.entries(x.stoichiometry || {}).map(([s, n]) => `${n} ${s}`).join(" + ");
-    r.push([`Reaction ${j + 1}${x.label ? " (" + x.label + ")" : ""}`, `${st} → 0; k0 ${x.pre_exponential.toExponential(3)} (SI), ` +
+    const side = (sign) => Object.entries(x.stoichiometry || {}).filter(([, n]) => sign * n > 0)
+      .map(([s, n]) => `${Math.abs(n) === 1 ? "" : Math.abs(n) + " "}${s}`).join(" + ") || "0";
+    const n = Object.values(x.orders || {}).reduce((a, b) => a + b, 0);
+    const k0unit = n === 0 ? "mol/(m³·s)" : n === 1 ? "1/s" : n === 2 ? "m³/(mol·s)" : `(mol/m³)^(1−${n})/s`;
+    r.push([`Reaction ${j + 1}${x.label ? " (" + x.label + ")" : ""}`, `${side(-1)} → ${side(1)}; k0 ${x.pre_exponential.toExponential(3)} ${k0unit}, ` +
       `Ea ${fmtNum(x.activation_energy / 1000)} kJ/mol, ΔH ${fmtNum(x.reaction_enthalpy / 1000)} kJ/mol`]);
   });
   const f = sc.feed;
@@ -68,7 +71,9 @@ async function main() {
     renderList($("p-reasons"), chk.reasons);
     renderKV($("p-margins"), chk.margins);
     renderKV($("p-safety"), chk.safety);
-    renderStates($("p-states"), Array.isArray(chk.states) ? chk.states : [], chk.operating_state);
+    renderStates($("p-states"), chk.states, chk.state_index);
+    const entry = (map.legend || []).find((e) => e.key === chk.region);
+    $("p-assumption").textContent = `Region at the setpoint: ${entry ? entry.label : chk.region}. Operating state: ${chk.assumption}.`;
     renderUpsets($("p-upsets"), chk.upsets, null);
     await drawMap(Plotly, $("p-map"), map, sp, { staticPlot: true });
     const ul = $("p-legend");

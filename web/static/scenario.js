@@ -215,10 +215,10 @@ function hoverAt(sp) {
   }, 180);
 }
 
-async function loadMap() {
+async function loadMap(prefetched) {
   const url = urls.mapOfPage(ID, state);
   try {
-    const doc = await getJSON(url, "Computing the operating map");
+    const doc = await (prefetched || getJSON(url, "Computing the operating map"));
     view.map = doc;
     if (!state.map_residence_time || !state.map_feed_temperature || !state.points) {
       // write the window the server chose into the URL, so a copied link keeps it
@@ -235,6 +235,7 @@ async function loadMap() {
       onHover: hoverAt,
     });
     $("map").dataset.drawn = String(Date.now());
+    if (!$("map").dataset.firstDrawnMs) $("map").dataset.firstDrawnMs = String(Math.round(performance.now()));
   } catch (e) {
     showProblem(e);
     if (e instanceof ApiError && e.fields.length) fieldError("mw-err", e.fields.map((f) => f.message).join("; "));
@@ -286,14 +287,13 @@ async function loadCheck() {
 
 function renderCheck(chk) {
   renderVerdict($("verdict"), chk);
-  const a = chk.assumption;
-  $("assumption").textContent = typeof a === "string" ? a : a ? a.message || a.text || JSON.stringify(a) : "";
+  const entry = view.map && (view.map.legend || []).find((e) => e.key === chk.region);
+  const region = entry ? `Region at the setpoint: ${entry.label}. ` : chk.region ? `Region at the setpoint: ${chk.region}. ` : "";
+  $("assumption").textContent = `${region}Operating state: ${chk.assumption || "—"}.`;
   renderList($("reasons"), chk.reasons);
   renderKV($("margins"), chk.margins);
   renderKV($("safety"), chk.safety);
-  const states = Array.isArray(chk.states) ? chk.states : chk.states && chk.states.states;
-  const opIndex = typeof chk.operating_state === "number" ? chk.operating_state : chk.states && chk.states.operating_index;
-  renderStates($("states"), states, opIndex);
+  renderStates($("states"), chk.states, chk.state_index);
   renderUpsets($("upsets"), chk.upsets, (i) => openUpset(i, true));
   renderList($("check-cautions"), chk.cautions);
 }
@@ -308,13 +308,10 @@ async function openUpset(i, push) {
   $("upset-title").textContent = `Response: ${upsetName(u, i)}`;
   const lim = view.scenario.limits || {};
   try {
-    let sim = u.response || (u.time_s ? u : null);
-    if (!sim) {
-      if (!u.events) throw new Error("This upset does not say which events it applied, so its response cannot be drawn.");
-      const body = { scenario_id: ID, ...setpoint(), start: view.check.branch || state.branch || "low", events: u.events };
-      if (u.duration_s) body.duration = u.duration_s;
-      sim = await postJSON(urls.apiPost("simulate"), body, "Simulating the upset");
-    }
+    // the upset's own events, from the same operating state, for the same time: the response the check summarised
+    const body = { scenario_id: ID, ...setpoint(), start: state.branch || "low", events: u.events || [] };
+    if (u.duration_s) body.duration = u.duration_s;
+    const sim = await postJSON(urls.apiPost("simulate"), body, "Simulating the upset");
     if (state.upset !== i) return;
     await drawResponse(Plotly, $("upset-plot"), sim, { maxK: lim.max_temperature, alarmK: lim.alarm_temperature });
   } catch (e) {
@@ -437,6 +434,9 @@ async function main() {
   wireSimulation();
   wireMapKeys();
   $("upset-close").addEventListener("click", () => { state.upset = null; $("upset-view").hidden = true; syncURL(true); });
+  // the map does not depend on the scenario document: ask for it at once, while plotly's bundle compiles
+  const mapAnswer = getJSON(urls.mapOfPage(ID, state), "Computing the operating map");
+  mapAnswer.catch(() => {}); // reported by loadMap
   try {
     view.scenario = await getJSON(urls.apiScenario(ID), "Loading the scenario");
   } catch (e) {
@@ -452,9 +452,10 @@ async function main() {
   if (state.feed_temperature === null) state.feed_temperature = sc.feed.temperature;
   fillSetpointInputs();
   syncURL(false);
+  const checked = loadCheck();
   try { Plotly = await plotlyReady(); } catch (e) { showProblem(e); return; }
   showPanel(state.panel || "check", false);
-  await Promise.all([loadMap(), loadCheck()]);
+  await Promise.all([loadMap(mapAnswer), checked]);
   listDemoFlag();
 }
 

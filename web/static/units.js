@@ -59,8 +59,9 @@ export function fmtByKey(key, value) {
   if (value === null || value === undefined) return "none";
   if (typeof value === "boolean") return value ? "yes" : "no";
   if (typeof value === "string") return value;
+  if (Array.isArray(value)) return value.length ? value.join("; ") : "none";
   if (typeof value !== "number") return JSON.stringify(value);
-  if (/_K$/.test(key) && /(temperature|mtsr|mtt|td24|_T_)/i.test(key) && !/(rise|margin|delta|drop|dT)/i.test(key))
+  if (/_K$/.test(key) && /(temperature|mtsr|mtt|td24|_T_)/i.test(key) && !/(rise|margin|delta|drop|dT|_to_)/i.test(key))
     return fmtTemp(value);
   if (/_K$/.test(key)) return fmtDeltaK(value);
   if (/_s$/.test(key)) return fmtTime(value);
@@ -72,7 +73,7 @@ export function fmtByKey(key, value) {
 
 // "residence_time_margin_percent" -> "Residence time margin"
 export function plainKey(key) {
-  const words = key.replace(/_(K|s|m|W|percent|pct|fraction|per_s|m3_per_s|mol_per_m3|J_per_mol)$/, "")
+  const words = key.replace(/tmr_ad/g, "tmrad").replace(/_(K|s|m|W|percent|pct|fraction|per_s|m3_per_s|mol_per_m3|J_per_mol)$/, "")
     .replace(/_/g, " ");
   const caps = { mtsr: "MTSR", tmrad: "TMRad", td24: "TD24", mtt: "MTT", dt: "ΔT", ad: "ad" };
   return words.split(" ").map((w, i) => caps[w.toLowerCase()] ||
