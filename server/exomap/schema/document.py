@@ -149,7 +149,12 @@ class ReactionDoc(_Model):
     @classmethod
     def _k0(cls, value: object, info: ValidationInfo) -> float:
         orders = info.data.get("orders")
-        total = float(sum(orders.values())) if isinstance(orders, dict) else 1.0
+        declared = (info.context or {}).get("species")
+        if isinstance(orders, dict):
+            # orders in undeclared species are reported as such (cross_check), not as a wrong k0 dimension
+            total = float(sum(n for s, n in orders.items() if not (isinstance(declared, list) and declared) or s in declared))
+        else:
+            total = 1.0
         try:
             x = pre_exponential_to_si(value, total)
         except QuantityProblem as exc:

@@ -166,7 +166,7 @@ def parse_scenario(doc: Any) -> ScenarioDoc:
     if not isinstance(doc, dict):
         raise ScenarioError.single("scenario", f"expected a JSON object, got {type(doc).__name__}")
     try:
-        model = ScenarioDoc.model_validate(doc)
+        model = ScenarioDoc.model_validate(doc, context={"species": doc.get("species")})
     except ValidationError as exc:
         raise reshape(exc) from None
     errors = cross_check(model)

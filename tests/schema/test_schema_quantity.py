@@ -1,0 +1,120 @@
+"""Quantities with units: conversions against the unit definitions, and clear errors naming the field."""
+
+from __future__ import annotations
+
+import math
+import subprocess
+import sys
+
+import pytest
+from exomap.schema import ScenarioError, parse_quantity
+from hypothesis import given
+from hypothesis import strategies as st
+
+# (value, dimension, expected SI value)
+CASES = [
+    # SI Brochure, 9th ed. (2019) §2.3.1: t/degC = T/K - 273.15
+    ("30 degC", "temperature", 303.15),
+    # NIST SP 811 (2008) B.9: T/K = (t/degF + 459.67) / 1.8
+    ("86 degF", "temperature", (86 + 459.67) / 1.8),
+    ("308.15 K", "temperature", 308.15),
+    # SI Brochure Table 8: 1 h = 3600 s, so 6 m^3/h = 6/3600 m^3/s
+    ("6 m^3/h", "flow", 6 / 3600),
+    # SI Brochure Table 8: 1 L = 1e-3 m^3
+    ("100 L/min", "flow", 100e-3 / 60),
+    ("2.5 mol/L", "concentration", 2500.0),
+    ("80 kJ/mol", "molar_energy", 80e3),
+    # SI Brochure Table 8: 1 min = 60 s
+    ("40 min", "time", 2400.0),
+    ("2 h", "time", 7200.0),
+    # SI Brochure Table 8: 1 bar = 1e5 Pa
+    ("1.2 bar", "pressure", 1.2e5),
+    ("1800 mm", "length", 1.8),
+    ("950 kg/m^3", "density", 950.0),
+    ("2.1 kJ/(kg K)", "specific_heat", 2100.0),
+    # a kelvin and a degree Celsius are the same interval (SI Brochure §2.3.1)
+    ("2.1 kJ/(kg degC)", "specific_heat", 2100.0),
+    ("2.5 kW/K", "conductance", 2500.0),
+    ("3 kW", "power", 3000.0),
+    ("2 1/m", "inverse_length", 2.0),
+    ("45 %", "fraction", 0.45),
+    (0.45, "fraction", 0.45),
+    # temperature differences: 18 degF = 10 K (NIST SP 811 B.9, interval of 1 degF = 1/1.8 K)
+    ("18 degF", "temperature_difference", 10.0),
+    ("10 degC", "temperature_difference", 10.0),
+    ("10 K", "temperature_difference", 10.0),
+    # a bare number is SI
+    (1.5, "length", 1.5),
+    (300, "temperature", 300.0),
+]
+
+
+@pytest.mark.parametrize(("value", "dimension", "si"), CASES)
+def test_conversion(value, dimension, si):
+    assert parse_quantity(value, dimension, "x") == pytest.approx(si, rel=1e-14)
+
+
+@pytest.mark.parametrize(
+    ("value", "dimension", "match"),
+    [
+        ("2 m", "time", r"^vessel\.thing: '2 m' is not a time; expected a time, e\.g\. '40 min'"),
+        ("2", "length", r"vessel\.thing: '2' has no unit; expected a length"),
+        ("2 blorps", "length", r"vessel\.thing: unit .blorps. not understood .*; expected a length"),
+        ("2 furlongs per fortnight", "length", r"vessel\.thing: .* is not a length; expected a length"),
+        (float("nan"), "length", r"vessel\.thing: nan is not a finite number"),
+        (float("inf"), "flow", r"vessel\.thing: inf is not a finite number; expected a volumetric flow"),
+        ("1e999 m", "length", r"vessel\.thing: inf is not a finite number"),
+        ("-300 degC", "temperature", r"vessel\.thing: .* below absolute zero"),
+        (-5.0, "temperature", r"vessel\.thing: .* below absolute zero"),
+        (True, "length", r"vessel\.thing: got True; expected a length"),
+        ("abc", "length", r"vessel\.thing: 'abc' does not start with a number"),
+        ("2 m**9**9**9", "length", r"vessel\.thing: unit .* power of a power"),
+        ("2 1000 m", "length", r"vessel\.thing: unit .* contains a number"),
+    ],
+)
+def test_bad_quantity_names_field_and_unit(value, dimension, match):
+    with pytest.raises(ScenarioError, match=match) as info:
+        parse_quantity(value, dimension, "vessel.thing")
+    assert [e["field"] for e in info.value.errors] == ["vessel.thing"]
+
+
+def test_unknown_dimension_is_a_programming_error():
+    with pytest.raises(ValueError, match="unknown dimension 'lenght'"):
+        parse_quantity("2 m", "lenght", "x")
+
+
+@given(st.floats(min_value=1e-6, max_value=1e9, allow_nan=False), st.sampled_from([
+    # (unit, factor to SI): SI Brochure Table 8 and the prefixes of Table 7
+    ("m^3/h", 1 / 3600), ("L/min", 1e-3 / 60), ("L/s", 1e-3), ("m^3/s", 1.0),
+]))
+def test_flow_units_scale_exactly(x, unit_factor):
+    unit, factor = unit_factor
+    # values are rounded to 15 significant digits after conversion (see exomap.schema.quantity)
+    assert parse_quantity(f"{x!r} {unit}", "flow", "feed.flow") == pytest.approx(x * factor, rel=1e-14)
+
+
+@given(st.floats(min_value=-273.0, max_value=2000.0, allow_nan=False))
+def test_celsius_is_offset_by_273_15(t):
+    # SI Brochure, 9th ed. (2019) §2.3.1
+    assert parse_quantity(f"{t!r} degC", "temperature", "feed.temperature") == pytest.approx(t + 273.15, rel=1e-14)
+
+
+@given(st.floats(allow_nan=False, allow_infinity=False, min_value=1e-300, max_value=1e300))
+def test_bare_numbers_are_kept_exactly(x):
+    assert parse_quantity(x, "length", "vessel.diameter") == x
+
+
+def test_import_builds_no_unit_registry():
+    # STYLE.md: no work at import time; the registry is built on first use
+    code = (
+        "import sys, exomap.schema, exomap.schema.quantity as q; "
+        "assert q.registry.cache_info().currsize == 0; assert 'pint' not in sys.modules; "
+        "q.parse_quantity('1 m', 'length', 'x'); assert q.registry.cache_info().currsize == 1"
+    )
+    subprocess.run([sys.executable, "-c", code], check=True)
+
+
+def test_round_trip_of_magnitudes_is_exact_for_si_numbers():
+    # the canonical form stores SI floats; reading one back must not move it (repr is exact for floats)
+    for x in (0.1, 1 / 3, 2.5e-7, 303.15, math.pi * 1e5):
+        assert parse_quantity(float(repr(x)), "time", "t") == x
