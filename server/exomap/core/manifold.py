@@ -38,6 +38,19 @@ from exomap.core.scenario import R_GAS, Scenario
 _TINY = 1e-300
 
 
+def _solve_small(A: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Solve stacked small systems A x = b (A (..., m, m), b (..., m)); closed form for m <= 2, where
+    numpy's batched LAPACK call costs more than the arithmetic."""
+    m = A.shape[-1]
+    if m == 1:
+        return b / A[..., 0]
+    if m == 2:
+        a, bb, c, d = A[..., 0, 0], A[..., 0, 1], A[..., 1, 0], A[..., 1, 1]
+        det = a * d - bb * c
+        return np.stack(((d * b[..., 0] - bb * b[..., 1]) / det, (a * b[..., 1] - c * b[..., 0]) / det), axis=-1)
+    return np.linalg.solve(A, b[..., None])[..., 0]
+
+
 @dataclass(frozen=True)
 class Samples:
     """Evaluations of the manifold at coordinates ``s`` (shape (..., N)); arrays broadcast with tau."""
@@ -83,6 +96,11 @@ class Manifold:
             i_lim = int(np.argmin(lim))
             self.xi_max = float(lim[i_lim])
             self.explicit = bool(self.orders[0, i_lim] > 0 and self.xi_max > 0)
+        if self.m == 1:
+            self._active = [(float(self.c_in[i]), float(self.nu[i, 0]), float(self.orders[0, i]))
+                            for i in range(self.n) if self.orders[0, i] != 0]
+        self._release: tuple[float, float] | None = None
+        self._orders_nz = [[i for i in range(self.n) if self.orders[j, i] != 0] for j in range(self.m)]
         self.key = sc.key_species
         self.key_feed = float(self.c_in[self.key])
 
@@ -106,27 +124,40 @@ class Manifold:
 
     def rates(self, C: np.ndarray, T: np.ndarray) -> np.ndarray:
         """r (..., m) at C (..., n) and T (...)."""
-        Cp = np.maximum(C, 0.0)
-        k = self.k0 * np.exp(-self.E / T[..., None])
-        return k * np.prod(Cp[..., None, :] ** self.orders, axis=-1)
+        return self.rate_derivatives(C, T, derivatives=False)[0]
 
-    def rate_derivatives(self, C: np.ndarray, T: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """(r (...,m), dr/dC (...,m,n), dr/dT (...,m))."""
+    def rate_derivatives(self, C: np.ndarray, T: np.ndarray, derivatives: bool = True
+                         ) -> tuple[np.ndarray, np.ndarray | None, np.ndarray | None]:
+        """(r (...,m), dr/dC (...,m,n), dr/dT (...,m)); only species with a non-zero order are visited."""
         Cp = np.maximum(C, 1e-300)
-        r = self.rates(C, T)
-        dr_dC = r[..., :, None] * self.orders / Cp[..., None, :]
-        dr_dT = r * self.E / (T[..., None] ** 2)
+        logC = None
+        r = np.empty(np.shape(T) + (self.m,))
+        for j in range(self.m):
+            lr = np.log(self.k0[j]) - self.E[j] / T
+            for i in self._orders_nz[j]:
+                if logC is None:
+                    logC = np.log(Cp)
+                lr = lr + self.orders[j, i] * logC[..., i]
+            r[..., j] = np.exp(lr)
+        if not derivatives:
+            return r, None, None
+        dr_dC = np.zeros(np.shape(T) + (self.m, self.n))
+        for j in range(self.m):
+            for i in self._orders_nz[j]:
+                dr_dC[..., j, i] = r[..., j] * self.orders[j, i] / Cp[..., i]
+        dr_dT = r * self.E / (np.asarray(T)[..., None] ** 2)
         return r, dr_dC, dr_dT
 
     # -- the explicit (one reaction) path -------------------------------------------------------------
     def _g(self, xi: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """g(xi) = prod C_i^n_i and g'/g, for one reaction; xi any shape."""
-        nu = self.nu[:, 0]
-        n = self.orders[0]
-        C = self.c_in + xi[..., None] * nu
-        Cp = np.maximum(C, _TINY)
-        logg = np.sum(np.where(n != 0, n * np.log(Cp), 0.0), axis=-1)
-        dlogg = np.sum(np.where(n != 0, n * nu / Cp, 0.0), axis=-1)
+        """ln g(xi) with g = prod C_i^n_i, and g'/g, for one reaction; xi any shape. Only species with a
+        non-zero order enter (a loop over a handful of species, each term an array operation)."""
+        logg = np.zeros(np.shape(xi))
+        dlogg = np.zeros(np.shape(xi))
+        for c0, nu_i, n_i in self._active:
+            C = np.maximum(c0 + nu_i * xi, _TINY)
+            logg += n_i * np.log(C)
+            dlogg += n_i * nu_i / C
         return logg, dlogg
 
     def explicit_eval(self, tau: np.ndarray, xi: np.ndarray) -> Samples:
@@ -144,19 +175,30 @@ class Manifold:
         dTin = a * dT_dxi - self.J[0]
         return Samples(tau, xi, T, xi[..., None], T_in, dTin, dT_dxi, valid)
 
-    def explicit_xi_at_T(self, tau: np.ndarray, T: np.ndarray, iterations: int = 80) -> np.ndarray:
-        """Extent at (tau, T) by vectorised bisection in log-odds of xi/xi_max (T is monotone in xi)."""
+    def explicit_xi_at_T(self, tau: np.ndarray, T: np.ndarray, iterations: int = 60) -> np.ndarray:
+        """Extent at (tau, T) for one reaction: the root of ln xi - ln(tau k(T)) - ln g(xi) = 0, which is
+        increasing in xi, by Newton's method in ln xi safeguarded by bisection (vectorised)."""
         tau, T = np.broadcast_arrays(np.asarray(tau, float), np.asarray(T, float))
-        lo = np.full(tau.shape, -60.0)
-        hi = np.full(tau.shape, 60.0)
+        ln_tk = np.log(self.k0[0] * tau) - self.E[0] / T
+        lo = np.full(tau.shape, np.log(self.xi_max) - 745.0)
+        hi = np.full(tau.shape, np.log(self.xi_max))
+        y = np.minimum(ln_tk + self._g(np.zeros(tau.shape))[0], hi - 1e-12)  # low-conversion guess
+        y = np.maximum(y, lo)
         for _ in range(iterations):
-            mid = 0.5 * (lo + hi)
-            xi = self.xi_max / (1.0 + np.exp(-mid))
-            Tm = self.explicit_eval(tau, xi).T
-            up = ~(Tm < T)  # nan (no physical T: xi too large for this tau) counts as "too hot"
-            hi = np.where(up, mid, hi)
-            lo = np.where(up, lo, mid)
-        return self.xi_max / (1.0 + np.exp(-0.5 * (lo + hi)))
+            xi = np.exp(y)
+            logg, dlogg = self._g(xi)
+            f = y - ln_tk - logg
+            lo = np.where(f < 0, y, lo)
+            hi = np.where(f > 0, y, hi)
+            df = 1.0 - xi * dlogg
+            y_new = y - f / df
+            bad = ~((y_new > lo) & (y_new < hi))
+            y_new = np.where(bad, 0.5 * (lo + hi), y_new)
+            if np.all(np.abs(y_new - y) <= 1e-15 * np.maximum(np.abs(y), 1.0)):
+                y = y_new
+                break
+            y = y_new
+        return np.exp(y)
 
     # -- the general path -----------------------------------------------------------------------------
     def isothermal_extents(self, tau: np.ndarray, T: np.ndarray, xi0: np.ndarray | None = None,
@@ -171,16 +213,26 @@ class Manifold:
             xi = np.array(xi0, dtype=float, copy=True)
         eye = np.eye(self.m)
         scale = max(float(np.max(self.c_in)), 1.0)
+        flat_xi = xi.reshape(-1, self.m)
+        flat_tau, flat_T = tau.reshape(-1), T.reshape(-1)
+        active = np.arange(flat_tau.size)
         for _ in range(max_iter):
-            C = self.concentrations(xi)
-            r, dr_dC, _ = self.rate_derivatives(C, T)
-            res = xi - tau[..., None] * r
-            if np.all(np.abs(res) <= tol * scale):
+            if active.size == 0:
                 break
-            jac = eye - tau[..., None, None] * (dr_dC @ self.nu)
-            step = -np.linalg.solve(jac, res[..., None])[..., 0]
-            xi = self._feasible(xi, xi + step)
-        return xi
+            x, ta, Ta = flat_xi[active], flat_tau[active], flat_T[active]
+            C = self.concentrations(x)
+            r, dr_dC, _ = self.rate_derivatives(C, Ta)
+            tr = ta[:, None] * r
+            res = x - tr
+            jac = eye - ta[:, None, None] * (dr_dC @ self.nu)
+            step = -_solve_small(jac, res)
+            new = self._feasible(x, x + step)
+            flat_xi[active] = new
+            # converged: the residual is at the rounding level of its terms, or the step is negligible
+            done = np.all((np.abs(res) <= tol * (np.abs(x) + np.abs(tr)) + 1e-300)
+                          | (np.abs(new - x) <= 1e-15 * scale), axis=-1)
+            active = active[~done]
+        return flat_xi.reshape(xi.shape)
 
     def _feasible(self, xi: np.ndarray, target: np.ndarray) -> np.ndarray:
         """Move from xi towards target, but no further than 99 % of the way to C = 0 or xi = 0."""
@@ -202,7 +254,7 @@ class Manifold:
         C = self.concentrations(xi)
         _, dr_dC, dr_dT = self.rate_derivatives(C, T)
         jac = np.eye(self.m) - tau[..., None, None] * (dr_dC @ self.nu)
-        dxi_dT = np.linalg.solve(jac, (tau[..., None] * dr_dT)[..., None])[..., 0]
+        dxi_dT = _solve_small(jac, tau[..., None] * dr_dT)
         a = self.a(tau)
         T_in = a * T - xi @ self.J - self.b(tau)
         dTin = a - dxi_dT @ self.J
@@ -224,12 +276,18 @@ class Manifold:
 
     def max_heat_release(self) -> float:
         """Largest adiabatic temperature rise the feed can give, max J.xi over feasible extents [K]."""
-        return self._extreme_release(+1.0)
+        if self._release is None:
+            self._release = (self._extreme_release(+1.0), self._extreme_release(-1.0))
+        return self._release[0]
 
     def min_heat_release(self) -> float:
-        return self._extreme_release(-1.0)
+        self.max_heat_release()
+        return self._release[1]  # type: ignore[index]
 
     def _extreme_release(self, sign: float) -> float:
+        if self.m == 1:  # one reaction: the limiting reactant runs out
+            lim = getattr(self, "xi_max", 0.0)
+            return float(max(sign * self.J[0] * lim, 0.0) * sign)
         from scipy.optimize import linprog
 
         # maximise sign * J.xi subject to C_in + nu xi >= 0, xi >= 0
@@ -260,12 +318,46 @@ class Manifold:
             return self.explicit_eval(tau[:, None], s)
         inv = 1.0 / T_lo + (1.0 / T_hi - 1.0 / T_lo) * u
         Tg = np.broadcast_to(1.0 / inv, (tau.size, N))
-        xi = np.empty((tau.size, N, self.m))
+        # continuation in T on every 8th temperature, then all the others at once from interpolated guesses
+        coarse = np.unique(np.concatenate((np.arange(0, N, 8), [N - 1])))
+        xi_c = np.empty((tau.size, coarse.size, self.m))
         guess = None
-        for k in range(N):  # continuation in T: each column warm-starts from the previous temperature
-            guess = self.isothermal_extents(tau, Tg[:, k], guess)
-            xi[:, k] = guess
+        for k, kk in enumerate(coarse):
+            guess = self.isothermal_extents(tau, Tg[:, kk], guess)
+            xi_c[:, k] = guess
+        idx = np.searchsorted(coarse, np.arange(N), side="right") - 1
+        idx = np.clip(idx, 0, coarse.size - 1)
+        xi0 = xi_c[:, idx]
+        xi = self.isothermal_extents(np.broadcast_to(tau[:, None], (tau.size, N)), Tg, xi0)
         return self.general_eval(tau[:, None], Tg, xi)
+
+    def stability(self, tau: np.ndarray, T: np.ndarray, xi: np.ndarray) -> tuple[np.ndarray, np.ndarray,
+                                                                                    np.ndarray]:
+        """Vectorised stability on the manifold without eigenvalues where the size allows it.
+
+        Returns (stable, hopf, hopf_valid): ``hopf`` is a smooth function that changes sign where a complex
+        pair crosses the imaginary axis, meaningful where ``hopf_valid``. For 2x2 it is the trace (with a
+        positive determinant); for 3x3 it is minus the Hurwitz determinant :math:`c_2 c_1 - c_0` of the
+        characteristic polynomial :math:`\\lambda^3 + c_2\\lambda^2 + c_1\\lambda + c_0` (where its
+        discriminant is negative: one real root and a complex pair); larger systems use the leading real part of the eigenvalues.
+        """
+        if self.m == 1:
+            tr, det = self.trace_det(tau, T, xi)
+            return (tr < 0) & (det > 0), tr, det > 0
+        Jr = self.reduced_jacobian(tau, T, xi)
+        if self.m == 2:
+            c2 = -(Jr[..., 0, 0] + Jr[..., 1, 1] + Jr[..., 2, 2])
+            c1 = (Jr[..., 0, 0] * Jr[..., 1, 1] - Jr[..., 0, 1] * Jr[..., 1, 0]
+                  + Jr[..., 0, 0] * Jr[..., 2, 2] - Jr[..., 0, 2] * Jr[..., 2, 0]
+                  + Jr[..., 1, 1] * Jr[..., 2, 2] - Jr[..., 1, 2] * Jr[..., 2, 1])
+            c0 = -np.linalg.det(Jr)
+            # c2 c1 - c0 = -(l1 + l2)(l1 + l3)(l2 + l3): with a complex pair a +- iw and a real root l1 it is
+            # -2a((l1 + a)^2 + w^2), so its sign is minus that of the pair's real part
+            hurwitz = c2 * c1 - c0
+            disc = 18 * c2 * c1 * c0 - 4 * c2**3 * c0 + c2**2 * c1**2 - 4 * c1**3 - 27 * c0**2
+            return (c2 > 0) & (c1 > 0) & (c0 > 0) & (hurwitz > 0), -hurwitz, disc < 0
+        lead, cplx = self.leading_real_part(tau, T, xi)
+        return lead < 0, lead, cplx
 
     # -- stability on the manifold --------------------------------------------------------------------
     def reduced_jacobian(self, tau: np.ndarray, T: np.ndarray, xi: np.ndarray) -> np.ndarray:
@@ -285,17 +377,32 @@ class Manifold:
         out[..., m, m] = -self.a(tau) / tau + dr_dT @ self.J
         return out
 
+    def trace_det(self, tau: np.ndarray, T: np.ndarray, xi: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Trace and determinant of the 2x2 reduced Jacobian of one reaction, on the manifold, where the
+        rate is r = xi/tau exactly:
+
+        .. math:: \\alpha = r \\sum_i n_i \\nu_i / C_i, \\quad \\beta = r E/T^2, \\quad
+                  \\mathrm{tr} = \\alpha + J\\beta - (1 + a)/\\tau, \\quad
+                  \\det = (a - \\tau (J\\beta + a\\alpha))/\\tau^2
+        """
+        x = xi[..., 0]
+        r = x / tau
+        _, dlogg = self._g(x)
+        alpha = r * dlogg
+        beta = r * self.E[0] / (T * T)
+        a = self.a(tau)
+        Jb = self.J[0] * beta
+        return alpha + Jb - (1.0 + a) / tau, (a - tau * (Jb + a * alpha)) / (tau * tau)
+
     def leading_real_part(self, tau: np.ndarray, T: np.ndarray, xi: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """(max real part of the reduced eigenvalues [1/s], whether the leading pair is complex)."""
-        Jr = self.reduced_jacobian(tau, T, xi)
         if self.m == 1:
-            tr = Jr[..., 0, 0] + Jr[..., 1, 1]
-            det = Jr[..., 0, 0] * Jr[..., 1, 1] - Jr[..., 0, 1] * Jr[..., 1, 0]
+            tr, det = self.trace_det(tau, T, xi)
             disc = tr * tr - 4.0 * det
             sq = np.sqrt(np.abs(disc))
             lead = np.where(disc >= 0, 0.5 * (tr + sq), 0.5 * tr)
             return lead, disc < 0
-        ev = np.linalg.eigvals(Jr)
+        ev = np.linalg.eigvals(self.reduced_jacobian(tau, T, xi))
         idx = np.argmax(ev.real, axis=-1)
         lead = np.take_along_axis(ev, idx[..., None], axis=-1)[..., 0]
         return lead.real, np.abs(lead.imag) > 1e-12 * np.maximum(np.abs(lead.real), 1e-30)

@@ -65,13 +65,15 @@ def characteristic_slope(x: float, kind: str, rangeability: float) -> float:
     return 0.5 / np.sqrt(x) if x > 1e-12 else 0.5e6
 
 
-def inverse_characteristic(f: float, kind: str, rangeability: float) -> float:
-    """Opening x [-] giving f(x) = f; may fall outside 0..1 when the valve cannot pass the flow."""
+def inverse_characteristic(f, kind: str, rangeability: float):
+    """Opening x [-] giving f(x) = f (scalar or array); may fall outside 0..1 when the valve cannot pass
+    the flow."""
     if kind == LINEAR:
         return f
     if kind == EQUAL_PERCENTAGE:
-        return 1.0 + np.log(f) / np.log(rangeability) if f > 0 else -np.inf
-    return f * f
+        with np.errstate(divide="ignore"):
+            return 1.0 + np.log(np.maximum(f, 0.0)) / np.log(rangeability)
+    return np.square(f)
 
 
 def pressure_drop(sc: Scenario, h: float) -> float:
@@ -102,12 +104,13 @@ def flow_derivatives(sc: Scenario, h: float, x: float) -> tuple[float, float, fl
     return q, dq_dh, dq_dx
 
 
-def opening_for_flow(sc: Scenario, q: float, h: float | None = None) -> float:
-    """Opening [-] that passes q [m^3/s] at level h (default: the setpoint). May be > 1 (valve too small),
-    or nan when there is no driving pressure."""
+def opening_for_flow(sc: Scenario, q, h: float | None = None):
+    """Opening [-] that passes q [m^3/s] (scalar or array) at level h (default: the setpoint). May be > 1
+    (valve too small), or nan when there is no driving pressure."""
     h = sc.vessel.h_set if h is None else h
     dp = pressure_drop(sc, h)
     if dp <= 0.0:
-        return float("nan")
-    f_needed = q / (sc.valve.Kv / 3600.0 * np.sqrt(dp / 1e5 / (sc.rho / RHO0)))
-    return float(inverse_characteristic(f_needed, sc.valve.characteristic, sc.valve.rangeability))
+        return np.full(np.shape(q), np.nan) if np.ndim(q) else float("nan")
+    f_needed = np.asarray(q, dtype=float) / (sc.valve.Kv / 3600.0 * np.sqrt(dp / 1e5 / (sc.rho / RHO0)))
+    x = inverse_characteristic(f_needed, sc.valve.characteristic, sc.valve.rangeability)
+    return x if np.ndim(q) else float(x)

@@ -1,0 +1,459 @@
+"""The operating map: residence time against feed temperature, regions shaded, boundaries exact.
+
+Why it is fast: the feed temperature is explicit on the steady-state manifold, :math:`T_{in} = T_{in}(\\tau, s)`
+(``exomap.core.manifold``). So the map samples one curve per residence-time column (not per cell), splits it
+at its folds — the zeros of :math:`\\partial T_{in}/\\partial s`, refined by vectorised bisection to machine
+precision — into monotone pieces, and every cell's steady states are the pieces whose feed-temperature span
+contains the cell's feed temperature, located by one global ``searchsorted`` and polished by a Newton step.
+The cost is O(n_tau · N_samples + cells), all of it in numpy array operations.
+
+Boundaries are not read off the grid: ignition and extinction points are the refined folds of each column
+(plus the cusp where they meet, solved from :math:`\\partial_s T_{in} = \\partial_s^2 T_{in} = 0`), Hopf
+points are refined zeros of the leading real part of the reduced Jacobian where its leading pair is complex,
+and the max-temperature contour is :math:`T_{in}(\\tau, s(T_{max}))` where that state is stable.
+
+References
+----------
+[1] C. van Heerden, Ind. Eng. Chem. 45 (1953) 1242-1247 (multiplicity, ignition and extinction).
+[2] A. Uppal, W. H. Ray, A. B. Poore, Chem. Eng. Sci. 29 (1974) 967-985 (cusp and Hopf points of the CSTR).
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from scipy.optimize import fsolve
+
+from exomap.core import valve as valve_mod
+from exomap.core.errors import LimitExceededError, ModelInputError
+from exomap.core.manifold import Manifold, Samples
+from exomap.core.regions import CODE, REGIONS, legend
+from exomap.core.scenario import Scenario, validate
+
+#: Most cells one map may have (the web layer may set a lower limit).
+MAX_CELLS = 1_000_000
+#: Most points along one axis.
+MAX_POINTS = 2000
+#: Samples of the manifold per residence-time column (explicit one-reaction path, general path).
+SAMPLES_EXPLICIT = 256
+SAMPLES_GENERAL = 240
+#: Columns used for the boundary curves at least (more than the map's when the map is coarse).
+BOUNDARY_COLUMNS = 200
+SPACINGS = ("log", "linear")
+
+
+@dataclass(frozen=True)
+class MapResult:
+    """Operating map. Grids are indexed [feed temperature][residence time]."""
+
+    tau: np.ndarray
+    T_in: np.ndarray
+    region: np.ndarray
+    state_count: np.ndarray
+    max_temperature: np.ndarray
+    valve_opening: np.ndarray
+    valve_limited: np.ndarray
+    boundaries: dict
+    T_max: float
+    spacing: str
+    success: bool
+    message: str
+
+    def to_dict(self) -> dict:
+        def clean(rows: np.ndarray) -> list:
+            return [[None if not math.isfinite(v) else round(float(v), 4) for v in row] for row in rows]
+
+        def curve(arr: np.ndarray) -> list:
+            return [[None if not math.isfinite(v) else float(v) for v in row] for row in arr]
+
+        b = self.boundaries
+        return {
+            "residence_time_s": self.tau.tolist(),
+            "feed_temperature_K": self.T_in.tolist(),
+            "spacing": self.spacing,
+            "region": self.region.tolist(),
+            "legend": legend(),
+            "state_count": self.state_count.tolist(),
+            "max_temperature_K": clean(self.max_temperature),
+            "limit_temperature_K": self.T_max,
+            "valve_opening": [None if not math.isfinite(v) else float(v) for v in self.valve_opening],
+            "valve_limited": np.broadcast_to(self.valve_limited, self.region.shape).tolist(),
+            "boundaries": {
+                "ignition": curve(b["ignition"]),
+                "extinction": curve(b["extinction"]),
+                "hopf": curve(b["hopf"]),
+                "max_temperature": curve(b["max_temperature"]),
+                "cusp": curve(b["cusp"]),
+            },
+            "success": self.success,
+            "message": self.message,
+        }
+
+    def to_csv(self) -> str:
+        keys = {code: key for code, key, _ in REGIONS}
+        out = io.StringIO()
+        w = csv.writer(out, lineterminator="\n")
+        w.writerow(["residence_time_s", "feed_temperature_K", "region", "state_count", "max_temperature_K",
+                    "valve_limited"])
+        for i, T_in in enumerate(self.T_in):
+            for j, tau in enumerate(self.tau):
+                mt = self.max_temperature[i, j]
+                w.writerow([f"{tau:.6g}", f"{T_in:.6g}", keys[int(self.region[i, j])], int(self.state_count[i, j]),
+                            "" if not math.isfinite(mt) else f"{mt:.4f}", int(bool(self.valve_limited[j]))])
+        return out.getvalue()
+
+
+def _grid_args(sc: Scenario, tau_range, T_in_range, points, spacing):
+    if spacing not in SPACINGS:
+        raise ModelInputError("spacing must be 'log' or 'linear'", field="spacing")
+    spec = sc.map
+    if tau_range is None:
+        tau_range = spec.tau_range if spec else (sc.tau_nominal / 10.0, sc.tau_nominal * 10.0)
+    if T_in_range is None:
+        T_in_range = spec.T_in_range if spec else (sc.T_in - 40.0, sc.T_in + 40.0)
+    if points is None:
+        points = spec.points if spec else (200, 200)
+    lo, hi = (float(v) for v in tau_range)
+    if not (math.isfinite(lo) and math.isfinite(hi) and 0 < lo < hi):
+        raise ModelInputError("residence_time range must be two increasing positive values in s",
+                              field="residence_time")
+    tlo, thi = (float(v) for v in T_in_range)
+    if not (math.isfinite(tlo) and math.isfinite(thi) and 0 < tlo < thi):
+        raise ModelInputError("feed_temperature range must be two increasing absolute temperatures in K",
+                              field="feed_temperature")
+    n_tau, n_tin = (int(v) for v in points)
+    if n_tau < 2 or n_tin < 2:
+        raise ModelInputError("points must be at least 2 along each axis", field="points")
+    if n_tau > MAX_POINTS or n_tin > MAX_POINTS or n_tau * n_tin > MAX_CELLS:
+        raise LimitExceededError(
+            f"{n_tau} x {n_tin} cells is more than the limit ({MAX_CELLS} cells, {MAX_POINTS} per axis)",
+            field="points")
+    tau = np.geomspace(lo, hi, n_tau) if spacing == "log" else np.linspace(lo, hi, n_tau)
+    return tau, np.linspace(tlo, thi, n_tin)
+
+
+def _refine(mf: Manifold, tau: np.ndarray, a: np.ndarray, b: np.ndarray, fa: np.ndarray, func,
+            xi_a: np.ndarray | None, iterations: int = 60) -> tuple[np.ndarray, Samples]:
+    """Vectorised root of func(Samples) bracketed by coordinates a and b, by the Illinois variant of the
+    false-position method (superlinear, never leaves the bracket), to machine precision."""
+    fb = func(_eval(mf, tau, b, xi_a))
+    fa = np.asarray(fa, dtype=float).copy()
+    a, b = a.astype(float).copy(), b.astype(float).copy()
+    xi_guess = xi_a
+    side = np.zeros(a.shape)
+    c_prev = np.full(a.shape, np.nan)
+    for _ in range(iterations):
+        with np.errstate(invalid="ignore", divide="ignore"):
+            c = (a * fb - b * fa) / (fb - fa)
+        c = np.where(np.isfinite(c) & (c > np.minimum(a, b)) & (c < np.maximum(a, b)), c, 0.5 * (a + b))
+        e = _eval(mf, tau, c, xi_guess)
+        fc = func(e)
+        left = np.sign(fc) == np.sign(fa)
+        # Illinois: halve the weight of the end that stays twice in a row
+        a, fa, b, fb = (np.where(left, c, a), np.where(left, fc, fa), np.where(left, b, c), np.where(left, fb, fc))
+        fb = np.where(left & (side > 0), 0.5 * fb, fb)
+        fa = np.where(~left & (side < 0), 0.5 * fa, fa)
+        side = np.where(left, 1.0, -1.0)
+        if xi_guess is not None:
+            xi_guess = e.xi
+        if np.all((np.abs(b - a) <= 4e-16 * np.maximum(np.abs(a), np.abs(b))) | (fc == 0)
+                  | (np.abs(c - c_prev) <= 1e-15 * np.abs(c))):
+            break
+        c_prev = c
+    return c, _eval(mf, tau, c, xi_guess)
+
+
+def _eval(mf: Manifold, tau: np.ndarray, s: np.ndarray, xi_guess: np.ndarray | None) -> Samples:
+    if mf.explicit:
+        return mf.explicit_eval(tau, s)
+    xi = mf.isothermal_extents(tau, s, xi_guess)
+    return mf.general_eval(tau, s, xi)
+
+
+def _hopf_function(mf: Manifold, e: Samples) -> np.ndarray:
+    return mf.stability(e.tau, e.T, e.xi)[1]
+
+
+def operating_map(sc: Scenario, *, tau_range: tuple[float, float] | None = None,
+                  T_in_range: tuple[float, float] | None = None, points: tuple[int, int] | None = None,
+                  spacing: str = "log", c_in: tuple[float, ...] | None = None, T_c: float | None = None,
+                  samples: int | None = None) -> MapResult:
+    """The operating map of a scenario.
+
+    Parameters
+    ----------
+    sc : Scenario
+    tau_range : (float, float), optional
+        Residence-time window [s]; default the scenario's map window.
+    T_in_range : (float, float), optional
+        Feed-temperature window [K].
+    points : (int, int), optional
+        (n_tau, n_tin) grid points [-].
+    spacing : str
+        ``"log"`` or ``"linear"`` spacing of the residence time.
+    c_in, T_c : optional
+        Feed concentrations [mol/m^3] and coolant temperature [K] overriding the scenario's.
+
+    Returns
+    -------
+    MapResult
+
+    Raises
+    ------
+    ModelInputError
+        Inverted or non-positive ranges, fewer than 2 points.
+    LimitExceededError
+        More cells than ``MAX_CELLS``.
+    """
+    validate(sc)
+    tau, T_in = _grid_args(sc, tau_range, T_in_range, points, spacing)
+    mf = Manifold(sc, c_in=c_in, T_c=T_c)
+    N = samples or (SAMPLES_EXPLICIT if mf.explicit else SAMPLES_GENERAL)
+    T_lo, T_hi = mf.temperature_window(float(T_in[0]), float(T_in[-1]), float(tau[-1]))
+    smp = mf.sample(tau, T_lo, T_hi, N)
+    cols = _columns(mf, smp)
+    states = _cell_states(mf, smp, cols, T_in)
+    region, count, tmax = _classify(sc, states)
+    opening = valve_mod.opening_for_flow(sc, sc.vessel.V_set / tau)
+    pol = sc.policy
+    limited = ~((opening >= pol.valve_min) & (opening <= pol.valve_max))
+    if tau.size >= BOUNDARY_COLUMNS:
+        bcols, btau = cols, tau
+    else:
+        btau = np.geomspace(tau[0], tau[-1], BOUNDARY_COLUMNS) if spacing == "log" else np.linspace(
+            tau[0], tau[-1], BOUNDARY_COLUMNS)
+        bcols = _columns(mf, mf.sample(btau, T_lo, T_hi, N))
+    boundaries = _boundaries(sc, mf, btau, bcols, float(T_in[0]), float(T_in[-1]))
+    return MapResult(tau, T_in, region, count, tmax, opening, limited, boundaries, sc.limits.T_max, spacing,
+                     True, f"{tau.size} x {T_in.size} cells, {N} samples per column")
+
+
+# -- per column: folds and monotone pieces ----------------------------------------------------------------
+@dataclass
+class _Columns:
+    smp: Samples
+    fold_col: np.ndarray  # column of each fold
+    fold_k: np.ndarray  # fold lies between samples k and k+1
+    fold: Samples  # refined fold points (1-D arrays)
+    lead: np.ndarray  # a function changing sign at Hopf points, on the samples (Manifold.stability)
+    cplx: np.ndarray  # where it is meaningful
+
+
+def _columns(mf: Manifold, smp: Samples) -> _Columns:
+    d = smp.dTin_ds
+    sign_change = (d[:, :-1] * d[:, 1:]) < 0
+    c, k = np.nonzero(sign_change)
+    xi0 = None if mf.explicit else smp.xi[c, k]
+    s_f, fold = _refine(mf, smp.tau[c, k], smp.s[c, k], smp.s[c, k + 1],
+                        d[c, k], lambda e: e.dTin_ds, xi0)
+    _, hopf, valid = mf.stability(smp.tau, smp.T, smp.xi)
+    return _Columns(smp, c, k, fold, hopf, valid)
+
+
+def _cell_states(mf: Manifold, smp: Samples, cols: _Columns, T_in: np.ndarray) -> dict:
+    """Every steady state of every cell, as dense arrays (n_tin, n_tau, S) with a presence mask."""
+    n_tau, N = smp.s.shape
+    n_tin = T_in.size
+    n_f = np.bincount(cols.fold_col, minlength=n_tau)
+    S = int(n_f.max()) + 1 if n_f.size else 1
+    # layout: 3 slots per sample (the sample, a fold as end of a piece, the fold as start of the next piece);
+    # without a fold the two extra slots repeat the sample, which keeps every piece monotone
+    s3 = np.repeat(smp.s, 3, axis=1)
+    v3 = np.repeat(smp.T_in, 3, axis=1)
+    first_idx = np.zeros((n_tau, S), dtype=np.int64)
+    has = np.zeros((n_tau, S), dtype=bool)
+    has[:, 0] = True
+    seg_step = np.zeros((n_tau, 3 * N), dtype=np.int64)
+    if cols.fold_col.size:
+        order = np.lexsort((cols.fold_k, cols.fold_col))
+        fc, fk = cols.fold_col[order], cols.fold_k[order]
+        fs, fv = cols.fold.s[order], cols.fold.T_in[order]
+        for slot in (1, 2):
+            s3[fc, 3 * fk + slot] = fs
+            v3[fc, 3 * fk + slot] = fv
+        seg_step[fc, 3 * fk + 2] = 1
+        rank = np.arange(fc.size) - np.searchsorted(fc, fc)
+        first_idx[fc, rank + 1] = 3 * fk + 2
+        has[fc, rank + 1] = True
+    seg = np.cumsum(seg_step, axis=1)
+    d3 = np.repeat(smp.dTin_ds, 3, axis=1)
+    d_first = np.take_along_axis(d3, np.minimum(first_idx + 1, 3 * N - 1), axis=1)
+    direction = np.where(d_first >= 0, 1.0, -1.0)
+    # span of each piece (pieces are contiguous runs of the flattened layout)
+    c_has, p_has = np.nonzero(has)
+    starts = c_has * 3 * N + first_idx[c_has, p_has]
+    flat_v = v3.ravel()
+    vmin = np.full((n_tau, S), np.inf)
+    vmax = np.full((n_tau, S), -np.inf)
+    vmin[c_has, p_has] = np.minimum.reduceat(flat_v, starts)
+    vmax[c_has, p_has] = np.maximum.reduceat(flat_v, starts)
+    span = float(np.nanmax(np.abs(flat_v))) * 4.0 + 1.0
+    gid = np.arange(n_tau)[:, None] * S + seg
+    key = (np.take_along_axis(direction, seg, axis=1) * v3 + span * gid).ravel()
+    # which (row, column, piece) hold a state: the piece's span contains the row's feed temperature
+    present = has[None] & (T_in[:, None, None] >= vmin[None]) & (T_in[:, None, None] <= vmax[None])
+    ri, ci, pi = np.nonzero(present)
+    v = T_in[ri]
+    q = direction[ci, pi] * v + span * (ci * S + pi)
+    pos = np.searchsorted(key, q, side="left")
+    lo_pos = ci * 3 * N + first_idx[ci, pi] + 1
+    pos = np.clip(pos, lo_pos, ci * 3 * N + 3 * N - 1)
+    k0, k1 = pos - 1, pos
+    ka, kb = key[k0], key[k1]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        w = np.where(kb > ka, (q - ka) / (kb - ka), 0.0)
+    w = np.clip(w, 0.0, 1.0)
+    s_flat = s3.ravel()
+    ss = s_flat[k0] + w * (s_flat[k1] - s_flat[k0])
+    lo_b = np.minimum(s_flat[k0], s_flat[k1])
+    hi_b = np.maximum(s_flat[k0], s_flat[k1])
+    ts = smp.tau[ci, 0]
+    xi_g = None
+    if not mf.explicit:
+        xi_flat = np.repeat(smp.xi, 3, axis=1).reshape(-1, mf.m)
+        xi_g = xi_flat[k0]
+    # polish: a Newton step on T_in(s) = value, kept inside the bracket; stability and slope are taken at
+    # the polished point (explicit path) or at the point before the last step (general path, which would
+    # need one more isothermal solve; the step there is far below the sample spacing)
+    e = _eval(mf, ts, ss, xi_g)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        step = (e.T_in - v) / e.dTin_ds
+    ss = np.clip(ss - np.where(np.isfinite(step), step, 0.0), lo_b, hi_b)
+    if mf.explicit:
+        e = mf.explicit_eval(ts, ss)
+    stable_s, _, _ = mf.stability(e.tau, e.T, e.xi)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        sens = e.dT_ds / e.dTin_ds
+    T_state = e.T if mf.explicit else ss
+    shape = (n_tin, n_tau, S)
+    T = np.full(shape, np.nan)
+    stable = np.zeros(shape, dtype=bool)
+    sensitivity = np.full(shape, np.nan)
+    T[ri, ci, pi] = T_state
+    stable[ri, ci, pi] = stable_s
+    sensitivity[ri, ci, pi] = sens
+    return {"present": present, "T": T, "stable": stable, "sensitivity": sensitivity}
+
+
+def _classify(sc: Scenario, st: dict) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    present, T, stable, sens = st["present"], st["T"], st["stable"], st["sensitivity"]
+    count = present.sum(axis=2)
+    reach = present & stable
+    n_stable = reach.sum(axis=2)
+    tmax = np.where(reach, T, -np.inf).max(axis=2)
+    tmax = np.where(n_stable > 0, tmax, np.nan)
+    single_sens = np.where(reach, np.abs(sens), 0.0).max(axis=2)
+    region = np.full(count.shape, CODE["stable"], dtype=np.int8)
+    region = np.where((count == 1) & (single_sens > sc.policy.sensitivity), CODE["sensitive"], region)
+    region = np.where(count > 1, CODE["multiple"], region)
+    region = np.where(n_stable == 0, CODE["unstable"], region)
+    region = np.where(n_stable > 0, np.where(tmax > sc.limits.T_max, CODE["runaway"], region), region)
+    return region.astype(np.int8), count.astype(np.int16), tmax
+
+
+# -- boundaries -------------------------------------------------------------------------------------------
+def _boundaries(sc: Scenario, mf: Manifold, tau: np.ndarray, cols: _Columns, tin_lo: float, tin_hi: float) -> dict:
+    f = cols.fold
+    ftau = tau[cols.fold_col]
+    inside = (f.T_in >= tin_lo) & (f.T_in <= tin_hi)
+    # ignition: a local maximum of T_in(s) (dT_in/ds goes from + to -)
+    d_before = cols.smp.dTin_ds[cols.fold_col, cols.fold_k]
+    kind_ign = d_before > 0
+    cusps = _cusps(mf, tau, cols)
+    order = np.argsort(f.T)
+    ign = [(ftau[i], f.T_in[i], f.T[i]) for i in order if kind_ign[i] and inside[i]]
+    ext = [(ftau[i], f.T_in[i], f.T[i]) for i in order if not kind_ign[i] and inside[i]]
+    cusp_rows = [c for c in cusps if tin_lo <= c[1] <= tin_hi]
+    if cusp_rows:  # the two curves meet at the cusp: draw them through it
+        ign = ign + [cusp_rows[0]]
+        ext = [cusp_rows[0]] + ext
+    hopf = _hopf(mf, tau, cols, tin_lo, tin_hi)
+    tmax_curve = _max_temperature_curve(sc, mf, tau, tin_lo, tin_hi)
+
+    def arr(rows: list, width: int = 2) -> np.ndarray:
+        return np.array([r[:width] for r in rows], dtype=float).reshape(-1, width)
+
+    return {"ignition": arr(ign), "extinction": arr(ext), "hopf": arr(hopf), "max_temperature": tmax_curve,
+            "cusp": arr(cusp_rows, 3)}
+
+
+def _cusps(mf: Manifold, tau: np.ndarray, cols: _Columns) -> list[tuple[float, float, float]]:
+    """Cusps between columns where the number of folds changes by two."""
+    n_tau = tau.size
+    n_f = np.bincount(cols.fold_col, minlength=n_tau)
+    out = []
+    for j in np.nonzero(np.diff(n_f) != 0)[0]:
+        c = j if n_f[j] > n_f[j + 1] else j + 1  # the column that has the fold pair
+        idx = np.nonzero(cols.fold_col == c)[0]
+        if idx.size < 2:
+            continue
+        # the pair closest together is the one being born at the cusp
+        s = cols.fold.s[idx]
+        pair = np.argmin(np.diff(np.sort(s)))
+        s0 = 0.5 * (np.sort(s)[pair] + np.sort(s)[pair + 1])
+        other = j + 1 if c == j else j
+        x0 = 0.5 * (math.log(tau[c]) + math.log(tau[other]))
+        res = _solve_cusp(mf, x0, float(s0), float(s[np.argsort(s)][pair + 1] - s[np.argsort(s)][pair]))
+        if res is not None:
+            out.append(res)
+    return out
+
+
+def _solve_cusp(mf: Manifold, x0: float, s0: float, ds: float) -> tuple[float, float, float] | None:
+    scale_s = max(abs(ds), 1e-9 * max(abs(s0), 1e-300))
+
+    def d1(x: float, s: float) -> float:
+        return float(mf.evaluate(np.array([math.exp(x)]), np.array([s])).dTin_ds[0])
+
+    def eqs(v: np.ndarray) -> list[float]:
+        x, s = float(v[0]), s0 + float(v[1]) * scale_s
+        h = 1e-4 * scale_s
+        return [d1(x, s), (d1(x, s + h) - d1(x, s - h)) / (2 * h) * scale_s]
+
+    sol, _, ier, _ = fsolve(eqs, [x0, 0.0], full_output=True, xtol=1e-13)
+    if ier != 1:
+        return None
+    tau_c, s_c = math.exp(float(sol[0])), s0 + float(sol[1]) * scale_s
+    e = mf.evaluate(np.array([tau_c]), np.array([s_c]))
+    if not np.isfinite(e.T_in[0]):
+        return None
+    return (tau_c, float(e.T_in[0]), float(e.T[0]))
+
+
+def _hopf(mf: Manifold, tau: np.ndarray, cols: _Columns, tin_lo: float, tin_hi: float) -> list:
+    lead, cplx, smp = cols.lead, cols.cplx, cols.smp
+    ch = cplx[:, :-1] & cplx[:, 1:] & ((lead[:, :-1] * lead[:, 1:]) < 0)
+    c, k = np.nonzero(ch)
+    if c.size == 0:
+        return []
+    xi0 = None if mf.explicit else smp.xi[c, k]
+    _, e = _refine(mf, tau[c], smp.s[c, k], smp.s[c, k + 1], lead[c, k], lambda e: _hopf_function(mf, e), xi0)
+    rows = [(tau[c[i]], e.T_in[i], e.T[i]) for i in np.argsort(e.T) if tin_lo <= e.T_in[i] <= tin_hi]
+    return rows
+
+
+def _max_temperature_curve(sc: Scenario, mf: Manifold, tau: np.ndarray, tin_lo: float, tin_hi: float) -> np.ndarray:
+    """Points (tau, T_in) where a steady state sits exactly at the maximum temperature and is stable; rows of
+    NaN separate pieces."""
+    T_max = sc.limits.T_max
+    Tm = np.full(tau.shape, T_max)
+    if mf.explicit:
+        xi = mf.explicit_xi_at_T(tau, Tm)
+        e = mf.explicit_eval(tau, xi)
+    else:
+        e = mf.general_eval(tau, Tm)
+    stable_s, _, _ = mf.stability(e.tau, e.T, e.xi)
+    ok = stable_s & np.isfinite(e.T_in) & (e.T_in >= tin_lo) & (e.T_in <= tin_hi)
+    rows = []
+    for i in range(tau.size):
+        if ok[i]:
+            rows.append((tau[i], e.T_in[i]))
+        elif rows and math.isfinite(rows[-1][0]):
+            rows.append((math.nan, math.nan))
+    while rows and not math.isfinite(rows[-1][0]):
+        rows.pop()
+    return np.array(rows, dtype=float).reshape(-1, 2)
