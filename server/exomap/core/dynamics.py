@@ -1,8 +1,9 @@
 """Dynamic simulation of the tank: stiff integration between events, with alarms and clean stops.
 
 ``simulate()`` integrates the full model of ``exomap.core.model`` (level, concentrations, temperature and the
-level controller's integral) piecewise between the events of ``exomap.core.events``, with scipy's BDF method
-and the model's analytic Jacobian. Inside each piece the inputs are constant, or move linearly during a ramp.
+level controller's integral) piecewise between the events of ``exomap.core.events`` with a stiff integrator
+and the model's analytic Jacobian: LSODA by default (it switches between Adams and BDF formulas as the run
+stiffens), or scipy's BDF or Radau. Inside each piece the inputs are constant, or move linearly during a ramp.
 
 Notes
 -----
@@ -42,6 +43,7 @@ EMPTY_FRACTION = 0.01
 #: Starting level of an ``empty`` start, as a fraction of the set level [-].
 EMPTY_START_FRACTION = 0.05
 STARTS = ("low", "middle", "high", "cold", "empty")
+METHODS = ("LSODA", "BDF", "Radau", "RK45")
 #: Restarts of a piece allowed after the integrator hits the floating-point spacing of its time variable.
 MAX_RESTARTS = 20
 #: Default number of recorded intervals when ``record_every`` is not given.
@@ -472,6 +474,7 @@ def simulate(
     max_step: float | None = None,
     record_every: float | None = None,
     rtol: float = 1e-6,
+    method: str = "LSODA",
 ) -> SimulationResult:
     """Simulate the tank from a starting state through a list of events.
 
@@ -508,6 +511,10 @@ def simulate(
         peak and the end are recorded as well.
     rtol : float
         Relative tolerance of the integrator [-]; absolute tolerances are this times each state's scale.
+    method : str
+        ``LSODA`` (default), ``BDF`` or ``Radau``, which use the analytic Jacobian, or ``RK45``, scipy's
+        default explicit method without a Jacobian (kept as the baseline of the benchmarks; slow on stiff
+        runs).
 
     Returns
     -------
@@ -522,9 +529,11 @@ def simulate(
 
     Notes
     -----
-    BDF (scipy.integrate.solve_ivp) with the analytic Jacobian: the model is stiff near an empty tank and at
-    high reaction rates. Inputs are rebuilt at the start of each piece, so the solver never steps across a
-    discontinuity.
+    The model is stiff near an empty tank and at high reaction rates, so an implicit method with the analytic
+    Jacobian is used. LSODA [2] is the default because its steps run in compiled code: on the demo scenarios it
+    took about half the time of scipy's pure-Python BDF [1] at the same tolerance, with the same answers to
+    that tolerance (the tests run both). Inputs are rebuilt at the start of each piece, so the solver never
+    steps across a discontinuity; each piece runs in its own local time.
 
     Examples
     --------
@@ -534,6 +543,8 @@ def simulate(
     ----------
     [1] L. F. Shampine, M. W. Reichelt, "The MATLAB ODE Suite", SIAM J. Sci. Comput. 18 (1997) 1-22 (the NDF/BDF
         scheme scipy's BDF implements).
+    [2] L. R. Petzold, "Automatic selection of methods for solving stiff and nonstiff systems of ordinary
+        differential equations", SIAM J. Sci. Stat. Comput. 4 (1983) 136-148 (LSODA).
     """
     validate(sc)
     duration = _positive(duration, "duration", "s")
@@ -542,6 +553,8 @@ def simulate(
     if record_every is not None:
         record_every = _positive(record_every, "record_every", "s")
     rtol = _positive(rtol, "rtol", "-")
+    if method not in METHODS:
+        raise ModelInputError(f"method must be one of {', '.join(METHODS)}, got {method!r}", field="method")
     if tau is not None:
         tau = _positive(tau, "residence_time", "s")
     if T_in is not None:
@@ -628,7 +641,7 @@ def simulate(
     rec_q: list[np.ndarray] = []
     rec_x: list[np.ndarray] = []
     applied: list[dict[str, Any]] = []
-    stats = {"nfev": 0, "njev": 0, "nlu": 0, "pieces": 0}
+    stats = {"nfev": 0, "njev": 0, "nlu": 0, "steps": 0, "pieces": 0}
     peak_T, peak_t = float(y0[iT]), 0.0
 
     t = 0.0
@@ -655,21 +668,23 @@ def simulate(
 
             fun, jac = _piece_functions(model, plant, t0, u_const if not ramping else None)
 
+            implicit = {"jac": jac} if method != "RK45" else {}
             sol = solve_ivp(
                 fun,
                 (0.0, t_next - t0),
                 y,
-                method="BDF",
-                jac=jac,
+                method=method,
+                **implicit,
                 rtol=rtol,
                 atol=atol,
                 events=ivp_events,
                 dense_output=True,
                 max_step=max_step if max_step is not None else math.inf,
             )
-            stats["nfev"] += sol.nfev
-            stats["njev"] += sol.njev
-            stats["nlu"] += sol.nlu
+            stats["nfev"] += int(sol.nfev)
+            stats["njev"] += int(sol.njev)
+            stats["nlu"] += int(sol.nlu)
+            stats["steps"] += max(sol.t.size - 1, 0)
             stats["pieces"] += 1
             failed = sol.status == -1
             if failed and (sol.t.size < 2 or sol.t[-1] <= 0.0 or retries >= MAX_RESTARTS):
