@@ -26,7 +26,7 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.optimize import fsolve
+from scipy.optimize import brentq
 
 from exomap.core import valve as valve_mod
 from exomap.core.errors import LimitExceededError, ModelInputError
@@ -239,19 +239,55 @@ class _Columns:
     fold_col: np.ndarray  # column of each fold
     fold_k: np.ndarray  # fold lies between samples k and k+1
     fold: Samples  # refined fold points (1-D arrays)
+    rising: np.ndarray  # dT_in/ds > 0 before the fold: a local maximum of T_in(s), an ignition point
     lead: np.ndarray  # a function changing sign at Hopf points, on the samples (Manifold.stability)
     cplx: np.ndarray  # where it is meaningful
 
 
-def _columns(mf: Manifold, smp: Samples) -> _Columns:
+def _unhide_fold_pairs(mf: Manifold, smp: Samples) -> Samples:
+    """A fold pair closer together than one sample (next to a cusp) shows no sign change of dT_in/ds. Look
+    inside every local minimum of |dT_in/ds| for an extremum of the other sign, and move that sample onto the
+    extremum, so that the sign-change search below sees both folds."""
     d = smp.dTin_ds
-    sign_change = (d[:, :-1] * d[:, 1:]) < 0
-    c, k = np.nonzero(sign_change)
+    mag = np.abs(d)
+    sc = (d[:, :-1] * d[:, 1:]) < 0
+    dip = np.zeros(d.shape, dtype=bool)
+    dip[:, 1:-1] = (mag[:, 1:-1] < mag[:, :-2]) & (mag[:, 1:-1] < mag[:, 2:]) & ~sc[:, :-1] & ~sc[:, 1:]
+    dc, dk = np.nonzero(dip)
+    if dc.size == 0:
+        return smp
+    sgn = np.sign(d[dc, dk])
+    tau_d = smp.tau[dc, dk]
+    lo, hi = smp.s[dc, dk - 1], smp.s[dc, dk + 1]
+    xi_d = None if mf.explicit else smp.xi[dc, dk]
+    for _ in range(60):  # golden-section search for the extremum of sign * dT_in/ds
+        m1 = hi - 0.618033988749895 * (hi - lo)
+        m2 = lo + 0.618033988749895 * (hi - lo)
+        f1 = sgn * _eval(mf, tau_d, m1, xi_d).dTin_ds
+        f2 = sgn * _eval(mf, tau_d, m2, xi_d).dTin_ds
+        lo, hi = np.where(f1 < f2, lo, m1), np.where(f1 < f2, m2, hi)
+    s_ext = 0.5 * (lo + hi)
+    e = _eval(mf, tau_d, s_ext, xi_d)
+    hidden = sgn * e.dTin_ds < 0
+    if not hidden.any():
+        return smp
+    hc, hk = dc[hidden], dk[hidden]
+    fields = {}
+    for name in ("s", "T", "xi", "T_in", "dTin_ds", "dT_ds", "valid"):
+        arr = np.array(getattr(smp, name), copy=True)
+        arr[hc, hk] = getattr(e, name)[hidden]
+        fields[name] = arr
+    return Samples(tau=smp.tau, **fields)
+
+
+def _columns(mf: Manifold, smp: Samples) -> _Columns:
+    smp = _unhide_fold_pairs(mf, smp)
+    d = smp.dTin_ds
+    c, k = np.nonzero((d[:, :-1] * d[:, 1:]) < 0)
     xi0 = None if mf.explicit else smp.xi[c, k]
-    s_f, fold = _refine(mf, smp.tau[c, k], smp.s[c, k], smp.s[c, k + 1],
-                        d[c, k], lambda e: e.dTin_ds, xi0)
+    _, fold = _refine(mf, smp.tau[c, k], smp.s[c, k], smp.s[c, k + 1], d[c, k], lambda e: e.dTin_ds, xi0)
     _, hopf, valid = mf.stability(smp.tau, smp.T, smp.xi)
-    return _Columns(smp, c, k, fold, hopf, valid)
+    return _Columns(smp, c, k, fold, d[c, k] > 0, hopf, valid)
 
 
 def _cell_states(mf: Manifold, smp: Samples, cols: _Columns, T_in: np.ndarray) -> dict:
@@ -319,10 +355,11 @@ def _cell_states(mf: Manifold, smp: Samples, cols: _Columns, T_in: np.ndarray) -
     # polish: a Newton step on T_in(s) = value, kept inside the bracket; stability and slope are taken at
     # the polished point (explicit path) or at the point before the last step (general path, which would
     # need one more isothermal solve; the step there is far below the sample spacing)
-    e = _eval(mf, ts, ss, xi_g)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        step = (e.T_in - v) / e.dTin_ds
-    ss = np.clip(ss - np.where(np.isfinite(step), step, 0.0), lo_b, hi_b)
+    for _ in range(2 if mf.explicit else 1):
+        e = _eval(mf, ts, ss, xi_g)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            step = (e.T_in - v) / e.dTin_ds
+        ss = np.clip(ss - np.where(np.isfinite(step), step, 0.0), lo_b, hi_b)
     if mf.explicit:
         e = mf.explicit_eval(ts, ss)
     stable_s, _, _ = mf.stability(e.tau, e.T, e.xi)
@@ -361,8 +398,7 @@ def _boundaries(sc: Scenario, mf: Manifold, tau: np.ndarray, cols: _Columns, tin
     ftau = tau[cols.fold_col]
     inside = (f.T_in >= tin_lo) & (f.T_in <= tin_hi)
     # ignition: a local maximum of T_in(s) (dT_in/ds goes from + to -)
-    d_before = cols.smp.dTin_ds[cols.fold_col, cols.fold_k]
-    kind_ign = d_before > 0
+    kind_ign = cols.rising
     cusps = _cusps(mf, tau, cols)
     order = np.argsort(f.T)
     ign = [(ftau[i], f.T_in[i], f.T[i]) for i in order if kind_ign[i] and inside[i]]
@@ -382,46 +418,63 @@ def _boundaries(sc: Scenario, mf: Manifold, tau: np.ndarray, cols: _Columns, tin
 
 
 def _cusps(mf: Manifold, tau: np.ndarray, cols: _Columns) -> list[tuple[float, float, float]]:
-    """Cusps between columns where the number of folds changes by two."""
-    n_tau = tau.size
-    n_f = np.bincount(cols.fold_col, minlength=n_tau)
-    out = []
+    """Cusps between neighbouring columns whose number of folds differs: the fold pair is born there."""
+    n_f = np.bincount(cols.fold_col, minlength=tau.size)
+    out: list[tuple[float, float, float]] = []
     for j in np.nonzero(np.diff(n_f) != 0)[0]:
         c = j if n_f[j] > n_f[j + 1] else j + 1  # the column that has the fold pair
         idx = np.nonzero(cols.fold_col == c)[0]
         if idx.size < 2:
             continue
-        # the pair closest together is the one being born at the cusp
-        s = cols.fold.s[idx]
-        pair = np.argmin(np.diff(np.sort(s)))
-        s0 = 0.5 * (np.sort(s)[pair] + np.sort(s)[pair + 1])
-        other = j + 1 if c == j else j
-        x0 = 0.5 * (math.log(tau[c]) + math.log(tau[other]))
-        res = _solve_cusp(mf, x0, float(s0), float(s[np.argsort(s)][pair + 1] - s[np.argsort(s)][pair]))
-        if res is not None:
+        s = np.sort(cols.fold.s[idx])
+        pair = int(np.argmin(np.diff(s)))  # the pair closest together is the one being born
+        width = s[pair + 1] - s[pair]
+        s_lo, s_hi = s[pair] - 2 * width, s[pair + 1] + 2 * width
+        if mf.explicit:
+            s_lo, s_hi = max(s_lo, 1e-300), min(s_hi, mf.xi_max * (1 - 1e-15))
+        res = _solve_cusp(mf, math.log(tau[c]), math.log(tau[j + 1 if c == j else j]), s_lo, s_hi)
+        if res is not None and not any(abs(res[0] - r[0]) <= 1e-9 * r[0] and abs(res[1] - r[1]) <= 1e-9 * r[1]
+                                       for r in out):
             out.append(res)
     return out
 
 
-def _solve_cusp(mf: Manifold, x0: float, s0: float, ds: float) -> tuple[float, float, float] | None:
-    scale_s = max(abs(ds), 1e-9 * max(abs(s0), 1e-300))
+def _solve_cusp(mf: Manifold, x_fold: float, x_none: float, s_lo: float, s_hi: float
+                ) -> tuple[float, float, float] | None:
+    """Cusp between ln(tau) = x_fold (a fold pair) and x_none (none): at fixed tau the extremum of
+    dT_in/ds over s touches zero. Nested one-dimensional solves: golden-section search for the extremum in s,
+    Brent's method in ln(tau) for its value."""
 
     def d1(x: float, s: float) -> float:
         return float(mf.evaluate(np.array([math.exp(x)]), np.array([s])).dTin_ds[0])
 
-    def eqs(v: np.ndarray) -> list[float]:
-        x, s = float(v[0]), s0 + float(v[1]) * scale_s
-        h = 1e-4 * scale_s
-        return [d1(x, s), (d1(x, s + h) - d1(x, s - h)) / (2 * h) * scale_s]
+    # the sign dT_in/ds keeps across the window where there is no fold
+    sgn = math.copysign(1.0, d1(x_none, 0.5 * (s_lo + s_hi)))
 
-    sol, _, ier, _ = fsolve(eqs, [x0, 0.0], full_output=True, xtol=1e-13)
-    if ier != 1:
+    def extremum(x: float) -> tuple[float, float]:
+        a, b = s_lo, s_hi
+        for _ in range(90):
+            m1 = b - 0.618033988749895 * (b - a)
+            m2 = a + 0.618033988749895 * (b - a)
+            if sgn * d1(x, m1) < sgn * d1(x, m2):
+                b = m2
+            else:
+                a = m1
+        s = 0.5 * (a + b)
+        return s, d1(x, s)
+
+    try:
+        f_fold, f_none = extremum(x_fold)[1], extremum(x_none)[1]
+        if f_fold * f_none > 0:
+            return None
+        x_c = brentq(lambda x: extremum(x)[1], x_fold, x_none, xtol=1e-15, rtol=1e-15, maxiter=200)
+    except (ValueError, RuntimeError):
         return None
-    tau_c, s_c = math.exp(float(sol[0])), s0 + float(sol[1]) * scale_s
-    e = mf.evaluate(np.array([tau_c]), np.array([s_c]))
+    s_c = extremum(x_c)[0]
+    e = mf.evaluate(np.array([math.exp(x_c)]), np.array([s_c]))
     if not np.isfinite(e.T_in[0]):
         return None
-    return (tau_c, float(e.T_in[0]), float(e.T[0]))
+    return (math.exp(x_c), float(e.T_in[0]), float(e.T[0]))
 
 
 def _hopf(mf: Manifold, tau: np.ndarray, cols: _Columns, tin_lo: float, tin_hi: float) -> list:

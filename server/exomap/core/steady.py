@@ -35,8 +35,10 @@ from exomap.core.model import Model, nominal_inputs
 from exomap.core.scenario import Scenario, validate
 
 STABLE, SADDLE, UNSTABLE = "stable", "saddle", "unstable"
-#: Samples along the manifold coordinate for a single operating point.
+#: Samples along the manifold coordinate for a single operating point (one-reaction closed form, general
+#: path where each sample costs an isothermal Newton solve).
 POINT_SAMPLES = 3000
+POINT_SAMPLES_GENERAL = 1200
 
 
 @dataclass(frozen=True)
@@ -175,7 +177,7 @@ def roots_along(mf: Manifold, tau: float, T_in: float, T_lo: float, T_hi: float,
 
 
 def steady_states(sc: Scenario, tau: float, T_in: float, *, c_in: tuple[float, ...] | None = None,
-                  T_c: float | None = None, samples: int = POINT_SAMPLES) -> SteadyStateResult:
+                  T_c: float | None = None, samples: int | None = None) -> SteadyStateResult:
     """Every steady state of the tank at residence time ``tau`` and feed temperature ``T_in``.
 
     .. math:: 0 = (C_{in} - C)/\\tau + \\nu r(C, T), \\quad
@@ -217,6 +219,7 @@ def steady_states(sc: Scenario, tau: float, T_in: float, *, c_in: tuple[float, .
     check_point(tau, T_in)
     mf = Manifold(sc, c_in=c_in, T_c=T_c)
     T_lo, T_hi = mf.temperature_window(T_in, T_in, tau)
+    samples = samples or (POINT_SAMPLES if mf.explicit else POINT_SAMPLES_GENERAL)
     roots = roots_along(mf, tau, T_in, T_lo, T_hi, samples)
     model = Model(sc)
     q = sc.vessel.V_set / tau
