@@ -209,6 +209,11 @@ class CheckResult:
 # ---------------------------------------------------------------------------------------------------------
 
 
+def _abs(T: float) -> str:
+    """An absolute temperature for a reason: '398.1 K (125.0 degC)' (K for machines, degC for people)."""
+    return f"{T:.1f} K ({T - 273.15:.1f} degC)"
+
+
 def _threshold(sc: Scenario, name: str, value: float, unit: str) -> str:
     """'threshold 10 K (project default; check_policy.x overrides it)' or '(from the scenario's ...)'."""
     text = f"{value:g} {unit}".rstrip()
@@ -409,19 +414,19 @@ def check_setpoint(
     # -- where the tank is -------------------------------------------------------------------------------
     if st.stability != "stable":
         reasons_out.append(
-            f"the operating state at {T:.1f} K is {st.stability}"
+            f"the operating state at {_abs(T)} is {st.stability}"
             + (" (oscillatory)" if st.oscillatory else "")
             + ": the tank will not stay there (threshold: every eigenvalue with a negative real part)"
         )
     if T > lim.T_max:
         reasons_out.append(
-            f"the steady temperature {T:.1f} K is above the maximum temperature {lim.T_max:.1f} K (scenario limit)"
+            f"the steady temperature {_abs(T)} is above the maximum temperature {_abs(lim.T_max)} (scenario limit)"
         )
     if region == "runaway":
         hot = max(s.T for s in states if s.stability == "stable")
         reasons_out.append(
-            f"region 'runaway': a reachable steady state at {hot:.1f} K lies above the maximum temperature "
-            f"{lim.T_max:.1f} K (scenario limit)"
+            f"region 'runaway': a reachable steady state at {_abs(hot)} lies above the maximum temperature "
+            f"{_abs(lim.T_max)} (scenario limit)"
         )
     elif region == "multiple":
         reasons_marg.append(
@@ -480,15 +485,15 @@ def check_setpoint(
             1.0,
         ),
         "steady_temperature_to_max_K": (
-            f"the steady temperature {T:.1f} K is {lim.T_max - T:.1f} K below the "
-            f"maximum temperature {lim.T_max:.1f} K; that margin",
+            f"the steady temperature {_abs(T)} is {lim.T_max - T:.1f} K below the "
+            f"maximum temperature {_abs(lim.T_max)}; that margin",
             "K",
             "min_temperature_margin",
             1.0,
         ),
         "mtsr_to_max_K": (
-            f"MTSR {safety.mtsr:.1f} K is {lim.T_max - safety.mtsr:.1f} K below the maximum "
-            f"temperature {lim.T_max:.1f} K; that margin",
+            f"MTSR {_abs(safety.mtsr)} is {lim.T_max - safety.mtsr:.1f} K below the maximum "
+            f"temperature {_abs(lim.T_max)}; that margin",
             "K",
             "min_mtsr_margin",
             1.0,
@@ -509,7 +514,7 @@ def check_setpoint(
         )
     if safety.mtsr > lim.T_max and not any(m.key == "mtsr_to_max_K" and m.ok is False for m in margins):
         reasons_marg.append(
-            f"MTSR {safety.mtsr:.1f} K exceeds the maximum temperature {lim.T_max:.1f} K (scenario limit)"
+            f"MTSR {_abs(safety.mtsr)} exceeds the maximum temperature {_abs(lim.T_max)} (scenario limit)"
         )
 
     # -- upsets ------------------------------------------------------------------------------------------
@@ -530,8 +535,8 @@ def check_setpoint(
         upsets.append(up)
         if up.time_to_max is not None and T <= lim.T_max:
             reasons_marg.append(
-                f"upset '{label}': the temperature reaches the maximum temperature {lim.T_max:.1f} K (scenario "
-                f"limit) after {up.time_to_max / 60:.1f} min and peaks at {up.peak_T:.1f} K"
+                f"upset '{label}': the temperature reaches the maximum temperature {_abs(lim.T_max)} (scenario "
+                f"limit) after {up.time_to_max / 60:.1f} min and peaks at {_abs(up.peak_T)}"
             )
 
     if reasons_out:
@@ -543,8 +548,8 @@ def check_setpoint(
     reasons = reasons_out + reasons_marg
     if not reasons:
         reasons = [
-            f"one stable steady state at {T:.1f} K, {lim.T_max - T:.1f} K below the maximum temperature "
-            f"{lim.T_max:.1f} K; every margin at or above its threshold (project defaults unless the scenario's "
+            f"one stable steady state at {_abs(T)}, {lim.T_max - T:.1f} K below the maximum temperature "
+            f"{_abs(lim.T_max)}; every margin at or above its threshold (project defaults unless the scenario's "
             "check_policy sets them); no upset of the battery reaches the maximum temperature"
         ]
     return CheckResult(
