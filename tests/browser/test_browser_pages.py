@@ -176,6 +176,27 @@ def test_click_moves_setpoint_and_check_updates(page: Any, server: str, api: htt
     screenshot(page, "after-click")
 
 
+def test_hover_reads_the_steady_states(page: Any, server: str, api: httpx.Client, test_tank: str) -> None:
+    page.goto(f"{server}/scenarios/{test_tank}")
+    wait_ready(page)
+    box = _plot_box(page)
+    # the lower left of this map has three steady states (its "multiple" region)
+    page.mouse.move(box["x"] + 0.05 * box["w"], box["y"] + 0.9 * box["h"])
+    page.wait_for_selector("#readout .readout-states li", timeout=TIMEOUT)
+    hovered = page.evaluate("() => window.exomap.view.hovered")
+    point = hovered["point"]
+    expected = api.get(f"/api/v1/scenarios/{test_tank}/steady", params=point).json()
+    shown = page.eval_on_selector_all("#readout .readout-states li", "ns => ns.map(n => n.textContent)")
+    assert len(shown) == len(expected["states"]) >= 1
+    for text, s in zip(shown, expected["states"], strict=True):
+        assert f"{s['temperature_K'] - 273.15:.1f} °C" in text
+        assert s["stability"] in text
+    # the region named is the map's own at that cell
+    assert page.inner_text("#readout strong") in {
+        e["label"] for e in api.get(f"/api/v1/scenarios/{test_tank}/map").json()["legend"]
+    }
+
+
 def test_drag_slides_the_setpoint(page: Any, server: str, test_tank: str) -> None:
     page.goto(f"{server}/scenarios/{test_tank}")
     wait_ready(page)

@@ -41,9 +41,7 @@ async function toError(resp) {
 
 // fetch JSON with a label shown after SLOW_MS ("Computing the map"); throws ApiError.
 export async function request(url, { method = "GET", body, label = "Working", headers = {}, as = "json" } = {}) {
-  const id = nextId++;
-  busy++;
-  const timer = setTimeout(() => { labels.set(id, label); showStatus(); }, SLOW_MS);
+  const done = busyFor(label);
   try {
     const opts = { method, headers: { Accept: "application/json", ...headers } };
     if (body !== undefined) {
@@ -59,10 +57,7 @@ export async function request(url, { method = "GET", body, label = "Working", he
     if (!resp.ok) throw await toError(resp);
     return as === "text" ? await resp.text() : await resp.json();
   } finally {
-    clearTimeout(timer);
-    busy--;
-    labels.delete(id);
-    showStatus();
+    done();
   }
 }
 
@@ -89,14 +84,23 @@ export function boot() {
   return el ? JSON.parse(el.textContent) : {};
 }
 
-// Wait for plotly's bundle (loaded with defer) before drawing.
+// Show `label` as progress if the work is still going after SLOW_MS; call the returned function when done.
+export function busyFor(label) {
+  const id = nextId++;
+  busy++;
+  const timer = setTimeout(() => { labels.set(id, label); showStatus(); }, SLOW_MS);
+  return () => { clearTimeout(timer); busy--; labels.delete(id); showStatus(); };
+}
+
+// Wait for plotly's bundle (loaded with defer, after the page script) before drawing.
 export function plotlyReady() {
   if (window.Plotly) return Promise.resolve(window.Plotly);
+  const done = busyFor("Loading the chart library");
   return new Promise((resolve, reject) => {
     const started = Date.now();
     const tick = () => {
-      if (window.Plotly) resolve(window.Plotly);
-      else if (Date.now() - started > 20000) reject(new ApiError("The chart library did not load."));
+      if (window.Plotly) { done(); resolve(window.Plotly); }
+      else if (Date.now() - started > 30000) { done(); reject(new ApiError("The chart library did not load.")); }
       else setTimeout(tick, 25);
     };
     tick();

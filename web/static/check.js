@@ -118,7 +118,7 @@ export function renderUpsets(table, upsets, onOpen) {
 }
 
 // Temperature and level against time, with alarms and the temperature limits.
-export async function drawResponse(Plotly, node, sim, { maxK, alarmK, title } = {}) {
+export async function drawResponse(Plotly, node, sim, { maxK, alarmK, title, heightM } = {}) {
   const t = sim.time_s.map((s) => s / 60);
   const tr = [
     { type: "scatter", mode: "lines", name: "tank temperature", x: t, y: sim.temperature_K.map(toC),
@@ -142,7 +142,8 @@ export async function drawResponse(Plotly, node, sim, { maxK, alarmK, title } = 
     title: title ? { text: title, font: { size: 13 } } : undefined,
     xaxis: { title: { text: "Time [min]" }, ticks: "outside" },
     yaxis: { title: { text: "Tank temperature [°C]" }, ticks: "outside" },
-    yaxis2: { title: { text: "Level [m]" }, overlaying: "y", side: "right", showgrid: false },
+    yaxis2: { title: { text: "Level [m]" }, overlaying: "y", side: "right", showgrid: false,
+      range: heightM ? [0, heightM] : undefined },
     legend: { orientation: "h", y: -0.25, yanchor: "top", font: { size: 11 } }, font: { family: "system-ui, sans-serif", size: 12 },
   };
   await Plotly.react(node, tr, lay, { displayModeBar: false, responsive: true });

@@ -188,6 +188,7 @@ function pointerToData(gd, ev) {
 export async function drawMap(Plotly, el, doc, setpoint, { onPick, onPreview, onHover, staticPlot = false,
   height } = {}) {
   const data = traces(doc, setpoint);
+  el.querySelector(".map-placeholder")?.remove();
   await Plotly.react(el, data, layout(doc, { height: height || el.clientHeight || 360 }), { displayModeBar: false, responsive: true, staticPlot });
   const spIndex = data.length - 1;
   const setSetpoint = (sp) => Plotly.restyle(el, { x: [[toMin(sp.residence_time)]], y: [[toC(sp.feed_temperature)]] },

@@ -208,6 +208,7 @@ function hoverAt(sp) {
     try {
       const ans = await getJSON(urls.apiAnswer(ID, "steady", sp), "Reading the steady states");
       if (seq !== view.seq.hover) return;
+      view.hovered = { point: sp, answer: ans };
       const list = el("ul", { class: "readout-states" });
       for (const s of ans.states || []) list.append(el("li", { text: `${fmtTemp(s.temperature_K)}, conversion ${fmtPct(s.conversion)}, ${s.stability}${s.oscillatory ? " (oscillatory)" : ""}` }));
       readoutGrid(sp, list);
@@ -219,6 +220,7 @@ async function loadMap(prefetched) {
   const url = urls.mapOfPage(ID, state);
   try {
     const doc = await (prefetched || getJSON(url, "Computing the operating map"));
+    performance.mark("exomap:map-answer");
     view.map = doc;
     if (!state.map_residence_time || !state.map_feed_temperature || !state.points) {
       // write the window the server chose into the URL, so a copied link keeps it
@@ -234,6 +236,7 @@ async function loadMap(prefetched) {
       onPick: (sp) => moveSetpoint({ residence_time: roundTau(sp.residence_time), feed_temperature: roundTin(sp.feed_temperature) }),
       onHover: hoverAt,
     });
+    performance.mark("exomap:map-drawn");
     $("map").dataset.drawn = String(Date.now());
     if (!$("map").dataset.firstDrawnMs) $("map").dataset.firstDrawnMs = String(Math.round(performance.now()));
   } catch (e) {
@@ -313,7 +316,8 @@ async function openUpset(i, push) {
     if (u.duration_s) body.duration = u.duration_s;
     const sim = await postJSON(urls.apiPost("simulate"), body, "Simulating the upset");
     if (state.upset !== i) return;
-    await drawResponse(Plotly, $("upset-plot"), sim, { maxK: lim.max_temperature, alarmK: lim.alarm_temperature });
+    await drawResponse(Plotly, $("upset-plot"), sim, { maxK: lim.max_temperature, alarmK: lim.alarm_temperature,
+      heightM: view.scenario.vessel.height });
   } catch (e) {
     $("upset-plot").textContent = e.message;
   }
@@ -355,7 +359,8 @@ function wireSimulation() {
       const sim = await postJSON(urls.apiPost("simulate"), body, "Simulating");
       $("sim-summary").textContent = simulationSummary(sim);
       const lim = view.scenario.limits || {};
-      await drawResponse(Plotly, $("sim-plot"), sim, { maxK: lim.max_temperature, alarmK: lim.alarm_temperature });
+      await drawResponse(Plotly, $("sim-plot"), sim, { maxK: lim.max_temperature, alarmK: lim.alarm_temperature,
+      heightM: view.scenario.vessel.height });
     } catch (e) {
       const f = (e.fields || []);
       const ev2 = f.filter((x) => String(x.field).startsWith("events")).map((x) => `${x.field}: ${x.message}`);
@@ -427,6 +432,7 @@ function refreshAll() {
 }
 
 async function main() {
+  performance.mark("exomap:start");
   wireProblemBox();
   wireTabs();
   wireSetpoint();
@@ -454,6 +460,7 @@ async function main() {
   syncURL(false);
   const checked = loadCheck();
   try { Plotly = await plotlyReady(); } catch (e) { showProblem(e); return; }
+  performance.mark("exomap:plotly-ready");
   showPanel(state.panel || "check", false);
   await Promise.all([loadMap(mapAnswer), checked]);
   listDemoFlag();
