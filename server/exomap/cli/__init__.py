@@ -108,9 +108,17 @@ def quantity(value: str | None, dimension: str, option: str) -> float | None:
     return parse_quantity(number, dimension, option)
 
 
+def _plain(value: Any) -> Any:
+    # numpy scalars (np.bool_, np.float64 from a reduction) that slipped into an answer document
+    item = getattr(value, "item", None)
+    if callable(item):
+        return item()
+    raise TypeError(f"{type(value).__name__} is not JSON serializable")
+
+
 def print_json(document: Any) -> None:
     """Write an answer document as JSON to stdout."""
-    json.dump(document, sys.stdout, indent=2)
+    json.dump(document, sys.stdout, indent=2, default=_plain)
     sys.stdout.write("\n")
 
 
