@@ -1,0 +1,41 @@
+# exomap task runner; the targets match the README.
+#   make install   editable install with the test extras (+ Chromium for the browser tests when missing)
+#   make test      the whole test suite, browser tests included (installs first)
+#   make serve     the web service with the demo scenarios on the embedded SQLite store (installs first)
+#   make bench     the side-by-side benchmarks in benchmarks/
+#   make lint      ruff format --check, ruff check, mypy on the core
+
+# The project's virtual environment when there is one (.ci/run makes it), else the python on PATH.
+PYTHON ?= $(if $(wildcard .venv/bin/python),.venv/bin/python,python3)
+# apt-get needs root; use sudo when we are not
+SUDO := $(shell [ "$$(id -u)" = 0 ] || echo sudo)
+# the console script of the same environment as PYTHON
+EXOMAP := $(PYTHON) -c "import sys; from exomap.cli import main; sys.exit(main())"
+STAMP := build/.install-stamp
+
+.PHONY: install test serve bench lint
+
+# Reinstall only when the package metadata changed (an editable install picks up source changes itself).
+$(STAMP): pyproject.toml
+	$(PYTHON) -m pip install -e '.[test]'
+	@if [ ! -x /usr/bin/chromium ]; then \
+		echo "Chromium not found at /usr/bin/chromium: installing it for the browser tests"; \
+		$(SUDO) apt-get update && $(SUDO) apt-get install -y chromium; \
+	fi
+	@mkdir -p $(dir $(STAMP)) && touch $(STAMP)
+
+install: $(STAMP)
+
+test: $(STAMP)
+	$(PYTHON) -m pytest
+
+serve: $(STAMP)
+	$(EXOMAP) serve
+
+bench: $(STAMP)
+	@set -e; for f in benchmarks/*.py; do echo "== $$f"; $(PYTHON) $$f; done
+
+lint: $(STAMP)
+	$(PYTHON) -m ruff format --check server tests benchmarks
+	$(PYTHON) -m ruff check server tests benchmarks
+	$(PYTHON) -m mypy
