@@ -214,6 +214,11 @@ def _abs(T: float) -> str:
     return f"{T:.1f} K ({T - 273.15:.1f} degC)"
 
 
+def _below(margin: float) -> str:
+    """'12.0 K below' or '3.0 K above'."""
+    return f"{margin:.1f} K below" if margin >= 0 else f"{-margin:.1f} K above"
+
+
 def _threshold(sc: Scenario, name: str, value: float, unit: str) -> str:
     """'threshold 10 K (project default; check_policy.x overrides it)' or '(from the scenario's ...)'."""
     text = f"{value:g} {unit}".rstrip()
@@ -485,15 +490,15 @@ def check_setpoint(
             1.0,
         ),
         "steady_temperature_to_max_K": (
-            f"the steady temperature {_abs(T)} is {lim.T_max - T:.1f} K below the "
-            f"maximum temperature {_abs(lim.T_max)}; that margin",
+            f"the steady temperature {_abs(T)} is {_below(lim.T_max - T)} the maximum temperature "
+            f"{_abs(lim.T_max)}; that margin",
             "K",
             "min_temperature_margin",
             1.0,
         ),
         "mtsr_to_max_K": (
-            f"MTSR {_abs(safety.mtsr)} is {lim.T_max - safety.mtsr:.1f} K below the maximum "
-            f"temperature {_abs(lim.T_max)}; that margin",
+            f"MTSR {_abs(safety.mtsr)} is {_below(lim.T_max - safety.mtsr)} the maximum temperature "
+            f"{_abs(lim.T_max)}; that margin",
             "K",
             "min_mtsr_margin",
             1.0,

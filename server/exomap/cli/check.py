@@ -1,0 +1,152 @@
+"""``exomap check SCENARIO [--residence-time V] [--feed-temperature V] [--branch low|high] [--json]``: the
+setpoint check (``exomap.core.check.check_setpoint``) as a short report a shift engineer can paste into a
+log, or the SI answer document with ``--json``."""
+
+from __future__ import annotations
+
+import argparse
+from typing import Any
+
+from exomap.cli import _format as fmt
+from exomap.cli import add_scenario_argument, load_scenario, print_json, quantity
+
+#: Readable names of the margins, with how to print their values.
+_MARGINS: tuple[tuple[str, str, str], ...] = (
+    ("feed_temperature_rise_to_ignition_K", "feed-temperature rise to ignition", "K"),
+    ("residence_time_rise_to_ignition_percent", "residence-time rise to ignition", "%"),
+    ("feed_temperature_drop_to_extinction_K", "feed-temperature drop to extinction", "K"),
+    ("residence_time_drop_to_extinction_percent", "residence-time drop to extinction", "%"),
+    ("steady_temperature_to_max_K", "steady temperature below the maximum", "K"),
+    ("mtsr_to_max_K", "MTSR below the maximum", "K"),
+    ("valve_opening_to_usable_range_percent", "valve opening inside its usable range", "pt"),
+)
+
+
+def add_parser(subparsers: argparse._SubParsersAction) -> argparse.ArgumentParser:
+    """Add the ``check`` sub-command."""
+    parser = subparsers.add_parser(
+        "check",
+        help="check a setpoint: margins, upsets, verdict",
+        description="Check a setpoint: every steady state, which one the tank is on, its region, margins to "
+        "ignition, extinction, the maximum temperature and the valve's usable range, thermal-safety figures, "
+        "and a battery of upsets simulated from it; verdict inside, marginal or outside with reasons. Values "
+        "take units, e.g. '40 min', '35 degC'; a bare number is SI (s, K).",
+    )
+    add_scenario_argument(parser)
+    parser.add_argument(
+        "--residence-time",
+        metavar="VALUE",
+        help="residence time V/q, e.g. '40 min' (default: the scenario's feed flow)",
+    )
+    parser.add_argument(
+        "--feed-temperature", metavar="VALUE", help="feed temperature, e.g. '35 degC' (default: the scenario's)"
+    )
+    parser.add_argument(
+        "--branch",
+        choices=("low", "high"),
+        help="which stable state the tank is on where there are several (default: low)",
+    )
+    parser.add_argument("--json", action="store_true", help="print the answer document (SI) as JSON")
+    return parser
+
+
+def _margin_value(value: float | None, unit: str) -> str:
+    if value is None:
+        return "-"
+    if unit == "K":
+        return fmt.kelvin_difference(value)
+    if unit == "pt":
+        return f"{value:.1f} % points"
+    return f"{value:.0f} %"
+
+
+def _when(t: float | None) -> str:
+    return "-" if t is None else fmt.minutes(t)
+
+
+def render(sc: Any, r: Any) -> str:
+    """The readable report of a CheckResult."""
+    st = r.state
+    q = sc.vessel.V_set / r.tau
+    lines: list[str] = []
+    lines.append(fmt.heading(f"Setpoint check: {sc.title}" if sc.title else "Setpoint check"))
+    lines.append(
+        f"Operating point: residence time {fmt.minutes(r.tau)}, feed {fmt.celsius(r.T_in)}, flow {fmt.flow(q)}"
+    )
+    lines.append(f"VERDICT: {r.verdict.upper()}   (region: {r.region})")
+    lines.append("")
+    lines.append("Reasons:")
+    lines.extend(f"  - {reason}" for reason in r.reasons)
+    lines.append("")
+    lines.append(
+        f"Tank state: {fmt.celsius(st.T)}, {st.stability}"
+        + (" (oscillatory)" if st.oscillatory else "")
+        + f", conversion {fmt.percent(st.conversion, 1)}, valve {fmt.percent(st.valve_opening)} open"
+    )
+    lines.append(f"Assumed: {r.assumption}")
+    others = [fmt.celsius(s.T) + f" {s.stability}" for i, s in enumerate(r.steady.states) if i != r.state_index]
+    if others:
+        lines.append("Other steady states: " + ", ".join(others))
+    lines.append("")
+    rows = []
+    for key, label, unit in _MARGINS:
+        m = r.margin(key)
+        thr = "-" if m.threshold is None else _margin_value(m.threshold, unit)
+        status = {True: "ok", False: "LOW", None: ""}[m.ok]
+        rows.append([label, _margin_value(m.value, unit), thr, status, m.note if m.value is None else ""])
+    lines.append("Margins (thresholds: project defaults unless the scenario's check_policy sets them):")
+    lines.append(fmt.table(["margin", "value", "threshold", "", "note"], rows, right=[False, True, True, False, False]))
+    lines.append("")
+    s = r.safety
+    tmr = "-" if s.tmr_ad is None or s.tmr_ad == float("inf") else fmt.minutes(s.tmr_ad)
+    lines.append(
+        f"Thermal safety: dT_ad {fmt.kelvin_difference(s.dT_ad)}, MTSR {fmt.celsius(s.mtsr)}, TMRad {tmr} from the "
+        f"operating state, TD24 {fmt.celsius(s.td24)}, criticality class "
+        + ("-" if s.criticality_class is None else str(s.criticality_class))
+        + f" ({s.criticality_reason})"
+    )
+    lines.append("")
+    dur = fmt.minutes(r.upsets[0].duration) if r.upsets else "-"
+    lines.append(
+        f"Upsets from the operating state ({dur} each; max temperature {fmt.celsius(sc.limits.T_max)}"
+        + (f", alarm {fmt.celsius(sc.limits.T_alarm)}" if sc.limits.T_alarm is not None else "")
+        + "):"
+    )
+    rows = []
+    for u in r.upsets:
+        rows.append(
+            [
+                u.label,
+                fmt.celsius(u.peak_T),
+                _when(u.peak_t),
+                _when(u.time_to_alarm),
+                _when(u.time_to_max),
+                f"{u.level_min:.2f}..{u.level_max:.2f} m",
+                fmt.celsius(u.final_T),
+                "steady" if u.settled else ("stopped: " + u.stop_reason if u.stop_reason != "completed" else "moving"),
+            ]
+        )
+    lines.append(
+        fmt.table(
+            ["upset", "peak", "at", "to alarm", "to max", "level", "end", "settles"],
+            rows,
+            right=[False, True, True, True, True, True, True, False],
+        )
+    )
+    lines += ["", fmt.cautions_block()]
+    return "\n".join(lines)
+
+
+def run(args: argparse.Namespace) -> int:
+    """Run the check and print it; 0 on success (whatever the verdict)."""
+    from exomap.core.check import check_setpoint
+
+    sc = load_scenario(args.scenario)
+    tau = quantity(args.residence_time, "time", "--residence-time")
+    T_in = quantity(args.feed_temperature, "temperature", "--feed-temperature")
+    result = check_setpoint(sc, tau=tau, T_in=T_in, branch=args.branch)
+    if args.json:
+        print_json(result.to_dict())
+    else:
+        print(render(sc, result))
+    return 0
