@@ -190,16 +190,20 @@ class Reference:
         return B * np.asarray(x) / (1.0 + beta)
 
     @staticmethod
-    def roots_x(Da, B, gamma, beta=0.0, n=200_001):
+    def phi(w, Da, B, gamma, beta=0.0, yc=0.0):
+        """phi(w) = w - y/(1 + y/gamma) - ln Da with x = 1/(1 + e^-w), y = (B x + beta y_c)/(1 + beta);
+        its zeros are the steady states (the x balance divided by (1 - x), logarithm taken)."""
+        x = 1.0 / (1.0 + np.exp(-w))
+        y = (B * x + beta * yc) / (1.0 + beta)
+        return w - y / (1.0 + y / gamma) - math.log(Da)
+
+    @staticmethod
+    def roots_x(Da, B, gamma, beta=0.0, yc=0.0, n=200_001):
         """Every steady conversion: dense scan in w = ln(x/(1-x)) over [-40, 40] and Brent's method."""
         from scipy.optimize import brentq
 
-        Bp = B / (1.0 + beta)
-
         def phi(w):
-            x = 1.0 / (1.0 + np.exp(-w))
-            y = Bp * x
-            return w - y / (1.0 + y / gamma) - math.log(Da)
+            return Reference.phi(w, Da, B, gamma, beta, yc)
 
         w = np.linspace(-40.0, 40.0, n)
         f = phi(w)
@@ -208,6 +212,16 @@ class Reference:
             wr = brentq(phi, w[k], w[k + 1], xtol=1e-15, rtol=1e-15, maxiter=500)
             roots.append(1.0 / (1.0 + math.exp(-wr)))
         return np.array(roots)
+
+    @staticmethod
+    def near_fold(Da, B, gamma, beta=0.0, yc=0.0, n=40_001, margin=1e-3):
+        """True when a local extremum of phi on the scan lies within ``margin`` of zero: the point is within
+        about ``margin`` in ln Da of a turning point, where a root count is ill-conditioned."""
+        w = np.linspace(-40.0, 40.0, n)
+        f = Reference.phi(w, Da, B, gamma, beta, yc)
+        d = np.diff(f)
+        ext = np.nonzero(np.sign(d[:-1]) * np.sign(d[1:]) < 0)[0] + 1
+        return bool(ext.size and np.min(np.abs(f[ext])) < margin)
 
     @staticmethod
     def G(x, B, gamma, beta=0.0):

@@ -35,6 +35,8 @@ from exomap.core.errors import LimitExceededError, ModelInputError
 from exomap.core.opmap import MAX_CELLS, MAX_POINTS, operating_map
 from exomap.core.regions import CODE, REGION_KEYS, region_of
 from exomap.core.steady import steady_states
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 
 SCENARIO_DIR = Path(__file__).resolve().parents[2] / "scenarios"
 DEMOS = sorted(SCENARIO_DIR.glob("*.json"))
@@ -161,7 +163,11 @@ def test_hopf_boundary_agrees_with_branch_hopf_points(demo):
     name, sc, m = demo
     rows = m.boundaries["hopf"]
     if rows.size == 0:
-        pytest.skip(f"{name}: no Hopf point in the window (the fold and cell checks still cover it)")
+        # no Hopf point in the window: a branch at three residence times agrees there is none
+        for tau in m.tau[[0, m.tau.size // 2, -1]]:
+            b = branch(sc, "feed_temperature", float(tau), float(m.T_in[0]), lo=float(m.T_in[0]), hi=float(m.T_in[-1]))
+            assert b.hopf_points == (), (name, tau)
+        return
     rng = np.random.default_rng(11)
     for tau in _columns_with(rows, m.tau, 3 if len(sc.reactions) > 1 else 6, rng):
         b = branch(sc, "feed_temperature", float(tau), float(m.T_in[0]), lo=float(m.T_in[0]), hi=float(m.T_in[-1]))
@@ -178,7 +184,13 @@ def test_max_temperature_contour_sits_on_states_at_the_limit(demo):
     rows = m.boundaries["max_temperature"]
     rows = rows[np.isfinite(rows[:, 0])]
     if rows.size == 0:
-        pytest.skip(f"{name}: no state reaches the maximum temperature in the window")
+        # no contour: then no column may pass continuously through the limit, i.e. no two neighbouring
+        # single-state cells of one column with the stable state below the limit in one and above in the other
+        # (analytic: with one state its temperature is continuous in T_in, so it would cross T_max between them)
+        below = np.isfinite(m.max_temperature) & (m.max_temperature <= sc.limits.T_max)
+        above = m.region == CODE["runaway"]
+        assert not np.any(below[:-1] & above[1:] & (m.state_count[:-1] == 1) & (m.state_count[1:] == 1)), name
+        return
     rng = np.random.default_rng(3)
     for k in rng.choice(len(rows), size=min(3 if len(sc.reactions) > 1 else 8, len(rows)), replace=False):
         tau, T_in = rows[k]
@@ -187,6 +199,73 @@ def test_max_temperature_contour_sits_on_states_at_the_limit(demo):
         near = [s for s in res.states if abs(s.T - sc.limits.T_max) < 1e-6 * sc.limits.T_max]
         assert len(near) == 1, (name, tau, T_in, [s.T for s in res.states])
         assert near[0].stable
+
+
+# -- whole grids against the dimensionless CSTR -----------------------------------------------------------
+def _expected_cell(c, tau, T_in, T_c, T_max, ref):
+    """(state count, region key) of one cell from the dimensionless equations alone, or None when the cell is
+    ill-conditioned (within ~1e-3 in ln Da of a fold, a state within 1e-6 K of the limit, a sensitivity
+    within 1e-6 of its threshold, or a trace within 1e-9 of zero)."""
+    gamma = c.E / T_in
+    B = c.dT_ad * gamma / T_in
+    Da = tau * float(c.k(T_in))
+    beta = c.kappa * tau
+    yc = gamma * (T_c - T_in) / T_in
+    if ref.near_fold(Da, B, gamma, beta, yc):
+        return None
+    states = []
+    for x in ref.roots_x(Da, B, gamma, beta, yc, n=40_001):
+        y = (B * x + beta * yc) / (1 + beta)
+        T = T_in * (1 + y / gamma)
+        J = ref.jac2(x, y, Da, B, gamma, beta)
+        tr, det = np.trace(J), np.linalg.det(J)
+        k = float(c.k(T))
+        # analytic: dT_in/dT at fixed tau from T_in = (1 + kappa tau) T - dT_ad tau k/(1 + tau k) - kappa tau T_c
+        dTin_dT = 1 + beta - c.dT_ad * tau * k * c.E / T**2 / (1 + tau * k) ** 2
+        sens = 1 / dTin_dT
+        if abs(T - T_max) < 1e-6 * T_max or abs(abs(sens) - 3.0) < 1e-6 or abs(tr) < 1e-9 or abs(det) < 1e-9:
+            return None
+        states.append((T, tr < 0 and det > 0, sens))
+    stable = [st for st in states if st[1]]
+    # DESIGN.md §5, in priority order
+    if any(st[0] > T_max for st in stable):
+        key = "runaway"
+    elif not stable:
+        key = "unstable"
+    elif len(states) > 1:
+        key = "multiple"
+    elif abs(stable[0][2]) > 3.0:
+        key = "sensitive"
+    else:
+        key = "stable"
+    return len(states), key
+
+
+@settings(max_examples=12, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(
+    gamma=st.floats(12.0, 40.0),
+    B=st.floats(3.0, 20.0),
+    beta=st.floats(0.0, 4.0),
+    dT_c=st.floats(-15.0, 15.0),
+    limit=st.floats(0.2, 1.2),
+)
+def test_whole_map_against_the_dimensionless_cstr(cstr, ref, gamma, B, beta, dT_c, limit):
+    tau_ref = 100.0
+    base = cstr(gamma, B)
+    c = cstr(gamma, B, kappa=beta / tau_ref, T_c=base.T_in + dT_c, T_max=base.T_in + limit * base.dT_ad)
+    m = operating_map(c.sc, tau_range=(0.1, 1e4), T_in_range=(base.T_in - 20.0, base.T_in + 20.0), points=(24, 16))
+    assert m.success
+    skipped = 0
+    for i, T_in in enumerate(m.T_in):
+        for j, tau in enumerate(m.tau):
+            exp = _expected_cell(c, float(tau), float(T_in), c.sc.T_c, c.sc.limits.T_max, ref)
+            if exp is None:
+                skipped += 1
+                continue
+            # independent: roots of the dimensionless balance, 2x2 Jacobian, DESIGN.md §5 rules
+            assert m.state_count[i, j] == exp[0], (tau, T_in)
+            assert REGION_KEYS[int(m.region[i, j])] == exp[1], (tau, T_in)
+    assert skipped <= m.region.size // 10
 
 
 # -- the cusp of the adiabatic first-order CSTR -----------------------------------------------------------
