@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import json
 import re
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -24,9 +25,9 @@ from exomap.core.scenario import R_GAS
 from exomap.schema import canonical_json, parse_scenario, scenario_id
 from scipy.optimize import brentq
 
-from conftest import SCENARIOS, demo_paths
-
-NAMES = [p.stem for p in demo_paths()]
+# not imported from conftest: several test folders have a conftest module and the name is ambiguous
+SCENARIOS = Path(__file__).resolve().parents[1] / "scenarios"
+NAMES = sorted(p.stem for p in SCENARIOS.glob("*.json"))
 
 
 def core_of(name: str):
@@ -95,7 +96,11 @@ def explicit_states(sc, tau: float, T_in: float, n: int = 20001) -> list[tuple[f
     rc = sc.rho * sc.cp
 
     def T_of(X):
-        num = rc * T_in / tau + (-r.dH) * c0 * X / tau + (sc.UA_jacket * sc.T_c + sc.UA_loss * sc.T_amb + sc.P_agitator) / V
+        num = (
+            rc * T_in / tau
+            + (-r.dH) * c0 * X / tau
+            + (sc.UA_jacket * sc.T_c + sc.UA_loss * sc.T_amb + sc.P_agitator) / V
+        )
         return num / (rc / tau + (sc.UA_jacket + sc.UA_loss) / V)
 
     def residual(X):
@@ -241,8 +246,9 @@ def test_decomposition_demo_matters_only_when_hot():
 def test_cli_steady_json_is_the_answer_document(capsys):
     from exomap.core.steady import steady_states
 
-    rc = main(["steady", "adiabatic-second-order", "--residence-time", "60 min", "--feed-temperature", "25 degC",
-               "--json"])
+    rc = main(
+        ["steady", "adiabatic-second-order", "--residence-time", "60 min", "--feed-temperature", "25 degC", "--json"]
+    )
     out = json.loads(capsys.readouterr().out)
     assert rc == 0
     sc = core_of("adiabatic-second-order")
@@ -264,11 +270,15 @@ def test_cli_steady_table_in_plant_units(capsys):
 @pytest.mark.parametrize(
     ("argv", "pattern"),
     [
-        (["steady", "adiabatic-second-order", "--residence-time", "60 m"],
-         r"^error: --residence-time: '60 m' is not a time; expected a time"),
+        (
+            ["steady", "adiabatic-second-order", "--residence-time", "60 m"],
+            r"^error: --residence-time: '60 m' is not a time; expected a time",
+        ),
         (["steady", "no-such-demo"], r"^error: scenario: no file 'no-such-demo' and no bundled demo"),
-        (["branch", "adiabatic-second-order", "--along", "feed-temperature", "--from", "60 degC", "--to", "0 degC"],
-         r"^error: range: "),
+        (
+            ["branch", "adiabatic-second-order", "--along", "feed-temperature", "--from", "60 degC", "--to", "0 degC"],
+            r"^error: range: ",
+        ),
     ],
 )
 def test_cli_errors_are_one_line_exit_2(capsys, argv, pattern):
@@ -288,8 +298,19 @@ def test_cli_bad_scenario_file(tmp_path, capsys):
 
 
 def test_cli_branch_reports_turning_points(capsys):
-    rc = main(["branch", "adiabatic-second-order", "--along", "residence-time", "--from", "5 min", "--to", "200 min",
-               "--json"])
+    rc = main(
+        [
+            "branch",
+            "adiabatic-second-order",
+            "--along",
+            "residence-time",
+            "--from",
+            "5 min",
+            "--to",
+            "200 min",
+            "--json",
+        ]
+    )
     out = json.loads(capsys.readouterr().out)
     assert rc == 0 and out["parameter"] == "residence_time"
     assert sorted(t["kind"] for t in out["turning_points"]) == ["extinction", "ignition"]

@@ -28,11 +28,16 @@ from hypothesis import strategies as st
 def tank(Kv=10.0, characteristic="linear", R=50.0, rho=900.0, p_head=1.2e5, p_down=1.0e5, z=1.5) -> Scenario:
     """A tank with only what the valve needs (invented values)."""
     return Scenario(
-        species=("A",), rho=rho, cp=2000.0,
+        species=("A",),
+        rho=rho,
+        cp=2000.0,
         vessel=Vessel(D=1.2, H=2.0, h_set=1.5, p_head=p_head),
         valve=Valve(Kv=Kv, characteristic=characteristic, rangeability=R, p_down=p_down, z_drop=z),
         reactions=(Reaction("r", (-1.0,), (1.0,), 1.0, 5e4, -1e4),),
-        q_in=1e-3, T_in=300.0, c_in=(1.0,), limits=Limits(T_max=400.0),
+        q_in=1e-3,
+        T_in=300.0,
+        c_in=(1.0,),
+        limits=Limits(T_max=400.0),
     )
 
 
@@ -58,8 +63,7 @@ def test_flow_matches_fluids_sizing(Kv, rho, h, p_head, z):
     assume(dp > 1e3)
     q = valve.flow(sc, h, 1.0)
     # fluids [2]: non-choked (vapour pressure far below P2), no pipe diameters -> turbulent, FP = 1
-    out = size_control_valve_l(rho=rho, Psat=1e3, Pc=4e6, mu=1e-3, P1=p_down + dp, P2=p_down, Q=q,
-                               full_output=True)
+    out = size_control_valve_l(rho=rho, Psat=1e3, Pc=4e6, mu=1e-3, P1=p_down + dp, P2=p_down, Q=q, full_output=True)
     assert not out["choked"] and not out["laminar"]
     assert out["Kv"] == pytest.approx(Kv, rel=1e-9)
 

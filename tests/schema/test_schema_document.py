@@ -43,8 +43,9 @@ def test_minimal_document_to_core(doc):
 
 def test_second_order_pre_exponential_in_litres(doc):
     doc["species"] = ["A", "B", "P"]
-    doc["reactions"][0].update(stoichiometry={"A": -1, "B": -1, "P": 1}, orders={"A": 1, "B": 1},
-                               pre_exponential="1.2e7 L/(mol s)")
+    doc["reactions"][0].update(
+        stoichiometry={"A": -1, "B": -1, "P": 1}, orders={"A": 1, "B": 1}, pre_exponential="1.2e7 L/(mol s)"
+    )
     # 1 L/(mol s) = 1e-3 m^3/(mol s) (SI Brochure Table 8)
     assert parse_scenario(doc).to_core().reactions[0].k0 == pytest.approx(1.2e4, rel=1e-14)
 
@@ -66,19 +67,33 @@ def test_cv_is_converted_like_fluids(doc):
 
 def test_level_control_and_characteristic(doc):
     doc["outlet_valve"].pop("opening")
-    doc["outlet_valve"].update(characteristic="equal_percentage", rangeability=30,
-                               level_control={"gain": "1.5 1/m", "reset_time": "10 min"})
+    doc["outlet_valve"].update(
+        characteristic="equal_percentage", rangeability=30, level_control={"gain": "1.5 1/m", "reset_time": "10 min"}
+    )
     v = parse_scenario(doc).to_core().valve
     assert (v.characteristic, v.rangeability, v.gain, v.reset_time, v.opening) == (
-        "equal_percentage", 30.0, 1.5, 600.0, None)
+        "equal_percentage",
+        30.0,
+        1.5,
+        600.0,
+        None,
+    )
 
 
 def test_extras_agitator_power_and_decomposition(doc):
     doc["agitator_power"] = "1.5 kW"
     doc["species"] = ["A", "P", "D"]
-    doc["reactions"].append({"label": "P -> D", "stoichiometry": {"P": -1, "D": 1}, "orders": {"P": 1},
-                             "pre_exponential": "1e13 1/s", "activation_energy": "140 kJ/mol",
-                             "reaction_enthalpy": "-300 kJ/mol", "decomposition": True})
+    doc["reactions"].append(
+        {
+            "label": "P -> D",
+            "stoichiometry": {"P": -1, "D": 1},
+            "orders": {"P": 1},
+            "pre_exponential": "1e13 1/s",
+            "activation_energy": "140 kJ/mol",
+            "reaction_enthalpy": "-300 kJ/mol",
+            "decomposition": True,
+        }
+    )
     sc = parse_scenario(doc).to_core()
     assert sc.P_agitator == 1500.0
     assert [r.decomposition for r in sc.reactions] == [False, True]
@@ -130,8 +145,12 @@ BAD = [
     ("reactions[0].stoichiometry.Q", -1, "reactions[0].stoichiometry.Q", r"unknown species 'Q'"),
     ("reactions[0].orders.Z", 1, "reactions[0].orders.Z", r"unknown species 'Z'"),
     ("reactions[0].orders.A", -1, "reactions[0].orders.A", r"must be at least 0"),
-    ("reactions[0].pre_exponential", "1e10 L/(mol s)", "reactions[0].pre_exponential",
-     r"wrong dimension; expected \(mol/m\^3\)\^\(1-n\)/s = 1/s for this reaction's total order n = 1"),
+    (
+        "reactions[0].pre_exponential",
+        "1e10 L/(mol s)",
+        "reactions[0].pre_exponential",
+        r"wrong dimension; expected \(mol/m\^3\)\^\(1-n\)/s = 1/s for this reaction's total order n = 1",
+    ),
     ("reactions[0].activation_energy", "80 kJ", "reactions[0].activation_energy", r"expected an energy per mole"),
     ("reactions[0].reaction_enthalpy", float("inf"), "reactions[0].reaction_enthalpy", r"not a finite number"),
     ("reactions", [], "reactions", r"at least one reaction is needed"),
@@ -139,13 +158,21 @@ BAD = [
     ("species", [], "species", r"at least one species is needed"),
     ("outlet_valve.kv", _DELETE, "outlet_valve", r"give exactly one of kv \(m\^3/h at 1 bar\) or cv"),
     ("outlet_valve.opening", 1.4, "outlet_valve.opening", r"must be at most 1"),
-    ("outlet_valve.characteristic", "parabolic", "outlet_valve.characteristic",
-     r"expected one of linear, equal_percentage, quick_opening"),
+    (
+        "outlet_valve.characteristic",
+        "parabolic",
+        "outlet_valve.characteristic",
+        r"expected one of linear, equal_percentage, quick_opening",
+    ),
     ("vessel.diamter", "1 m", "vessel.diamter", r"unknown field; expected one of: diameter, height"),
     ("limits.max_temperature", _DELETE, "limits.max_temperature", r"required field is missing; expected a temp"),
     ("limits.alarm_temperature", "95 degC", "limits.alarm_temperature", r"above the maximum temperature"),
-    ("map", {"residence_time": ["2 h", "5 min"], "feed_temperature": ["0 degC", "50 degC"]},
-     "map.residence_time", r"lo < hi"),
+    (
+        "map",
+        {"residence_time": ["2 h", "5 min"], "feed_temperature": ["0 degC", "50 degC"]},
+        "map.residence_time",
+        r"lo < hi",
+    ),
     ("format", "other/2", "format", r"expected one of exomap-scenario/1"),
     ("species", ["A", "A.b"], "species[1]", r"one word without dots"),
     ("check_policy", {"sensitivity": 0}, "check_policy.sensitivity", r"must be above 0"),
@@ -219,7 +246,9 @@ _UNITS = {
 def _q(dimension: str, lo: float, hi: float):
     units = st.sampled_from(_UNITS[dimension])
     return st.tuples(st.floats(min_value=lo, max_value=hi, allow_nan=False), units).map(
-        lambda p: p[0] if p[1][1] == 1.0 and p[1][0].startswith("m") and dimension == "length" else f"{p[0]!r} {p[1][0]}"
+        lambda p: (
+            p[0] if p[1][1] == 1.0 and p[1][0].startswith("m") and dimension == "length" else f"{p[0]!r} {p[1][0]}"
+        )
     )
 
 

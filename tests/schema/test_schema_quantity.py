@@ -83,10 +83,18 @@ def test_unknown_dimension_is_a_programming_error():
         parse_quantity("2 m", "lenght", "x")
 
 
-@given(st.floats(min_value=1e-6, max_value=1e9, allow_nan=False), st.sampled_from([
-    # (unit, factor to SI): SI Brochure Table 8 and the prefixes of Table 7
-    ("m^3/h", 1 / 3600), ("L/min", 1e-3 / 60), ("L/s", 1e-3), ("m^3/s", 1.0),
-]))
+@given(
+    st.floats(min_value=1e-6, max_value=1e9, allow_nan=False),
+    st.sampled_from(
+        [
+            # (unit, factor to SI): SI Brochure Table 8 and the prefixes of Table 7
+            ("m^3/h", 1 / 3600),
+            ("L/min", 1e-3 / 60),
+            ("L/s", 1e-3),
+            ("m^3/s", 1.0),
+        ]
+    ),
+)
 def test_flow_units_scale_exactly(x, unit_factor):
     unit, factor = unit_factor
     # values are rounded to 15 significant digits after conversion (see exomap.schema.quantity)

@@ -67,15 +67,17 @@ def read_scenario_document(name_or_path: str) -> dict[str, Any]:
         stem = name_or_path[: -len(".json")] if name_or_path.endswith(".json") else name_or_path
         if stem not in demo_names():
             names = ", ".join(demo_names()) or "none installed"
-            raise CliInputError("scenario", f"no file {name_or_path!r} and no bundled demo of that name "
-                                f"(demos: {names})")
+            raise CliInputError(
+                "scenario", f"no file {name_or_path!r} and no bundled demo of that name (demos: {names})"
+            )
         text = (resources.files("exomap.demos") / f"{stem}.json").read_text(encoding="utf-8")
         where = f"demo {stem}"
     try:
         doc = json.loads(text)
     except json.JSONDecodeError as exc:
-        raise CliInputError("scenario", f"{where} is not valid JSON: {exc.msg} at line {exc.lineno} "
-                            f"column {exc.colno}") from None
+        raise CliInputError(
+            "scenario", f"{where} is not valid JSON: {exc.msg} at line {exc.lineno} column {exc.colno}"
+        ) from None
     if not isinstance(doc, dict):
         raise CliInputError("scenario", f"{where} is not a JSON object")
     return doc
@@ -90,8 +92,11 @@ def load_scenario(name_or_path: str) -> Any:
 
 def add_scenario_argument(parser: argparse.ArgumentParser) -> None:
     """The positional SCENARIO argument every computing sub-command takes."""
-    parser.add_argument("scenario", metavar="SCENARIO",
-                        help="a scenario JSON file, or the name of a bundled demo (" + ", ".join(demo_names()) + ")")
+    parser.add_argument(
+        "scenario",
+        metavar="SCENARIO",
+        help="a scenario JSON file, or the name of a bundled demo (" + ", ".join(demo_names()) + ")",
+    )
 
 
 def quantity(value: str | None, dimension: str, option: str) -> float | None:

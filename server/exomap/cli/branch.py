@@ -25,12 +25,22 @@ def add_parser(subparsers: argparse._SubParsersAction) -> argparse.ArgumentParse
     )
     add_scenario_argument(parser)
     parser.add_argument("--along", required=True, choices=list(ALONG), help="the parameter that varies")
-    parser.add_argument("--residence-time", metavar="VALUE",
-                        help="residence time held fixed or marked, e.g. '40 min' (default: the scenario's)")
-    parser.add_argument("--feed-temperature", metavar="VALUE",
-                        help="feed temperature held fixed or marked, e.g. '35 degC' (default: the scenario's)")
-    parser.add_argument("--from", dest="lo", metavar="VALUE",
-                        help="start of the range of the varying parameter (default: the scenario's map window)")
+    parser.add_argument(
+        "--residence-time",
+        metavar="VALUE",
+        help="residence time held fixed or marked, e.g. '40 min' (default: the scenario's)",
+    )
+    parser.add_argument(
+        "--feed-temperature",
+        metavar="VALUE",
+        help="feed temperature held fixed or marked, e.g. '35 degC' (default: the scenario's)",
+    )
+    parser.add_argument(
+        "--from",
+        dest="lo",
+        metavar="VALUE",
+        help="start of the range of the varying parameter (default: the scenario's map window)",
+    )
     parser.add_argument("--to", dest="hi", metavar="VALUE", help="end of the range of the varying parameter")
     parser.add_argument("--json", action="store_true", help="print the answer document (SI) as JSON")
     return parser
@@ -44,28 +54,42 @@ def render(sc, result) -> str:  # noqa: ANN001 - Scenario, BranchResult
     """The human-readable summary of a BranchResult."""
     along = result.parameter
     word = "residence time" if along == "residence_time" else "feed temperature"
-    fixed = (f"feed {fmt.celsius(result.T_in)}" if along == "residence_time"
-             else f"residence time {fmt.minutes(result.tau)}")
+    fixed = (
+        f"feed {fmt.celsius(result.T_in)}" if along == "residence_time" else f"residence time {fmt.minutes(result.tau)}"
+    )
     lines = [fmt.heading(sc.title), ""] if sc.title else []
     lines.append(f"Branch along {word} from {_value(along, result.lo)} to {_value(along, result.hi)} at {fixed}")
     lines.append(result.message)
     lines.append("")
     if result.turning_points:
         lines.append("Turning points (ignition: past it the tank can only jump up; extinction: it falls back)")
-        lines.append(fmt.table(
-            ["kind", "residence time", "feed temperature", "temperature"],
-            [[t.kind, fmt.minutes(t.tau), fmt.celsius(t.T_in), fmt.celsius(t.T)] for t in result.turning_points],
-            right=[False, True, True, True]))
+        lines.append(
+            fmt.table(
+                ["kind", "residence time", "feed temperature", "temperature"],
+                [[t.kind, fmt.minutes(t.tau), fmt.celsius(t.T_in), fmt.celsius(t.T)] for t in result.turning_points],
+                right=[False, True, True, True],
+            )
+        )
     else:
         lines.append("No turning point in the range: one steady state at each value.")
     lines.append("")
     if result.hopf_points:
         lines.append("Hopf points (a stable state turns into sustained oscillations)")
-        lines.append(fmt.table(
-            ["residence time", "feed temperature", "temperature", "period"],
-            [[fmt.minutes(h.tau), fmt.celsius(h.T_in), fmt.celsius(h.T),
-              fmt.minutes(6.283185307179586 / h.frequency) if h.frequency > 0 else "-"] for h in result.hopf_points],
-            right=[True, True, True, True]))
+        lines.append(
+            fmt.table(
+                ["residence time", "feed temperature", "temperature", "period"],
+                [
+                    [
+                        fmt.minutes(h.tau),
+                        fmt.celsius(h.T_in),
+                        fmt.celsius(h.T),
+                        fmt.minutes(6.283185307179586 / h.frequency) if h.frequency > 0 else "-",
+                    ]
+                    for h in result.hopf_points
+                ],
+                right=[True, True, True, True],
+            )
+        )
     else:
         lines.append("No Hopf point in the range.")
     points = list(result.points)
@@ -75,12 +99,22 @@ def render(sc, result) -> str:  # noqa: ANN001 - Scenario, BranchResult
         if shown[-1] is not points[-1]:
             shown.append(points[-1])
         lines += ["", f"Points ({len(shown)} of {len(points)}; --json gives all)"]
-        lines.append(fmt.table(
-            [word, "temperature", "conversion", "stable", "branch piece"],
-            [[_value(along, p.value), fmt.celsius(p.T), fmt.percent(p.conversion, 1),
-              ("yes" if p.stable else "no") + (" (oscillatory)" if p.oscillatory else ""), str(p.piece)]
-             for p in shown],
-            right=[True, True, True, False, True]))
+        lines.append(
+            fmt.table(
+                [word, "temperature", "conversion", "stable", "branch piece"],
+                [
+                    [
+                        _value(along, p.value),
+                        fmt.celsius(p.T),
+                        fmt.percent(p.conversion, 1),
+                        ("yes" if p.stable else "no") + (" (oscillatory)" if p.oscillatory else ""),
+                        str(p.piece),
+                    ]
+                    for p in shown
+                ],
+                right=[True, True, True, False, True],
+            )
+        )
     lines += ["", fmt.cautions_block()]
     return "\n".join(lines)
 

@@ -19,12 +19,19 @@ def add_parser(subparsers: argparse._SubParsersAction) -> argparse.ArgumentParse
         "'40 min', '35 degC'; a bare number is SI (s, K).",
     )
     add_scenario_argument(parser)
-    parser.add_argument("--residence-time", metavar="VALUE",
-                        help="residence time V/q, e.g. '40 min' (default: the scenario's feed flow)")
-    parser.add_argument("--feed-temperature", metavar="VALUE",
-                        help="feed temperature, e.g. '35 degC' (default: the scenario's)")
-    parser.add_argument("--coolant-temperature", metavar="VALUE",
-                        help="coolant temperature, e.g. '15 degC' (default: the scenario's jacket)")
+    parser.add_argument(
+        "--residence-time",
+        metavar="VALUE",
+        help="residence time V/q, e.g. '40 min' (default: the scenario's feed flow)",
+    )
+    parser.add_argument(
+        "--feed-temperature", metavar="VALUE", help="feed temperature, e.g. '35 degC' (default: the scenario's)"
+    )
+    parser.add_argument(
+        "--coolant-temperature",
+        metavar="VALUE",
+        help="coolant temperature, e.g. '15 degC' (default: the scenario's jacket)",
+    )
     parser.add_argument("--json", action="store_true", help="print the answer document (SI) as JSON")
     return parser
 
@@ -34,8 +41,10 @@ def render(sc, result) -> str:  # noqa: ANN001 - Scenario, SteadyStateResult
     lines = []
     if sc.title:
         lines += [fmt.heading(sc.title), ""]
-    lines.append(f"Operating point: residence time {fmt.minutes(result.tau)}, feed {fmt.celsius(result.T_in)}, "
-                 f"flow {fmt.flow(result.q)}")
+    lines.append(
+        f"Operating point: residence time {fmt.minutes(result.tau)}, feed {fmt.celsius(result.T_in)}, "
+        f"flow {fmt.flow(result.q)}"
+    )
     n = len(result.states)
     lines.append(f"{n} steady state{'s' if n != 1 else ''} (lowest temperature first)")
     lines.append("")
@@ -43,25 +52,43 @@ def render(sc, result) -> str:  # noqa: ANN001 - Scenario, SteadyStateResult
     rows = []
     for i, s in enumerate(result.states, start=1):
         lead = max(s.eigenvalues, key=lambda e: e.real) if s.eigenvalues else None
-        rows.append([
-            str(i),
-            fmt.celsius(s.T),
-            fmt.percent(s.conversion, 1),
-            s.stability + (" (oscillatory)" if s.oscillatory else ""),
-            "-" if lead is None else f"{lead.real:.3g}" + (f" ± {abs(lead.imag):.3g}i" if lead.imag else ""),
-            fmt.percent(s.valve_opening),
-            fmt.number(s.sensitivity, ".2f"),
-            "above max" if s.T > sc.limits.T_max else "",
-        ])
-    lines.append(fmt.table(
-        ["#", "temperature", f"conversion of {key}", "stability", "leading eigenvalue [1/s]", "valve opening",
-         "dT/dT_in", "limit"],
-        rows, right=[True, True, True, False, True, True, True, False]))
+        rows.append(
+            [
+                str(i),
+                fmt.celsius(s.T),
+                fmt.percent(s.conversion, 1),
+                s.stability + (" (oscillatory)" if s.oscillatory else ""),
+                "-" if lead is None else f"{lead.real:.3g}" + (f" ± {abs(lead.imag):.3g}i" if lead.imag else ""),
+                fmt.percent(s.valve_opening),
+                fmt.number(s.sensitivity, ".2f"),
+                "above max" if s.T > sc.limits.T_max else "",
+            ]
+        )
+    lines.append(
+        fmt.table(
+            [
+                "#",
+                "temperature",
+                f"conversion of {key}",
+                "stability",
+                "leading eigenvalue [1/s]",
+                "valve opening",
+                "dT/dT_in",
+                "limit",
+            ],
+            rows,
+            right=[True, True, True, False, True, True, True, False],
+        )
+    )
     if not result.success:
         lines += ["", f"note: {result.message}"]
-    lines += ["", f"Maximum temperature {fmt.celsius(sc.limits.T_max)}; valve usable range "
-              f"{fmt.percent(sc.policy.valve_min)}..{fmt.percent(sc.policy.valve_max)} (common practice).",
-              "", fmt.cautions_block()]
+    lines += [
+        "",
+        f"Maximum temperature {fmt.celsius(sc.limits.T_max)}; valve usable range "
+        f"{fmt.percent(sc.policy.valve_min)}..{fmt.percent(sc.policy.valve_max)} (common practice).",
+        "",
+        fmt.cautions_block(),
+    ]
     return "\n".join(lines)
 
 

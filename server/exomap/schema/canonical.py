@@ -27,8 +27,7 @@ def canonical_json(doc: dict[str, Any] | ScenarioDoc) -> str:
 
     >>> from exomap.schema import canonical_json  # doctest: +SKIP
     """
-    return json.dumps(canonical_dict(doc), sort_keys=True, separators=(",", ":"), ensure_ascii=False,
-                      allow_nan=False)
+    return json.dumps(canonical_dict(doc), sort_keys=True, separators=(",", ":"), ensure_ascii=False, allow_nan=False)
 
 
 def scenario_id(doc: dict[str, Any] | ScenarioDoc) -> str:

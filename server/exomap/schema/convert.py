@@ -46,11 +46,17 @@ def cross_check(doc: ScenarioDoc) -> list[dict[str, str]]:
 
     lim = doc.limits
     if lim.alarm_temperature is not None and lim.alarm_temperature > lim.max_temperature:
-        add("limits.alarm_temperature", f"alarm temperature {lim.alarm_temperature:.2f} K is above the maximum "
-            f"temperature {lim.max_temperature:.2f} K; expected a temperature at or below it")
+        add(
+            "limits.alarm_temperature",
+            f"alarm temperature {lim.alarm_temperature:.2f} K is above the maximum "
+            f"temperature {lim.max_temperature:.2f} K; expected a temperature at or below it",
+        )
     if lim.level_high is not None and lim.level_high > doc.vessel.height:
-        add("limits.level_high", f"level_high {lim.level_high:g} m is above the vessel height "
-            f"{doc.vessel.height:g} m; expected a length at or below it")
+        add(
+            "limits.level_high",
+            f"level_high {lim.level_high:g} m is above the vessel height "
+            f"{doc.vessel.height:g} m; expected a length at or below it",
+        )
     if lim.level_low is not None and lim.level_high is not None and lim.level_low >= lim.level_high:
         add("limits.level_low", f"level_low {lim.level_low:g} m is not below level_high {lim.level_high:g} m")
     pol = doc.check_policy
@@ -105,23 +111,39 @@ def to_core(doc: ScenarioDoc) -> Scenario:
         species=species,
         rho=doc.liquid.density,
         cp=doc.liquid.heat_capacity,
-        vessel=Vessel(D=doc.vessel.diameter, H=doc.vessel.height, h_set=doc.vessel.level_setpoint,
-                      p_head=doc.vessel.headspace_pressure),
+        vessel=Vessel(
+            D=doc.vessel.diameter,
+            H=doc.vessel.height,
+            h_set=doc.vessel.level_setpoint,
+            p_head=doc.vessel.headspace_pressure,
+        ),
         valve=valve,
         reactions=reactions,
         q_in=doc.feed.flow,
         T_in=doc.feed.temperature,
         c_in=tuple(float(doc.feed.concentrations.get(s, 0.0)) for s in species),
-        limits=Limits(T_max=lim.max_temperature, T_alarm=lim.alarm_temperature, h_high=lim.level_high,
-                      h_low=lim.level_low, T_mtt=lim.technical_limit_temperature),
+        limits=Limits(
+            T_max=lim.max_temperature,
+            T_alarm=lim.alarm_temperature,
+            h_high=lim.level_high,
+            h_low=lim.level_low,
+            T_mtt=lim.technical_limit_temperature,
+        ),
         UA_jacket=doc.jacket.ua if doc.jacket else 0.0,
         T_c=doc.jacket.coolant_temperature if doc.jacket else defaults["T_c"].default,
         UA_loss=doc.heat_loss.ua if doc.heat_loss else 0.0,
         T_amb=doc.heat_loss.ambient_temperature if doc.heat_loss else defaults["T_amb"].default,
         P_agitator=doc.agitator_power,
         policy=CheckPolicy(**doc.check_policy.model_dump()),
-        map=(MapSpec(tau_range=tuple(doc.map.residence_time), T_in_range=tuple(doc.map.feed_temperature),
-                     points=tuple(doc.map.points)) if doc.map else None),
+        map=(
+            MapSpec(
+                tau_range=tuple(doc.map.residence_time),
+                T_in_range=tuple(doc.map.feed_temperature),
+                points=tuple(doc.map.points),
+            )
+            if doc.map
+            else None
+        ),
         title=doc.title,
         description=doc.description,
     )

@@ -152,7 +152,9 @@ class ReactionDoc(_Model):
         declared = (info.context or {}).get("species")
         if isinstance(orders, dict):
             # orders in undeclared species are reported as such (cross_check), not as a wrong k0 dimension
-            total = float(sum(n for s, n in orders.items() if not (isinstance(declared, list) and declared) or s in declared))
+            total = float(
+                sum(n for s, n in orders.items() if not (isinstance(declared, list) and declared) or s in declared)
+            )
         else:
             total = 1.0
         try:
@@ -167,7 +169,7 @@ class ReactionDoc(_Model):
     @classmethod
     def _nonempty(cls, value: dict[str, float]) -> dict[str, float]:
         if not value:
-            raise ValueError("expected at least one species with a coefficient, e.g. {\"A\": -1, \"P\": 1}")
+            raise ValueError('expected at least one species with a coefficient, e.g. {"A": -1, "P": 1}')
         return value
 
 
@@ -198,9 +200,7 @@ class LimitsDoc(_Model):
 class CheckPolicyDoc(_Model):
     """Thresholds of the setpoint check; defaults are the project defaults of ``core.scenario.CheckPolicy``."""
 
-    min_feed_temperature_margin: Q("temperature_difference", sign="nonnegative") = (
-        _POLICY.min_feed_temperature_margin
-    )
+    min_feed_temperature_margin: Q("temperature_difference", sign="nonnegative") = _POLICY.min_feed_temperature_margin
     min_residence_time_margin: Q("fraction", sign="nonnegative") = _POLICY.min_residence_time_margin
     min_extinction_margin: Q("temperature_difference", sign="nonnegative") = _POLICY.min_extinction_margin
     min_temperature_margin: Q("temperature_difference") = _POLICY.min_temperature_margin
@@ -229,9 +229,7 @@ class ScenarioDoc(_Model):
     format: Literal["exomap-scenario/1"] = FORMAT
     title: str = ""
     description: str = ""
-    species: list[Annotated[str, Field(min_length=1, max_length=40, pattern=r"^[^\s.\[\]]+$")]] = Field(
-        min_length=1
-    )
+    species: list[Annotated[str, Field(min_length=1, max_length=40, pattern=r"^[^\s.\[\]]+$")]] = Field(min_length=1)
     liquid: LiquidDoc
     vessel: VesselDoc
     outlet_valve: OutletValveDoc
@@ -241,9 +239,7 @@ class ScenarioDoc(_Model):
     heat_loss: HeatLossDoc | None = None
     agitator_power: Q("power", sign="nonnegative") = 0.0
     limits: LimitsDoc
-    check_policy: Annotated[CheckPolicyDoc, BeforeValidator(_none_to_default)] = Field(
-        default_factory=CheckPolicyDoc
-    )
+    check_policy: Annotated[CheckPolicyDoc, BeforeValidator(_none_to_default)] = Field(default_factory=CheckPolicyDoc)
     map: MapDoc | None = None
 
     def to_core(self) -> Any:
@@ -257,4 +253,3 @@ class ScenarioDoc(_Model):
         from exomap.schema.convert import to_core
 
         return to_core(self)
-

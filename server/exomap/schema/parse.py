@@ -120,11 +120,15 @@ def _message(err: dict[str, Any]) -> str:
         return f"not a finite number; {what}"
     if kind in ("greater_than", "greater_than_equal", "less_than", "less_than_equal"):
         bound = next(iter(ctx.values()), "")
-        words = {"greater_than": "above", "greater_than_equal": "at least", "less_than": "below",
-                 "less_than_equal": "at most"}[kind]
+        words = {
+            "greater_than": "above",
+            "greater_than_equal": "at least",
+            "less_than": "below",
+            "less_than_equal": "at most",
+        }[kind]
         return f"must be {words} {bound}; {what}"
     if kind == "string_pattern_mismatch":
-        return "a species name is one word without dots or brackets, e.g. \"A\" or \"MeOH\""
+        return 'a species name is one word without dots or brackets, e.g. "A" or "MeOH"'
     if kind == "literal_error":
         return f"got {err.get('input')!r}; {what}"
     return f"{err['msg'].rstrip('.')}; {what}"
