@@ -22,7 +22,8 @@ Actions: ``feed_stop`` / ``feed_restart`` (the feed pump trips and comes back at
 ambient stays), ``valve_manual`` / ``valve_auto`` (the level controller's output is frozen where it is / the
 controller takes over again, bumplessly).
 
-Setting or ramping ``valve_opening`` puts a controlled valve in manual at that opening.
+Setting or ramping ``valve_opening`` puts a controlled valve in manual at that opening. ``level_setpoint``
+acts through the level controller; with a fixed valve it changes nothing.
 
 Numbers are SI. ``parse_events(..., unit_parser=f)`` also accepts strings with units: ``f(value, dimension,
 field)`` must return the SI number (``exomap.schema.quantity.parse_quantity`` has that signature); the
