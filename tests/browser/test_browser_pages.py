@@ -423,6 +423,16 @@ def test_progress_is_shown_for_slow_answers(page: Any, server: str, test_tank: s
 
 
 def test_missing_scenario_says_so(page: Any, server: str) -> None:
-    page.goto(f"{server}/scenarios/0000000000000000")
-    page.wait_for_selector("#problem:not([hidden])")
-    assert "no scenario" in page.inner_text("#problem-text").lower()
+    response = page.goto(f"{server}/scenarios/0000000000000000")
+    assert response.status == 404
+    assert "has no scenario with the id" in page.inner_text("main")
+    assert "Screening aid" in page.inner_text("#cautions")
+
+
+def test_api_error_is_shown_in_plain_words(page: Any, server: str, test_tank: str) -> None:
+    # a residence time the API refuses: the check says why, in words, and the page keeps working
+    page.goto(f"{server}/scenarios/{test_tank}?residence_time=-5")
+    page.wait_for_selector("#verdict.verdict-error", timeout=TIMEOUT)
+    text = page.inner_text("#verdict")
+    assert "could not be made" in text and "residence_time" in text
+    assert "Traceback" not in page.content()

@@ -118,10 +118,10 @@ def test_cautions_are_those_of_the_design() -> None:
         assert words in text
 
 
-def test_plotly_is_the_installed_bundle_gzipped_and_cached(client: Any) -> None:
+def test_plotly_is_the_installed_bundle_gzipped_and_cached(client: Any, saved_id: str) -> None:
     home = client.get("/").text
     path = urls.plotly_bundle(plotly.__version__)
-    page = client.get(f"/scenarios/{'0' * 16}").text
+    page = client.get(f"/scenarios/{saved_id}").text
     assert path in parse(page).scripts
     r = client.get(path, headers={"Accept-Encoding": "gzip"})
     assert r.status_code == 200
@@ -164,7 +164,7 @@ def test_nothing_is_loaded_from_another_host() -> None:
 
 
 def test_partials_start_with_underscore() -> None:
-    pages = {"layout.html", "home.html", "scenario.html", "print.html"}
+    pages = {"layout.html", "home.html", "scenario.html", "print.html", "missing.html"}
     for path in (ASSETS / "templates").glob("*.html"):
         text = path.read_text(encoding="utf-8")
         for included in re.findall(r'{%\s*include\s+"([^"]+)"', text):
@@ -210,8 +210,43 @@ def test_view_state_round_trips_through_urls() -> None:
         urls.api_answer("x", "nonsense")
 
 
-def test_missing_scenario_page_still_renders_with_cautions(client: Any) -> None:
-    # the shell renders; its script reports the API's 404 in words (tested in the browser)
+def test_missing_scenario_is_a_404_page_in_words(client: Any) -> None:
     r = client.get("/scenarios/0000000000000000")
-    assert r.status_code == 200
-    assert "Screening aid" in r.text
+    assert r.status_code == 404 and r.headers["content-type"].startswith("text/html")
+    assert "has no scenario with the id" in r.text and "0000000000000000" in r.text
+    assert client.get("/scenarios/0000000000000000/print").status_code == 404
+    for line in cautions_text():
+        assert line in html.unescape(r.text)
+
+
+def test_a_demo_named_by_its_file_name_redirects_to_its_id(client: Any) -> None:
+    demos = [s for s in client.get("/api/v1/scenarios").json()["scenarios"] if s["demo"] and s["name"]]
+    assert demos
+    d = demos[0]
+    r = client.get(f"/scenarios/{d['name']}", params={"residence_time": "600"}, follow_redirects=False)
+    assert r.status_code == 307
+    assert r.headers["location"] == f"/scenarios/{d['id']}?residence_time=600"
+    r = client.get(f"/scenarios/{d['name']}/print", follow_redirects=False)
+    assert r.headers["location"] == f"/scenarios/{d['id']}/print"
+
+
+def _srgb_to_lab_l(hex_colour: str) -> float:
+    """CIE L* of an sRGB colour: IEC 61966-2-1 transfer function, then CIE 1976 L* (D65 white)."""
+    rgb = [int(hex_colour[i : i + 2], 16) / 255 for i in (1, 3, 5)]
+    lin = [c / 12.92 if c <= 0.04045 else ((c + 0.055) / 1.055) ** 2.4 for c in rgb]
+    # relative luminance Y, ITU-R BT.709 primaries (as IEC 61966-2-1)
+    y = 0.2126 * lin[0] + 0.7152 * lin[1] + 0.0722 * lin[2]
+    return 116 * y ** (1 / 3) - 16 if y > (6 / 29) ** 3 else y * (29 / 3) ** 3
+
+
+def test_region_colours_differ_in_lightness() -> None:
+    """The region colours stay apart without hue (colour-blind readers, greyscale print): every pair differs
+    in CIE L* by at least 10 (our own threshold; a lightness step of about 10 is easy to see, common practice)."""
+    text = (ASSETS / "static" / "palette.js").read_text(encoding="utf-8")
+    block = text[text.index("REGION_COLOURS") : text.index("};")]
+    colours = dict(re.findall(r'(\w+): "(#[0-9a-fA-F]{6})"', block))
+    assert set(colours) == {"stable", "sensitive", "multiple", "unstable", "runaway"}
+    lightness = {k: _srgb_to_lab_l(v) for k, v in colours.items()}
+    keys = sorted(lightness, key=lightness.get)
+    for a, b in zip(keys, keys[1:], strict=False):
+        assert lightness[b] - lightness[a] >= 10, (a, b, lightness)

@@ -1,12 +1,13 @@
 // Colours of our own for the map regions. Chosen so the regions differ in lightness as well as hue
-// (pale blue-grey, sand, mid blue, burnt orange, dark plum), which keeps them apart for the common forms of
-// colour blindness and in greyscale print; the legend always names each region in words as well.
+// (CIE L* about 94 pale blue-grey, 81 sand, 63 orange, 41 blue, 17 dark plum; tests/web/test_pages.py checks
+// the steps), which keeps them apart for the common forms of colour blindness and in greyscale print; the
+// legend always names each region in words as well.
 
 export const REGION_COLOURS = {
-  stable: "#e4ecf3",
-  sensitive: "#f2cd7f",
-  multiple: "#4f86c6",
-  unstable: "#c0632b",
+  stable: "#e8eff5",
+  sensitive: "#f0c36a",
+  multiple: "#2e62a8",
+  unstable: "#e0813f",
   runaway: "#4a1631",
 };
 const SPARE = ["#9aa5b1", "#6b7b8c", "#3d4a57"];

@@ -18,7 +18,7 @@ from pathlib import Path
 from typing import Any
 
 from fastapi import FastAPI, Request
-from fastapi.responses import HTMLResponse, Response
+from fastapi.responses import HTMLResponse, RedirectResponse, Response
 from fastapi.staticfiles import StaticFiles
 from jinja2 import Environment, FileSystemLoader, select_autoescape
 
@@ -39,31 +39,11 @@ def _plotly_file() -> tuple[Path, str]:
     return path, plotly.__version__
 
 
-#: DESIGN.md §9, used only while ``exomap.core.cautions`` (their one place) is not installed.
-_CAUTIONS_FALLBACK = (
-    "Screening aid, not a design or safety basis.",
-    "Kinetic and thermal data must come from calorimetric testing of the real materials; results inherit the "
-    "uncertainty of those data.",
-    "It does not replace a hazard study, relief-system design or the site's management of change.",
-    "Follow local codes, the site's procedures and the judgement of licensed engineers.",
-)
-
-
 def cautions_text() -> list[str]:
-    """The cautions of DESIGN.md §9, from their one place in the core (``exomap.core.cautions``)."""
-    try:
-        from exomap.core import cautions
-    except ImportError:
-        return list(_CAUTIONS_FALLBACK)
-    for name in ("CAUTIONS", "TEXT", "cautions"):
-        value = getattr(cautions, name, None)
-        if callable(value):
-            value = value()
-        if isinstance(value, str):
-            return [value]
-        if isinstance(value, (list, tuple)) and value:
-            return [str(v) for v in value]
-    return list(_CAUTIONS_FALLBACK)
+    """The cautions of DESIGN.md §9, from their one place (``exomap.core.cautions``)."""
+    from exomap.core.cautions import CAUTIONS
+
+    return list(CAUTIONS)
 
 
 @dataclass
@@ -121,27 +101,39 @@ def install(app: FastAPI, settings: Any) -> None:
     def home_page() -> HTMLResponse:
         return render("home.html", twin=urls.api_scenarios(), boot={"page": "home"})
 
-    @app.get("/scenarios/{scenario_id}", response_class=HTMLResponse, include_in_schema=False)
-    def scenario_page(scenario_id: str, request: Request) -> HTMLResponse:
+    def lookup(request: Request, scenario_id: str) -> Any:
+        """The stored scenario (demo or saved) of an id or demo name, or None."""
+        return request.app.state.store.get(scenario_id)
+
+    def missing(scenario_id: str) -> HTMLResponse:
+        response = render("missing.html", scenario_id=scenario_id, twin=urls.api_scenarios(), boot={"page": "missing"})
+        response.status_code = 404
+        return response
+
+    def scenario_view(template: str, page: Any, request: Request, scenario_id: str) -> Response:
+        stored = lookup(request, scenario_id)
         state = urls.view_state(request.query_params)
+        if stored is None:
+            return missing(scenario_id)
+        if stored.id != scenario_id:
+            # a demo named by its file name: send the browser to its content id, so the link is exact
+            return RedirectResponse(page(stored.id, state), status_code=307)
         return render(
-            "scenario.html",
+            template,
             scenario_id=scenario_id,
+            title=stored.title,
             state=state,
             twin=urls.api_twin_of_page(scenario_id, state),
-            boot={"page": "scenario", "scenario_id": scenario_id},
+            boot={"page": template.removesuffix(".html"), "scenario_id": scenario_id},
         )
 
+    @app.get("/scenarios/{scenario_id}", response_class=HTMLResponse, include_in_schema=False)
+    def scenario_page(scenario_id: str, request: Request) -> Response:
+        return scenario_view("scenario.html", urls.scenario_page, request, scenario_id)
+
     @app.get("/scenarios/{scenario_id}/print", response_class=HTMLResponse, include_in_schema=False)
-    def print_page(scenario_id: str, request: Request) -> HTMLResponse:
-        state = urls.view_state(request.query_params)
-        return render(
-            "print.html",
-            scenario_id=scenario_id,
-            state=state,
-            twin=urls.api_twin_of_page(scenario_id, state),
-            boot={"page": "print", "scenario_id": scenario_id},
-        )
+    def print_page(scenario_id: str, request: Request) -> Response:
+        return scenario_view("print.html", urls.print_page, request, scenario_id)
 
     @app.get(urls.PLOTLY_ROUTE, include_in_schema=False)
     def plotly_js(version: str, request: Request) -> Response:
