@@ -40,7 +40,7 @@ MAX_CELLS = 1_000_000
 MAX_POINTS = 2000
 #: Samples of the manifold per residence-time column (explicit one-reaction path, general path).
 SAMPLES_EXPLICIT = 256
-SAMPLES_GENERAL = 240
+SAMPLES_GENERAL = 160
 #: Columns used for the boundary curves at least (more than the map's when the map is coarse).
 BOUNDARY_COLUMNS = 200
 SPACINGS = ("log", "linear")
@@ -65,10 +65,13 @@ class MapResult:
 
     def to_dict(self) -> dict:
         def clean(rows: np.ndarray) -> list:
-            return [[None if not math.isfinite(v) else round(float(v), 4) for v in row] for row in rows]
+            # numpy does the rounding and the NaN -> None swap; tolist() builds the Python lists in C
+            rows = np.asarray(rows, dtype=float)
+            return np.where(np.isfinite(rows), np.round(rows, 4), None).tolist()
 
         def curve(arr: np.ndarray) -> list:
-            return [[None if not math.isfinite(v) else float(v) for v in row] for row in arr]
+            arr = np.asarray(arr, dtype=float)
+            return np.where(np.isfinite(arr), arr, None).tolist()
 
         b = self.boundaries
         return {
@@ -80,7 +83,7 @@ class MapResult:
             "state_count": self.state_count.tolist(),
             "max_temperature_K": clean(self.max_temperature),
             "limit_temperature_K": self.T_max,
-            "valve_opening": [None if not math.isfinite(v) else float(v) for v in self.valve_opening],
+            "valve_opening": curve(self.valve_opening),
             "valve_limited": np.broadcast_to(self.valve_limited, self.region.shape).tolist(),
             "boundaries": {
                 "ignition": curve(b["ignition"]),
@@ -260,7 +263,7 @@ def _unhide_fold_pairs(mf: Manifold, smp: Samples) -> Samples:
     tau_d = smp.tau[dc, dk]
     lo, hi = smp.s[dc, dk - 1], smp.s[dc, dk + 1]
     xi_d = None if mf.explicit else smp.xi[dc, dk]
-    for _ in range(60):  # golden-section search for the extremum of sign * dT_in/ds
+    for _ in range(30):  # golden-section search for the extremum of sign * dT_in/ds (to 1e-6 of a sample)
         m1 = hi - 0.618033988749895 * (hi - lo)
         m2 = lo + 0.618033988749895 * (hi - lo)
         f1 = sgn * _eval(mf, tau_d, m1, xi_d).dTin_ds
@@ -351,7 +354,7 @@ def _cell_states(mf: Manifold, smp: Samples, cols: _Columns, T_in: np.ndarray) -
     xi_g = None
     if not mf.explicit:
         xi_flat = np.repeat(smp.xi, 3, axis=1).reshape(-1, mf.m)
-        xi_g = xi_flat[k0]
+        xi_g = xi_flat[k0] + w[:, None] * (xi_flat[k1] - xi_flat[k0])
     # polish: a Newton step on T_in(s) = value, kept inside the bracket; stability and slope are taken at
     # the polished point (explicit path) or at the point before the last step (general path, which would
     # need one more isothermal solve; the step there is far below the sample spacing)
@@ -442,26 +445,30 @@ def _cusps(mf: Manifold, tau: np.ndarray, cols: _Columns) -> list[tuple[float, f
 def _solve_cusp(mf: Manifold, x_fold: float, x_none: float, s_lo: float, s_hi: float
                 ) -> tuple[float, float, float] | None:
     """Cusp between ln(tau) = x_fold (a fold pair) and x_none (none): at fixed tau the extremum of
-    dT_in/ds over s touches zero. Nested one-dimensional solves: golden-section search for the extremum in s,
+    dT_in/ds over s touches zero. Nested one-dimensional solves: a zoomed grid search for the extremum in s,
     Brent's method in ln(tau) for its value."""
 
-    def d1(x: float, s: float) -> float:
-        return float(mf.evaluate(np.array([math.exp(x)]), np.array([s])).dTin_ds[0])
+    def d1(x: float, s: np.ndarray) -> np.ndarray:
+        return mf.evaluate(np.full(s.shape, math.exp(x)), s).dTin_ds
 
     # the sign dT_in/ds keeps across the window where there is no fold
-    sgn = math.copysign(1.0, d1(x_none, 0.5 * (s_lo + s_hi)))
+    sgn = math.copysign(1.0, float(d1(x_none, np.array([0.5 * (s_lo + s_hi)]))[0]))
 
     def extremum(x: float) -> tuple[float, float]:
+        # two zooms of a 33-point grid (one vectorised evaluation each), then a parabola through the
+        # three points around the extremum
         a, b = s_lo, s_hi
-        for _ in range(90):
-            m1 = b - 0.618033988749895 * (b - a)
-            m2 = a + 0.618033988749895 * (b - a)
-            if sgn * d1(x, m1) < sgn * d1(x, m2):
-                b = m2
-            else:
-                a = m1
-        s = 0.5 * (a + b)
-        return s, d1(x, s)
+        for _ in range(3):
+            s = np.linspace(a, b, 33)
+            f = sgn * d1(x, s)
+            k = int(np.clip(np.argmin(f), 1, 31))
+            a, b = s[k - 1], s[k + 1]
+        f0, f1, f2 = f[k - 1], f[k], f[k + 1]
+        h = s[k] - s[k - 1]
+        den = f0 - 2 * f1 + f2
+        off = 0.5 * h * (f0 - f2) / den if den > 0 else 0.0
+        s_ext = s[k] + float(np.clip(off, -h, h))
+        return s_ext, float(d1(x, np.array([s_ext]))[0])
 
     try:
         f_fold, f_none = extremum(x_fold)[1], extremum(x_none)[1]
