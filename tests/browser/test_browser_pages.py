@@ -356,6 +356,12 @@ def test_upset_opens_as_a_response_plot(page: Any, server: str, test_tank: str) 
     assert query(page.url)["upset"] == "0"
     names = page.evaluate("() => document.getElementById('upset-plot').data.map(t => t.name)")
     assert "tank temperature" in names
+    # the response drawn is the simulation the check summarised: same peak (display in degC)
+    upset = page.evaluate("() => window.exomap.view.check.upsets[0]")
+    drawn = page.evaluate(
+        "() => Math.max(...document.getElementById('upset-plot').data.find(t => t.name === 'tank temperature').y)"
+    )
+    assert drawn == pytest.approx(upset["peak_temperature_K"] - 273.15, abs=0.05)
     screenshot(page, "upset")
 
 
