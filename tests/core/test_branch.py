@@ -97,6 +97,7 @@ def test_turning_points_along_residence_time_match_the_closed_form(cstr, ref, ga
     res = branch(c.sc, "residence_time", c.tau(float(np.sqrt(Da_fold.prod()))), c.T_in, lo=lo, hi=hi)
     assert res.success, res.message
     tps = sorted(res.turning_points, key=lambda t: t.T)
+    # analytic: two folds for B above the threshold, both inside the window
     assert len(tps) == 2
     # analytic: ignition is the lower-temperature fold x_- (Da = G(x_-), the low branch meets the middle
     # one); extinction the upper x_+ (van Heerden 1953; Uppal, Ray & Poore 1974)
@@ -104,10 +105,13 @@ def test_turning_points_along_residence_time_match_the_closed_form(cstr, ref, ga
     for t, x, Da in zip(tps, x_fold, Da_fold, strict=True):
         # analytic fold (Reference.fold_x, Reference.G), relative 1e-8 in the parameter
         assert t.tau == pytest.approx(c.tau(float(Da)), rel=1e-8)
+        # analytic: T = T_in + dT_ad x at the fold (adiabatic)
         assert t.T == pytest.approx(c.T_in + c.dT_ad * x, rel=1e-9)
+        # the parameter held fixed
         assert t.T_in == c.T_in
     # analytic: ignition at the larger residence time (Da = G(x_-) > G(x_+))
     assert tps[0].tau > tps[1].tau
+    # DEVELOPERS.md: turning_points() is the turning points of branch()
     assert turning_points(c.sc, "residence_time", c.tau(float(np.sqrt(Da_fold.prod()))), c.T_in, lo=lo, hi=hi) == list(
         res.turning_points
     )
@@ -143,16 +147,20 @@ def test_turning_points_along_feed_temperature_match_fsolve(cstr, gamma, B, Da, 
             full_output=True,
             xtol=1e-14,
         )
+        # fsolve converged on the hand-written fold equations
         assert ier == 1
         if lo <= sol[1] <= hi:
             expected.append(sol)
     assert len(expected) >= 2, "the case must have a fold pair inside the window"
     got = sorted(res.turning_points, key=lambda t: t.T)
+    # as many folds as the hand-written equations have in the window
     assert len(got) == len(expected)
     for t, (T, T_in) in zip(got, expected, strict=True):
         # fsolve on the hand-written balances; relative 1e-8 in the parameter T_in
         assert t.T_in == pytest.approx(T_in, rel=1e-8)
+        # fsolve on the hand-written balances, relative 1e-8
         assert t.T == pytest.approx(T, rel=1e-8)
+        # the parameter held fixed
         assert t.tau == tau
         # analytic: a local maximum of T_in(T) is an ignition, a local minimum an extinction
         d2 = (hand.dT_in_dT(T + 1e-4, tau) - hand.dT_in_dT(T - 1e-4, tau)) / 2e-4
@@ -184,11 +192,14 @@ def test_hopf_points_along_feed_temperature(cstr, ref):
             expected.append(T)
     assert len(expected) == 2, "the case must have two Hopf points inside the window"
     got = sorted(res.hopf_points, key=lambda h: h.T)
+    # as many Hopf points as the hand-written trace has zeros with det > 0
     assert len(got) == len(expected)
     for h, T in zip(got, expected, strict=True):
         # relative 1e-8 in the temperature and the parameter
         assert h.T == pytest.approx(T, rel=1e-8)
+        # hand-written energy balance at that T, relative 1e-8
         assert h.T_in == pytest.approx(hand.T_in_of(T, tau), rel=1e-8)
+        # the parameter held fixed
         assert h.tau == tau
         # analytic: at a Hopf point the eigenvalues are +- i sqrt(det)
         assert h.frequency == pytest.approx(math.sqrt(np.linalg.det(hand.jac(T, tau))), rel=1e-6)
@@ -206,7 +217,9 @@ def test_hopf_points_along_residence_time(cstr, ref):
         J = hand.jac(h.T, h.tau)
         # ... with zero trace and positive determinant (Uppal, Ray & Poore 1974), scaled by the residence time
         assert abs(np.trace(J)) * h.tau < 1e-7
+        # Uppal, Ray & Poore 1974: det > 0 at a Hopf point (else it is a saddle, not a Hopf)
         assert np.linalg.det(J) > 0
+        # analytic: the eigenvalues at a Hopf point are +- i sqrt(det)
         assert h.frequency == pytest.approx(math.sqrt(np.linalg.det(J)), rel=1e-6)
 
     # independent: the branch tau(T) from the quadratic, and the zeros of the trace along each of its roots
@@ -226,10 +239,12 @@ def test_hopf_points_along_residence_time(cstr, ref):
     expected.sort(key=lambda p: p[1])
     assert len(expected) == 2, "the case must have two Hopf points inside the window"
     got = sorted(res.hopf_points, key=lambda h: h.T)
+    # as many Hopf points as zeros of the trace along the closed-form branch
     assert len(got) == len(expected)
     for h, (t, T) in zip(got, expected, strict=True):
         # relative 1e-8 in the parameter
         assert h.tau == pytest.approx(t, rel=1e-8)
+        # closed-form branch tau(T) and the zero of its trace, relative 1e-9
         assert h.T == pytest.approx(T, rel=1e-9)
 
 
@@ -246,11 +261,13 @@ def test_branch_points_are_steady_states(cstr, ref, along):
         lo=(tau0 / 20 if along == "residence_time" else c.T_in - 60.0),
         hi=(tau0 * 20 if along == "residence_time" else c.T_in + 60.0),
     )
+    # the branch is resolved (DESIGN.md §4 points)
     assert len(res.points) > 50
     n_checked = 0
     for p in res.points:
         # analytic: the hand-written energy balance holds at every point
         assert hand.T_in_of(p.T, p.tau) == pytest.approx(p.T_in, rel=1e-9)
+        # DESIGN.md §4: value is the parameter along the branch
         assert p.value == (p.tau if along == "residence_time" else p.T_in)
         # analytic: x = tau k / (1 + tau k)
         k = hand.k(p.T)
@@ -261,6 +278,7 @@ def test_branch_points_are_steady_states(cstr, ref, along):
             # analytic: stable iff trace < 0 and det > 0 (the product adds -1/tau only)
             assert p.stable == (tr < 0 and det > 0)
             n_checked += 1
+    # most points are away from tr = 0 and det = 0 and were checked
     assert n_checked > 40
 
 
@@ -269,14 +287,17 @@ def test_bad_branch_requests(cstr):
     c = cstr()
     with pytest.raises(ModelInputError, match="along") as err:
         branch(c.sc, "pressure", 100.0, c.T_in)
+    # DEVELOPERS.md: ModelInputError.field names the input
     assert err.value.field == "along"
     with pytest.raises(ModelInputError, match="range") as err:
         branch(c.sc, "feed_temperature", 100.0, c.T_in, lo=400.0, hi=300.0)
+    # DEVELOPERS.md: ModelInputError.field names the input
     assert err.value.field == "range"
     with pytest.raises(ModelInputError, match="range"):
         branch(c.sc, "residence_time", 100.0, c.T_in, lo=-1.0, hi=300.0)
     with pytest.raises(ModelInputError, match="residence time") as err:
         branch(c.sc, "feed_temperature", -5.0, c.T_in)
+    # DEVELOPERS.md: ModelInputError.field names the input
     assert err.value.field == "residence_time"
     with pytest.raises(ModelInputError, match="feed temperature"):
         branch(c.sc, "residence_time", 100.0, float("nan"))

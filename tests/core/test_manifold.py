@@ -54,6 +54,7 @@ def _residual_of_point(sc, tau, T_in, C, T):
 def test_explicit_points_are_steady_states_of_the_model(log_tau, frac, jacket):
     sc = _second_order(UA=3000.0 if jacket else 0.0)
     mf = Manifold(sc)
+    # core/manifold.py: one reaction with a positive order in its limiting reactant is explicit
     assert mf.explicit
     tau = math.exp(log_tau)
     xi = frac * mf.xi_max
@@ -68,6 +69,7 @@ def test_explicit_points_are_steady_states_of_the_model(log_tau, frac, jacket):
     # a manifold point is a steady state of the full model at the feed temperature it reports (analytic)
     if T_in > 0:
         res_c, res_t = _residual_of_point(sc, tau, T_in, C, T)
+        # analytic: species and energy rows vanish (relative to the feed's magnitudes and tau)
         assert res_c < 1e-10 and res_t < 1e-10
 
 
@@ -83,6 +85,7 @@ def test_explicit_and_general_parametrisations_agree(log_tau, frac):
     g = mf.general_eval(np.array([tau]), e.T)
     # the same point by two routes: Newton on the isothermal balance at T versus the closed form in xi
     assert g.xi[0, 0] == pytest.approx(e.xi[0, 0], rel=1e-9, abs=1e-12 * mf.xi_max)
+    # the same point by both routes, relative 1e-11
     assert g.T_in[0] == pytest.approx(e.T_in[0], rel=1e-11)
     # analytic (chain rule): dT_in/dT = (dT_in/dxi) / (dT/dxi)
     assert g.dTin_ds[0] == pytest.approx(e.dTin_ds[0] / e.dT_ds[0], rel=1e-7, abs=1e-9)
@@ -99,6 +102,7 @@ def test_dTin_ds_is_the_derivative(explicit):
     h = 1e-6 * np.abs(s)
     fd = (mf.evaluate(np.full(s.shape, tau), s + h).T_in - mf.evaluate(np.full(s.shape, tau), s - h).T_in) / (2 * h)
     ok = e.valid
+    # most of the samples are physical
     assert ok.sum() > 10
     # analytic: central difference, O(h^2)
     np.testing.assert_allclose(e.dTin_ds[ok], fd[ok], rtol=1e-5, atol=1e-6 * np.max(np.abs(fd[ok])))
@@ -107,6 +111,7 @@ def test_dTin_ds_is_the_derivative(explicit):
 def test_series_isothermal_extents_match_the_closed_form(series):
     sc = series()
     mf = Manifold(sc)
+    # core/manifold.py: two reactions take the general path
     assert not mf.explicit
     T = np.linspace(260.0, 650.0, 40)
     for tau in (10.0, 1000.0, 1e5):
@@ -119,7 +124,9 @@ def test_series_isothermal_extents_match_the_closed_form(series):
         CP = tau * k1 * CA / (1 + tau * k2)
         # analytic: consecutive first-order reactions in a CSTR
         np.testing.assert_allclose(C[:, 0], CA, rtol=1e-9, atol=1e-9 * sc.c_in[0])
+        # analytic: consecutive first-order reactions in a CSTR
         np.testing.assert_allclose(C[:, 1], CP, rtol=1e-9, atol=1e-9 * sc.c_in[0])
+        # analytic: A -> P -> D conserves moles
         np.testing.assert_allclose(C.sum(axis=1), sc.c_in[0], rtol=1e-12)
 
 
@@ -140,6 +147,7 @@ def test_reduced_jacobian_eigenvalues_are_those_of_the_full_block(series, which)
         # analytic: the species invariants (n - rank(nu) of them) relax at -1/tau; the rest are the reduced ones
         n_inv = sc.n_species - np.linalg.matrix_rank(sc.nu)
         expected = np.sort_complex(np.concatenate((red, np.full(n_inv, -1.0 / tau))))
+        # analytic: the eigenvalues of the full block are those of the reduced one plus -1/tau per invariant
         np.testing.assert_allclose(full, expected, rtol=1e-7, atol=1e-9 * np.max(np.abs(full)))
 
 
@@ -150,4 +158,5 @@ def test_heat_release_bound_is_the_adiabatic_rise(series):
     s = series()
     # analytic: every A ends as D, releasing both reactions' heat
     expected = (240.0e3 + 400.0e3) * 2000.0 / (s.rho * s.cp)
+    # analytic: every A ends as D, releasing both reactions' heat
     assert Manifold(s).max_heat_release() == pytest.approx(expected, rel=1e-9)

@@ -96,6 +96,7 @@ def test_jacobian_matches_central_differences(characteristic, controlled, h, cA,
     Js, Jfs = _scaled(J, scale), _scaled(J_fd, scale)
     # analytic: central-difference error O(h^2 f''') plus round-off O(eps f / h), well below these
     tol = 1e-7 * np.max(np.abs(Js)) + 1e-6 * np.abs(Js)
+    # analytic: the analytic Jacobian equals the central difference within the tolerance above
     assert np.all(np.abs(Js - Jfs) <= tol), np.max(np.abs(Js - Jfs) / tol)
 
 
@@ -124,6 +125,7 @@ def test_fixed_valve_has_inert_integral():
     J = model.jacobian(0.0, y, u)
     # analytic: with a fixed opening the integral state neither moves nor acts
     assert np.all(J[-1, :] == 0.0) and np.all(J[:, -1] == 0.0)
+    # analytic: the integral does not move with a fixed valve
     assert model.rhs(0.0, y, u)[-1] == 0.0
 
 
@@ -134,12 +136,16 @@ def test_anti_windup_stops_integrating_when_clamped():
     # far above the setpoint: the output clamps at 1; the error would push it further open, so no integration
     y = model.pack(sc.vessel.h_set + 0.6, np.array(sc.c_in) + 1.0, 330.0, 1000.0)
     x, *_ = model.opening(y, u)
+    # analytic: the raw output is far above 1, so it clamps
     assert x == 1.0
+    # DESIGN.md §2 anti-windup: no integration while clamped and pushing further
     assert model.rhs(0.0, y, u)[-1] == 0.0
     # DESIGN.md §2: but with the error pulling back it integrates again (conditional integration)
     y = model.pack(sc.vessel.h_set - 0.3, np.array(sc.c_in) + 1.0, 330.0, 1000.0)
     x, *_ = model.opening(y, u)
+    # analytic: still clamped (the integral dominates)
     assert x == 1.0
+    # DESIGN.md §2 anti-windup: integrating again, dI/dt = h - h_set = -0.3 m
     assert model.rhs(0.0, y, u)[-1] == pytest.approx(-0.3, rel=1e-12)
 
 
@@ -157,6 +163,7 @@ def test_valve_flow_is_monotone_in_level(characteristic, h1, h2, x):
     # analytic: dp = p_head + rho g (h + z) - p_down grows with h, and q ~ sqrt(dp)
     assert valve_mod.flow(sc, lo, x) <= valve_mod.flow(sc, hi, x)
     if hi > lo + 1e-6:
+        # analytic: strictly increasing for a positive opening
         assert valve_mod.flow(sc, lo, x) < valve_mod.flow(sc, hi, x)
 
 
@@ -201,7 +208,9 @@ def test_nominal_inputs_open_the_valve_to_pass_the_feed():
         u = nominal_inputs(sc, tau=3000.0)
         # DESIGN.md §2: at the set level the controller's output passes q_in, so the level is steady
         q = valve_mod.flow(sc, sc.vessel.h_set, u.bias)
+        # analytic: the opening from nominal_inputs passes V/tau at the set level
         assert q == pytest.approx(sc.vessel.V_set / 3000.0, rel=1e-10)
         model = Model(sc)
         y = model.pack(sc.vessel.h_set, np.array(sc.c_in), 330.0, 0.0)
+        # analytic: so dh/dt = 0 there
         assert abs(model.rhs(0.0, y, u)[0]) < 1e-12

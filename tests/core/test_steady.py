@@ -53,6 +53,7 @@ def test_multiplicity_above_the_threshold(cstr, ref, gamma):
     assert res.success, res.message
     # analytic: three steady states strictly between the two fold values of Da
     assert len(res.states) == 3
+    # independent: the dense scan + brentq of Reference.roots_x finds the same three
     assert len(ref.roots_x(Da, B, gamma)) == 3
 
 
@@ -60,6 +61,7 @@ def test_multiplicity_above_the_threshold(cstr, ref, gamma):
 def test_no_multiplicity_below_the_threshold(cstr, ref, gamma):
     # analytic: below B = 4 gamma/(gamma - 4) the function G(x) = Da is monotone, one state for every Da
     B = ref.B_cusp(gamma) * 0.95
+    # analytic: the fold quadratic has no real root below the threshold
     assert ref.fold_x(B, gamma).size == 0
     c = cstr(gamma, B)
     # Da over six decades, densest where G has its inflection (x ~ 1/2)
@@ -68,6 +70,7 @@ def test_no_multiplicity_below_the_threshold(cstr, ref, gamma):
     for Da in Das:
         res = steady_states(c.sc, c.tau(float(Da)), c.T_in)
         assert res.success, res.message
+        # analytic: one steady state for every Da below the threshold
         assert len(res.states) == 1, (Da, [s.T for s in res.states])
 
 
@@ -92,6 +95,7 @@ def test_states_are_the_dimensionless_roots(cstr, ref, gamma, B, Da):
     assert res.success, res.message
     x_ref = ref.roots_x(Da, B, gamma)
     x_got = np.array([s.conversion for s in res.states])
+    # independent root count (Reference.roots_x: dense scan + brentq)
     assert len(x_got) == len(x_ref)
     # analytic (independent root finding), to solver accuracy
     np.testing.assert_allclose(x_got, x_ref, rtol=1e-9, atol=1e-12)
@@ -120,18 +124,22 @@ def test_reported_states_have_tiny_residual_and_lie_on_the_adiabat(cstr, ref, ga
     model = Model(c.sc)
     u = nominal_inputs(c.sc, tau=tau, T_in=T_in)
     x_ref = ref.roots_x(Da, B, gamma)
+    # independent root count (Reference.roots_x: dense scan + brentq)
     assert len(res.states) == len(x_ref)
     for s in res.states:
         y = model.pack(c.sc.vessel.h_set, np.array(s.C), s.T, 0.0)
         f = model.rhs(0.0, y, u)
         # analytic: a steady state makes dC/dt and dT/dt vanish; scaled by tau and the feed's magnitudes
         assert np.max(np.abs(f[1:3])) * tau / c.sc.c_in[0] < 1e-10
+        # analytic: the energy row vanishes too, relative to T_in/tau
         assert abs(f[3]) * tau / T_in < 1e-10
         # analytic: one adiabatic reaction, T - T_in = dT_ad X (energy balance minus dT_ad times species)
         assert s.T - T_in == pytest.approx(c.dT_ad * s.conversion, rel=1e-9, abs=1e-9 * T_in)
         # analytic: C_A + C_P = C_Af (A -> P conserves moles)
         assert s.C[0] + s.C[1] == pytest.approx(c.sc.c_in[0], rel=1e-12)
+        # the core's own polish residual (relative, see steady._polish) is tiny as well
         assert s.residual < 1e-10
+    # independent roots (Reference.roots_x), relative 1e-8
     np.testing.assert_allclose([s.conversion for s in res.states], x_ref, rtol=1e-8, atol=1e-12)
 
 
@@ -159,18 +167,24 @@ def test_explicit_and_general_paths_agree(cstr, monkeypatch, gamma, B, Da, beta)
     c = cstr(gamma, B, kappa=beta / c0.tau(Da))
     tau = c.tau(Da)
     mf_explicit = Manifold(c.sc)
+    # core/manifold.py: one first-order reaction takes the explicit path
     assert mf_explicit.explicit
     explicit = steady_states(c.sc, tau, c.T_in)
     monkeypatch.setattr(steady_mod, "Manifold", _GeneralOnly)
     general = steady_states(c.sc, tau, c.T_in)
     assert explicit.success and general.success
+    # the same equations by the general path: the same number of states
     assert len(explicit.states) == len(general.states) >= 1
     for a, b in zip(explicit.states, general.states, strict=True):
         # the two paths solve the same equations: agreement to solver accuracy
         assert a.T == pytest.approx(b.T, rel=1e-11)
+        # same equations, solver accuracy
         assert a.conversion == pytest.approx(b.conversion, rel=1e-9, abs=1e-12)
+        # same equations: same stability class
         assert a.stability == b.stability
+        # same equations: same oscillatory flag
         assert a.oscillatory == b.oscillatory
+        # same equations: dT/dT_in agrees (a derivative, looser)
         assert a.sensitivity == pytest.approx(b.sensitivity, rel=1e-6)
     # the roots along each coordinate map to the same temperatures
     mf_general = _GeneralOnly(c.sc)
@@ -178,6 +192,7 @@ def test_explicit_and_general_paths_agree(cstr, monkeypatch, gamma, B, Da, beta)
     s_e = roots_along(mf_explicit, tau, c.T_in, T_lo, T_hi)
     s_g = roots_along(mf_general, tau, c.T_in, T_lo, T_hi)
     T_e = mf_explicit.evaluate(np.full(len(s_e), tau), np.array(s_e)).T
+    # same equations: roots in T of the general path = explicit roots mapped to T
     np.testing.assert_allclose(np.sort(T_e), np.sort(s_g), rtol=1e-10)
 
 
@@ -187,6 +202,7 @@ def test_stability_low_high_stable_middle_saddle(cstr, ref, gamma, B, Da):
     c = cstr(gamma, B)
     tau = c.tau(Da)
     res = steady_states(c.sc, tau, c.T_in)
+    # van Heerden 1953; Uppal, Ray & Poore 1974: low and high states stable, the middle one a saddle
     assert [s.stability for s in res.states] == ["stable", "saddle", "stable"]
     for k, s in enumerate(res.states):
         x, y = _dimless_state(c, s)
@@ -196,10 +212,12 @@ def test_stability_low_high_stable_middle_saddle(cstr, ref, gamma, B, Da):
         if k == 1:
             # analytic: a saddle has det < 0 of the 2x2 dimensionless Jacobian, and one positive eigenvalue
             assert det < 0
+            # DESIGN.md §2: a saddle has exactly one positive real eigenvalue
             assert np.sum(ev.real > 0) == 1
         else:
             # analytic: stable node/focus, det > 0 and trace < 0
             assert det > 0 and tr < 0
+            # DESIGN.md §2: stable = every real part negative
             assert np.all(ev.real < 0)
         # the reported eigenvalues [1/s] contain those of the 2x2 Jacobian divided by tau, plus -1/tau for the
         # product species (analytic: C_A + C_P relaxes to C_Af at rate 1/tau)
@@ -221,11 +239,13 @@ def test_jacketed_oscillatory_flag_matches_trace_and_determinant(cstr, ref, gamm
         res = steady_states(c.sc, tau, c.T_in)
         assert res.success, res.message
         x_ref = ref.roots_x(Da, B, gamma, beta)
+        # independent root count (Reference.roots_x with beta)
         assert len(res.states) == len(x_ref)
         for s, xr in zip(res.states, x_ref, strict=True):
             # analytic (independent root), with y = B x / (1 + beta) for y_c = 0
             assert s.conversion == pytest.approx(xr, rel=1e-8, abs=1e-12)
             xs, ys = _dimless_state(c, s)
+            # analytic: y = B x / (1 + beta) on the jacketed steady state with y_c = 0
             assert ys == pytest.approx(B * xs / (1 + beta), rel=1e-8, abs=1e-10)
             J = ref.jac2(xs, ys, Da, B, gamma, beta)
             tr, det = np.trace(J), np.linalg.det(J)
@@ -237,21 +257,27 @@ def test_jacketed_oscillatory_flag_matches_trace_and_determinant(cstr, ref, gamm
             if assume_away:
                 continue
             expected_osc = complex_pair and tr / 2 > -1
+            # analytic: the leading pair is complex iff tr^2 < 4 det and tr/2 > -1 (the product's eigenvalue)
             assert s.oscillatory == expected_osc, (x, tr, det)
             if complex_pair:
+                # analytic: a complex pair
                 assert np.sum(np.abs(ev.imag) > 0) == 2
                 # analytic: the pair is tr/2 +- i sqrt(det - tr^2/4), in 1/s after dividing by tau
                 pair = ev[np.abs(ev.imag) > 0]
+                # analytic: real part tr/2 in dimensionless time, divided by tau
                 np.testing.assert_allclose(pair.real, tr / 2 / tau, rtol=1e-7, atol=1e-10 / tau)
+                # analytic: imaginary part sqrt(4 det - tr^2)/2, divided by tau
                 np.testing.assert_allclose(np.abs(pair.imag), math.sqrt(-disc) / 2 / tau, rtol=1e-7)
                 seen["unstable_focus" if tr > 0 else "stable_focus"] += 1
                 if det > 0 and tr > 0:
                     # trace > 0, det > 0: both of the pair unstable, not a saddle (DESIGN.md §2 "unstable")
                     assert s.stability == "unstable"
             else:
+                # analytic: tr^2 >= 4 det gives real eigenvalues
                 assert np.all(ev.imag == 0)
                 seen["real"] += 1
             if det > 0 and tr < 0:
+                # analytic: det > 0 and tr < 0 of the 2x2 (and -1 for the product) is stable
                 assert s.stability == "stable"
     # the scan must actually have crossed the Hopf point (else the test proves little)
     assert seen["unstable_focus"] > 0 and seen["stable_focus"] > 0
@@ -280,7 +306,9 @@ def test_jacketed_with_colder_coolant_matches_hand_balances(cstr):
     f = T_in_of(T) - c.T_in
     idx = np.nonzero(np.sign(f[:-1]) * np.sign(f[1:]) < 0)[0]
     T_ref = [brentq(lambda t: T_in_of(t) - c.T_in, T[i], T[i + 1], xtol=1e-13) for i in idx]
+    # independent: dense scan + brentq on the hand-written balance finds as many
     assert len(T_ref) == len(res.states) >= 1
+    # independent roots, relative 1e-11
     np.testing.assert_allclose([s.T for s in res.states], T_ref, rtol=1e-11)
 
 
@@ -329,9 +357,11 @@ def test_two_reactions_against_fsolve(series, tau, T_in):
     ours = [s.T for s in res.states]
     # scipy.optimize.fsolve (MINPACK hybrd) from 297 starting points, on balances written out here
     assert len(found) == len(ours), (found, ours)
+    # fsolve roots with tiny residual, relative 1e-9
     np.testing.assert_allclose(ours, found, rtol=1e-9)
     for s in res.states:
         z = (s.C[0] / sc.c_in[0], s.C[1] / sc.c_in[0], s.C[2] / sc.c_in[0], s.T / 300.0)
+        # the reported states satisfy the hand-written balances
         assert np.max(np.abs(F(z))) < 1e-9
 
 
@@ -349,6 +379,7 @@ def test_bad_residence_time(cstr, tau):
     c = cstr()
     with pytest.raises(ModelInputError, match="residence time") as err:
         steady_states(c.sc, tau, c.T_in)
+    # DEVELOPERS.md: ModelInputError.field names the input
     assert err.value.field == "residence_time"
 
 
@@ -357,6 +388,7 @@ def test_bad_feed_temperature(cstr, T_in):
     c = cstr()
     with pytest.raises(ModelInputError, match="feed temperature") as err:
         steady_states(c.sc, 100.0, T_in)
+    # DEVELOPERS.md: ModelInputError.field names the input
     assert err.value.field == "feed_temperature"
 
 
@@ -364,6 +396,7 @@ def test_bad_feed_concentration(cstr):
     c = cstr()
     with pytest.raises(ModelInputError, match="feed concentrations") as err:
         steady_states(c.sc, 100.0, c.T_in, c_in=(-1.0, 0.0))
+    # DEVELOPERS.md: ModelInputError.field names the input (dotted scenario path)
     assert err.value.field == "feed.concentrations"
 
 
@@ -372,8 +405,10 @@ def test_to_dict_follows_the_answer_format(cstr):
     doc = steady_states(c.sc, c.tau(0.04), c.T_in).to_dict()
     # DESIGN.md §4: keys of the steady-states answer
     assert set(doc["operating_point"]) >= {"residence_time_s", "feed_temperature_K"}
+    # analytic (fixture Da = 0.04 between the folds): stable, saddle, stable
     assert [s["stability"] for s in doc["states"]] == ["stable", "saddle", "stable"]
     for s in doc["states"]:
+        # DESIGN.md §4: keys of each state
         assert set(s) >= {
             "temperature_K",
             "concentrations_mol_per_m3",
@@ -383,4 +418,5 @@ def test_to_dict_follows_the_answer_format(cstr):
             "eigenvalues_per_s",
             "valve_opening",
         }
+        # DESIGN.md §4: eigenvalues as [re, im] pairs
         assert all(len(pair) == 2 for pair in s["eigenvalues_per_s"])
