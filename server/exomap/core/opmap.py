@@ -289,12 +289,18 @@ def _columns(mf: Manifold, smp: Samples) -> _Columns:
     c, k = np.nonzero((d[:, :-1] * d[:, 1:]) < 0)
     xi0 = None if mf.explicit else smp.xi[c, k]
     _, fold = _refine(mf, smp.tau[c, k], smp.s[c, k], smp.s[c, k + 1], d[c, k], lambda e: e.dTin_ds, xi0)
-    _, hopf, valid = mf.stability(smp.tau, smp.T, smp.xi)
+    if mf.m == 1 and mf.kappa == 0 and mf.lam == 0:
+        # one reaction, adiabatic: trace = 0 means J beta + alpha = 2/tau, so det = -1/tau^2 < 0 and no
+        # complex pair can cross the imaginary axis (Manifold.trace_det): no Hopf point to look for
+        hopf = np.ones(smp.T.shape)
+        valid = np.zeros(smp.T.shape, dtype=bool)
+    else:
+        _, hopf, valid = mf.stability(smp.tau, smp.T, smp.xi)
     return _Columns(smp, c, k, fold, d[c, k] > 0, hopf, valid)
 
 
 def _cell_states(mf: Manifold, smp: Samples, cols: _Columns, T_in: np.ndarray) -> dict:
-    """Every steady state of every cell, as dense arrays (n_tin, n_tau, S) with a presence mask."""
+    """Every steady state of every cell, as dense arrays (S, n_tin, n_tau) with a presence mask."""
     n_tau, N = smp.s.shape
     n_tin = T_in.size
     n_f = np.bincount(cols.fold_col, minlength=n_tau)
@@ -334,8 +340,11 @@ def _cell_states(mf: Manifold, smp: Samples, cols: _Columns, T_in: np.ndarray) -
     gid = np.arange(n_tau)[:, None] * S + seg
     key = (np.take_along_axis(direction, seg, axis=1) * v3 + span * gid).ravel()
     # which (row, column, piece) hold a state: the piece's span contains the row's feed temperature
-    present = has[None] & (T_in[:, None, None] >= vmin[None]) & (T_in[:, None, None] <= vmax[None])
-    ri, ci, pi = np.nonzero(present)
+    # dense arrays are laid out (piece, row, column) so that the per-cell reductions over pieces are
+    # element-wise operations on contiguous slices
+    present = (has.T[:, None, :] & (T_in[None, :, None] >= vmin.T[:, None, :])
+               & (T_in[None, :, None] <= vmax.T[:, None, :]))
+    pi, ri, ci = np.nonzero(present)
     v = T_in[ri]
     q = direction[ci, pi] * v + span * (ci * S + pi)
     pos = np.searchsorted(key, q, side="left")
@@ -355,11 +364,12 @@ def _cell_states(mf: Manifold, smp: Samples, cols: _Columns, T_in: np.ndarray) -
     if not mf.explicit:
         xi_flat = np.repeat(smp.xi, 3, axis=1).reshape(-1, mf.m)
         xi_g = xi_flat[k0] + w[:, None] * (xi_flat[k1] - xi_flat[k0])
-    # polish: a Newton step on T_in(s) = value, kept inside the bracket; stability and slope are taken at
+    # polish: two Newton steps on T_in(s) = value, kept inside the bracket; stability and slope are taken at
     # the polished point (explicit path) or at the point before the last step (general path, which would
     # need one more isothermal solve; the step there is far below the sample spacing)
-    for _ in range(2 if mf.explicit else 1):
+    for _ in range(2):
         e = _eval(mf, ts, ss, xi_g)
+        xi_g = None if mf.explicit else e.xi
         with np.errstate(invalid="ignore", divide="ignore"):
             step = (e.T_in - v) / e.dTin_ds
         ss = np.clip(ss - np.where(np.isfinite(step), step, 0.0), lo_b, hi_b)
@@ -369,30 +379,30 @@ def _cell_states(mf: Manifold, smp: Samples, cols: _Columns, T_in: np.ndarray) -
     with np.errstate(invalid="ignore", divide="ignore"):
         sens = e.dT_ds / e.dTin_ds
     T_state = e.T if mf.explicit else ss
-    shape = (n_tin, n_tau, S)
+    shape = (S, n_tin, n_tau)
     T = np.full(shape, np.nan)
     stable = np.zeros(shape, dtype=bool)
-    sensitivity = np.full(shape, np.nan)
-    T[ri, ci, pi] = T_state
-    stable[ri, ci, pi] = stable_s
-    sensitivity[ri, ci, pi] = sens
+    sensitivity = np.zeros(shape)
+    T[pi, ri, ci] = T_state
+    stable[pi, ri, ci] = stable_s
+    sensitivity[pi, ri, ci] = np.abs(sens)
     return {"present": present, "T": T, "stable": stable, "sensitivity": sensitivity}
 
 
 def _classify(sc: Scenario, st: dict) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     present, T, stable, sens = st["present"], st["T"], st["stable"], st["sensitivity"]
-    count = present.sum(axis=2)
+    count = present.sum(axis=0)
     reach = present & stable
-    n_stable = reach.sum(axis=2)
-    tmax = np.where(reach, T, -np.inf).max(axis=2)
+    n_stable = reach.sum(axis=0)
+    tmax = np.where(reach, T, -np.inf).max(axis=0)
     tmax = np.where(n_stable > 0, tmax, np.nan)
-    single_sens = np.where(reach, np.abs(sens), 0.0).max(axis=2)
+    single_sens = (sens * reach).max(axis=0)
     region = np.full(count.shape, CODE["stable"], dtype=np.int8)
-    region = np.where((count == 1) & (single_sens > sc.policy.sensitivity), CODE["sensitive"], region)
-    region = np.where(count > 1, CODE["multiple"], region)
-    region = np.where(n_stable == 0, CODE["unstable"], region)
-    region = np.where(n_stable > 0, np.where(tmax > sc.limits.T_max, CODE["runaway"], region), region)
-    return region.astype(np.int8), count.astype(np.int16), tmax
+    region[(count == 1) & (single_sens > sc.policy.sensitivity)] = CODE["sensitive"]
+    region[count > 1] = CODE["multiple"]
+    region[n_stable == 0] = CODE["unstable"]
+    region[(n_stable > 0) & (tmax > sc.limits.T_max)] = CODE["runaway"]
+    return region, count.astype(np.int16), tmax
 
 
 # -- boundaries -------------------------------------------------------------------------------------------
