@@ -9,6 +9,8 @@ written for this API rather than a general OpenAPI browser, and has no third-par
 
 from __future__ import annotations
 
+import html
+
 from fastapi import FastAPI
 from fastapi.responses import HTMLResponse, Response
 
@@ -31,10 +33,7 @@ PAGE = """<!doctype html>
 <p>Every answer is the same document as the command line's <code>--json</code>. Quantities are numbers in SI
 base units or strings with units (<code>"40 min"</code>, <code>"35 degC"</code>). Machine-readable description:
 <a href="/api/v1/openapi.json">openapi.json</a>.</p>
-<p class="caution">Screening aid, not a design or safety basis. Kinetic and thermal data must come from
-calorimetric testing of the real materials; results inherit the uncertainty of those data. It does not replace
-a hazard study, relief-system design or the site's management of change. Follow local codes, the site's
-procedures and the judgement of licensed engineers.</p>
+<p class="caution">{cautions}</p>
 </header>
 <main id="operations"><p>Loading the API description&hellip;</p></main>
 </body>
@@ -173,9 +172,13 @@ main();
 def install(app: FastAPI) -> None:
     """Add ``/api/docs`` and its two files to ``app``."""
 
+    from exomap.core.cautions import CAUTIONS  # the one place of the cautions (DESIGN.md §9)
+
+    page = PAGE.replace("{cautions}", html.escape(" ".join(CAUTIONS)))
+
     @app.get(DOCS_PATH, include_in_schema=False)
     async def api_docs() -> HTMLResponse:
-        return HTMLResponse(PAGE)
+        return HTMLResponse(page)
 
     @app.get(DOCS_PATH + "/docs.js", include_in_schema=False)
     async def api_docs_script() -> Response:

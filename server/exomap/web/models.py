@@ -2,7 +2,8 @@
 
 Every computation names its scenario either inline (``"scenario": {...}``, a scenario document of DESIGN.md
 §3) or by the id of a stored scenario (``"scenario_id"``; a demo can also be named by its file name, e.g.
-``"adiabatic"``). A quantity is a number in SI base units or a string with units: ``"40 min"``, ``"35 degC"``.
+``"jacketed-first-order"``). A quantity is a number in SI base units or a string with units: ``"40 min"``,
+``"35 degC"``.
 Unknown fields are refused, so a misspelt option is an error rather than silently ignored.
 """
 
@@ -23,7 +24,7 @@ GridPoints = Annotated[
     Field(min_length=2, max_length=2, description="[n_residence_time, n_feed_temperature], each at least 2."),
 ]
 
-EXAMPLE_ID = "adiabatic-second-order"
+EXAMPLE_ID = "jacketed-first-order"
 """Demo name used in the examples (any stored scenario id works the same way)."""
 
 
