@@ -387,6 +387,23 @@ def test_fold_curves_of_the_adiabatic_cstr(cstr, ref):
             assert tau * float(c.k(T_in)) == pytest.approx(Da, rel=1e-6)
 
 
+# -- valve overlay ----------------------------------------------------------------------------------------
+def test_valve_opening_and_overlay_follow_the_sizing_equation(cstr):
+    c = cstr(20.0, 8.0)
+    m = operating_map(c.sc, tau_range=(50.0, 5000.0), T_in_range=(300.0, 400.0), points=(60, 4))
+    sc = c.sc
+    dp = sc.vessel.p_head + sc.rho * 9.80665 * (sc.vessel.h_set + sc.valve.z_drop) - sc.valve.p_down
+    q = sc.vessel.V_set / m.tau
+    # IEC 60534-2-1 eq. (1), linear characteristic: x = q / (Kv sqrt(dp/1 bar / (rho/rho0))) with q in m^3/h;
+    # rho0 = 999.1 kg/m^3 (water at 15 degC, from memory), hence rel 1e-4
+    x = q * 3600.0 / (sc.valve.Kv * np.sqrt(dp / 1e5 / (sc.rho / 999.1)))
+    np.testing.assert_allclose(m.valve_opening, x, rtol=1e-4)
+    # DESIGN.md §2: usable range 20-80 % open (common practice), flagged outside it; away from the edges
+    away = (np.abs(x - 0.2) > 1e-3) & (np.abs(x - 0.8) > 1e-3)
+    assert np.any(x[away] < 0.2) and np.any((x[away] > 0.2) & (x[away] < 0.8))
+    np.testing.assert_array_equal(np.asarray(m.valve_limited)[away], ((x < 0.2) | (x > 0.8))[away])
+
+
 # -- answer shape and bad requests -------------------------------------------------------------------------
 def test_map_answer_shape(cstr):
     c = cstr(20.0, 8.0)

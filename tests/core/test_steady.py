@@ -139,6 +139,15 @@ def test_reported_states_have_tiny_residual_and_lie_on_the_adiabat(cstr, ref, ga
         assert s.C[0] + s.C[1] == pytest.approx(c.sc.c_in[0], rel=1e-12)
         # the core's own polish residual (relative, see steady._polish) is tiny as well
         assert s.residual < 1e-10
+        # analytic: dT/dT_in = 1/(dT_in/dT) with T_in(T) = T - dT_ad tau k/(1 + tau k) at fixed tau
+        k = float(c.k(s.T))
+        dTin_dT = 1.0 - c.dT_ad * tau * k * c.E / s.T**2 / (1.0 + tau * k) ** 2
+        assert s.sensitivity == pytest.approx(1.0 / dTin_dT, rel=1e-6, abs=1e-9)
+    # Uppal, Ray & Poore 1974 (analytic for beta = 0): without cooling det > 0 forces trace < -1, so an
+    # adiabatic first-order CSTR has no oscillatory instability: the states alternate stable, saddle, stable
+    expected = ["stable", "saddle", "stable"][: len(res.states)] if len(res.states) != 2 else None
+    if expected is not None:
+        assert [s.stability for s in res.states] == expected
     # independent roots (Reference.roots_x), relative 1e-8
     np.testing.assert_allclose([s.conversion for s in res.states], x_ref, rtol=1e-8, atol=1e-12)
 
