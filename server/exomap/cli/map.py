@@ -22,14 +22,25 @@ def add_parser(subparsers: argparse._SubParsersAction) -> argparse.ArgumentParse
         "maximum-temperature boundaries solved exactly. Values take units ('5 min', '20 degC').",
     )
     add_scenario_argument(parser)
-    parser.add_argument("--residence-time", nargs=2, metavar=("LO", "HI"),
-                        help="residence-time window, e.g. '5 min' '3 h' (default: the scenario's map window)")
-    parser.add_argument("--feed-temperature", nargs=2, metavar=("LO", "HI"),
-                        help="feed-temperature window, e.g. '0 degC' '60 degC'")
-    parser.add_argument("--points", nargs=2, type=int, metavar=("N_TAU", "N_TIN"),
-                        help="grid points along residence time and feed temperature (default: the scenario's)")
-    parser.add_argument("--spacing", choices=("log", "linear"), default="log",
-                        help="spacing of the residence time axis (default: log)")
+    parser.add_argument(
+        "--residence-time",
+        nargs=2,
+        metavar=("LO", "HI"),
+        help="residence-time window, e.g. '5 min' '3 h' (default: the scenario's map window)",
+    )
+    parser.add_argument(
+        "--feed-temperature", nargs=2, metavar=("LO", "HI"), help="feed-temperature window, e.g. '0 degC' '60 degC'"
+    )
+    parser.add_argument(
+        "--points",
+        nargs=2,
+        type=int,
+        metavar=("N_TAU", "N_TIN"),
+        help="grid points along residence time and feed temperature (default: the scenario's)",
+    )
+    parser.add_argument(
+        "--spacing", choices=("log", "linear"), default="log", help="spacing of the residence time axis (default: log)"
+    )
     out = parser.add_mutually_exclusive_group()
     out.add_argument("--json", action="store_true", help="print the map answer document (SI) as JSON")
     out.add_argument("--csv", metavar="FILE", help="write one row per cell to FILE ('-' for stdout)")
@@ -41,21 +52,27 @@ def render(sc, m) -> str:  # noqa: ANN001 - Scenario, MapResult
     lines = []
     if sc.title:
         lines += [fmt.heading(sc.title), ""]
-    lines.append(f"Operating map: residence time {fmt.minutes(m.tau[0])} .. {fmt.minutes(m.tau[-1])} "
-                 f"({m.spacing}), feed {fmt.celsius(m.T_in[0])} .. {fmt.celsius(m.T_in[-1])}, "
-                 f"{m.tau.size} x {m.T_in.size} cells")
+    lines.append(
+        f"Operating map: residence time {fmt.minutes(m.tau[0])} .. {fmt.minutes(m.tau[-1])} "
+        f"({m.spacing}), feed {fmt.celsius(m.T_in[0])} .. {fmt.celsius(m.T_in[-1])}, "
+        f"{m.tau.size} x {m.T_in.size} cells"
+    )
     lines.append("")
     counts = np.bincount(m.region.ravel(), minlength=5)
-    rows = [[key, label, fmt.percent(counts[code] / m.region.size, 1)]
-            for code, key, label in [(d["code"], d["key"], d["label"]) for d in m.to_dict()["legend"]]]
+    rows = [
+        [key, label, fmt.percent(counts[code] / m.region.size, 1)]
+        for code, key, label in [(d["code"], d["key"], d["label"]) for d in m.to_dict()["legend"]]
+    ]
     lines.append(fmt.table(["region", "meaning", "share of map"], rows, right=[False, False, True]))
     lines.append("")
     b = m.boundaries
     for key, label in (("ignition", "ignition"), ("extinction", "extinction")):
         pts = b[key]
         if len(pts):
-            lines.append(f"{label}: {len(pts)} points, feed {fmt.celsius(float(np.nanmin(pts[:, 1])))} .. "
-                         f"{fmt.celsius(float(np.nanmax(pts[:, 1])))}")
+            lines.append(
+                f"{label}: {len(pts)} points, feed {fmt.celsius(float(np.nanmin(pts[:, 1])))} .. "
+                f"{fmt.celsius(float(np.nanmax(pts[:, 1])))}"
+            )
         else:
             lines.append(f"{label}: none in the window")
     for c in b["cusp"]:
@@ -77,8 +94,13 @@ def run(args: argparse.Namespace) -> int:
     tin_range = None
     if args.feed_temperature:
         tin_range = tuple(quantity(v, "temperature", "--feed-temperature") for v in args.feed_temperature)
-    m = operating_map(sc, tau_range=tau_range, T_in_range=tin_range,
-                      points=tuple(args.points) if args.points else None, spacing=args.spacing)
+    m = operating_map(
+        sc,
+        tau_range=tau_range,
+        T_in_range=tin_range,
+        points=tuple(args.points) if args.points else None,
+        spacing=args.spacing,
+    )
     if args.json:
         print_json(m.to_dict())
     elif args.csv:

@@ -49,8 +49,14 @@ class BranchPoint:
     piece: int
 
     def to_dict(self) -> dict:
-        return {"value": self.value, "temperature_K": self.T, "conversion": self.conversion,
-                "stable": self.stable, "oscillatory": self.oscillatory, "piece": self.piece}
+        return {
+            "value": self.value,
+            "temperature_K": self.T,
+            "conversion": self.conversion,
+            "stable": self.stable,
+            "oscillatory": self.oscillatory,
+            "piece": self.piece,
+        }
 
 
 @dataclass(frozen=True)
@@ -61,8 +67,12 @@ class TurningPoint:
     T: float
 
     def to_dict(self) -> dict:
-        return {"kind": self.kind, "residence_time_s": self.tau, "feed_temperature_K": self.T_in,
-                "temperature_K": self.T}
+        return {
+            "kind": self.kind,
+            "residence_time_s": self.tau,
+            "feed_temperature_K": self.T_in,
+            "temperature_K": self.T,
+        }
 
 
 @dataclass(frozen=True)
@@ -73,9 +83,13 @@ class HopfPoint:
     frequency: float
 
     def to_dict(self) -> dict:
-        return {"residence_time_s": self.tau, "feed_temperature_K": self.T_in, "temperature_K": self.T,
-                "angular_frequency_rad_per_s": self.frequency, "period_s": 2 * math.pi / self.frequency
-                if self.frequency > 0 else None}
+        return {
+            "residence_time_s": self.tau,
+            "feed_temperature_K": self.T_in,
+            "temperature_K": self.T,
+            "angular_frequency_rad_per_s": self.frequency,
+            "period_s": 2 * math.pi / self.frequency if self.frequency > 0 else None,
+        }
 
 
 @dataclass(frozen=True)
@@ -154,15 +168,27 @@ def _along_feed_temperature(mf: Manifold, tau: float, lo: float, hi: float, n: i
     ok = smp.valid[0] & np.isfinite(T_in)
     lead, cplx = mf.leading_real_part(smp.tau, smp.T, smp.xi)
     lead, cplx = lead[0], cplx[0]
-    points, turns, hopfs = [], [], []
+    points: list[BranchPoint] = []
+    turns: list[TurningPoint] = []
+    hopfs: list[HopfPoint] = []
     piece, inside_prev = 0, False
     for k in range(n):
         inside = bool(ok[k] and lo <= T_in[k] <= hi)
         if inside:
             if not inside_prev and points:
                 piece += 1
-            points.append(BranchPoint(float(T_in[k]), tau, float(T_in[k]), float(smp.T[0, k]),
-                                      _conversion(mf, smp.xi[0, k]), bool(lead[k] < 0), bool(cplx[k]), piece))
+            points.append(
+                BranchPoint(
+                    float(T_in[k]),
+                    tau,
+                    float(T_in[k]),
+                    float(smp.T[0, k]),
+                    _conversion(mf, smp.xi[0, k]),
+                    bool(lead[k] < 0),
+                    bool(cplx[k]),
+                    piece,
+                )
+            )
         inside_prev = inside
         if k + 1 >= n or not (ok[k] and ok[k + 1]):
             continue
@@ -322,7 +348,9 @@ def _along_residence_time(mf: Manifold, T_in: float, lo: float, hi: float):
         b = _trace(plane, X, Y, -1.0)
         pieces.append(list(reversed(b)) + a[1:])
 
-    points, turns, hopfs = [], [], []
+    points: list[BranchPoint] = []
+    turns: list[TurningPoint] = []
+    hopfs: list[HopfPoint] = []
     for k, path in enumerate(pieces):
         prev = None
         for X, Y, tx in path:
@@ -384,9 +412,18 @@ def _refine_hopf(plane: _Plane, a: tuple, b: tuple) -> HopfPoint | None:
 
 
 # -- public API -------------------------------------------------------------------------------------------
-def branch(sc: Scenario, along: str, tau: float | None = None, T_in: float | None = None, *,
-           lo: float | None = None, hi: float | None = None, c_in: tuple[float, ...] | None = None,
-           T_c: float | None = None, samples: int = 1500) -> BranchResult:
+def branch(
+    sc: Scenario,
+    along: str,
+    tau: float | None = None,
+    T_in: float | None = None,
+    *,
+    lo: float | None = None,
+    hi: float | None = None,
+    c_in: tuple[float, ...] | None = None,
+    T_c: float | None = None,
+    samples: int = 1500,
+) -> BranchResult:
     """Steady states along one parameter through an operating point.
 
     Parameters
@@ -430,12 +467,24 @@ def branch(sc: Scenario, along: str, tau: float | None = None, T_in: float | Non
         points, turns, hopfs = _along_residence_time(mf, T_in, lo, hi)
     turns.sort(key=lambda t: (t.tau, t.T_in))
     ok = bool(points)
-    return BranchResult(along, tau, T_in, lo, hi, tuple(points), tuple(turns), tuple(hopfs), ok,
-                        f"{len(points)} points, {len(turns)} turning point(s), {len(hopfs)} Hopf point(s)"
-                        if ok else "no steady state in the range")
+    return BranchResult(
+        along,
+        tau,
+        T_in,
+        lo,
+        hi,
+        tuple(points),
+        tuple(turns),
+        tuple(hopfs),
+        ok,
+        f"{len(points)} points, {len(turns)} turning point(s), {len(hopfs)} Hopf point(s)"
+        if ok
+        else "no steady state in the range",
+    )
 
 
-def turning_points(sc: Scenario, along: str, tau: float | None = None, T_in: float | None = None,
-                   **kwargs: object) -> list[TurningPoint]:
+def turning_points(
+    sc: Scenario, along: str, tau: float | None = None, T_in: float | None = None, **kwargs: object
+) -> list[TurningPoint]:
     """Only the turning points of :func:`branch` (same arguments)."""
     return list(branch(sc, along, tau, T_in, **kwargs).turning_points)  # type: ignore[arg-type]

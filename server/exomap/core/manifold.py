@@ -77,8 +77,9 @@ class Manifold:
         self.J = -sc.dH / (sc.rho * sc.cp)
         self.c_in = np.asarray(sc.c_in if c_in is None else c_in, dtype=float)
         if self.c_in.shape != (sc.n_species,) or np.any(~np.isfinite(self.c_in)) or np.any(self.c_in < 0):
-            raise ModelInputError("feed concentrations must be one finite value >= 0 per species",
-                                  field="feed.concentrations")
+            raise ModelInputError(
+                "feed concentrations must be one finite value >= 0 per species", field="feed.concentrations"
+            )
         self.T_c = sc.T_c if T_c is None else float(T_c)
         rhocpV = sc.rho * sc.cp * sc.vessel.V_set
         self.kappa = sc.UA_jacket / rhocpV
@@ -97,8 +98,11 @@ class Manifold:
             self.xi_max = float(lim[i_lim])
             self.explicit = bool(self.orders[0, i_lim] > 0 and self.xi_max > 0)
         if self.m == 1:
-            self._active = [(float(self.c_in[i]), float(self.nu[i, 0]), float(self.orders[0, i]))
-                            for i in range(self.n) if self.orders[0, i] != 0]
+            self._active = [
+                (float(self.c_in[i]), float(self.nu[i, 0]), float(self.orders[0, i]))
+                for i in range(self.n)
+                if self.orders[0, i] != 0
+            ]
         self._release: tuple[float, float] | None = None
         self._orders_nz = [[i for i in range(self.n) if self.orders[j, i] != 0] for j in range(self.m)]
         self.key = sc.key_species
@@ -123,24 +127,20 @@ class Manifold:
         return self.c_in + xi @ self.nu.T
 
     def rates(self, C: np.ndarray, T: np.ndarray) -> np.ndarray:
-        """r (..., m) at C (..., n) and T (...)."""
-        return self.rate_derivatives(C, T, derivatives=False)[0]
-
-    def rate_derivatives(self, C: np.ndarray, T: np.ndarray, derivatives: bool = True
-                         ) -> tuple[np.ndarray, np.ndarray | None, np.ndarray | None]:
-        """(r (...,m), dr/dC (...,m,n), dr/dT (...,m)); only species with a non-zero order are visited."""
-        Cp = np.maximum(C, 1e-300)
-        logC = None
+        """r (..., m) at C (..., n) and T (...), from logarithms; only species with a non-zero order enter."""
+        logC = np.log(np.maximum(C, 1e-300))
         r = np.empty(np.shape(T) + (self.m,))
         for j in range(self.m):
             lr = np.log(self.k0[j]) - self.E[j] / T
             for i in self._orders_nz[j]:
-                if logC is None:
-                    logC = np.log(Cp)
                 lr = lr + self.orders[j, i] * logC[..., i]
             r[..., j] = np.exp(lr)
-        if not derivatives:
-            return r, None, None
+        return r
+
+    def rate_derivatives(self, C: np.ndarray, T: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """(r (...,m), dr/dC (...,m,n), dr/dT (...,m))."""
+        Cp = np.maximum(C, 1e-300)
+        r = self.rates(C, T)
         dr_dC = np.zeros(np.shape(T) + (self.m, self.n))
         for j in range(self.m):
             for i in self._orders_nz[j]:
@@ -201,8 +201,9 @@ class Manifold:
         return np.exp(y)
 
     # -- the general path -----------------------------------------------------------------------------
-    def isothermal_extents(self, tau: np.ndarray, T: np.ndarray, xi0: np.ndarray | None = None,
-                           tol: float = 1e-12, max_iter: int = 60) -> np.ndarray:
+    def isothermal_extents(
+        self, tau: np.ndarray, T: np.ndarray, xi0: np.ndarray | None = None, tol: float = 1e-12, max_iter: int = 60
+    ) -> np.ndarray:
         """Solve xi = tau r(C_in + nu xi, T) for xi (..., m) by damped Newton, vectorised."""
         tau, T = np.broadcast_arrays(np.asarray(tau, float), np.asarray(T, float))
         if xi0 is None:
@@ -229,8 +230,9 @@ class Manifold:
             new = self._feasible(x, x + step)
             flat_xi[active] = new
             # converged: the residual is at the rounding level of its terms, or the step is negligible
-            done = np.all((np.abs(res) <= tol * (np.abs(x) + np.abs(tr)) + 1e-300)
-                          | (np.abs(new - x) <= 1e-15 * scale), axis=-1)
+            done = np.all(
+                (np.abs(res) <= tol * (np.abs(x) + np.abs(tr)) + 1e-300) | (np.abs(new - x) <= 1e-15 * scale), axis=-1
+            )
             active = active[~done]
         return flat_xi.reshape(xi.shape)
 
@@ -300,8 +302,10 @@ class Manifold:
         """Coordinate bounds covering temperatures T_lo..T_hi at each tau."""
         tau = np.asarray(tau, float)
         if self.explicit:
-            return (self.explicit_xi_at_T(tau, np.full(tau.shape, T_lo)),
-                    self.explicit_xi_at_T(tau, np.full(tau.shape, T_hi)))
+            return (
+                self.explicit_xi_at_T(tau, np.full(tau.shape, T_lo)),
+                self.explicit_xi_at_T(tau, np.full(tau.shape, T_hi)),
+            )
         return np.full(tau.shape, T_lo), np.full(tau.shape, T_hi)
 
     def sample(self, tau: np.ndarray, T_lo: float, T_hi: float, N: int) -> Samples:
@@ -331,15 +335,15 @@ class Manifold:
         xi = self.isothermal_extents(np.broadcast_to(tau[:, None], (tau.size, N)), Tg, xi0)
         return self.general_eval(tau[:, None], Tg, xi)
 
-    def stability(self, tau: np.ndarray, T: np.ndarray, xi: np.ndarray) -> tuple[np.ndarray, np.ndarray,
-                                                                                    np.ndarray]:
+    def stability(self, tau: np.ndarray, T: np.ndarray, xi: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Vectorised stability on the manifold without eigenvalues where the size allows it.
 
         Returns (stable, hopf, hopf_valid): ``hopf`` is a smooth function that changes sign where a complex
         pair crosses the imaginary axis, meaningful where ``hopf_valid``. For 2x2 it is the trace (with a
         positive determinant); for 3x3 it is minus the Hurwitz determinant :math:`c_2 c_1 - c_0` of the
         characteristic polynomial :math:`\\lambda^3 + c_2\\lambda^2 + c_1\\lambda + c_0` (where its
-        discriminant is negative: one real root and a complex pair); larger systems use the leading real part of the eigenvalues.
+        discriminant is negative: one real root and a complex pair); larger systems use the leading real
+        part of the eigenvalues.
         """
         if self.m == 1:
             tr, det = self.trace_det(tau, T, xi)
@@ -347,9 +351,14 @@ class Manifold:
         Jr = self.reduced_jacobian(tau, T, xi)
         if self.m == 2:
             c2 = -(Jr[..., 0, 0] + Jr[..., 1, 1] + Jr[..., 2, 2])
-            c1 = (Jr[..., 0, 0] * Jr[..., 1, 1] - Jr[..., 0, 1] * Jr[..., 1, 0]
-                  + Jr[..., 0, 0] * Jr[..., 2, 2] - Jr[..., 0, 2] * Jr[..., 2, 0]
-                  + Jr[..., 1, 1] * Jr[..., 2, 2] - Jr[..., 1, 2] * Jr[..., 2, 1])
+            c1 = (
+                Jr[..., 0, 0] * Jr[..., 1, 1]
+                - Jr[..., 0, 1] * Jr[..., 1, 0]
+                + Jr[..., 0, 0] * Jr[..., 2, 2]
+                - Jr[..., 0, 2] * Jr[..., 2, 0]
+                + Jr[..., 1, 1] * Jr[..., 2, 2]
+                - Jr[..., 1, 2] * Jr[..., 2, 1]
+            )
             c0 = -np.linalg.det(Jr)
             # c2 c1 - c0 = -(l1 + l2)(l1 + l3)(l2 + l3): with a complex pair a +- iw and a real root l1 it is
             # -2a((l1 + a)^2 + w^2), so its sign is minus that of the pair's real part

@@ -122,9 +122,15 @@ class Inputs:
     extra: dict = field(default_factory=dict)
 
 
-def nominal_inputs(sc: Scenario, *, tau: float | None = None, T_in: float | None = None,
-                   c_in: tuple[float, ...] | None = None, T_c: float | None = None,
-                   opening: float | None = None) -> Inputs:
+def nominal_inputs(
+    sc: Scenario,
+    *,
+    tau: float | None = None,
+    T_in: float | None = None,
+    c_in: tuple[float, ...] | None = None,
+    T_c: float | None = None,
+    opening: float | None = None,
+) -> Inputs:
     """Inputs at an operating point: q_in = V_set / tau; a fixed valve at the scenario's opening unless
     ``opening`` is given; a controlled valve with its bias at ``opening`` (default: the opening that passes
     q_in at the setpoint level, so the tank starts steady)."""

@@ -44,6 +44,8 @@ SAMPLES_GENERAL = 160
 #: Columns used for the boundary curves at least (more than the map's when the map is coarse).
 BOUNDARY_COLUMNS = 200
 SPACINGS = ("log", "linear")
+#: None as a 0-d object array: np.where with it gives object arrays whose tolist() has None for NaN.
+_NONE = np.array(None, dtype=object)
 
 
 @dataclass(frozen=True)
@@ -67,11 +69,11 @@ class MapResult:
         def clean(rows: np.ndarray) -> list:
             # numpy does the rounding and the NaN -> None swap; tolist() builds the Python lists in C
             rows = np.asarray(rows, dtype=float)
-            return np.where(np.isfinite(rows), np.round(rows, 4), None).tolist()
+            return np.where(np.isfinite(rows), np.round(rows, 4), _NONE).tolist()
 
         def curve(arr: np.ndarray) -> list:
             arr = np.asarray(arr, dtype=float)
-            return np.where(np.isfinite(arr), arr, None).tolist()
+            return np.where(np.isfinite(arr), arr, _NONE).tolist()
 
         b = self.boundaries
         return {
@@ -100,13 +102,22 @@ class MapResult:
         keys = {code: key for code, key, _ in REGIONS}
         out = io.StringIO()
         w = csv.writer(out, lineterminator="\n")
-        w.writerow(["residence_time_s", "feed_temperature_K", "region", "state_count", "max_temperature_K",
-                    "valve_limited"])
+        w.writerow(
+            ["residence_time_s", "feed_temperature_K", "region", "state_count", "max_temperature_K", "valve_limited"]
+        )
         for i, T_in in enumerate(self.T_in):
             for j, tau in enumerate(self.tau):
                 mt = self.max_temperature[i, j]
-                w.writerow([f"{tau:.6g}", f"{T_in:.6g}", keys[int(self.region[i, j])], int(self.state_count[i, j]),
-                            "" if not math.isfinite(mt) else f"{mt:.4f}", int(bool(self.valve_limited[j]))])
+                w.writerow(
+                    [
+                        f"{tau:.6g}",
+                        f"{T_in:.6g}",
+                        keys[int(self.region[i, j])],
+                        int(self.state_count[i, j]),
+                        "" if not math.isfinite(mt) else f"{mt:.4f}",
+                        int(bool(self.valve_limited[j])),
+                    ]
+                )
         return out.getvalue()
 
 
@@ -122,25 +133,35 @@ def _grid_args(sc: Scenario, tau_range, T_in_range, points, spacing):
         points = spec.points if spec else (200, 200)
     lo, hi = (float(v) for v in tau_range)
     if not (math.isfinite(lo) and math.isfinite(hi) and 0 < lo < hi):
-        raise ModelInputError("residence_time range must be two increasing positive values in s",
-                              field="residence_time")
+        raise ModelInputError(
+            "residence_time range must be two increasing positive values in s", field="residence_time"
+        )
     tlo, thi = (float(v) for v in T_in_range)
     if not (math.isfinite(tlo) and math.isfinite(thi) and 0 < tlo < thi):
-        raise ModelInputError("feed_temperature range must be two increasing absolute temperatures in K",
-                              field="feed_temperature")
+        raise ModelInputError(
+            "feed_temperature range must be two increasing absolute temperatures in K", field="feed_temperature"
+        )
     n_tau, n_tin = (int(v) for v in points)
     if n_tau < 2 or n_tin < 2:
         raise ModelInputError("points must be at least 2 along each axis", field="points")
     if n_tau > MAX_POINTS or n_tin > MAX_POINTS or n_tau * n_tin > MAX_CELLS:
         raise LimitExceededError(
-            f"{n_tau} x {n_tin} cells is more than the limit ({MAX_CELLS} cells, {MAX_POINTS} per axis)",
-            field="points")
+            f"{n_tau} x {n_tin} cells is more than the limit ({MAX_CELLS} cells, {MAX_POINTS} per axis)", field="points"
+        )
     tau = np.geomspace(lo, hi, n_tau) if spacing == "log" else np.linspace(lo, hi, n_tau)
     return tau, np.linspace(tlo, thi, n_tin)
 
 
-def _refine(mf: Manifold, tau: np.ndarray, a: np.ndarray, b: np.ndarray, fa: np.ndarray, func,
-            xi_a: np.ndarray | None, iterations: int = 60) -> tuple[np.ndarray, Samples]:
+def _refine(
+    mf: Manifold,
+    tau: np.ndarray,
+    a: np.ndarray,
+    b: np.ndarray,
+    fa: np.ndarray,
+    func,
+    xi_a: np.ndarray | None,
+    iterations: int = 60,
+) -> tuple[np.ndarray, Samples]:
     """Vectorised root of func(Samples) bracketed by coordinates a and b, by the Illinois variant of the
     false-position method (superlinear, never leaves the bracket), to machine precision."""
     fb = func(_eval(mf, tau, b, xi_a))
@@ -163,8 +184,11 @@ def _refine(mf: Manifold, tau: np.ndarray, a: np.ndarray, b: np.ndarray, fa: np.
         side = np.where(left, 1.0, -1.0)
         if xi_guess is not None:
             xi_guess = e.xi
-        if np.all((np.abs(b - a) <= 4e-16 * np.maximum(np.abs(a), np.abs(b))) | (fc == 0)
-                  | (np.abs(c - c_prev) <= 1e-15 * np.abs(c))):
+        if np.all(
+            (np.abs(b - a) <= 4e-16 * np.maximum(np.abs(a), np.abs(b)))
+            | (fc == 0)
+            | (np.abs(c - c_prev) <= 1e-15 * np.abs(c))
+        ):
             break
         c_prev = c
     return c, _eval(mf, tau, c, xi_guess)
@@ -181,10 +205,17 @@ def _hopf_function(mf: Manifold, e: Samples) -> np.ndarray:
     return mf.stability(e.tau, e.T, e.xi)[1]
 
 
-def operating_map(sc: Scenario, *, tau_range: tuple[float, float] | None = None,
-                  T_in_range: tuple[float, float] | None = None, points: tuple[int, int] | None = None,
-                  spacing: str = "log", c_in: tuple[float, ...] | None = None, T_c: float | None = None,
-                  samples: int | None = None) -> MapResult:
+def operating_map(
+    sc: Scenario,
+    *,
+    tau_range: tuple[float, float] | None = None,
+    T_in_range: tuple[float, float] | None = None,
+    points: tuple[int, int] | None = None,
+    spacing: str = "log",
+    c_in: tuple[float, ...] | None = None,
+    T_c: float | None = None,
+    samples: int | None = None,
+) -> MapResult:
     """The operating map of a scenario.
 
     Parameters
@@ -227,12 +258,27 @@ def operating_map(sc: Scenario, *, tau_range: tuple[float, float] | None = None,
     if tau.size >= BOUNDARY_COLUMNS:
         bcols, btau = cols, tau
     else:
-        btau = np.geomspace(tau[0], tau[-1], BOUNDARY_COLUMNS) if spacing == "log" else np.linspace(
-            tau[0], tau[-1], BOUNDARY_COLUMNS)
+        btau = (
+            np.geomspace(tau[0], tau[-1], BOUNDARY_COLUMNS)
+            if spacing == "log"
+            else np.linspace(tau[0], tau[-1], BOUNDARY_COLUMNS)
+        )
         bcols = _columns(mf, mf.sample(btau, T_lo, T_hi, N))
     boundaries = _boundaries(sc, mf, btau, bcols, float(T_in[0]), float(T_in[-1]))
-    return MapResult(tau, T_in, region, count, tmax, opening, limited, boundaries, sc.limits.T_max, spacing,
-                     True, f"{tau.size} x {T_in.size} cells, {N} samples per column")
+    return MapResult(
+        tau,
+        T_in,
+        region,
+        count,
+        tmax,
+        opening,
+        limited,
+        boundaries,
+        sc.limits.T_max,
+        spacing,
+        True,
+        f"{tau.size} x {T_in.size} cells, {N} samples per column",
+    )
 
 
 # -- per column: folds and monotone pieces ----------------------------------------------------------------
@@ -342,8 +388,9 @@ def _cell_states(mf: Manifold, smp: Samples, cols: _Columns, T_in: np.ndarray) -
     # which (row, column, piece) hold a state: the piece's span contains the row's feed temperature
     # dense arrays are laid out (piece, row, column) so that the per-cell reductions over pieces are
     # element-wise operations on contiguous slices
-    present = (has.T[:, None, :] & (T_in[None, :, None] >= vmin.T[:, None, :])
-               & (T_in[None, :, None] <= vmax.T[:, None, :]))
+    present = (
+        has.T[:, None, :] & (T_in[None, :, None] >= vmin.T[:, None, :]) & (T_in[None, :, None] <= vmax.T[:, None, :])
+    )
     pi, ri, ci = np.nonzero(present)
     v = T_in[ri]
     q = direction[ci, pi] * v + span * (ci * S + pi)
@@ -426,8 +473,13 @@ def _boundaries(sc: Scenario, mf: Manifold, tau: np.ndarray, cols: _Columns, tin
     def arr(rows: list, width: int = 2) -> np.ndarray:
         return np.array([r[:width] for r in rows], dtype=float).reshape(-1, width)
 
-    return {"ignition": arr(ign), "extinction": arr(ext), "hopf": arr(hopf), "max_temperature": tmax_curve,
-            "cusp": arr(cusp_rows, 3)}
+    return {
+        "ignition": arr(ign),
+        "extinction": arr(ext),
+        "hopf": arr(hopf),
+        "max_temperature": tmax_curve,
+        "cusp": arr(cusp_rows, 3),
+    }
 
 
 def _cusps(mf: Manifold, tau: np.ndarray, cols: _Columns) -> list[tuple[float, float, float]]:
@@ -446,14 +498,16 @@ def _cusps(mf: Manifold, tau: np.ndarray, cols: _Columns) -> list[tuple[float, f
         if mf.explicit:
             s_lo, s_hi = max(s_lo, 1e-300), min(s_hi, mf.xi_max * (1 - 1e-15))
         res = _solve_cusp(mf, math.log(tau[c]), math.log(tau[j + 1 if c == j else j]), s_lo, s_hi)
-        if res is not None and not any(abs(res[0] - r[0]) <= 1e-9 * r[0] and abs(res[1] - r[1]) <= 1e-9 * r[1]
-                                       for r in out):
+        if res is not None and not any(
+            abs(res[0] - r[0]) <= 1e-9 * r[0] and abs(res[1] - r[1]) <= 1e-9 * r[1] for r in out
+        ):
             out.append(res)
     return out
 
 
-def _solve_cusp(mf: Manifold, x_fold: float, x_none: float, s_lo: float, s_hi: float
-                ) -> tuple[float, float, float] | None:
+def _solve_cusp(
+    mf: Manifold, x_fold: float, x_none: float, s_lo: float, s_hi: float
+) -> tuple[float, float, float] | None:
     """Cusp between ln(tau) = x_fold (a fold pair) and x_none (none): at fixed tau the extremum of
     dT_in/ds over s touches zero. Nested one-dimensional solves: a zoomed grid search for the extremum in s,
     Brent's method in ln(tau) for its value."""

@@ -330,8 +330,9 @@ def validate(sc: Scenario) -> None:
         if len(r.nu) != sc.n_species or len(r.orders) != sc.n_species:
             raise ModelInputError("stoichiometry and orders need one entry per species", field=where)
         if not any(v < 0 for v in r.nu):
-            raise ModelInputError("a reaction needs at least one reactant (negative coefficient)",
-                                  field=f"{where}.stoichiometry")
+            raise ModelInputError(
+                "a reaction needs at least one reactant (negative coefficient)", field=f"{where}.stoichiometry"
+            )
         for i, (v, n) in enumerate(zip(r.nu, r.orders, strict=True)):
             finite(v, f"{where}.stoichiometry.{sc.species[i]}")
             finite(n, f"{where}.orders.{sc.species[i]}")
@@ -349,8 +350,10 @@ def validate(sc: Scenario) -> None:
         value = getattr(sc, name)
         finite(value, name)
         if value < 0:
-            raise ModelInputError(f"{name} must be >= 0", field={"UA_jacket": "jacket.ua", "UA_loss": "heat_loss.ua",
-                                                                  "P_agitator": "agitator_power"}[name])
+            raise ModelInputError(
+                f"{name} must be >= 0",
+                field={"UA_jacket": "jacket.ua", "UA_loss": "heat_loss.ua", "P_agitator": "agitator_power"}[name],
+            )
     positive(sc.T_c, "jacket.coolant_temperature")
     positive(sc.T_amb, "heat_loss.ambient_temperature")
     positive(sc.limits.T_max, "limits.max_temperature")

@@ -129,15 +129,16 @@ def classify(eigenvalues: np.ndarray) -> tuple[str, bool]:
 
 def check_point(tau: float, T_in: float) -> None:
     if not (isinstance(tau, (int, float)) and math.isfinite(tau) and tau > 0):
-        raise ModelInputError(f"residence time must be a positive number of seconds, got {tau!r}",
-                              field="residence_time")
+        raise ModelInputError(
+            f"residence time must be a positive number of seconds, got {tau!r}", field="residence_time"
+        )
     if not (isinstance(T_in, (int, float)) and math.isfinite(T_in) and T_in > 0):
-        raise ModelInputError(f"feed temperature must be a positive absolute temperature in K, got {T_in!r}",
-                              field="feed_temperature")
+        raise ModelInputError(
+            f"feed temperature must be a positive absolute temperature in K, got {T_in!r}", field="feed_temperature"
+        )
 
 
-def roots_along(mf: Manifold, tau: float, T_in: float, T_lo: float, T_hi: float,
-                n: int = POINT_SAMPLES) -> list[float]:
+def roots_along(mf: Manifold, tau: float, T_in: float, T_lo: float, T_hi: float, n: int = POINT_SAMPLES) -> list[float]:
     """Coordinates s of every root of T_in(tau, s) = T_in, for one tau."""
     smp = mf.sample(np.array([tau]), T_lo, T_hi, n)
     s = smp.s[0]
@@ -160,8 +161,7 @@ def roots_along(mf: Manifold, tau: float, T_in: float, T_lo: float, T_hi: float,
             roots.append(float(s[k]))
             continue
         if fa * fb < 0:
-            roots.append(brentq(phi, s[k], s[k + 1], xtol=1e-14 * max(abs(s[k]), 1e-300), rtol=1e-15,
-                                maxiter=200))
+            roots.append(brentq(phi, s[k], s[k + 1], xtol=1e-14 * max(abs(s[k]), 1e-300), rtol=1e-15, maxiter=200))
         elif d[k] * d[k + 1] < 0:
             # an extremum between two samples: two roots may hide on its either side
             se = brentq(dphi, s[k], s[k + 1], xtol=1e-15 * max(abs(s[k]), 1e-300), rtol=1e-15, maxiter=200)
@@ -176,8 +176,15 @@ def roots_along(mf: Manifold, tau: float, T_in: float, T_lo: float, T_hi: float,
     return roots
 
 
-def steady_states(sc: Scenario, tau: float, T_in: float, *, c_in: tuple[float, ...] | None = None,
-                  T_c: float | None = None, samples: int | None = None) -> SteadyStateResult:
+def steady_states(
+    sc: Scenario,
+    tau: float,
+    T_in: float,
+    *,
+    c_in: tuple[float, ...] | None = None,
+    T_c: float | None = None,
+    samples: int | None = None,
+) -> SteadyStateResult:
     """Every steady state of the tank at residence time ``tau`` and feed temperature ``T_in``.
 
     .. math:: 0 = (C_{in} - C)/\\tau + \\nu r(C, T), \\quad
@@ -238,18 +245,43 @@ def steady_states(sc: Scenario, tau: float, T_in: float, *, c_in: tuple[float, .
         dT = float(smp.dT_ds[0])
         dTin = float(smp.dTin_ds[0])
         sens = dT / dTin if dTin != 0 else math.inf
-        states.append(SteadyState(
-            T=T, C=tuple(float(c) for c in C), conversion=float(mf.conversion(np.array(C[mf.key]))),
-            stability=kind, oscillatory=osc, eigenvalues=tuple(complex(e) for e in ev),
-            valve_opening=opening, sensitivity=sens, residual=res, species=sc.species,
-        ))
+        states.append(
+            SteadyState(
+                T=T,
+                C=tuple(float(c) for c in C),
+                conversion=float(mf.conversion(np.array(C[mf.key]))),
+                stability=kind,
+                oscillatory=osc,
+                eigenvalues=tuple(complex(e) for e in ev),
+                valve_opening=opening,
+                sensitivity=sens,
+                residual=res,
+                species=sc.species,
+            )
+        )
     states.sort(key=lambda st: st.T)
     ok = bool(states) and all(st.residual < 1e-8 for st in states)
-    msg = f"{len(states)} steady state(s)" if ok else "no steady state converged" if not states else (
-        "a steady state did not polish to tolerance")
-    return SteadyStateResult(tau=tau, T_in=T_in, q=q, c_in=tuple(float(c) for c in mf.c_in), T_c=mf.T_c,
-                             V=sc.vessel.V_set, h=sc.vessel.h_set, states=tuple(states), success=ok,
-                             message=msg, species=sc.species, samples=samples)
+    msg = (
+        f"{len(states)} steady state(s)"
+        if ok
+        else "no steady state converged"
+        if not states
+        else ("a steady state did not polish to tolerance")
+    )
+    return SteadyStateResult(
+        tau=tau,
+        T_in=T_in,
+        q=q,
+        c_in=tuple(float(c) for c in mf.c_in),
+        T_c=mf.T_c,
+        V=sc.vessel.V_set,
+        h=sc.vessel.h_set,
+        states=tuple(states),
+        success=ok,
+        message=msg,
+        species=sc.species,
+        samples=samples,
+    )
 
 
 def _polish(model: Model, u, C: np.ndarray, T: float, iterations: int = 4) -> tuple[np.ndarray, float, float]:

@@ -19,7 +19,7 @@ from __future__ import annotations
 import numpy as np
 
 from exomap.core.errors import ModelInputError
-from exomap.core.scenario import EQUAL_PERCENTAGE, G, LINEAR, QUICK_OPENING, Scenario
+from exomap.core.scenario import EQUAL_PERCENTAGE, LINEAR, QUICK_OPENING, G, Scenario
 
 #: Density of water at 15 degC, the reference of the relative density in IEC 60534-2-1 [kg/m^3]
 #: (value as used by the fluids package, [2]).
