@@ -314,3 +314,25 @@ def test_cli_branch_reports_turning_points(capsys):
     out = json.loads(capsys.readouterr().out)
     assert rc == 0 and out["parameter"] == "residence_time"
     assert sorted(t["kind"] for t in out["turning_points"]) == ["extinction", "ignition"]
+
+
+def test_cli_missing_command_module_is_one_line(monkeypatch, capsys):
+    import exomap.cli as cli
+
+    monkeypatch.setitem(cli.COMMANDS, "frobnicate", "a command whose module is not installed")
+    assert main(["frobnicate", "x"]) == 2
+    err = capsys.readouterr().err
+    assert err.startswith("error: frobnicate: this command is not available in this installation")
+    assert "exomap.cli.frobnicate" in err and "Traceback" not in err
+
+
+def test_cli_steady_loads_no_web_layer():
+    import subprocess
+    import sys
+
+    code = (
+        "import sys; from exomap.cli import main; rc = main(['steady', 'mild-single-state', '--json']); "
+        "assert rc == 0; bad = [m for m in ('fastapi', 'starlette', 'uvicorn', 'jinja2') if m in sys.modules]; "
+        "assert not bad, bad"
+    )
+    subprocess.run([sys.executable, "-c", code], check=True, capture_output=True)
