@@ -231,6 +231,41 @@ def test_setpoint_by_keyboard(page: Any, server: str, test_tank: str) -> None:
     assert query(page.url)["feed_temperature"] == "308.15"
 
 
+def test_map_arrow_keys_step_the_setpoint_one_cell(page: Any, server: str, test_tank: str) -> None:
+    page.goto(f"{server}/scenarios/{test_tank}?residence_time=600&feed_temperature=293.15")
+    wait_ready(page)
+    page.focus("#map")
+    page.keyboard.press("ArrowRight")
+    page.keyboard.press("ArrowUp")
+    page.wait_for_function(
+        "() => new URLSearchParams(location.search).get('residence_time') !== '600'", timeout=TIMEOUT
+    )
+    m = page.evaluate("() => window.exomap.view.map")
+    state = query(page.url)
+    xs, ys = m["residence_time_s"], m["feed_temperature_K"]
+    j = min(range(len(xs)), key=lambda k: abs(xs[k] - 600))
+    i = min(range(len(ys)), key=lambda k: abs(ys[k] - 293.15))
+    # one grid step right and one up, rounded as a clicked setpoint is (3 significant digits in min, 0.1 degC)
+    assert float(state["residence_time"]) / 60 == pytest.approx(float(f"{xs[j + 1] / 60:.3g}"), rel=1e-9)
+    assert float(state["feed_temperature"]) == pytest.approx(round(ys[i + 1] - 273.15, 1) + 273.15, abs=1e-6)
+
+
+def test_new_scenario_from_a_demo(page: Any, server: str, api: httpx.Client, demo: dict[str, Any]) -> None:
+    page.goto(server + "/")
+    page.click(f"#demo-list [data-id='{demo['id']}'] .new-from-demo")
+    page.wait_for_selector("#editor [data-field='title'] input", timeout=TIMEOUT)
+    page.fill("#editor [data-field='title'] input", "My copy of the demo (invented)")
+    page.click("#editor-save")
+    page.wait_for_url(re.compile(r"/scenarios/(?!" + demo["id"] + r")[0-9a-f]+"), timeout=TIMEOUT)
+    new_id = urlparse(page.url).path.rsplit("/", 1)[-1]
+    saved = {s["id"]: s for s in api.get("/api/v1/scenarios").json()["scenarios"]}
+    assert saved[new_id]["title"] == "My copy of the demo (invented)" and not saved[new_id]["demo"]
+    # everything else is the demo's: the two documents differ in the title only
+    a = api.get(f"/api/v1/scenarios/{demo['id']}").json()
+    b = api.get(f"/api/v1/scenarios/{new_id}").json()
+    assert {k for k in a if a[k] != b.get(k)} == {"title"}
+
+
 def test_bad_unit_in_editor_is_shown_beside_the_field(page: Any, server: str, test_tank: str) -> None:
     page.goto(f"{server}/scenarios/{test_tank}?panel=editor")
     page.wait_for_selector("#editor [data-field='feed.temperature'] input")
