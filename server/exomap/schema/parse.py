@@ -131,7 +131,14 @@ def _message(err: dict[str, Any]) -> str:
         return 'a species name is one word without dots or brackets, e.g. "A" or "MeOH"'
     if kind == "literal_error":
         return f"got {err.get('input')!r}; {what}"
+    if kind.endswith(("_type", "_parsing")):
+        return f"got {_shown(err.get('input'))}; {what}"
     return f"{err['msg'].rstrip('.')}; {what}"
+
+
+def _shown(value: Any) -> str:
+    text = repr(value)
+    return text if len(text) <= 40 else text[:37] + "..."
 
 
 def reshape(exc: ValidationError) -> ScenarioError:
