@@ -23,6 +23,7 @@ PAGE = """<!doctype html>
 <meta charset="utf-8">
 <meta name="viewport" content="width=device-width, initial-scale=1">
 <title>exomap API</title>
+<link rel="icon" href="data:,">
 <link rel="stylesheet" href="/api/docs/docs.css">
 <link rel="alternate" type="application/json" href="/api/v1/openapi.json">
 <script type="module" src="/api/docs/docs.js"></script>
