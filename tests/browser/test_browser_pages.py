@@ -463,6 +463,52 @@ def test_progress_is_shown_for_slow_answers(page: Any, server: str, test_tank: s
     assert query(page.url)["points"] == "31,29"
 
 
+def test_browser_urls_match_the_server_module(page: Any, server: str) -> None:
+    """urls.js and exomap.web.urls build the same page and twin URLs for the same view state."""
+    from exomap.web import urls
+
+    page.goto(server + "/")
+    state = {
+        "residence_time": 2442.902447431421,
+        "feed_temperature": 308.15,
+        "map_residence_time": [60.0, 36000.0],
+        "map_feed_temperature": [273.15, 373.15],
+        "points": [60, 50],
+        "branch": "high",
+        "panel": "curves",
+        "upset": 3,
+    }
+    got = page.evaluate(
+        """async (s) => { const u = await import('/static/urls.js');
+           return [u.scenarioPage('ab/c d', s), u.printPage('x', s), u.twinOfPage('x', s), u.mapOfPage('x', s, 'csv'),
+                   u.readState(new URL(u.scenarioPage('x', s), location.origin).search)]; }""",
+        state,
+    )
+    assert got[0] == urls.scenario_page("ab/c d", state)
+    assert got[1] == urls.print_page("x", state)
+    assert got[2] == urls.api_twin_of_page("x", state)
+    assert got[3] == urls.api_map_of_page("x", state, "csv")
+    assert got[4] == state  # the view state reads back exactly
+
+
+def test_units_typed_in_the_setpoint(page: Any, server: str) -> None:
+    page.goto(server + "/")
+    got = page.evaluate(
+        """async () => { const u = await import('/static/units.js');
+           return [u.parseTime('40 min'), u.parseTime('0.5 h'), u.parseTime('90'), u.parseTemperature('35 degC'),
+                   u.parseTemperature('35 °C'), u.parseTemperature('95 degF'), u.parseTemperature('308.15 K'),
+                   u.parseTemperature('35')]; }"""
+    )
+    # analytic: 40 min = 2400 s; 0.5 h = 1800 s; a bare number is in min; 35 degC = 308.15 K;
+    # 95 degF = (95 - 32) * 5/9 + 273.15 K = 308.15 K; a bare temperature is in degC
+    assert got == pytest.approx([2400, 1800, 5400, 308.15, 308.15, 308.15, 308.15, 308.15], abs=1e-9)
+    err = page.evaluate(
+        "async () => { const u = await import('/static/units.js'); try { u.parseTime('3 kg'); }"
+        " catch (e) { return e.message; } }"
+    )
+    assert "not a unit of time" in err
+
+
 def test_missing_scenario_says_so(page: Any, server: str) -> None:
     response = page.goto(f"{server}/scenarios/0000000000000000")
     assert response.status == 404

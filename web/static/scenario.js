@@ -7,7 +7,7 @@ import { LINES, VALVE_DOT } from "./palette.js";
 import { drawBranch, drawHeatBalance } from "./curves.js";
 import { renderVerdict, renderList, renderKV, renderStates, renderUpsets, drawResponse, simulationSummary, upsetName,
   el } from "./check.js";
-import { parseTime, parseTemperature, fmtMin, fmtTemp, fmtPct, toC, toMin } from "./units.js";
+import { parseTime, parseTemperature, fmtMin, fmtTemp, fmtPct, toC } from "./units.js";
 import { Editor } from "./editor.js";
 import { parseEventLines, helpHTML } from "./events.js";
 

@@ -50,7 +50,8 @@ def _text(value: object) -> str:
     if isinstance(value, (list, tuple)):
         return ",".join(_text(v) for v in value)
     if isinstance(value, float):
-        return repr(value)
+        # the shortest text that reads back to the same number, as the browser's String(x) writes it
+        return str(int(value)) if value.is_integer() and abs(value) < 1e21 else repr(value)
     return str(value)
 
 
