@@ -8,7 +8,7 @@ import sys
 
 import pytest
 from exomap.schema import ScenarioError, parse_quantity
-from hypothesis import given
+from hypothesis import given, settings
 from hypothesis import strategies as st
 
 # (value, dimension, expected SI value)
@@ -83,6 +83,7 @@ def test_unknown_dimension_is_a_programming_error():
         parse_quantity("2 m", "lenght", "x")
 
 
+@settings(deadline=None)  # the first example builds the unit registry (about 1 s)
 @given(
     st.floats(min_value=1e-6, max_value=1e9, allow_nan=False),
     st.sampled_from(
@@ -101,12 +102,14 @@ def test_flow_units_scale_exactly(x, unit_factor):
     assert parse_quantity(f"{x!r} {unit}", "flow", "feed.flow") == pytest.approx(x * factor, rel=1e-14)
 
 
+@settings(deadline=None)  # the first example builds the unit registry (about 1 s)
 @given(st.floats(min_value=-273.0, max_value=2000.0, allow_nan=False))
 def test_celsius_is_offset_by_273_15(t):
     # SI Brochure, 9th ed. (2019) §2.3.1
     assert parse_quantity(f"{t!r} degC", "temperature", "feed.temperature") == pytest.approx(t + 273.15, rel=1e-14)
 
 
+@settings(deadline=None)  # the first example builds the unit registry (about 1 s)
 @given(st.floats(allow_nan=False, allow_infinity=False, min_value=1e-300, max_value=1e300))
 def test_bare_numbers_are_kept_exactly(x):
     assert parse_quantity(x, "length", "vessel.diameter") == x
@@ -126,3 +129,20 @@ def test_round_trip_of_magnitudes_is_exact_for_si_numbers():
     # the canonical form stores SI floats; reading one back must not move it (repr is exact for floats)
     for x in (0.1, 1 / 3, 2.5e-7, 303.15, math.pi * 1e5):
         assert parse_quantity(float(repr(x)), "time", "t") == x
+
+
+@settings(deadline=None)  # the first example builds the unit registry (about 1 s)
+@given(
+    st.floats(min_value=1e-8, max_value=1e15, allow_nan=False),
+    st.sampled_from([0.0, 0.5, 1.0, 1.5, 2.0, 3.0]),
+)
+def test_pre_exponential_in_litres_for_any_order(x, n):
+    from exomap.schema.quantity import pre_exponential_to_si
+
+    a = n - 1.0
+    # (L/mol)^(n-1)/s -> (m^3/mol)^(n-1)/s: a factor (1e-3)^(n-1) (SI Brochure Table 8: 1 L = 1e-3 m^3)
+    text = f"{x!r} L^({a:g})*mol^({-a:g})/s"
+    assert pre_exponential_to_si(text, n) == pytest.approx(x * 1e-3**a, rel=1e-14)
+    # the same value in another order's units is refused
+    with pytest.raises(ValueError, match="wrong dimension"):
+        pre_exponential_to_si(text, n + 1.0)
