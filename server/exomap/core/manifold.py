@@ -154,10 +154,11 @@ class Manifold:
         non-zero order enter (a loop over a handful of species, each term an array operation)."""
         logg = np.zeros(np.shape(xi))
         dlogg = np.zeros(np.shape(xi))
-        for c0, nu_i, n_i in self._active:
-            C = np.maximum(c0 + nu_i * xi, _TINY)
-            logg += n_i * np.log(C)
-            dlogg += n_i * nu_i / C
+        with np.errstate(divide="ignore", invalid="ignore"):
+            for c0, nu_i, n_i in self._active:
+                C = c0 + nu_i * xi  # >= 0 for 0 <= xi <= xi_max; at a bound the log is -inf: invalid
+                logg += n_i * np.log(C)
+                dlogg += n_i * nu_i / C
         return logg, dlogg
 
     def explicit_eval(self, tau: np.ndarray, xi: np.ndarray) -> Samples:

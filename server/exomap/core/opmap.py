@@ -351,41 +351,49 @@ def _cell_states(mf: Manifold, smp: Samples, cols: _Columns, T_in: np.ndarray) -
     n_tin = T_in.size
     n_f = np.bincount(cols.fold_col, minlength=n_tau)
     S = int(n_f.max()) + 1 if n_f.size else 1
-    # layout: 3 slots per sample (the sample, a fold as end of a piece, the fold as start of the next piece);
-    # without a fold the two extra slots repeat the sample, which keeps every piece monotone
-    s3 = np.repeat(smp.s, 3, axis=1)
-    v3 = np.repeat(smp.T_in, 3, axis=1)
+    # layout per column: the samples with every fold inserted twice (as the end of one piece and the start
+    # of the next), padded to a common length L with copies of the last sample (ties keep pieces monotone)
+    L = N + 2 * (S - 1)
+    rows = np.arange(n_tau)[:, None]
+    fc = cols.fold_col
+    order = np.lexsort((cols.fold_k, fc))
+    fc, fk = fc[order], cols.fold_k[order]
+    rank = np.arange(fc.size) - np.searchsorted(fc, fc)
+    shift = np.cumsum(np.bincount(fc * N + fk + 1, minlength=n_tau * N).reshape(n_tau, N), axis=1)
+    slot = np.arange(N) + 2 * shift  # where each sample goes
+    end_slot = fk + 1 + 2 * rank
+    sL = np.repeat(smp.s[:, -1:], L, axis=1)
+    vL = np.repeat(smp.T_in[:, -1:], L, axis=1)
+    sL[rows, slot] = smp.s
+    vL[rows, slot] = smp.T_in
+    fs, fv = cols.fold.s[order], cols.fold.T_in[order]
+    for off in (0, 1):
+        sL[fc, end_slot + off] = fs
+        vL[fc, end_slot + off] = fv
+    seg_step = np.zeros((n_tau, L), dtype=np.int64)
+    seg_step[fc, end_slot + 1] = 1
+    seg = np.cumsum(seg_step, axis=1)  # piece index of every slot
     first_idx = np.zeros((n_tau, S), dtype=np.int64)
     has = np.zeros((n_tau, S), dtype=bool)
     has[:, 0] = True
-    seg_step = np.zeros((n_tau, 3 * N), dtype=np.int64)
-    if cols.fold_col.size:
-        order = np.lexsort((cols.fold_k, cols.fold_col))
-        fc, fk = cols.fold_col[order], cols.fold_k[order]
-        fs, fv = cols.fold.s[order], cols.fold.T_in[order]
-        for slot in (1, 2):
-            s3[fc, 3 * fk + slot] = fs
-            v3[fc, 3 * fk + slot] = fv
-        seg_step[fc, 3 * fk + 2] = 1
-        rank = np.arange(fc.size) - np.searchsorted(fc, fc)
-        first_idx[fc, rank + 1] = 3 * fk + 2
-        has[fc, rank + 1] = True
-    seg = np.cumsum(seg_step, axis=1)
-    d3 = np.repeat(smp.dTin_ds, 3, axis=1)
-    d_first = np.take_along_axis(d3, np.minimum(first_idx + 1, 3 * N - 1), axis=1)
+    first_idx[fc, rank + 1] = end_slot + 1
+    has[fc, rank + 1] = True
+    # direction of a piece: the sign of dT_in/ds at its first sample
+    d_first = np.full((n_tau, S), 1.0)
+    d_first[:, 0] = smp.dTin_ds[:, 0]
+    d_first[fc, rank + 1] = smp.dTin_ds[fc, np.minimum(fk + 1, N - 1)]
     direction = np.where(d_first >= 0, 1.0, -1.0)
     # span of each piece (pieces are contiguous runs of the flattened layout)
     c_has, p_has = np.nonzero(has)
-    starts = c_has * 3 * N + first_idx[c_has, p_has]
-    flat_v = v3.ravel()
+    starts = c_has * L + first_idx[c_has, p_has]
+    flat_v = vL.ravel()
     vmin = np.full((n_tau, S), np.inf)
     vmax = np.full((n_tau, S), -np.inf)
     vmin[c_has, p_has] = np.minimum.reduceat(flat_v, starts)
     vmax[c_has, p_has] = np.maximum.reduceat(flat_v, starts)
     span = float(np.nanmax(np.abs(flat_v))) * 4.0 + 1.0
-    gid = np.arange(n_tau)[:, None] * S + seg
-    key = (np.take_along_axis(direction, seg, axis=1) * v3 + span * gid).ravel()
-    # which (row, column, piece) hold a state: the piece's span contains the row's feed temperature
+    key = (direction[rows, seg] * vL + span * (rows * S + seg)).ravel()
+    # which (row, column, piece) hold a state: the piece's span contains the row's feed temperature;
     # dense arrays are laid out (piece, row, column) so that the per-cell reductions over pieces are
     # element-wise operations on contiguous slices
     present = (
@@ -395,21 +403,25 @@ def _cell_states(mf: Manifold, smp: Samples, cols: _Columns, T_in: np.ndarray) -
     v = T_in[ri]
     q = direction[ci, pi] * v + span * (ci * S + pi)
     pos = np.searchsorted(key, q, side="left")
-    lo_pos = ci * 3 * N + first_idx[ci, pi] + 1
-    pos = np.clip(pos, lo_pos, ci * 3 * N + 3 * N - 1)
+    pos = np.clip(pos, ci * L + first_idx[ci, pi] + 1, ci * L + L - 1)
     k0, k1 = pos - 1, pos
     ka, kb = key[k0], key[k1]
     with np.errstate(invalid="ignore", divide="ignore"):
         w = np.where(kb > ka, (q - ka) / (kb - ka), 0.0)
     w = np.clip(w, 0.0, 1.0)
-    s_flat = s3.ravel()
-    ss = s_flat[k0] + w * (s_flat[k1] - s_flat[k0])
-    lo_b = np.minimum(s_flat[k0], s_flat[k1])
-    hi_b = np.maximum(s_flat[k0], s_flat[k1])
+    s_flat = sL.ravel()
+    sa, sb = s_flat[k0], s_flat[k1]
+    ss = sa + w * (sb - sa)
+    lo_b = np.minimum(sa, sb)
+    hi_b = np.maximum(sa, sb)
     ts = smp.tau[ci, 0]
     xi_g = None
     if not mf.explicit:
-        xi_flat = np.repeat(smp.xi, 3, axis=1).reshape(-1, mf.m)
+        xiL = np.repeat(smp.xi[:, -1:], L, axis=1)
+        xiL[rows, slot] = smp.xi
+        for off in (0, 1):
+            xiL[fc, end_slot + off] = cols.fold.xi[order]
+        xi_flat = xiL.reshape(-1, mf.m)
         xi_g = xi_flat[k0] + w[:, None] * (xi_flat[k1] - xi_flat[k0])
     # polish: two Newton steps on T_in(s) = value, kept inside the bracket; stability and slope are taken at
     # the polished point (explicit path) or at the point before the last step (general path, which would
