@@ -336,3 +336,27 @@ def test_cli_steady_loads_no_web_layer():
         "assert not bad, bad"
     )
     subprocess.run([sys.executable, "-c", code], check=True, capture_output=True)
+
+
+def test_adiabatic_demo_window_holds_the_cusp():
+    sc = core_of("adiabatic-second-order")
+    (r,) = sc.reactions
+    c0 = sc.c_in[0]
+    dT_ad = -r.dH * c0 / (sc.rho * sc.cp)
+    X = np.linspace(1e-6, 1 - 1e-6, 200001)
+    (t_lo, t_hi), (T_lo, T_hi) = sc.map.tau_range, sc.map.T_in_range
+    last = None
+    for T_in in np.arange(sc.T_in, T_hi, 0.5):
+        # analytic adiabatic S-curve (see test_adiabatic_demo_multiplicity_range_and_turning_points)
+        tau = X / (r.k0 * np.exp(-r.Ea / (R_GAS * (T_in + dT_ad * X))) * c0 * (1 - X) ** 2)
+        d = np.diff(tau)
+        ext = np.nonzero(np.sign(d[1:]) != np.sign(d[:-1]))[0] + 1
+        if len(ext) != 2:
+            break
+        last = (T_in, tau[ext[1]], tau[ext[0]])
+    else:
+        pytest.fail("the multiplicity region does not close inside the feed-temperature window")
+    # the two turning points merge (the cusp) inside the window, and the multiplicity range at the nominal
+    # feed temperature is inside it too
+    T_cusp, tau_ext, tau_ign = last
+    assert T_lo < T_cusp < T_hi and t_lo < tau_ext <= tau_ign < t_hi
