@@ -131,18 +131,15 @@ def nominal_inputs(
     T_c: float | None = None,
     opening: float | None = None,
 ) -> Inputs:
-    """Inputs at an operating point: q_in = V_set / tau; a fixed valve at the scenario's opening unless
-    ``opening`` is given; a controlled valve with its bias at ``opening`` (default: the opening that passes
-    q_in at the setpoint level, so the tank starts steady)."""
+    """Inputs at an operating point: q_in = V_set / tau. Unless ``opening`` is given, a fixed valve is set to
+    (and a PI controller's output starts at) the opening that passes q_in at the set level, so a tank started
+    at a steady state stays there (DESIGN.md §2); clamped to 0..1 when the valve cannot pass the flow."""
     q = sc.q_in if tau is None else sc.vessel.V_set / tau
     x_needed = valve_mod.opening_for_flow(sc, q)
     x_ss = float(np.clip(x_needed, 0.0, 1.0)) if np.isfinite(x_needed) else 1.0
-    if sc.valve.controlled:
-        fixed = None
-        bias = x_ss if opening is None else opening
-    else:
-        fixed = (sc.valve.opening if sc.valve.opening is not None else x_ss) if opening is None else opening
-        bias = fixed
+    x0 = x_ss if opening is None else opening
+    fixed = None if sc.valve.controlled else x0
+    bias = x0
     return Inputs(
         q_in=q,
         T_in=sc.T_in if T_in is None else T_in,
