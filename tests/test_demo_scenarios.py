@@ -360,3 +360,16 @@ def test_adiabatic_demo_window_holds_the_cusp():
     # feed temperature is inside it too
     T_cusp, tau_ext, tau_ign = last
     assert T_lo < T_cusp < T_hi and t_lo < tau_ext <= tau_ign < t_hi
+
+
+def test_cli_plant_units():
+    from exomap.cli import _format as fmt
+
+    # SI Brochure §2.3.1 (degC) and Table 8 (min, h)
+    assert fmt.celsius(303.15) == "30.0 degC"
+    assert fmt.minutes(2670.0) == "44.5 min" and fmt.minutes(36000.0) == "10.0 h"
+    assert fmt.flow(2.7 / 3600) == "2.70 m^3/h"
+    assert fmt.percent(0.383) == "38 %"
+    assert fmt.celsius(float("nan")) == "-" and fmt.percent(None) == "-"
+    text = fmt.table(["a", "value"], [["x", "1.0"], ["long name", "22.5"]], right=[False, True])
+    assert text.splitlines() == ["a          value", "---------  -----", "x            1.0", "long name   22.5"]
