@@ -11,6 +11,7 @@ import hmac
 import json
 from typing import Annotated, Any
 
+import anyio.to_thread
 from fastapi import APIRouter, Body, Depends, Path, Query, Request
 from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse, Response
@@ -201,7 +202,7 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         from exomap import schema
 
         try:
-            stored, created = service.store.save(document)
+            stored, created = await anyio.to_thread.run_sync(service.store.save, document)
         except schema.ScenarioError as exc:
             raise ApiError(422, "invalid_scenario", "the scenario is not valid; see fields", exc.errors) from None
         headers = {"Location": f"/api/v1/scenarios/{stored.id}"}

@@ -13,6 +13,8 @@ from collections import OrderedDict
 from dataclasses import dataclass
 from typing import Any
 
+import anyio.to_thread
+
 from exomap.web import jobs
 from exomap.web.cache import AnswerCache
 from exomap.web.errors import ApiError
@@ -217,7 +219,11 @@ class Service:
         from exomap import schema
         from exomap.core.errors import LimitExceededError, ModelInputError
 
-        resolved = self.resolve(req)
+        if req.scenario is not None:
+            # parsing a whole inline document (pint, pydantic) is done off the event loop
+            resolved = await anyio.to_thread.run_sync(self.resolve, req)
+        else:
+            resolved = self.resolve(req)
         try:
             params = self.params(kind, req, resolved.scenario)
         except LimitExceededError as exc:
