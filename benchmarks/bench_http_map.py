@@ -155,8 +155,12 @@ def main() -> int:
         client.post("/api/v1/map", json={"scenario_id": sid, "points": list(POINTS)}).raise_for_status()
 
         def body(i: int) -> dict:
-            return {"scenario_id": sid, "points": list(POINTS), "residence_time": list(tau_range),
-                    "feed_temperature": [T_lo, T_hi + 1e-3 * (i + 1)]}
+            return {
+                "scenario_id": sid,
+                "points": list(POINTS),
+                "residence_time": list(tau_range),
+                "feed_temperature": [T_lo, T_hi + 1e-3 * (i + 1)],
+            }
 
         uncached, uncached_parsed, sizes = [], [], []
         for i in range(REPEATS):
@@ -194,15 +198,22 @@ def main() -> int:
         lo, hi = tau_range
         for _ in range(REPEATS * 3):
             t0 = time.perf_counter()
-            r = client.get(f"/api/v1/scenarios/{sid}/map", params={
-                "residence_time": f"{lo!r},{hi!r}", "feed_temperature": f"{T_lo!r},{T_hi + 1e-3 * 101!r}",
-                "points": f"{POINTS[0]},{POINTS[1]}"})
+            r = client.get(
+                f"/api/v1/scenarios/{sid}/map",
+                params={
+                    "residence_time": f"{lo!r},{hi!r}",
+                    "feed_temperature": f"{T_lo!r},{T_hi + 1e-3 * 101!r}",
+                    "points": f"{POINTS[0]},{POINTS[1]}",
+                },
+            )
             t1 = time.perf_counter()
             r.raise_for_status()
             get_cached.append(t1 - t0)
 
-    print(f"exomap HTTP map benchmark: {POINTS[0]} x {POINTS[1]} map of demo '{DEMO}', {REPEATS} repeats, "
-          f"{os.cpu_count()} CPUs")
+    print(
+        f"exomap HTTP map benchmark: {POINTS[0]} x {POINTS[1]} map of demo '{DEMO}', {REPEATS} repeats, "
+        f"{os.cpu_count()} CPUs"
+    )
     print(f"  baseline core operating_map()          {ms(base_compute)}")
     print(f"  baseline core operating_map()+to_dict() {ms(base_total)}")
     print(f"  HTTP not cached, body received          {ms(uncached)}")

@@ -44,9 +44,11 @@ def pct(values: list[float], q: float) -> float:
 def summary(name: str, values: list[float]) -> str:
     if not values:
         return f"  {name:<28} no answers"
-    return (f"  {name:<28} n={len(values):5d}  median {statistics.median(values) * 1e3:7.1f} ms  "
-            f"p95 {pct(values, 95) * 1e3:7.1f} ms  p99 {pct(values, 99) * 1e3:7.1f} ms  "
-            f"max {max(values) * 1e3:7.1f} ms")
+    return (
+        f"  {name:<28} n={len(values):5d}  median {statistics.median(values) * 1e3:7.1f} ms  "
+        f"p95 {pct(values, 95) * 1e3:7.1f} ms  p99 {pct(values, 99) * 1e3:7.1f} ms  "
+        f"max {max(values) * 1e3:7.1f} ms"
+    )
 
 
 async def run(url: str, pid: int) -> dict:
@@ -77,8 +79,12 @@ async def run(url: str, pid: int) -> dict:
         rng = random.Random(20251202)
 
         def map_body(k: int) -> dict:
-            return {"scenario_id": demo["id"], "points": MAP_POINTS, "residence_time": [lo_tau, hi_tau],
-                    "feed_temperature": [lo_T, hi_T - 0.5 * k]}
+            return {
+                "scenario_id": demo["id"],
+                "points": MAP_POINTS,
+                "residence_time": [lo_tau, hi_tau],
+                "feed_temperature": [lo_T, hi_T - 0.5 * k],
+            }
 
         def check_body(k: int) -> dict:
             tau = lo_tau * (hi_tau / lo_tau) ** ((k + 0.5) / VARIANTS)
@@ -135,9 +141,11 @@ def main() -> int:
         out = asyncio.run(run(url, server.pid))
     lat, errors, rss = out["lat"], out["errors"], out["rss"]
     done = len(lat["map"]) + len(lat["check"])
-    print(f"exomap load benchmark: {CLIENTS} clients for {DURATION_S:.0f} s on 127.0.0.1, demo '{DEMO}', "
-          f"maps {MAP_POINTS[0]} x {MAP_POINTS[1]} in {VARIANTS} windows, checks at {VARIANTS} setpoints, "
-          f"{os.cpu_count()} CPUs")
+    print(
+        f"exomap load benchmark: {CLIENTS} clients for {DURATION_S:.0f} s on 127.0.0.1, demo '{DEMO}', "
+        f"maps {MAP_POINTS[0]} x {MAP_POINTS[1]} in {VARIANTS} windows, checks at {VARIANTS} setpoints, "
+        f"{os.cpu_count()} CPUs"
+    )
     if not out["check"]:
         print("  (the check route did not answer 200 before the run: maps only)")
     print(f"  throughput {done / out['elapsed']:.1f} requests/s ({done} answered in {out['elapsed']:.1f} s)")

@@ -31,8 +31,9 @@ def test_steady_post_get_and_inline_are_the_core_answer(client, saved_id, core_s
 
     # analytic: 40 min = 2400 s; 35 degC = 308.15 K
     want = expected(steady_states(core_scenario, 2400.0, 308.15))
-    post = client.post("/api/v1/steady",
-                       json={"scenario_id": saved_id, "residence_time": "40 min", "feed_temperature": "35 degC"})
+    post = client.post(
+        "/api/v1/steady", json={"scenario_id": saved_id, "residence_time": "40 min", "feed_temperature": "35 degC"}
+    )
     assert post.status_code == 200, post.text
     assert post.json() == want
     assert post.headers["x-exomap-cache"] == "miss"
@@ -41,8 +42,9 @@ def test_steady_post_get_and_inline_are_the_core_answer(client, saved_id, core_s
     assert get.status_code == 200
     assert get.headers["x-exomap-cache"] == "hit"
     assert get.content == post.content
-    inline = client.post("/api/v1/steady",
-                         json={"scenario": ADIABATIC, "residence_time": 2400, "feed_temperature": 308.15})
+    inline = client.post(
+        "/api/v1/steady", json={"scenario": ADIABATIC, "residence_time": 2400, "feed_temperature": 308.15}
+    )
     assert inline.json() == want
 
 
@@ -58,12 +60,23 @@ def test_steady_feed_concentrations_and_coolant(client, saved_id, core_scenario)
 
     # analytic: 1.5 mol/L = 1500 mol/m^3; 20 degC = 293.15 K
     want = expected(steady_states(core_scenario, 2400.0, 308.15, c_in=(1500.0, 0.0), T_c=293.15))
-    body = {"scenario_id": saved_id, "residence_time": "40 min", "feed_temperature": "35 degC",
-            "feed_concentrations": {"A": "1.5 mol/L"}, "coolant_temperature": "20 degC"}
+    body = {
+        "scenario_id": saved_id,
+        "residence_time": "40 min",
+        "feed_temperature": "35 degC",
+        "feed_concentrations": {"A": "1.5 mol/L"},
+        "coolant_temperature": "20 degC",
+    }
     assert client.post("/api/v1/steady", json=body).json() == want
-    get = client.get(f"/api/v1/scenarios/{saved_id}/steady", params={
-        "residence_time": "40 min", "feed_temperature": "35 degC", "feed_concentrations": "A:1.5 mol/L",
-        "coolant_temperature": "20 degC"})
+    get = client.get(
+        f"/api/v1/scenarios/{saved_id}/steady",
+        params={
+            "residence_time": "40 min",
+            "feed_temperature": "35 degC",
+            "feed_concentrations": "A:1.5 mol/L",
+            "coolant_temperature": "20 degC",
+        },
+    )
     assert get.json() == want
 
 
@@ -72,13 +85,19 @@ def test_branch_is_the_core_answer(client, saved_id, core_scenario) -> None:
 
     # analytic: 30 min = 1800 s; 10 degC = 283.15 K, 90 degC = 363.15 K
     want = expected(branch(core_scenario, "feed_temperature", 1800.0, core_scenario.T_in, lo=283.15, hi=363.15))
-    body = {"scenario_id": saved_id, "along": "feed_temperature", "residence_time": "30 min",
-            "range": ["10 degC", "90 degC"]}
+    body = {
+        "scenario_id": saved_id,
+        "along": "feed_temperature",
+        "residence_time": "30 min",
+        "range": ["10 degC", "90 degC"],
+    }
     post = client.post("/api/v1/branch", json=body)
     assert post.status_code == 200, post.text
     assert post.json() == want
-    get = client.get(f"/api/v1/scenarios/{saved_id}/branch",
-                     params={"along": "feed_temperature", "residence_time": "30 min", "range": "10 degC,90 degC"})
+    get = client.get(
+        f"/api/v1/scenarios/{saved_id}/branch",
+        params={"along": "feed_temperature", "residence_time": "30 min", "range": "10 degC,90 degC"},
+    )
     assert get.json() == want
 
 
@@ -86,10 +105,15 @@ def test_map_json_and_csv_are_the_core_answer(client, saved_id, core_scenario) -
     from exomap.core.opmap import operating_map
 
     # analytic: 2 min = 120 s, 5 h = 18000 s; 0 degC = 273.15 K, 100 degC = 373.15 K
-    result = operating_map(core_scenario, tau_range=(120.0, 18000.0), T_in_range=(273.15, 373.15), points=(24, 18),
-                           spacing="log")
-    body = {"scenario_id": saved_id, "residence_time": ["2 min", "5 h"], "feed_temperature": ["0 degC", "100 degC"],
-            "points": [24, 18]}
+    result = operating_map(
+        core_scenario, tau_range=(120.0, 18000.0), T_in_range=(273.15, 373.15), points=(24, 18), spacing="log"
+    )
+    body = {
+        "scenario_id": saved_id,
+        "residence_time": ["2 min", "5 h"],
+        "feed_temperature": ["0 degC", "100 degC"],
+        "points": [24, 18],
+    }
     post = client.post("/api/v1/map", json=body)
     assert post.status_code == 200, post.text
     assert post.json() == expected(result)
@@ -111,14 +135,25 @@ def test_simulate_with_events_is_the_core_answer(client, saved_id, core_scenario
     # analytic: 10 min = 600 s, 2 h = 7200 s; a rise of 10 K
     events = parse_events([{"at": 600.0, "add": "feed_temperature", "value": 10.0}])
     want = expected(simulate(core_scenario, tau=2400.0, T_in=308.15, start="low", events=events, duration=7200.0))
-    body = {"scenario_id": saved_id, "residence_time": "40 min", "feed_temperature": "35 degC",
-            "events": [{"at": "10 min", "add": "feed_temperature", "value": "10 K"}], "duration": "2 h"}
+    body = {
+        "scenario_id": saved_id,
+        "residence_time": "40 min",
+        "feed_temperature": "35 degC",
+        "events": [{"at": "10 min", "add": "feed_temperature", "value": "10 K"}],
+        "duration": "2 h",
+    }
     post = client.post("/api/v1/simulate", json=body)
     assert post.status_code == 200, post.text
     assert post.json() == want
-    get = client.get(f"/api/v1/scenarios/{saved_id}/simulate", params={
-        "residence_time": "40 min", "feed_temperature": "35 degC", "duration": "2 h",
-        "events": json.dumps([{"at": 600, "add": "feed_temperature", "value": 10}])})
+    get = client.get(
+        f"/api/v1/scenarios/{saved_id}/simulate",
+        params={
+            "residence_time": "40 min",
+            "feed_temperature": "35 degC",
+            "duration": "2 h",
+            "events": json.dumps([{"at": 600, "add": "feed_temperature", "value": 10}]),
+        },
+    )
     assert get.json() == want
 
 
@@ -126,8 +161,9 @@ def test_check_is_the_core_answer(client, saved_id, core_scenario) -> None:
     from exomap.core.check import check_setpoint
 
     want = expected(check_setpoint(core_scenario, tau=2400.0, T_in=308.15, branch=None))
-    post = client.post("/api/v1/check",
-                       json={"scenario_id": saved_id, "residence_time": "40 min", "feed_temperature": "35 degC"})
+    post = client.post(
+        "/api/v1/check", json={"scenario_id": saved_id, "residence_time": "40 min", "feed_temperature": "35 degC"}
+    )
     assert post.status_code == 200, post.text
     assert post.json() == want
     assert post.json()["verdict"] in ("inside", "marginal", "outside")
@@ -179,8 +215,9 @@ def test_process_pool_gives_the_same_answers_and_keeps_error_fields(make_client,
 
     client = make_client(executor="process", workers=1)
     sid = client.post("/api/v1/scenarios", json=ADIABATIC).json()["id"]
-    response = client.post("/api/v1/steady", json={"scenario_id": sid, "residence_time": 2400.0,
-                                                     "feed_temperature": 308.15})
+    response = client.post(
+        "/api/v1/steady", json={"scenario_id": sid, "residence_time": 2400.0, "feed_temperature": 308.15}
+    )
     assert response.status_code == 200, response.text
     assert response.json() == expected(steady_states(core_scenario, 2400.0, 308.15))
     # the core's ModelInputError raised inside the worker process still names its field

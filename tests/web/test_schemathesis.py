@@ -23,8 +23,17 @@ from web_scenarios import ADIABATIC
 
 @pytest.fixture
 def api_schema(tmp_path):
-    app = create_app(Settings(data_dir=tmp_path / "data", executor="thread", workers=2, max_map_cells=400,
-                              max_events=5, max_duration_s=3600.0, request_time_budget_s=3.0))
+    app = create_app(
+        Settings(
+            data_dir=tmp_path / "data",
+            executor="thread",
+            workers=2,
+            max_map_cells=400,
+            max_events=5,
+            max_duration_s=3600.0,
+            request_time_budget_s=3.0,
+        )
+    )
     from fastapi.testclient import TestClient
 
     with TestClient(app) as client:
@@ -38,5 +47,6 @@ schema = schemathesis.pytest.from_fixture("api_schema")
 @schema.parametrize()
 @settings(max_examples=6, deadline=None, suppress_health_check=list(HealthCheck), derandomize=True)
 def test_api_conforms_to_its_openapi(case) -> None:
-    case.call_and_validate(checks=[not_a_server_error, status_code_conformance, content_type_conformance,
-                                   response_schema_conformance])
+    case.call_and_validate(
+        checks=[not_a_server_error, status_code_conformance, content_type_conformance, response_schema_conformance]
+    )

@@ -27,9 +27,13 @@ def free_port() -> int:
 
 def start(args: list[str], env: dict[str, str] | None = None) -> tuple[subprocess.Popen, str]:
     port = free_port()
-    proc = subprocess.Popen([sys.executable, "-c", LAUNCH, "serve", "--port", str(port), "--workers", "1", *args],
-                            env={**os.environ, **(env or {})}, stdout=subprocess.PIPE, stderr=subprocess.STDOUT,
-                            text=True)
+    proc = subprocess.Popen(
+        [sys.executable, "-c", LAUNCH, "serve", "--port", str(port), "--workers", "1", *args],
+        env={**os.environ, **(env or {})},
+        stdout=subprocess.PIPE,
+        stderr=subprocess.STDOUT,
+        text=True,
+    )
     url = f"http://127.0.0.1:{port}"
     deadline = time.monotonic() + 90
     while time.monotonic() < deadline:

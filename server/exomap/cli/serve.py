@@ -23,8 +23,12 @@ def add_parser(subparsers: argparse._SubParsersAction) -> argparse.ArgumentParse
         "--data-dir", type=Path, default=None, help="folder of the scenario store (default ./data, or EXOMAP_DATA_DIR)"
     )
     parser.add_argument("--workers", type=int, default=None, help="computations run at once (default 2)")
-    parser.add_argument("--log-level", default="info", choices=["critical", "error", "warning", "info", "debug"],
-                        help="server log level (default info)")
+    parser.add_argument(
+        "--log-level",
+        default="info",
+        choices=["critical", "error", "warning", "info", "debug"],
+        help="server log level (default info)",
+    )
     parser.set_defaults(run=run)
     return parser
 
@@ -35,8 +39,12 @@ def settings_from_args(args: argparse.Namespace):  # noqa: ANN201 - Settings, im
 
     overrides = {
         key: value
-        for key, value in (("host", args.host), ("port", args.port), ("data_dir", args.data_dir),
-                           ("workers", getattr(args, "workers", None)))
+        for key, value in (
+            ("host", args.host),
+            ("port", args.port),
+            ("data_dir", args.data_dir),
+            ("workers", getattr(args, "workers", None)),
+        )
         if value is not None
     }
     return Settings(**overrides)
@@ -57,7 +65,9 @@ def run(args: argparse.Namespace) -> int:
             print(f"exomap serve: {where}: {err['msg']}")
         return 2
     app = create_app(settings, warm_up=True)
-    print(f"exomap: serving on http://{settings.host}:{settings.port}/ (API docs at /api/docs); "
-          f"scenario store in {settings.data_dir.resolve()}")
+    print(
+        f"exomap: serving on http://{settings.host}:{settings.port}/ (API docs at /api/docs); "
+        f"scenario store in {settings.data_dir.resolve()}"
+    )
     uvicorn.run(app, host=settings.host, port=settings.port, log_level=args.log_level, proxy_headers=False)
     return 0

@@ -6,7 +6,6 @@ form (a JSON body, scenario inline or by id) and a GET twin on a stored scenario
 (``/api/v1/scenarios/{id}/map?residence_time=1 min,10 h``), so pages and share links are plain URLs.
 """
 
-
 import hmac
 import json
 from typing import Annotated, Any
@@ -29,16 +28,35 @@ SCENARIO_FORMAT = "exomap-scenario/1"
 # -- answer schemas for the OpenAPI document (the keys DESIGN.md §4 fixes; more keys are allowed) ---------------
 _OBJECT = {"type": "object"}
 ANSWER_SCHEMAS: dict[str, dict[str, Any]] = {
-    "steady": {"type": "object", "required": ["operating_point", "states"],
-               "properties": {"operating_point": _OBJECT, "states": {"type": "array", "items": _OBJECT}}},
-    "branch": {"type": "object", "required": ["parameter", "points", "turning_points"],
-               "properties": {"points": {"type": "array"}, "turning_points": {"type": "array"}}},
-    "map": {"type": "object", "required": ["residence_time_s", "feed_temperature_K", "region", "legend"],
-            "properties": {"residence_time_s": {"type": "array"}, "feed_temperature_K": {"type": "array"},
-                           "region": {"type": "array"}, "legend": {"type": "array"}}},
-    "check": {"type": "object", "required": ["verdict", "reasons", "cautions"],
-              "properties": {"verdict": {"type": "string", "enum": ["inside", "marginal", "outside"]},
-                             "reasons": {"type": "array"}, "cautions": {"type": "array"}}},
+    "steady": {
+        "type": "object",
+        "required": ["operating_point", "states"],
+        "properties": {"operating_point": _OBJECT, "states": {"type": "array", "items": _OBJECT}},
+    },
+    "branch": {
+        "type": "object",
+        "required": ["parameter", "points", "turning_points"],
+        "properties": {"points": {"type": "array"}, "turning_points": {"type": "array"}},
+    },
+    "map": {
+        "type": "object",
+        "required": ["residence_time_s", "feed_temperature_K", "region", "legend"],
+        "properties": {
+            "residence_time_s": {"type": "array"},
+            "feed_temperature_K": {"type": "array"},
+            "region": {"type": "array"},
+            "legend": {"type": "array"},
+        },
+    },
+    "check": {
+        "type": "object",
+        "required": ["verdict", "reasons", "cautions"],
+        "properties": {
+            "verdict": {"type": "string", "enum": ["inside", "marginal", "outside"]},
+            "reasons": {"type": "array"},
+            "cautions": {"type": "array"},
+        },
+    },
     "simulate": {"type": "object"},
 }
 SUMMARIES = {
@@ -83,8 +101,9 @@ def _accepts_gzip(request: Request) -> bool:
     return False
 
 
-def _answer_response(request: Request, out: Answer, hit: bool, fmt: str, kind: str,
-                     scenario: str | None = None) -> Response:
+def _answer_response(
+    request: Request, out: Answer, hit: bool, fmt: str, kind: str, scenario: str | None = None
+) -> Response:
     """The answer as sent: its stored gzip form when the client takes gzip (compressed once, in the worker)."""
     headers = {"X-Exomap-Cache": "hit" if hit else "miss", "Vary": "Accept-Encoding"}
     media = "application/json"
@@ -102,8 +121,10 @@ def _answer_responses(kind: str, post: bool = False) -> dict[int | str, dict[str
     content: dict[str, Any] = {"application/json": {"schema": ANSWER_SCHEMAS[kind]}}
     if kind in CSV_KINDS:
         content["text/csv"] = {"schema": {"type": "string"}}
-    return {200: {"description": f"The {kind} answer (DESIGN.md §4).", "content": content},
-            **error_responses(*((400,) if post else ()), 404, 413, 422, 503)}
+    return {
+        200: {"description": f"The {kind} answer (DESIGN.md §4).", "content": content},
+        **error_responses(*((400,) if post else ()), 404, 413, 422, 503),
+    }
 
 
 def _number_or_text(value: str | None) -> float | str | None:
@@ -140,27 +161,61 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
     """The ``/api/v1`` router. ``example_scenario`` is the OpenAPI example of a scenario body."""
     router = APIRouter(prefix="/api/v1")
 
-    @router.get("/health", summary="Liveness: answers at once, even while maps compute",
-                responses={200: {"content": {"application/json": {"schema": {
-                    "type": "object", "required": ["status"], "properties": {"status": {"const": "ok"}}}}}}})
+    @router.get(
+        "/health",
+        summary="Liveness: answers at once, even while maps compute",
+        responses={
+            200: {
+                "content": {
+                    "application/json": {
+                        "schema": {"type": "object", "required": ["status"], "properties": {"status": {"const": "ok"}}}
+                    }
+                }
+            }
+        },
+    )
     async def health() -> JSONResponse:
         return JSONResponse({"status": "ok"})
 
-    @router.get("/version", summary="Version of exomap and of the scenario format it reads",
-                responses={200: {"content": {"application/json": {"schema": {
-                    "type": "object", "required": ["version", "scenario_format"]}}}}})
+    @router.get(
+        "/version",
+        summary="Version of exomap and of the scenario format it reads",
+        responses={
+            200: {
+                "content": {
+                    "application/json": {"schema": {"type": "object", "required": ["version", "scenario_format"]}}
+                }
+            }
+        },
+    )
     async def version() -> JSONResponse:
         return JSONResponse({"version": exomap.__version__, "scenario_format": SCENARIO_FORMAT})
 
-    @router.get("/scenarios", summary="Demo and saved scenarios",
-                responses={200: {"content": {"application/json": {"schema": {
-                    "type": "object", "required": ["scenarios"],
-                    "properties": {"scenarios": {"type": "array", "items": SCENARIO_SUMMARY}}}}}}})
+    @router.get(
+        "/scenarios",
+        summary="Demo and saved scenarios",
+        responses={
+            200: {
+                "content": {
+                    "application/json": {
+                        "schema": {
+                            "type": "object",
+                            "required": ["scenarios"],
+                            "properties": {"scenarios": {"type": "array", "items": SCENARIO_SUMMARY}},
+                        }
+                    }
+                }
+            }
+        },
+    )
     async def list_scenarios(service: ServiceDep) -> JSONResponse:
         return JSONResponse({"scenarios": [s.summary() for s in service.store.list()]})
 
-    @router.get("/scenarios/{scenario_id}", summary="The canonical document of one scenario (SI numbers)",
-                responses={200: {"content": {"application/json": {"schema": _OBJECT}}}, **error_responses(404)})
+    @router.get(
+        "/scenarios/{scenario_id}",
+        summary="The canonical document of one scenario (SI numbers)",
+        responses={200: {"content": {"application/json": {"schema": _OBJECT}}}, **error_responses(404)},
+    )
     async def get_scenario(
         service: ServiceDep,
         scenario_id: Annotated[str, Path(description="Scenario id (16 hex digits) or a demo's name.")],
@@ -195,10 +250,15 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         if settings.save_token:
             auth = request.headers.get("authorization", "")
             scheme, _, token = auth.partition(" ")
-            if scheme.lower() != "bearer" or not hmac.compare_digest(token.strip().encode(),
-                                                                    settings.save_token.encode()):
-                raise ApiError(401, "unauthorized", "saving needs the header 'Authorization: Bearer <token>'",
-                               headers={"WWW-Authenticate": "Bearer"})
+            if scheme.lower() != "bearer" or not hmac.compare_digest(
+                token.strip().encode(), settings.save_token.encode()
+            ):
+                raise ApiError(
+                    401,
+                    "unauthorized",
+                    "saving needs the header 'Authorization: Bearer <token>'",
+                    headers={"WWW-Authenticate": "Bearer"},
+                )
         from exomap import schema
 
         try:
@@ -215,9 +275,15 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
             return _answer_response(request, out, hit, "json", kind)
 
         compute.__annotations__["req"] = Annotated[model, Body()]
-        router.add_api_route(f"/{kind}", compute, methods=["POST"], summary=SUMMARIES[kind],
-                             responses=_answer_responses(kind, post=True), response_class=Response,
-                             name=f"post_{kind}")
+        router.add_api_route(
+            f"/{kind}",
+            compute,
+            methods=["POST"],
+            summary=SUMMARIES[kind],
+            responses=_answer_responses(kind, post=True),
+            response_class=Response,
+            name=f"post_{kind}",
+        )
 
     for kind, model in REQUEST_MODELS.items():
         post_route(kind, model)
@@ -240,43 +306,78 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
             out[name.strip()] = _number_or_text(amount)
         return out
 
-    @router.get("/scenarios/{scenario_id}/steady", summary=SUMMARIES["steady"] + " (stored scenario)",
-                responses=_answer_responses("steady"), response_class=Response)
-    async def get_steady(request: Request, service: ServiceDep, scenario_id: Id, residence_time: Tau = None,
-                         feed_temperature: Tin = None, feed_concentrations: Conc = None,
-                         coolant_temperature: Tc = None) -> Response:
-        req = _validated(SteadyRequest, {
-            "scenario_id": scenario_id, "residence_time": _number_or_text(residence_time),
-            "feed_temperature": _number_or_text(feed_temperature),
-            "feed_concentrations": concentrations(feed_concentrations),
-            "coolant_temperature": _number_or_text(coolant_temperature)})
+    @router.get(
+        "/scenarios/{scenario_id}/steady",
+        summary=SUMMARIES["steady"] + " (stored scenario)",
+        responses=_answer_responses("steady"),
+        response_class=Response,
+    )
+    async def get_steady(
+        request: Request,
+        service: ServiceDep,
+        scenario_id: Id,
+        residence_time: Tau = None,
+        feed_temperature: Tin = None,
+        feed_concentrations: Conc = None,
+        coolant_temperature: Tc = None,
+    ) -> Response:
+        req = _validated(
+            SteadyRequest,
+            {
+                "scenario_id": scenario_id,
+                "residence_time": _number_or_text(residence_time),
+                "feed_temperature": _number_or_text(feed_temperature),
+                "feed_concentrations": concentrations(feed_concentrations),
+                "coolant_temperature": _number_or_text(coolant_temperature),
+            },
+        )
         out, hit = await service.answer("steady", req)
         return _answer_response(request, out, hit, "json", "steady")
 
-    @router.get("/scenarios/{scenario_id}/branch", summary=SUMMARIES["branch"] + " (stored scenario)",
-                responses=_answer_responses("branch"), response_class=Response)
+    @router.get(
+        "/scenarios/{scenario_id}/branch",
+        summary=SUMMARIES["branch"] + " (stored scenario)",
+        responses=_answer_responses("branch"),
+        response_class=Response,
+    )
     async def get_branch(
-        request: Request, service: ServiceDep, scenario_id: Id,
+        request: Request,
+        service: ServiceDep,
+        scenario_id: Id,
         along: Annotated[str | None, Query(description="'residence_time' or 'feed_temperature'.")] = None,
-        residence_time: Tau = None, feed_temperature: Tin = None,
+        residence_time: Tau = None,
+        feed_temperature: Tin = None,
         range: Annotated[str | None, Query(description="'lo,hi' of the varying parameter.")] = None,
-        feed_concentrations: Conc = None, coolant_temperature: Tc = None,
+        feed_concentrations: Conc = None,
+        coolant_temperature: Tc = None,
     ) -> Response:
-        req = _validated(BranchRequest, {
-            "scenario_id": scenario_id, "along": along, "residence_time": _number_or_text(residence_time),
-            "feed_temperature": _number_or_text(feed_temperature), "range": _pair(range),
-            "feed_concentrations": concentrations(feed_concentrations),
-            "coolant_temperature": _number_or_text(coolant_temperature)})
+        req = _validated(
+            BranchRequest,
+            {
+                "scenario_id": scenario_id,
+                "along": along,
+                "residence_time": _number_or_text(residence_time),
+                "feed_temperature": _number_or_text(feed_temperature),
+                "range": _pair(range),
+                "feed_concentrations": concentrations(feed_concentrations),
+                "coolant_temperature": _number_or_text(coolant_temperature),
+            },
+        )
         out, hit = await service.answer("branch", req)
         return _answer_response(request, out, hit, "json", "branch")
 
-    @router.get("/scenarios/{scenario_id}/map", summary=SUMMARIES["map"] + " (stored scenario)",
-                responses=_answer_responses("map"), response_class=Response)
+    @router.get(
+        "/scenarios/{scenario_id}/map",
+        summary=SUMMARIES["map"] + " (stored scenario)",
+        responses=_answer_responses("map"),
+        response_class=Response,
+    )
     async def get_map(
-        request: Request, service: ServiceDep, scenario_id: Id,
+        request: Request,
+        service: ServiceDep,
+        scenario_id: Id,
         residence_time: Annotated[str | None, Query(description="Window 'lo,hi', e.g. '1 min,10 h'.")] = None,
-        feed_temperature: Annotated[str | None, Query(description="Window 'lo,hi', e.g. '0 degC,120 degC'.")]
-        = None,
+        feed_temperature: Annotated[str | None, Query(description="Window 'lo,hi', e.g. '0 degC,120 degC'.")] = None,
         points: Annotated[str | None, Query(description="Grid 'n_tau,n_tin', e.g. '200,200'.")] = None,
         spacing: Annotated[str | None, Query(description="'log' or 'linear' residence-time axis.")] = None,
         format: Annotated[str, Query(description="'json' or 'csv'.", pattern="^(json|csv)$")] = "json",
@@ -285,30 +386,57 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         if points is not None:
             parts = [p.strip() for p in points.split(",")]
             pts = [int(p) if p.lstrip("-").isdigit() else p for p in parts] if len(parts) == 2 else points
-        req = _validated(MapRequest, {
-            "scenario_id": scenario_id, "residence_time": _pair(residence_time),
-            "feed_temperature": _pair(feed_temperature), "points": pts, "spacing": spacing})
+        req = _validated(
+            MapRequest,
+            {
+                "scenario_id": scenario_id,
+                "residence_time": _pair(residence_time),
+                "feed_temperature": _pair(feed_temperature),
+                "points": pts,
+                "spacing": spacing,
+            },
+        )
         out, hit = await service.answer("map", req, format)
         return _answer_response(request, out, hit, format, "map", scenario_id)
 
-    @router.get("/scenarios/{scenario_id}/check", summary=SUMMARIES["check"] + " (stored scenario)",
-                responses=_answer_responses("check"), response_class=Response)
+    @router.get(
+        "/scenarios/{scenario_id}/check",
+        summary=SUMMARIES["check"] + " (stored scenario)",
+        responses=_answer_responses("check"),
+        response_class=Response,
+    )
     async def get_check(
-        request: Request, service: ServiceDep, scenario_id: Id,
-        residence_time: Tau = None, feed_temperature: Tin = None,
+        request: Request,
+        service: ServiceDep,
+        scenario_id: Id,
+        residence_time: Tau = None,
+        feed_temperature: Tin = None,
         branch: Annotated[str | None, Query(description="'low' or 'high': which stable state is assumed.")] = None,
     ) -> Response:
-        req = _validated(CheckRequest, {
-            "scenario_id": scenario_id, "residence_time": _number_or_text(residence_time),
-            "feed_temperature": _number_or_text(feed_temperature), "branch": branch})
+        req = _validated(
+            CheckRequest,
+            {
+                "scenario_id": scenario_id,
+                "residence_time": _number_or_text(residence_time),
+                "feed_temperature": _number_or_text(feed_temperature),
+                "branch": branch,
+            },
+        )
         out, hit = await service.answer("check", req)
         return _answer_response(request, out, hit, "json", "check")
 
-    @router.get("/scenarios/{scenario_id}/simulate", summary=SUMMARIES["simulate"] + " (stored scenario)",
-                responses=_answer_responses("simulate"), response_class=Response)
+    @router.get(
+        "/scenarios/{scenario_id}/simulate",
+        summary=SUMMARIES["simulate"] + " (stored scenario)",
+        responses=_answer_responses("simulate"),
+        response_class=Response,
+    )
     async def get_simulate(
-        request: Request, service: ServiceDep, scenario_id: Id,
-        residence_time: Tau = None, feed_temperature: Tin = None,
+        request: Request,
+        service: ServiceDep,
+        scenario_id: Id,
+        residence_time: Tau = None,
+        feed_temperature: Tin = None,
         start: Annotated[str | None, Query(description="'low' or 'high' starting state.")] = None,
         duration: Annotated[str | None, Query(description="Simulated time: '2 h' or seconds.")] = None,
         events: Annotated[str | None, Query(description="The events as a JSON list (URL-encoded).")] = None,
@@ -319,12 +447,23 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
             try:
                 parsed_events = json.loads(events)
             except ValueError:
-                raise ApiError(422, "invalid_request", "events: expected a JSON list of events",
-                               [{"field": "events", "message": "expected a JSON list of events"}]) from None
-        req = _validated(SimulateRequest, {
-            "scenario_id": scenario_id, "residence_time": _number_or_text(residence_time),
-            "feed_temperature": _number_or_text(feed_temperature), "start": start,
-            "duration": _number_or_text(duration), "events": parsed_events})
+                raise ApiError(
+                    422,
+                    "invalid_request",
+                    "events: expected a JSON list of events",
+                    [{"field": "events", "message": "expected a JSON list of events"}],
+                ) from None
+        req = _validated(
+            SimulateRequest,
+            {
+                "scenario_id": scenario_id,
+                "residence_time": _number_or_text(residence_time),
+                "feed_temperature": _number_or_text(feed_temperature),
+                "start": start,
+                "duration": _number_or_text(duration),
+                "events": parsed_events,
+            },
+        )
         out, hit = await service.answer("simulate", req, format)
         return _answer_response(request, out, hit, format, "simulate", scenario_id)
 

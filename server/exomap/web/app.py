@@ -78,7 +78,7 @@ def create_app(settings: Settings | None = None, *, warm_up: bool = False) -> Fa
         version=exomap.__version__,
         summary="Steady states, operating maps, setpoint checks and dynamics of exothermic stirred tanks.",
         description="Screening aid, not a design or safety basis. Quantities are SI numbers or strings with "
-        "units. Every error has the shape {\"error\": {status, code, message, fields}}.",
+        'units. Every error has the shape {"error": {status, code, message, fields}}.',
         openapi_url=apidocs.OPENAPI_PATH,
         docs_url=None,  # the built-in pages load scripts from a CDN; /api/docs is served offline instead
         redoc_url=None,

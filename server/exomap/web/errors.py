@@ -121,7 +121,7 @@ FIELD_HINTS = {
     "residence_time": "expected a time, e.g. '40 min', or a number of seconds",
     "feed_temperature": "expected a temperature, e.g. '35 degC', or a number of kelvin",
     "coolant_temperature": "expected a temperature, e.g. '20 degC', or a number of kelvin",
-    "feed_concentrations": "expected an object of species to concentrations, e.g. {\"A\": \"2 mol/L\"}",
+    "feed_concentrations": 'expected an object of species to concentrations, e.g. {"A": "2 mol/L"}',
     "duration": "expected a time, e.g. '2 h', or a number of seconds",
     "points": "expected two whole numbers [n_residence_time, n_feed_temperature], each at least 2",
     "spacing": "expected 'log' or 'linear'",

@@ -60,8 +60,11 @@ class SecurityHeaders:
 
 async def _send_error(send: Send, status: int, code: str, message: str) -> None:
     body = json.dumps(error_body(status, code, message)).encode("utf-8")
-    headers = [(b"content-type", b"application/json"), (b"content-length", str(len(body)).encode("ascii")),
-               (b"connection", b"close")]
+    headers = [
+        (b"content-type", b"application/json"),
+        (b"content-length", str(len(body)).encode("ascii")),
+        (b"connection", b"close"),
+    ]
     await send({"type": "http.response.start", "status": status, "headers": headers})
     await send({"type": "http.response.body", "body": body})
 

@@ -115,8 +115,12 @@ class Service:
         if ref.scenario_id is not None:
             stored = self.store.get(ref.scenario_id)
             if stored is None:
-                raise ApiError(404, "not_found", f"no scenario with id {ref.scenario_id!r}",
-                               [{"field": "scenario_id", "message": "no stored scenario has this id"}])
+                raise ApiError(
+                    404,
+                    "not_found",
+                    f"no scenario with id {ref.scenario_id!r}",
+                    [{"field": "scenario_id", "message": "no stored scenario has this id"}],
+                )
             # A stored scenario's id is its content id: a scenario already converted is not parsed again.
             with self._lock:
                 core = self._scenarios.get(stored.id)
@@ -133,8 +137,11 @@ class Service:
     @staticmethod
     def _point(req: Any, sc: Any) -> tuple[float, float]:
         tau = sc.tau_nominal if req.residence_time is None else quantity(req.residence_time, "time", "residence_time")
-        T_in = sc.T_in if req.feed_temperature is None else quantity(
-            req.feed_temperature, "temperature", "feed_temperature")
+        T_in = (
+            sc.T_in
+            if req.feed_temperature is None
+            else quantity(req.feed_temperature, "temperature", "feed_temperature")
+        )
         return tau, T_in
 
     @staticmethod
@@ -175,8 +182,15 @@ class Service:
             c_in, T_c = self._feed(req, sc)
             dim = "time" if req.along == "residence_time" else "temperature"
             rng = self._range(req.range, dim, "range")
-            return {"along": req.along, "tau": tau, "T_in": T_in, "lo": rng[0] if rng else None,
-                    "hi": rng[1] if rng else None, "c_in": c_in, "T_c": T_c}
+            return {
+                "along": req.along,
+                "tau": tau,
+                "T_in": T_in,
+                "lo": rng[0] if rng else None,
+                "hi": rng[1] if rng else None,
+                "c_in": c_in,
+                "T_c": T_c,
+            }
         if kind == "map":
             tau_range = self._range(req.residence_time, "time", "residence_time")
             T_in_range = self._range(req.feed_temperature, "temperature", "feed_temperature")
@@ -184,9 +198,12 @@ class Service:
             n = points or (sc.map.points if sc.map is not None else (200, 200))
             cells = int(n[0]) * int(n[1])
             if cells > s.max_map_cells:
-                raise ApiError(413, "too_many_cells",
-                               f"a {n[0]} x {n[1]} map has {cells} cells; the limit is {s.max_map_cells}",
-                               [{"field": "points", "message": f"at most {s.max_map_cells} cells (n_tau x n_tin)"}])
+                raise ApiError(
+                    413,
+                    "too_many_cells",
+                    f"a {n[0]} x {n[1]} map has {cells} cells; the limit is {s.max_map_cells}",
+                    [{"field": "points", "message": f"at most {s.max_map_cells} cells (n_tau x n_tin)"}],
+                )
             return {"tau_range": tau_range, "T_in_range": T_in_range, "points": points, "spacing": req.spacing}
         if kind == "check":
             tau, T_in = self._point(req, sc)
@@ -202,13 +219,19 @@ class Service:
             if not duration > 0:
                 raise invalid("duration", f"expected a positive time, got {duration:g} s")
             if duration > s.max_duration_s:
-                raise ApiError(413, "too_long",
-                               f"a {duration:g} s simulation is longer than the limit of {s.max_duration_s:g} s",
-                               [{"field": "duration", "message": f"at most {s.max_duration_s:g} s"}])
+                raise ApiError(
+                    413,
+                    "too_long",
+                    f"a {duration:g} s simulation is longer than the limit of {s.max_duration_s:g} s",
+                    [{"field": "duration", "message": f"at most {s.max_duration_s:g} s"}],
+                )
             if len(req.events) > s.max_events:
-                raise ApiError(413, "too_many_events",
-                               f"{len(req.events)} events; the limit is {s.max_events}",
-                               [{"field": "events", "message": f"at most {s.max_events} events"}])
+                raise ApiError(
+                    413,
+                    "too_many_events",
+                    f"{len(req.events)} events; the limit is {s.max_events}",
+                    [{"field": "events", "message": f"at most {s.max_events} events"}],
+                )
             events = parse_events(req.events, event_unit_parser, species=sc.species, duration=duration)
             return {"tau": tau, "T_in": T_in, "start": req.start, "events": events, "duration": duration}
         raise ValueError(f"unknown kind {kind!r}")

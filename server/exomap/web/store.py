@@ -48,8 +48,13 @@ class StoredScenario:
     name: str | None = None
 
     def summary(self) -> dict[str, Any]:
-        return {"id": self.id, "title": self.title, "description": self.description, "demo": self.demo,
-                "name": self.name}
+        return {
+            "id": self.id,
+            "title": self.title,
+            "description": self.description,
+            "demo": self.demo,
+            "name": self.name,
+        }
 
 
 def canonicalize(doc: dict[str, Any]) -> tuple[str, str, str, str]:
@@ -141,18 +146,22 @@ class ScenarioStore:
             return self._demo_by_id[key]
         if key in self._demo_by_name:
             return self._demo_by_name[key]
-        row = self._conn().execute(
-            "SELECT id, title, description, document FROM scenarios WHERE id = ?", (key,)
-        ).fetchone()
+        row = (
+            self._conn()
+            .execute("SELECT id, title, description, document FROM scenarios WHERE id = ?", (key,))
+            .fetchone()
+        )
         if row is None:
             return None
         return StoredScenario(row[0], row[1], row[2], row[3])
 
     def list(self) -> list[StoredScenario]:
         """Demos first (by name), then saved scenarios, oldest first; a saved copy of a demo is listed once."""
-        rows = self._conn().execute(
-            "SELECT id, title, description, document FROM scenarios ORDER BY saved_at, id"
-        ).fetchall()
+        rows = (
+            self._conn()
+            .execute("SELECT id, title, description, document FROM scenarios ORDER BY saved_at, id")
+            .fetchall()
+        )
         saved = [StoredScenario(*r) for r in rows if r[0] not in self._demo_by_id]
         return self.demos + saved
 
