@@ -138,3 +138,11 @@ def test_docs_page_shows_the_cautions(client) -> None:
     page = html.unescape(client.get("/api/docs").text)
     for sentence in CAUTIONS:
         assert sentence in page
+
+
+def test_other_responses_are_gzipped_by_the_middleware(client, saved_id) -> None:
+    document = client.get(f"/api/v1/scenarios/{saved_id}", headers={"Accept-Encoding": "gzip"})
+    assert len(document.content) > 1000  # over the middleware's minimum size
+    assert document.headers["content-encoding"] == "gzip"
+    small = client.get("/api/v1/health", headers={"Accept-Encoding": "gzip"})
+    assert "content-encoding" not in small.headers  # under the minimum size: sent as it is
