@@ -343,6 +343,11 @@ def validate(sc: Scenario) -> None:
                     "a positive order in a product (autocatalysis) is not supported yet",
                     field=f"{where}.orders.{sc.species[i]}",
                 )
+        if not any(v < 0 and n > 0 for v, n in zip(r.nu, r.orders, strict=True)):
+            # a rate that does not fall as its reactants run out would drive concentrations negative
+            raise ModelInputError(
+                "a reaction needs a positive order in at least one of its reactants", field=f"{where}.orders"
+            )
         positive(r.k0, f"{where}.pre_exponential")
         positive(r.Ea, f"{where}.activation_energy")
         finite(r.dH, f"{where}.reaction_enthalpy")
