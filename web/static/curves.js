@@ -71,6 +71,7 @@ export function branchTraces(doc, xOf, setpointX, maxK) {
 }
 
 export async function drawBranch(Plotly, el, doc, setpoint, maxK) {
+  if (doc.success === false) throw new Error(doc.message || "the branch could not be traced");
   const alongTau = doc.parameter === "residence_time";
   const xOf = alongTau ? toMin : toC;
   const x = alongTau ? toMin(setpoint.residence_time) : toC(setpoint.feed_temperature);

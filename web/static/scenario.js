@@ -237,6 +237,8 @@ async function loadMap(prefetched) {
       onHover: hoverAt,
     });
     performance.mark("exomap:map-drawn");
+    if (doc.success === false) showProblem(new Error(`The map is not complete: ${doc.message}`));
+    if (view.check) renderCheck(view.check); // names the setpoint's region in the map legend's words
     $("map").dataset.drawn = String(Date.now());
     if (!$("map").dataset.firstDrawnMs) $("map").dataset.firstDrawnMs = String(Math.round(performance.now()));
   } catch (e) {
