@@ -523,3 +523,21 @@ def test_api_error_is_shown_in_plain_words(page: Any, server: str, test_tank: st
     text = page.inner_text("#verdict")
     assert "could not be made" in text and "residence_time" in text
     assert "Traceback" not in page.content()
+
+
+def test_the_guard_stops_requests_to_other_hosts(new_context: Any, server: str) -> None:
+    # the guard every other test relies on: a request to another host is aborted and recorded
+    ctx = new_context()
+    page = open_page(ctx)
+    page.goto(server + "/")
+    outcome = page.evaluate(
+        "async () => { try { await fetch('http://example.invalid/plotly.js'); return 'fetched'; }"
+        " catch (e) { return 'blocked'; } }"
+    )
+    assert outcome == "blocked"  # the page's own Content-Security-Policy stops it before the network
+    from playwright.sync_api import Error as PlaywrightError
+
+    with pytest.raises(PlaywrightError):
+        page.goto("http://example.invalid/")  # a navigation is not the page's to police: the guard stops it
+    assert ctx.guard.foreign == ["http://example.invalid/"]
+    ctx.guard.foreign.clear()  # seen and checked here; the fixture's own check would fail the test otherwise
