@@ -244,10 +244,10 @@ def main(argv: list[str] | None = None) -> int:
         base = Baseline(sc)
         rng = np.random.default_rng(2024)
         picks = [(int(rng.integers(n_tin)), int(rng.integers(n_tau))) for _ in range(args.baseline_cells)]
-        t0 = time.perf_counter()
+        t0, c0 = time.perf_counter(), time.process_time()
         out = [base.cell(float(m.tau[j]), float(m.T_in[i])) for i, j in picks]
-        t_sub = time.perf_counter() - t0
-        t_base = t_sub / len(picks) * cells
+        t_sub, c_sub = time.perf_counter() - t0, time.process_time() - c0
+        t_base, c_base = t_sub / len(picks) * cells, c_sub / len(picks) * cells
         same_region = sum(int(o[0] == m.region[i, j]) for o, (i, j) in zip(out, picks, strict=True))
         same_count = sum(int(o[1] == m.state_count[i, j]) for o, (i, j) in zip(out, picks, strict=True))
         print(
@@ -259,10 +259,13 @@ def main(argv: list[str] | None = None) -> int:
             f"state counts of those cells"
         )
         ratio = t_base / t_ex
-        print(f"ratio    exomap is {ratio:,.0f}x faster")
+        print(f"ratio    exomap is {ratio:,.0f}x faster (wall); {c_base / c_ex:,.0f}x in CPU time")
         if label in TARGET_MS:
             ok = t_ex * 1e3 <= TARGET_MS[label]
-            print(f"[{verdict(ok)}] {label} 200x200 median {t_ex * 1e3:.1f} ms <= {TARGET_MS[label]:.0f} ms")
+            print(
+                f"[{verdict(ok)}] {label} 200x200 median {t_ex * 1e3:.1f} ms <= {TARGET_MS[label]:.0f} ms  "
+                f"(CPU median {c_ex * 1e3:.1f} ms: {verdict(c_ex * 1e3 <= TARGET_MS[label])} on CPU time)"
+            )
             results.append((f"{label} time", ok))
         if label == "adiabatic":
             ok = ratio >= TARGET_RATIO
