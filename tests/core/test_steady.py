@@ -382,6 +382,29 @@ def test_two_reactions_five_states(series):
     assert [s.stability for s in res.states] == ["stable", "saddle", "stable", "saddle", "stable"]
 
 
+# -- overrides of the feed and coolant -------------------------------------------------------------------
+def test_feed_concentration_override_scales_B(cstr, ref):
+    # analytic: B = dT_ad gamma / T_in with dT_ad = (-dH) C_Af / (rho cp), so doubling C_Af doubles B
+    c = cstr(20.0, 4.0)
+    Da = 0.04
+    res = steady_states(c.sc, c.tau(Da), c.T_in, c_in=(2 * c.sc.c_in[0], 0.0))
+    # independent roots for B = 8 (three states at Da = 0.04)
+    np.testing.assert_allclose([s.conversion for s in res.states], ref.roots_x(Da, 8.0, 20.0), rtol=1e-9)
+
+
+def test_coolant_temperature_override_matches_the_scenario_value(cstr):
+    c0 = cstr(20.0, 16.0)
+    tau = c0.tau(0.05)
+    c = cstr(20.0, 16.0, kappa=3.0 / tau)
+    via_override = steady_states(c.sc, tau, c.T_in, T_c=c.T_in - 25.0)
+    via_scenario = steady_states(c.sc.with_changes(T_c=c.T_in - 25.0), tau, c.T_in)
+    # the same equations either way
+    np.testing.assert_allclose([s.T for s in via_override.states], [s.T for s in via_scenario.states], rtol=1e-12)
+    # analytic: a colder coolant cools the tank (T decreases with T_c on a single stable state)
+    assert len(via_override.states) == 1
+    assert via_override.states[0].T < steady_states(c.sc, tau, c.T_in).states[0].T
+
+
 # -- (h) bad inputs ----------------------------------------------------------------------------------------
 @pytest.mark.parametrize("tau", [0.0, -10.0, float("nan"), float("inf")])
 def test_bad_residence_time(cstr, tau):
