@@ -277,3 +277,36 @@ def test_canonical_round_trip_is_exact(make_doc, diameter, flow, conc, Ea, T_in,
     # the canonical numbers are the SI values of the inputs
     data = json.loads(first)
     assert math.isfinite(data["feed"]["flow"]) and data["feed"]["flow"] > 0
+
+
+@settings(max_examples=40, deadline=None)
+@given(
+    jacket=st.one_of(st.none(), st.tuples(st.floats(0.0, 1e5), st.floats(-30.0, 200.0))),
+    policy=st.dictionaries(
+        st.sampled_from(["min_feed_temperature_margin", "min_temperature_margin", "sensitivity", "upset_duration"]),
+        st.floats(0.1, 100.0),
+    ),
+    cv=st.one_of(st.none(), st.floats(0.1, 500.0)),
+    points=st.tuples(st.integers(2, 2000), st.integers(2, 2000)),
+    control=st.booleans(),
+)
+def test_canonical_round_trip_with_optional_blocks(make_doc, jacket, policy, cv, points, control):
+    doc = make_doc()
+    if jacket is not None:
+        doc["jacket"] = {"ua": f"{jacket[0]!r} W/K", "coolant_temperature": f"{jacket[1]!r} degC"}
+    doc["check_policy"] = {k: (f"{v!r} min" if k == "upset_duration" else v) for k, v in policy.items()}
+    if cv is not None:
+        doc["outlet_valve"].pop("kv")
+        doc["outlet_valve"]["cv"] = cv
+    if control:
+        doc["outlet_valve"].pop("opening")
+        doc["outlet_valve"]["level_control"] = {"gain": "2 1/m", "reset_time": "5 min"}
+    doc["map"] = {"residence_time": ["5 min", "3 h"], "feed_temperature": ["0 degC", "80 degC"], "points": list(points)}
+    first = canonical_json(doc)
+    assert canonical_json(json.loads(first)) == first
+    sc = parse_scenario(json.loads(first)).to_core()
+    assert sc.map.points == points
+    assert sc.valve.controlled == control
+    if cv is not None:
+        # the canonical form stores the converted Kv (exomap.core.valve.cv_to_kv; fluids.Cv_to_Kv agrees)
+        assert sc.valve.Kv == pytest.approx(fluids.Cv_to_Kv(cv), rel=1e-13)
