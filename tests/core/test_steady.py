@@ -154,11 +154,14 @@ def test_reported_states_have_tiny_residual_and_lie_on_the_adiabat(cstr, ref, ga
 
 # -- (d) the explicit one-reaction path and the general path agree ----------------------------------------
 class _GeneralOnly(Manifold):
-    """The same manifold forced onto the general (Newton in T) path."""
+    """The same manifold forced onto the general (Newton in T) path; counts its instances."""
+
+    made = 0
 
     def __init__(self, *args, **kwargs):
         super().__init__(*args, **kwargs)
         self.explicit = False
+        _GeneralOnly.made += 1
 
 
 @pytest.mark.parametrize(
@@ -180,7 +183,10 @@ def test_explicit_and_general_paths_agree(cstr, monkeypatch, gamma, B, Da, beta)
     assert mf_explicit.explicit
     explicit = steady_states(c.sc, tau, c.T_in)
     monkeypatch.setattr(steady_mod, "Manifold", _GeneralOnly)
+    made = _GeneralOnly.made
     general = steady_states(c.sc, tau, c.T_in)
+    # the general path was really taken (else this comparison would prove nothing)
+    assert _GeneralOnly.made > made
     assert explicit.success and general.success
     # the same equations by the general path: the same number of states
     assert len(explicit.states) == len(general.states) >= 1
