@@ -360,6 +360,15 @@ def test_adiabatic_demo_window_holds_the_cusp():
     # feed temperature is inside it too
     T_cusp, tau_ext, tau_ign = last
     assert T_lo < T_cusp < T_hi and t_lo < tau_ext <= tau_ign < t_hi
+    # the map's own cusp lies between the last feed temperature with three states and the next step (0.5 K),
+    # where the two turning points have nearly met (their residence times differ by < 1e-4 here)
+    from exomap.core.opmap import operating_map
+
+    cusps = operating_map(sc, points=(40, 40)).to_dict()["boundaries"]["cusp"]
+    assert len(cusps) == 1
+    tau_c, T_in_c = cusps[0][0], cusps[0][1]
+    assert T_cusp <= T_in_c <= T_cusp + 0.5
+    assert tau_c == pytest.approx(tau_ext, rel=2e-2)
 
 
 def test_cli_plant_units():
