@@ -146,3 +146,15 @@ def test_pre_exponential_in_litres_for_any_order(x, n):
     # the same value in another order's units is refused
     with pytest.raises(ValueError, match="wrong dimension"):
         pre_exponential_to_si(text, n + 1.0)
+
+
+def test_threads_racing_for_the_first_registry_share_one():
+    # the web layer parses in worker threads; units of two pint registries cannot be combined
+    code = (
+        "import threading; from exomap.schema.quantity import parse_quantity, registry; out = []\n"
+        "ts = [threading.Thread(target=lambda: out.append((parse_quantity('6 m^3/h', 'flow', 'f'), id(registry()))))"
+        " for _ in range(8)]\n"
+        "[t.start() for t in ts]; [t.join() for t in ts]\n"
+        "assert len(out) == 8 and len(set(out)) == 1, out"
+    )
+    subprocess.run([sys.executable, "-c", code], check=True)

@@ -23,6 +23,7 @@ from __future__ import annotations
 import functools
 import math
 import re
+import threading
 from dataclasses import dataclass
 from typing import Any
 
@@ -76,9 +77,19 @@ _LONE_OFFSET_RE = re.compile(rf"^(?:{_CELSIUS}|{_FAHRENHEIT})$")
 _MAX_LEN = 80
 
 
+_REGISTRY_LOCK = threading.Lock()
+
+
 @functools.lru_cache(maxsize=1)
 def registry() -> Any:
-    """The shared pint UnitRegistry, built on first use."""
+    """The shared pint UnitRegistry, built on first use (once, even when threads race for it: units of two
+    registries cannot be combined)."""
+    with _REGISTRY_LOCK:
+        return _build_registry()
+
+
+@functools.lru_cache(maxsize=1)
+def _build_registry() -> Any:
     import pint
 
     return pint.UnitRegistry()
