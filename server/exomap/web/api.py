@@ -81,11 +81,12 @@ SCENARIO_SUMMARY = {
 }
 
 
-def get_service(request: Request) -> Service:
+# Dependencies are coroutines: FastAPI runs a plain ``def`` dependency in a worker thread, one hop per request.
+async def get_service(request: Request) -> Service:
     return request.app.state.service
 
 
-def get_settings(request: Request) -> Settings:
+async def get_settings(request: Request) -> Settings:
     return request.app.state.settings
 
 
