@@ -6,8 +6,10 @@ scenario, the map answer and the drawing. The ratio is the page's overhead over 
 a cold answer (a grid not asked for before, so the server computes it) and a cached one (the same URL again,
 the server's answer cache hit), each in a fresh browser context (no browser cache, as a first visit).
 A third case is a repeat visit: a new tab of the same browser (plotly's bundle from the browser cache, as every
-visit after the first; the answer cached). Target (the issue): first map drawn in under 2 s. Prints medians
-over RUNS runs and the machine's load average (the numbers are wall-clock and move with other work on it).
+visit after the first; the answer cached). The page first shows the map as a still picture drawn from the
+answer (a canvas), then runs plotly's bundle and draws the interactive chart; both times are printed.
+Target (the issue): first map drawn in under 2 s. Prints medians over RUNS runs and the machine's load
+average (the numbers are wall-clock and move with other work on it).
 
 Run: python benchmarks/bench_page.py
 """
@@ -68,17 +70,20 @@ def start(data: Path) -> tuple[subprocess.Popen, str]:
 
 
 def first_map(ctx, url: str) -> tuple[float, float, float]:
-    """Wall time from navigation to the first map drawn, the page's own clock then, and when plotly's bundle
-    had run (the page's performance mark) [s]."""
+    """From navigation (wall clock) to the first map drawn (the still picture from the map answer), to the
+    interactive chart drawn, and when plotly's bundle had run (the page's performance marks) [s]."""
     page = ctx.new_page()
     t0 = time.perf_counter()
     page.goto(url)
     page.wait_for_function("() => document.getElementById('map').dataset.firstDrawnMs", timeout=120_000)
-    wall = time.perf_counter() - t0
-    in_page = float(page.get_attribute("#map", "data-first-drawn-ms")) / 1000.0
-    plotly_s = page.evaluate("performance.getEntriesByName('exomap:plotly-ready')[0].startTime") / 1000.0
+    wall_chart = time.perf_counter() - t0
+    marks = page.evaluate(
+        "() => Object.fromEntries(performance.getEntriesByType('mark').map(m => [m.name, m.startTime / 1000]))"
+    )
+    # the page's clock starts at navigation; the wall clock adds the test driver's own round trip (small)
+    first = marks.get("exomap:map-preview", marks["exomap:map-drawn"])
     page.close()
-    return wall, in_page, plotly_s
+    return first, wall_chart, marks["exomap:plotly-ready"]
 
 
 def plotly_alone(ctx, base: str) -> float:
@@ -112,7 +117,7 @@ def main() -> None:
     from playwright.sync_api import sync_playwright
 
     cases = ("cold answer, first visit", "cached answer, first visit", "cached answer, repeat visit")
-    results = {c: {"bare": [], "wall": [], "in_page": [], "plotly": []} for c in cases}
+    results = {c: {"bare": [], "first": [], "chart": [], "plotly": []} for c in cases}
     alone: list[float] = []
     with tempfile.TemporaryDirectory() as tmp:
         proc, base = start(Path(tmp))
@@ -135,26 +140,26 @@ def main() -> None:
                     q = f"{n_tau - 1 - run},{n_tin}"
                     ctx = browser.new_context(viewport={"width": 1366, "height": 768})
                     record = results[cases[0]]
-                    wall, in_page, plotly_s = first_map(ctx, page_of(q))
+                    first, chart, plotly_s = first_map(ctx, page_of(q))
                     ctx.close()
-                    record["wall"].append(wall)
-                    record["in_page"].append(in_page)
+                    record["first"].append(first)
+                    record["chart"].append(chart)
                     record["plotly"].append(plotly_s)
                     # ... and, for the baseline, another fresh grid of the same size, fetched bare
                     record["bare"].append(bare(api_of(f"{n_tau - 1 - run},{n_tin - 1}")))
                     # the same grid again: the server's answer cache
                     ctx = browser.new_context(viewport={"width": 1366, "height": 768})
                     record = results[cases[1]]
-                    wall, in_page, plotly_s = first_map(ctx, page_of(q))
+                    first, chart, plotly_s = first_map(ctx, page_of(q))
                     ctx.close()
-                    record["wall"].append(wall)
-                    record["in_page"].append(in_page)
+                    record["first"].append(first)
+                    record["chart"].append(chart)
                     record["plotly"].append(plotly_s)
                     record["bare"].append(bare(api_of(q)))
                     record = results[cases[2]]
-                    wall, in_page, plotly_s = first_map(warm, page_of(q))
-                    record["wall"].append(wall)
-                    record["in_page"].append(in_page)
+                    first, chart, plotly_s = first_map(warm, page_of(q))
+                    record["first"].append(first)
+                    record["chart"].append(chart)
                     record["plotly"].append(plotly_s)
                     record["bare"].append(bare(api_of(q)))
                 warm.close()
@@ -168,15 +173,19 @@ def main() -> None:
         f"navigation to first map drawn, demo {demo['name']!r}, grid about {n_tau} x {n_tin}, median of {RUNS} "
         f"runs; load average {load[0]:.1f} {load[1]:.1f} {load[2]:.1f} on {os.cpu_count()} cores"
     )
-    print(
-        f"{'case':<28} {'bare answer [s]':>16} {'page, wall [s]':>15} {'page, in-page [s]':>18} "
-        f"{'plotly ran by [s]':>18} {'ratio page/bare':>16} {'target < 2 s':>13}"
-    )
     print(f"plotly's bundle alone in an empty page, first visit: {statistics.median(alone):.3f} s (median)")
+    print(
+        f"{'case':<28} {'bare answer [s]':>16} {'first map [s]':>14} {'plotly ran [s]':>15} "
+        f"{'chart drawn [s]':>16} {'ratio first/bare':>17} {'target < 2 s':>13}"
+    )
     for case, r in results.items():
-        b, w, ip, pl = (statistics.median(r[k]) for k in ("bare", "wall", "in_page", "plotly"))
-        ok = "met" if w < TARGET_S else "MISSED"
-        print(f"{case:<28} {b:>16.3f} {w:>15.3f} {ip:>18.3f} {pl:>18.3f} {w / b:>16.2f} {ok:>13}")
+        b, f, pl, ch = (statistics.median(r[k]) for k in ("bare", "first", "plotly", "chart"))
+        ok = "met" if f < TARGET_S else "MISSED"
+        print(f"{case:<28} {b:>16.3f} {f:>14.3f} {pl:>15.3f} {ch:>16.3f} {f / b:>17.2f} {ok:>13}")
+    print(
+        "first map: the still picture, in the page's own clock from navigation; chart drawn: interactive plotly "
+        "chart, wall clock from navigation"
+    )
 
 
 if __name__ == "__main__":

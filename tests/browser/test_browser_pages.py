@@ -509,6 +509,29 @@ def test_units_typed_in_the_setpoint(page: Any, server: str) -> None:
     assert "not a unit of time" in err
 
 
+def test_map_still_picture_comes_before_the_chart_library(page: Any, server: str, test_tank: str) -> None:
+    # with plotly's bundle held back, the map is already there as a still picture with its legend, and the
+    # page says it is loading the chart library
+    page.route("**/vendor/plotly-*", lambda route: None)  # never answered
+    page.goto(f"{server}/scenarios/{test_tank}")
+    page.wait_for_selector("#map canvas.map-preview", timeout=TIMEOUT)
+    page.wait_for_function(
+        "() => !document.getElementById('status').hidden"
+        " && document.getElementById('status').textContent.includes('chart library')",
+        timeout=5000,
+    )
+    assert "One stable state" in page.inner_text("#map-legend")
+    # the canvas has the regions' colours: sample its middle row for at least two of the palette's colours
+    colours = page.evaluate(
+        """() => { const c = document.querySelector('#map canvas'); const g = c.getContext('2d');
+           const seen = new Set(); for (let x = 70; x < c.width - 20; x += 4) {
+             const d = g.getImageData(x, Math.round(c.height * 0.75), 1, 1).data; seen.add(d.slice(0, 3).join(','));
+           } return [...seen]; }"""
+    )
+    palette = {"232,239,245", "240,195,106", "46,98,168", "224,129,63", "74,22,49"}
+    assert len(palette & set(colours)) >= 2, colours
+
+
 def test_missing_scenario_says_so(page: Any, server: str) -> None:
     response = page.goto(f"{server}/scenarios/0000000000000000")
     assert response.status == 404

@@ -122,7 +122,8 @@ def test_plotly_is_the_installed_bundle_gzipped_and_cached(client: Any, saved_id
     home = client.get("/").text
     path = urls.plotly_bundle(plotly.__version__)
     page = client.get(f"/scenarios/{saved_id}").text
-    assert path in parse(page).scripts
+    preloads = [link["href"] for link in parse(page).links if link.get("rel") == "preload"]
+    assert preloads == [path]
     r = client.get(path, headers={"Accept-Encoding": "gzip"})
     assert r.status_code == 200
     assert r.headers["content-encoding"] == "gzip"
@@ -135,7 +136,8 @@ def test_plotly_is_the_installed_bundle_gzipped_and_cached(client: Any, saved_id
     assert client.get(path, headers={"If-None-Match": etag}).status_code == 304
     plain = client.get(path, headers={"Accept-Encoding": "identity"})
     assert "content-encoding" not in plain.headers and plain.content == installed
-    assert path not in home  # the home page draws no chart, so it does not load the bundle
+    # the home page draws no chart, so it neither loads nor preloads the bundle
+    assert path not in parse(home).scripts and path not in [link["href"] for link in parse(home).links]
 
 
 def test_plotly_of_another_version_is_a_plain_404(client: Any) -> None:

@@ -92,9 +92,17 @@ export function busyFor(label) {
   return () => { clearTimeout(timer); busy--; labels.delete(id); showStatus(); };
 }
 
-// Wait for plotly's bundle (loaded with defer, after the page script) before drawing.
+// Plotly's bundle, run on demand: a page that preloads it (<link rel=preload>) calls this when it can spare the
+// main thread for the bundle; a page with its own <script> tag only waits.
 export function plotlyReady() {
   if (window.Plotly) return Promise.resolve(window.Plotly);
+  const src = boot().plotly_url;
+  if (src && !document.querySelector("script[data-plotly]") && ![...document.scripts].some((s) => s.src.endsWith(src))) {
+    const tag = document.createElement("script");
+    tag.src = src;
+    tag.dataset.plotly = "1";
+    document.head.append(tag);
+  }
   const done = busyFor("Loading the chart library");
   return new Promise((resolve, reject) => {
     const started = Date.now();

@@ -188,7 +188,7 @@ function pointerToData(gd, ev) {
 export async function drawMap(Plotly, el, doc, setpoint, { onPick, onPreview, onHover, staticPlot = false,
   height } = {}) {
   const data = traces(doc, setpoint);
-  el.querySelector(".map-placeholder")?.remove();
+  for (const n of el.querySelectorAll(".map-placeholder, .map-preview")) n.remove();
   await Plotly.react(el, data, layout(doc, { height: height || el.clientHeight || 360 }), { displayModeBar: false, responsive: true, staticPlot });
   const spIndex = data.length - 1;
   const setSetpoint = (sp) => Plotly.restyle(el, { x: [[toMin(sp.residence_time)]], y: [[toC(sp.feed_temperature)]] },
@@ -221,4 +221,62 @@ export async function drawMap(Plotly, el, doc, setpoint, { onPick, onPreview, on
   }
   el._exomap = { doc, setSetpoint, onPick, onPreview, onHover };
   return el._exomap;
+}
+
+// A still picture of the map (regions, boundaries, setpoint) on a canvas, drawn from the same answer while
+// plotly's bundle is still loading; plotly's chart replaces it. Same plot margins, so nothing jumps.
+export function drawPreview(el, doc, setpoint) {
+  const w = el.clientWidth, h = el.clientHeight || 360;
+  if (!w || !doc.residence_time_s || doc.residence_time_s.length < 2) return false;
+  const m = { l: 62, r: 14, t: 10, b: 48 };
+  const canvas = document.createElement("canvas");
+  canvas.className = "map-preview";
+  canvas.width = w;
+  canvas.height = h;
+  canvas.setAttribute("aria-label", "Operating map (still picture while the interactive chart loads)");
+  const g = canvas.getContext("2d");
+  const lay = layout(doc, { height: h });
+  const logx = lay.xaxis.type === "log";
+  const [x0, x1] = lay.xaxis.range, [y0, y1] = lay.yaxis.range;
+  const px = (tauS) => m.l + ((logx ? Math.log10(toMin(tauS)) : toMin(tauS)) - x0) / (x1 - x0) * (w - m.l - m.r);
+  const py = (K) => m.t + (y1 - toC(K)) / (y1 - y0) * (h - m.t - m.b);
+  const xs = doc.residence_time_s, ys = doc.feed_temperature_K;
+  const colour = new Map(legendEntries(doc).map((e) => [e.code, e.colour]));
+  const edge = (v, k, f) => (k === 0 ? f(v[0]) - (f(v[1]) - f(v[0])) / 2 : k === v.length ? f(v[k - 1]) + (f(v[k - 1]) - f(v[k - 2])) / 2
+    : (f(v[k - 1]) + f(v[k])) / 2);
+  for (let i = 0; i < ys.length; i++) {
+    const top = edge(ys, i + 1, py), bottom = edge(ys, i, py);
+    for (let j = 0; j < xs.length; j++) {
+      const left = edge(xs, j, px), right = edge(xs, j + 1, px);
+      g.fillStyle = colour.get(doc.region[i][j]) || "#dddddd";
+      const x = Math.floor(left), y = Math.floor(top);
+      g.fillRect(x, y, Math.ceil(right) - x, Math.ceil(bottom) - y);
+    }
+  }
+  for (const [key, curve] of Object.entries(doc.boundaries || {})) {
+    if (key === "cusp") continue;
+    const style = LINES[key] || { color: "#333", width: 1.5, dash: "dot" };
+    g.strokeStyle = style.color;
+    g.lineWidth = style.width;
+    g.setLineDash({ solid: [], dash: [8, 4], dot: [2, 3], dashdot: [8, 3, 2, 3] }[style.dash] || []);
+    for (const pts of segments(curve).flatMap((s) => chain(s, logx))) {
+      g.beginPath();
+      pts.forEach((p, k) => (k ? g.lineTo(px(p[0]), py(p[1])) : g.moveTo(px(p[0]), py(p[1]))));
+      g.stroke();
+    }
+  }
+  if (setpoint) {
+    g.setLineDash([]);
+    g.strokeStyle = SETPOINT.color;
+    g.lineWidth = 3;
+    g.beginPath();
+    g.arc(px(setpoint.residence_time), py(setpoint.feed_temperature), 7, 0, 2 * Math.PI);
+    g.stroke();
+  }
+  g.fillStyle = "#5b6570";
+  g.font = "12px system-ui, sans-serif";
+  g.fillText("Loading the interactive chart…", m.l + 6, h - 8);
+  el.textContent = "";
+  el.append(canvas);
+  return true;
 }

@@ -2,7 +2,7 @@
 
 import * as urls from "./urls.js";
 import { getJSON, postJSON, showProblem, wireProblemBox, boot, plotlyReady, ApiError } from "./api.js";
-import { drawMap, cellAt, legendEntries, nearest } from "./map.js";
+import { drawMap, drawPreview, cellAt, legendEntries, nearest } from "./map.js";
 import { LINES, VALVE_DOT } from "./palette.js";
 import { drawBranch, drawHeatBalance } from "./curves.js";
 import { renderVerdict, renderList, renderKV, renderStates, renderUpsets, drawResponse, simulationSummary, upsetName,
@@ -461,6 +461,17 @@ async function main() {
   fillSetpointInputs();
   syncURL(false);
   const checked = loadCheck();
+  // Running plotly's bundle holds the main thread for a second or more on a slow plant PC, so the map is first
+  // shown as a still picture from its answer; then the bundle runs and the interactive chart replaces it.
+  try {
+    const doc = await mapAnswer;
+    if (!window.Plotly && drawPreview($("map"), doc, setpoint())) {
+      renderLegend(doc);
+      performance.mark("exomap:map-preview");
+      $("map").dataset.previewMs = String(Math.round(performance.now()));
+      await new Promise((r) => requestAnimationFrame(() => setTimeout(r, 0))); // let it paint
+    }
+  } catch { /* loadMap reports a failed map */ }
   try { Plotly = await plotlyReady(); } catch (e) { showProblem(e); return; }
   performance.mark("exomap:plotly-ready");
   showPanel(state.panel || "check", false);

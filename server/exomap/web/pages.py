@@ -85,6 +85,7 @@ def install(app: FastAPI, settings: Any) -> None:
         boot = {
             "version": __version__,
             "token_needed": token_needed,
+            "plotly_url": urls.plotly_bundle(plotly_version),
             **context.pop("boot", {}),
         }
         html = env.get_template(name).render(
