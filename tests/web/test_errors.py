@@ -227,3 +227,34 @@ def test_unexpected_error_is_a_generic_500_without_trace(make_client, monkeypatc
     assert err["fields"] == []
     # the trace goes to the log instead
     assert any("ZeroDivisionError" in (r.exc_text or "") or r.exc_info for r in caplog.records)
+
+
+@pytest.mark.parametrize(
+    ("error", "status", "code", "field"),
+    [
+        ("limit", 413, "limit_exceeded", "points"),
+        ("input", 422, "invalid_input", "feed.flow"),
+        ("convergence", 422, "no_convergence", None),
+        ("budget", 503, "time_budget_exceeded", None),
+    ],
+)
+def test_each_core_error_maps_to_one_status(make_client, monkeypatch, error, status, code, field) -> None:
+    """The core's domain errors (exomap.core.errors), raised inside a job, each answer one status and code."""
+    from exomap.core import errors
+    from exomap.web import jobs
+
+    raised = {
+        "limit": errors.LimitExceededError("too many cells for this grid", field="points"),
+        "input": errors.ModelInputError("feed flow must be positive", field="feed.flow"),
+        "convergence": errors.ConvergenceError("Newton did not converge (residual 1e-3)"),
+        "budget": errors.BudgetExceededError("ran past its budget"),
+    }[error]
+
+    def failing(*args, **kwargs):
+        raise raised
+
+    monkeypatch.setattr(jobs, "compute", failing)
+    client = make_client()
+    sid = client.post("/api/v1/scenarios", json=ADIABATIC).json()["id"]
+    err = assert_error(client.post("/api/v1/steady", json={"scenario_id": sid}), status, code, field)
+    assert str(raised) in err["message"]
