@@ -206,7 +206,7 @@ def test_save_token_is_required_when_set(make_client) -> None:
 def test_time_budget_gives_503(make_client) -> None:
     client = make_client(request_time_budget_s=0.02)
     sid = client.post("/api/v1/scenarios", json=ADIABATIC).json()["id"]
-    response = client.post("/api/v1/map", json={"scenario_id": sid, "points": [250, 250]})
+    response = client.post("/api/v1/map", json={"scenario_id": sid, "points": [500, 500]})
     assert_error(response, 503, "time_budget_exceeded")
     assert response.headers["retry-after"]
 
