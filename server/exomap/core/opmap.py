@@ -423,15 +423,30 @@ def _cell_states(mf: Manifold, smp: Samples, cols: _Columns, T_in: np.ndarray) -
             xiL[fc, end_slot + off] = cols.fold.xi[order]
         xi_flat = xiL.reshape(-1, mf.m)
         xi_g = xi_flat[k0] + w[:, None] * (xi_flat[k1] - xi_flat[k0])
-    # polish: two Newton steps on T_in(s) = value, kept inside the bracket; stability and slope are taken at
-    # the polished point (explicit path) or at the point before the last step (general path, which would
-    # need one more isothermal solve; the step there is far below the sample spacing)
+    # polish: Newton steps on T_in(s) = value, kept inside the bracket; stability and slope are taken at
+    # the polished point (explicit path) or at the point of the second step (general path, which would need
+    # one more isothermal solve everywhere; the later steps are far below the sample spacing)
     for _ in range(2):
         e = _eval(mf, ts, ss, xi_g)
         xi_g = None if mf.explicit else e.xi
         with np.errstate(invalid="ignore", divide="ignore"):
             step = (e.T_in - v) / e.dTin_ds
-        ss = np.clip(ss - np.where(np.isfinite(step), step, 0.0), lo_b, hi_b)
+        step = np.where(np.isfinite(step), step, 0.0)
+        ss = np.clip(ss - step, lo_b, hi_b)
+    # next to a fold T_in(s) is nearly flat, the linear start is poor and Newton slow: keep stepping there only
+    for _ in range(4):
+        idx = np.nonzero(np.abs(step) > 1e-12 * np.abs(ss))[0]
+        if idx.size == 0:
+            break
+        e2 = _eval(mf, ts[idx], ss[idx], None if xi_g is None else xi_g[idx])
+        with np.errstate(invalid="ignore", divide="ignore"):
+            s2 = (e2.T_in - v[idx]) / e2.dTin_ds
+        s2 = np.where(np.isfinite(s2), s2, 0.0)
+        ss[idx] = np.clip(ss[idx] - s2, lo_b[idx], hi_b[idx])
+        if xi_g is not None:
+            xi_g[idx] = e2.xi
+        step = np.zeros_like(ss)
+        step[idx] = s2
     if mf.explicit:
         e = mf.explicit_eval(ts, ss)
     stable_s, _, _ = mf.stability(e.tau, e.T, e.xi)
