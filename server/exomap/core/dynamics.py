@@ -46,6 +46,9 @@ STARTS = ("low", "middle", "high", "cold", "empty")
 METHODS = ("LSODA", "BDF", "Radau", "RK45")
 #: Restarts of a piece allowed after the integrator hits the floating-point spacing of its time variable.
 MAX_RESTARTS = 20
+#: Band of controller output past its clamp over which the PI integration switches off [-] (see
+#: ``_integration_weight``).
+PI_BAND = 1e-3
 #: Default number of recorded intervals when ``record_every`` is not given.
 DEFAULT_RECORD_POINTS = 1000
 
@@ -414,7 +417,7 @@ def _piece_functions(model: Model, plant: _Plant, t0: float, u_const: Inputs | N
     if u_const is None:
 
         def fun(s: float, y: np.ndarray) -> np.ndarray:
-            return model.rhs(t0 + s, y, plant.inputs(t0 + s))
+            return _rhs(model, t0 + s, y, plant.inputs(t0 + s))
 
         def jac(s: float, y: np.ndarray) -> np.ndarray:
             return _jacobian(model, t0 + s, y, plant.inputs(t0 + s))
@@ -423,12 +426,48 @@ def _piece_functions(model: Model, plant: _Plant, t0: float, u_const: Inputs | N
     u = u_const
 
     def fun_c(s: float, y: np.ndarray) -> np.ndarray:
-        return model.rhs(s, y, u)
+        return _rhs(model, s, y, u)
 
     def jac_c(s: float, y: np.ndarray) -> np.ndarray:
         return _jacobian(model, s, y, u)
 
     return fun_c, jac_c
+
+
+def _integration_weight(model: Model, y: np.ndarray, u: Inputs) -> tuple[float, float, float, float] | None:
+    """Smoothed conditional integration of the PI controller: (w, dw/draw, e, Kc/Ti factors) or None.
+
+    The model integrates the level error only while the output is unclamped or the error pulls it back
+    (``Model.opening``). That switch is a jump in dI/dt, and when the valve sits fully open (or shut) while the
+    level error keeps pushing it further, the integrator chatters across it (a sliding mode) and its steps
+    collapse. Here the switch is spread over ``PI_BAND`` of controller output beyond the clamp:
+    dI/dt = w·e with w going linearly from 1 at the clamp to 0 at ``PI_BAND`` past it. The valve opening is
+    unchanged (still clipped to 0..1); only the controller's integral differs, within that band.
+    """
+    if u.opening is not None or not model.sc.valve.controlled:
+        return None
+    n = model.n
+    Kc = model.sc.valve.gain or 0.0
+    Ti = model.sc.valve.reset_time or 1.0
+    e = float(y[0]) - u.h_set
+    raw = u.bias + Kc * (e + float(y[2 + n]) / Ti)
+    push = Kc * e
+    if push > 0.0 and raw > 1.0:
+        over = (raw - 1.0) / PI_BAND
+        return (max(1.0 - over, 0.0), (-1.0 / PI_BAND) if over < 1.0 else 0.0, e, Kc)
+    if push < 0.0 and raw < 0.0:
+        over = -raw / PI_BAND
+        return (max(1.0 - over, 0.0), (1.0 / PI_BAND) if over < 1.0 else 0.0, e, Kc)
+    return (1.0, 0.0, e, Kc)
+
+
+def _rhs(model: Model, t: float, y: np.ndarray, u: Inputs) -> np.ndarray:
+    """The model's right-hand side with the smoothed conditional integration of ``_integration_weight``."""
+    f = model.rhs(t, y, u)
+    w = _integration_weight(model, y, u)
+    if w is not None:
+        f[2 + model.n] = w[0] * w[2]
+    return f
 
 
 def _jacobian(model: Model, t: float, y: np.ndarray, u: Inputs) -> np.ndarray:
@@ -441,6 +480,15 @@ def _jacobian(model: Model, t: float, y: np.ndarray, u: Inputs) -> np.ndarray:
     """
     J = model.jacobian(t, y, u)
     n = model.n
+    w = _integration_weight(model, y, u)
+    if w is not None:
+        weight, slope, e, Kc = w
+        Ti = model.sc.valve.reset_time or 1.0
+        iI = 2 + n
+        J[iI, :] = 0.0
+        # d(w e)/dh = w + e dw/draw Kc ; d(w e)/dI = e dw/draw Kc / Ti
+        J[iI, 0] = weight + e * slope * Kc
+        J[iI, iI] = e * slope * Kc / Ti
     neg = np.flatnonzero(y[1 : 1 + n] < 0.0)
     if neg.size:
         V = model.A * max(float(y[0]), 1e-12)
