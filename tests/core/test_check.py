@@ -243,3 +243,15 @@ def test_bad_requests_name_the_field(cstr, kwargs, field):
     with pytest.raises(ModelInputError, match=field) as info:
         check_setpoint(cstr(20.0, 2.0).sc, **kwargs)
     assert info.value.field == field
+
+
+def test_an_upset_the_integrator_cannot_follow_is_reported_not_hidden(cstr, monkeypatch):
+    from exomap.core import dynamics
+
+    monkeypatch.setattr(dynamics, "MAX_RHS_EVALUATIONS", 20)
+    r = check_setpoint(cstr(20.0, 2.0).sc)
+    assert r.verdict == "marginal"
+    assert all(u.stop_reason == "solver_failed" for u in r.upsets)
+    assert any("could not be simulated" in s for s in r.reasons)
+    d = json.loads(json.dumps(r.to_dict(), allow_nan=False))
+    assert d["upsets"][0]["peak_temperature_K"] is None and "evaluations" in d["upsets"][0]["message"]

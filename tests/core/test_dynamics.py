@@ -412,3 +412,12 @@ def test_runaway_to_a_huge_rate_constant_still_integrates(cstr):
     dT_ad = sc.c_in[0] * -sc.reactions[0].dH / (sc.rho * sc.cp)
     assert r.T[-1] == pytest.approx(T0 + dT_ad, rel=1e-7)
     assert math.isclose(dT_ad, 600.0, rel_tol=1e-12) and R_GAS > 0
+
+
+def test_a_run_over_its_evaluation_budget_is_a_convergence_error(cstr, monkeypatch):
+    from exomap.core import dynamics
+    from exomap.core.errors import ConvergenceError
+
+    monkeypatch.setattr(dynamics, "MAX_RHS_EVALUATIONS", 20)
+    with pytest.raises(ConvergenceError, match="evaluations"):
+        simulate(cstr(GAMMA, 2.0).sc, start="cold", duration=3600.0)

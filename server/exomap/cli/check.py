@@ -121,7 +121,7 @@ def render(sc: Any, r: Any) -> str:
                 _when(u.peak_t),
                 _when(u.time_to_alarm),
                 _when(u.time_to_max),
-                f"{u.level_min:.2f}..{u.level_max:.2f} m",
+                f"{u.level_min:.2f}..{u.level_max:.2f} m" if u.level_min == u.level_min else "-",
                 fmt.celsius(u.final_T),
                 "steady" if u.settled else ("stopped: " + u.stop_reason if u.stop_reason != "completed" else "moving"),
             ]

@@ -33,7 +33,7 @@ import numpy as np
 
 from exomap.core.cautions import CAUTIONS
 from exomap.core.dynamics import SimulationResult, simulate
-from exomap.core.errors import ModelInputError
+from exomap.core.errors import ConvergenceError, ModelInputError
 from exomap.core.safety import SafetyFigures, safety_figures
 from exomap.core.scenario import CheckPolicy, Scenario, validate
 
@@ -91,6 +91,7 @@ class UpsetResult:
     settled: bool
     stop_reason: str
     end_time: float
+    message: str = ""
 
     @classmethod
     def of(cls, key: str, label: str, events: list[dict[str, Any]], sim: SimulationResult) -> UpsetResult:
@@ -112,23 +113,50 @@ class UpsetResult:
             end_time=sim.t_end,
         )
 
+    @classmethod
+    def failed(cls, key: str, label: str, events: list[dict[str, Any]], duration: float, why: str) -> UpsetResult:
+        """An upset the integrator could not follow: every outcome unknown (NaN), ``stop_reason`` says so."""
+        nan = math.nan
+        return cls(
+            key,
+            label,
+            tuple(events),
+            duration,
+            nan,
+            nan,
+            None,
+            None,
+            nan,
+            nan,
+            nan,
+            nan,
+            False,
+            "solver_failed",
+            nan,
+            message=why,
+        )
+
     def to_dict(self) -> dict[str, Any]:
+        def fin(x: float) -> float | None:
+            return x if math.isfinite(x) else None
+
         return {
             "key": self.key,
             "label": self.label,
             "events": [dict(e) for e in self.events],
             "duration_s": self.duration,
-            "peak_temperature_K": self.peak_T,
-            "peak_time_s": self.peak_t,
+            "peak_temperature_K": fin(self.peak_T),
+            "peak_time_s": fin(self.peak_t),
             "time_to_alarm_s": self.time_to_alarm,
             "time_to_max_temperature_s": self.time_to_max,
-            "level_min_m": self.level_min,
-            "level_max_m": self.level_max,
-            "final_temperature_K": self.final_T,
-            "final_level_m": self.final_h,
+            "level_min_m": fin(self.level_min),
+            "level_max_m": fin(self.level_max),
+            "final_temperature_K": fin(self.final_T),
+            "final_level_m": fin(self.final_h),
             "settled": self.settled,
             "stop_reason": self.stop_reason,
-            "end_time_s": self.end_time,
+            "end_time_s": fin(self.end_time),
+            "message": self.message,
         }
 
 
@@ -526,16 +554,21 @@ def check_setpoint(
     y0 = np.concatenate(([sc.vessel.h_set], np.asarray(st.C, dtype=float), [T, 0.0]))
     upsets: list[UpsetResult] = []
     for key, label, events in upset_battery(sc):
-        sim = simulate(
-            sc,
-            tau=tau_v,
-            T_in=T_in_v,
-            initial=y0,
-            events=events,
-            duration=pol.upset_duration,
-            rtol=UPSET_RTOL,
-            record_every=pol.upset_duration / UPSET_POINTS,
-        )
+        try:
+            sim = simulate(
+                sc,
+                tau=tau_v,
+                T_in=T_in_v,
+                initial=y0,
+                events=events,
+                duration=pol.upset_duration,
+                rtol=UPSET_RTOL,
+                record_every=pol.upset_duration / UPSET_POINTS,
+            )
+        except ConvergenceError as exc:
+            upsets.append(UpsetResult.failed(key, label, events, pol.upset_duration, str(exc)))
+            reasons_marg.append(f"upset '{label}' could not be simulated ({exc}); its outcome is unknown")
+            continue
         up = UpsetResult.of(key, label, events, sim)
         upsets.append(up)
         if up.time_to_max is not None and T <= lim.T_max:

@@ -49,6 +49,8 @@ MAX_RESTARTS = 20
 #: Band of controller output past its clamp over which the PI integration switches off [-] (see
 #: ``_integration_weight``).
 PI_BAND = 1e-3
+#: Most model evaluations one simulation may use before it is abandoned with a ConvergenceError [-].
+MAX_RHS_EVALUATIONS = 300_000
 #: Default number of recorded intervals when ``record_every`` is not given.
 DEFAULT_RECORD_POINTS = 1000
 
@@ -412,11 +414,24 @@ def _explicit_initial(sc: Scenario, initial: Any) -> np.ndarray:
     return y0
 
 
-def _piece_functions(model: Model, plant: _Plant, t0: float, u_const: Inputs | None) -> tuple[Any, Any]:
-    """rhs and Jacobian of one piece in its local time s = t - t0; constant inputs unless ramping."""
+def _spend(budget: list[int]) -> None:
+    budget[0] -= 1
+    if budget[0] < 0:
+        raise ConvergenceError(
+            f"the integrator needed more than {MAX_RHS_EVALUATIONS} evaluations of the model; the run is "
+            "probably chattering across a discontinuity"
+        )
+
+
+def _piece_functions(
+    model: Model, plant: _Plant, t0: float, u_const: Inputs | None, budget: list[int]
+) -> tuple[Any, Any]:
+    """rhs and Jacobian of one piece in its local time s = t - t0; constant inputs unless ramping. Each rhs
+    evaluation spends one unit of ``budget``."""
     if u_const is None:
 
         def fun(s: float, y: np.ndarray) -> np.ndarray:
+            _spend(budget)
             return _rhs(model, t0 + s, y, plant.inputs(t0 + s))
 
         def jac(s: float, y: np.ndarray) -> np.ndarray:
@@ -426,6 +441,7 @@ def _piece_functions(model: Model, plant: _Plant, t0: float, u_const: Inputs | N
     u = u_const
 
     def fun_c(s: float, y: np.ndarray) -> np.ndarray:
+        _spend(budget)
         return _rhs(model, s, y, u)
 
     def jac_c(s: float, y: np.ndarray) -> np.ndarray:
@@ -695,6 +711,7 @@ def simulate(
     t = 0.0
     y = y0.copy()
     k_ev = 0
+    budget = [MAX_RHS_EVALUATIONS]
     stop_reason = "completed"
     message = "completed"
     while True:
@@ -714,7 +731,7 @@ def simulate(
             # since the start would otherwise need steps below the spacing of floating-point numbers at t.
             t0 = t
 
-            fun, jac = _piece_functions(model, plant, t0, u_const if not ramping else None)
+            fun, jac = _piece_functions(model, plant, t0, u_const if not ramping else None, budget)
 
             implicit = {"jac": jac} if method != "RK45" else {}
             sol = solve_ivp(
