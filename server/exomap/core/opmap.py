@@ -482,31 +482,64 @@ def _classify(sc: Scenario, st: dict) -> tuple[np.ndarray, np.ndarray, np.ndarra
 # -- boundaries -------------------------------------------------------------------------------------------
 def _boundaries(sc: Scenario, mf: Manifold, tau: np.ndarray, cols: _Columns, tin_lo: float, tin_hi: float) -> dict:
     f = cols.fold
-    ftau = tau[cols.fold_col]
     inside = (f.T_in >= tin_lo) & (f.T_in <= tin_hi)
-    # ignition: a local maximum of T_in(s) (dT_in/ds goes from + to -)
-    kind_ign = cols.rising
-    cusps = _cusps(mf, tau, cols)
-    order = np.argsort(f.T)
-    ign = [(ftau[i], f.T_in[i], f.T[i]) for i in order if kind_ign[i] and inside[i]]
-    ext = [(ftau[i], f.T_in[i], f.T[i]) for i in order if not kind_ign[i] and inside[i]]
-    cusp_rows = [c for c in cusps if tin_lo <= c[1] <= tin_hi]
-    if cusp_rows:  # the two curves meet at the cusp: draw them through it
-        ign = ign + [cusp_rows[0]]
-        ext = [cusp_rows[0]] + ext
-    hopf = _hopf(mf, tau, cols, tin_lo, tin_hi)
-    tmax_curve = _max_temperature_curve(sc, mf, tau, tin_lo, tin_hi)
-
-    def arr(rows: list, width: int = 2) -> np.ndarray:
-        return np.array([r[:width] for r in rows], dtype=float).reshape(-1, width)
-
+    cusps = [c for c in _cusps(mf, tau, cols) if tin_lo <= c[1] <= tin_hi]
+    cusp_pts = [(c[0], c[1]) for c in cusps]
+    # ignition: a local maximum of T_in(s) (dT_in/ds goes from + to -); both curves are drawn into the cusp
+    ign = _chain(tau, cols.fold_col, f.s, f.T_in, inside & cols.rising, cusp_pts)
+    ext = _chain(tau, cols.fold_col, f.s, f.T_in, inside & ~cols.rising, cusp_pts)
+    hc, hs, hv = _hopf(mf, tau, cols)
+    hopf = _chain(tau, hc, hs, hv, (hv >= tin_lo) & (hv <= tin_hi), [])
     return {
-        "ignition": arr(ign),
-        "extinction": arr(ext),
-        "hopf": arr(hopf),
-        "max_temperature": tmax_curve,
-        "cusp": arr(cusp_rows, 3),
+        "ignition": ign,
+        "extinction": ext,
+        "hopf": hopf,
+        "max_temperature": _max_temperature_curve(sc, mf, tau, tin_lo, tin_hi),
+        "cusp": np.array(cusps, dtype=float).reshape(-1, 3),
     }
+
+
+def _chain(
+    tau: np.ndarray, col: np.ndarray, s: np.ndarray, T_in: np.ndarray, keep: np.ndarray, ends: list[tuple[float, float]]
+) -> np.ndarray:
+    """Order points found column by column into curves, rows (tau, T_in) with a NaN row between pieces.
+
+    The k-th point (by s) of a column continues the k-th point of the previous column while both columns hold
+    the same number of points; a change of that number starts new pieces. Each point of ``ends`` (a cusp) is
+    attached to the piece end nearest to it, so the ignition and extinction curves meet there.
+    """
+    idx = np.nonzero(keep)[0]
+    if idx.size == 0:
+        return np.zeros((0, 2))
+    o = idx[np.lexsort((s[idx], col[idx]))]
+    c = col[o]
+    rank = np.arange(o.size) - np.searchsorted(c, c)
+    count = np.bincount(c, minlength=tau.size)
+    run = np.cumsum(np.r_[True, (count[1:] != count[:-1]) | (count[:-1] == 0)])
+    pieces: dict[tuple[int, int], list[tuple[float, float]]] = {}
+    for i, oi in enumerate(o):
+        pieces.setdefault((int(run[c[i]]), int(rank[i])), []).append((float(tau[c[i]]), float(T_in[oi])))
+    curves = [pieces[k] for k in sorted(pieces)]
+    lx = np.log(tau[-1] / tau[0]) or 1.0
+    ly = float(np.ptp(T_in[idx])) or 1.0
+    for e in ends:
+
+        def dist(p: tuple[float, float], e: tuple[float, float] = e) -> float:
+            return math.hypot(math.log(p[0] / e[0]) / lx, (p[1] - e[1]) / ly)
+
+        best = min(((dist(cv[0]), k, 0) for k, cv in enumerate(curves)), default=None)
+        last = min(((dist(cv[-1]), k, -1) for k, cv in enumerate(curves)), default=None)
+        if best is None or last is None:
+            continue
+        d, k, where = min(best, last)
+        if d < 0.25:
+            curves[k] = [e, *curves[k]] if where == 0 else [*curves[k], e]
+    rows: list[tuple[float, float]] = []
+    for cv in curves:
+        if rows:
+            rows.append((math.nan, math.nan))
+        rows.extend(cv)
+    return np.array(rows, dtype=float).reshape(-1, 2)
 
 
 def _cusps(mf: Manifold, tau: np.ndarray, cols: _Columns) -> list[tuple[float, float, float]]:
@@ -575,16 +608,16 @@ def _solve_cusp(
     return (math.exp(x_c), float(e.T_in[0]), float(e.T[0]))
 
 
-def _hopf(mf: Manifold, tau: np.ndarray, cols: _Columns, tin_lo: float, tin_hi: float) -> list:
+def _hopf(mf: Manifold, tau: np.ndarray, cols: _Columns) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Hopf points of every column: (column, coordinate s, feed temperature)."""
     lead, cplx, smp = cols.lead, cols.cplx, cols.smp
     ch = cplx[:, :-1] & cplx[:, 1:] & ((lead[:, :-1] * lead[:, 1:]) < 0)
     c, k = np.nonzero(ch)
     if c.size == 0:
-        return []
+        return c, np.zeros(0), np.zeros(0)
     xi0 = None if mf.explicit else smp.xi[c, k]
     _, e = _refine(mf, tau[c], smp.s[c, k], smp.s[c, k + 1], lead[c, k], lambda e: _hopf_function(mf, e), xi0)
-    rows = [(tau[c[i]], e.T_in[i], e.T[i]) for i in np.argsort(e.T) if tin_lo <= e.T_in[i] <= tin_hi]
-    return rows
+    return c, e.s, e.T_in
 
 
 def _max_temperature_curve(sc: Scenario, mf: Manifold, tau: np.ndarray, tin_lo: float, tin_hi: float) -> np.ndarray:
