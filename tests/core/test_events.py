@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import re
+
 import pytest
 from exomap.core.errors import ModelInputError
 from exomap.core.events import ACTIONS, QUANTITIES, Event, parse_events
@@ -77,7 +79,7 @@ def test_units_go_through_the_unit_parser():
         ([{"set": "feed_flow", "to": 1e-3}], "events[0].at", "missing"),
         ([{"at": 0, "set": "feed_flow", "to": 1e-3, "by": 2}], "events[0].by", "not a key"),
         ([{"at": 0, "set": "feed_flow", "add": "feed_flow", "to": 1}], "events[0].add", "exactly one"),
-        ([{"at": 0}], "events[0].set", "exactly one"),
+        ([{"at": 0}], "events[0]", "one action key"),
         ([{"at": 0, "set": "valve_opening", "to": 1.5}], "events[0].to", "0..1"),
         ([{"at": 0, "set": "feed_temperature", "to": -3}], "events[0].to", "absolute temperature"),
         ([{"at": 0, "scale": "feed_flow", "by": -1}], "events[0].by", ">= 0"),
@@ -88,9 +90,10 @@ def test_units_go_through_the_unit_parser():
     ],
 )
 def test_malformed_events_name_the_event_and_key(raw, field, words):
-    with pytest.raises(ModelInputError, match=words) as info:
+    with pytest.raises(ModelInputError, match=re.escape(field)) as info:
         parse_events(raw, species=SPECIES, duration=3600)
     assert info.value.field == field
+    assert words in str(info.value)
 
 
 def test_a_single_object_is_not_a_list():

@@ -220,10 +220,12 @@ def parse_event(
             f"{where}.at = {t:g} s is after the end of the simulation ({duration:g} s)", field=f"{where}.at"
         )
     kinds = [k for k in FORMS if k in raw]
-    if len(kinds) != 1:
+    if not kinds:
+        raise ModelInputError(f"{where} needs one action key: one of {', '.join(FORMS)}", field=where)
+    if len(kinds) > 1:
         raise ModelInputError(
-            f"{where} needs exactly one of {', '.join(FORMS)}, got {', '.join(kinds) or 'none'}",
-            field=f"{where}.{kinds[1] if len(kinds) > 1 else 'set'}",
+            f"{where}.{kinds[1]}: an event has exactly one of {', '.join(FORMS)}; got {', '.join(kinds)}",
+            field=f"{where}.{kinds[1]}",
         )
     kind = kinds[0]
     allowed = {"at", kind, *FORMS[kind]}
