@@ -50,12 +50,12 @@ class BranchPoint:
 
     def to_dict(self) -> dict:
         return {
-            "value": self.value,
-            "temperature_K": self.T,
-            "conversion": self.conversion,
-            "stable": self.stable,
-            "oscillatory": self.oscillatory,
-            "piece": self.piece,
+            "value": float(self.value),
+            "temperature_K": float(self.T),
+            "conversion": float(self.conversion),
+            "stable": bool(self.stable),
+            "oscillatory": bool(self.oscillatory),
+            "piece": int(self.piece),
         }
 
 
@@ -140,7 +140,7 @@ def _lead(mf: Manifold, tau: float, s: float) -> tuple[float, bool, float]:
     Jr = mf.reduced_jacobian(np.array([tau]), smp.T, smp.xi)[0]
     ev = np.linalg.eigvals(Jr)
     k = int(np.argmax(ev.real))
-    return float(ev[k].real), abs(ev[k].imag) > 1e-12 * max(abs(ev[k].real), 1e-30), float(abs(ev[k].imag))
+    return float(ev[k].real), bool(abs(ev[k].imag) > 1e-12 * max(abs(ev[k].real), 1e-30)), float(abs(ev[k].imag))
 
 
 def _conversion(mf: Manifold, xi: np.ndarray) -> float:

@@ -148,6 +148,24 @@ class Manifold:
         dr_dT = r * self.E / (np.asarray(T)[..., None] ** 2)
         return r, dr_dC, dr_dT
 
+    def extent_jacobian(self, C: np.ndarray, T: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """(r (...,m), dr/dxi = dr/dC . nu (...,m,m), dr/dT (...,m)) with C = C_in + nu xi.
+
+        Written as sums over the species with a non-zero order, each an array operation with scalar
+        coefficients: numpy's stacked matmul on tiny matrices costs far more than this arithmetic.
+        """
+        r = self.rates(C, T)
+        Rn = np.zeros(np.shape(T) + (self.m, self.m))
+        with np.errstate(divide="ignore", invalid="ignore"):
+            for j in range(self.m):
+                for i in self._orders_nz[j]:
+                    g = r[..., j] * (self.orders[j, i] / np.maximum(C[..., i], 1e-300))
+                    for k in range(self.m):
+                        if self.nu[i, k] != 0.0:
+                            Rn[..., j, k] += g * self.nu[i, k]
+        dr_dT = r * self.E / (np.asarray(T)[..., None] ** 2)
+        return r, Rn, dr_dT
+
     # -- the explicit (one reaction) path -------------------------------------------------------------
     def _g(self, xi: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """ln g(xi) with g = prod C_i^n_i, and g'/g, for one reaction; xi any shape. Only species with a
@@ -223,10 +241,10 @@ class Manifold:
                 break
             x, ta, Ta = flat_xi[active], flat_tau[active], flat_T[active]
             C = self.concentrations(x)
-            r, dr_dC, _ = self.rate_derivatives(C, Ta)
+            r, Rn, _ = self.extent_jacobian(C, Ta)
             tr = ta[:, None] * r
             res = x - tr
-            jac = eye - ta[:, None, None] * (dr_dC @ self.nu)
+            jac = eye - ta[:, None, None] * Rn
             step = -_solve_small(jac, res)
             new = self._feasible(x, x + step)
             flat_xi[active] = new
@@ -240,12 +258,17 @@ class Manifold:
     def _feasible(self, xi: np.ndarray, target: np.ndarray) -> np.ndarray:
         """Move from xi towards target, but no further than 99 % of the way to C = 0 or xi = 0."""
         d = target - xi
-        C = self.concentrations(xi)
-        dC = d @ self.nu.T
+        t = np.full(xi.shape[:-1], np.inf)
         with np.errstate(divide="ignore", invalid="ignore"):
-            tc = np.where(dC < 0, -C / dC, np.inf)
-            tx = np.where(d < 0, -xi / d, np.inf)
-        t = np.minimum(np.min(tc, axis=-1), np.min(tx, axis=-1))
+            for i in range(self.n):
+                nz = np.nonzero(self.nu[i])[0]
+                if nz.size == 0:
+                    continue
+                Ci = self.c_in[i] + sum(self.nu[i, k] * xi[..., k] for k in nz)
+                dCi = sum(self.nu[i, k] * d[..., k] for k in nz)
+                t = np.minimum(t, np.where(dCi < 0, -Ci / dCi, np.inf))
+            for k in range(self.m):
+                t = np.minimum(t, np.where(d[..., k] < 0, -xi[..., k] / d[..., k], np.inf))
         alpha = np.where(t >= 1.0, 1.0, 0.99 * np.maximum(t, 0.0))
         return xi + alpha[..., None] * d
 
@@ -255,8 +278,8 @@ class Manifold:
         if xi is None:
             xi = self.isothermal_extents(tau, T)
         C = self.concentrations(xi)
-        _, dr_dC, dr_dT = self.rate_derivatives(C, T)
-        jac = np.eye(self.m) - tau[..., None, None] * (dr_dC @ self.nu)
+        _, Rn, dr_dT = self.extent_jacobian(C, T)
+        jac = np.eye(self.m) - tau[..., None, None] * Rn
         dxi_dT = _solve_small(jac, tau[..., None] * dr_dT)
         a = self.a(tau)
         T_in = a * T - xi @ self.J - self.b(tau)
@@ -377,8 +400,7 @@ class Manifold:
         (n - rank(nu) of them), which are always stable.
         """
         C = self.concentrations(xi)
-        _, dr_dC, dr_dT = self.rate_derivatives(C, T)
-        Rn = dr_dC @ self.nu  # (..., m, m)
+        _, Rn, dr_dT = self.extent_jacobian(C, T)
         m = self.m
         out = np.zeros(T.shape + (m + 1, m + 1))
         out[..., :m, :m] = Rn - np.eye(m) / tau[..., None, None]

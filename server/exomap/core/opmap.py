@@ -41,6 +41,8 @@ MAX_POINTS = 2000
 #: Samples of the manifold per residence-time column (explicit one-reaction path, general path).
 SAMPLES_EXPLICIT = 256
 SAMPLES_GENERAL = 160
+#: States polished at once (keeps the working arrays in cache; see _cell_states).
+POLISH_CHUNK = 8192
 #: Columns used for the boundary curves at least (more than the map's when the map is coarse).
 BOUNDARY_COLUMNS = 200
 SPACINGS = ("log", "linear")
@@ -309,7 +311,7 @@ def _unhide_fold_pairs(mf: Manifold, smp: Samples) -> Samples:
     tau_d = smp.tau[dc, dk]
     lo, hi = smp.s[dc, dk - 1], smp.s[dc, dk + 1]
     xi_d = None if mf.explicit else smp.xi[dc, dk]
-    for _ in range(30):  # golden-section search for the extremum of sign * dT_in/ds (to 1e-6 of a sample)
+    for _ in range(20):  # golden-section search for the extremum of sign * dT_in/ds (to 1e-4 of a sample)
         m1 = hi - 0.618033988749895 * (hi - lo)
         m2 = lo + 0.618033988749895 * (hi - lo)
         f1 = sgn * _eval(mf, tau_d, m1, xi_d).dTin_ds
@@ -423,9 +425,40 @@ def _cell_states(mf: Manifold, smp: Samples, cols: _Columns, T_in: np.ndarray) -
             xiL[fc, end_slot + off] = cols.fold.xi[order]
         xi_flat = xiL.reshape(-1, mf.m)
         xi_g = xi_flat[k0] + w[:, None] * (xi_flat[k1] - xi_flat[k0])
-    # polish: Newton steps on T_in(s) = value, kept inside the bracket; stability and slope are taken at
-    # the polished point (explicit path) or at the point of the second step (general path, which would need
-    # one more isothermal solve everywhere; the later steps are far below the sample spacing)
+    # polish in chunks of states, so the working arrays stay in the processor's cache (the cost per state
+    # would otherwise grow with the map's size)
+    T_state = np.empty(ss.shape)
+    stable_s = np.empty(ss.shape, dtype=bool)
+    sens = np.empty(ss.shape)
+    for a in range(0, ss.size, POLISH_CHUNK):
+        b = min(a + POLISH_CHUNK, ss.size)
+        T_state[a:b], stable_s[a:b], sens[a:b] = _polish(
+            mf, ts[a:b], ss[a:b], v[a:b], lo_b[a:b], hi_b[a:b], None if xi_g is None else xi_g[a:b]
+        )
+    shape = (S, n_tin, n_tau)
+    T = np.full(shape, np.nan)
+    stable = np.zeros(shape, dtype=bool)
+    sensitivity = np.zeros(shape)
+    T[pi, ri, ci] = T_state
+    stable[pi, ri, ci] = stable_s
+    sensitivity[pi, ri, ci] = np.abs(sens)
+    return {"present": present, "T": T, "stable": stable, "sensitivity": sensitivity}
+
+
+def _polish(
+    mf: Manifold,
+    ts: np.ndarray,
+    ss: np.ndarray,
+    v: np.ndarray,
+    lo_b: np.ndarray,
+    hi_b: np.ndarray,
+    xi_g: np.ndarray | None,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Newton steps on T_in(s) = v from interpolated starts, kept inside their brackets; returns the states'
+    temperature, stability and dT/dT_in. Stability and slope are taken at the polished point (explicit
+    path) or at the point of the second step (general path, which would need one more isothermal solve
+    everywhere; the later steps are far below the sample spacing)."""
+    ss = ss.copy()
     for _ in range(2):
         e = _eval(mf, ts, ss, xi_g)
         xi_g = None if mf.explicit else e.xi
@@ -452,15 +485,7 @@ def _cell_states(mf: Manifold, smp: Samples, cols: _Columns, T_in: np.ndarray) -
     stable_s, _, _ = mf.stability(e.tau, e.T, e.xi)
     with np.errstate(invalid="ignore", divide="ignore"):
         sens = e.dT_ds / e.dTin_ds
-    T_state = e.T if mf.explicit else ss
-    shape = (S, n_tin, n_tau)
-    T = np.full(shape, np.nan)
-    stable = np.zeros(shape, dtype=bool)
-    sensitivity = np.zeros(shape)
-    T[pi, ri, ci] = T_state
-    stable[pi, ri, ci] = stable_s
-    sensitivity[pi, ri, ci] = np.abs(sens)
-    return {"present": present, "T": T, "stable": stable, "sensitivity": sensitivity}
+    return (e.T if mf.explicit else ss), stable_s, sens
 
 
 def _classify(sc: Scenario, st: dict) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -598,7 +623,7 @@ def _solve_cusp(
         f_fold, f_none = extremum(x_fold)[1], extremum(x_none)[1]
         if f_fold * f_none > 0:
             return None
-        x_c = brentq(lambda x: extremum(x)[1], x_fold, x_none, xtol=1e-15, rtol=1e-15, maxiter=200)
+        x_c = brentq(lambda x: extremum(x)[1], x_fold, x_none, xtol=1e-13, rtol=1e-14, maxiter=200)
     except (ValueError, RuntimeError):
         return None
     s_c = extremum(x_c)[0]
