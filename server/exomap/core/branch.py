@@ -31,7 +31,7 @@ from scipy.optimize import brentq, fsolve
 from exomap.core.errors import ModelInputError
 from exomap.core.manifold import Manifold
 from exomap.core.scenario import Scenario, validate
-from exomap.core.steady import check_point, roots_along
+from exomap.core.steady import check_point, roots_along_many
 
 RESIDENCE_TIME, FEED_TEMPERATURE = "residence_time", "feed_temperature"
 ALONG = (RESIDENCE_TIME, FEED_TEMPERATURE)
@@ -258,16 +258,25 @@ class _Plane:
         return g, gx, gy
 
     def correct(self, X: float, Y: float) -> tuple[float, float, bool]:
-        for _ in range(12):
-            g, gx, gy = self.grad(X, Y)
+        """Move (X, Y) onto G = 0 along the gradient: chord iterations (the gradient of the first point is
+        reused, one evaluation of G per iteration), refreshed by a full Newton step when they stall."""
+        g, gx, gy = self.grad(X, Y)
+        for it in range(16):
             if not all(map(math.isfinite, (g, gx, gy))):
                 return X, Y, False
             n2 = gx * gx + gy * gy
             if n2 == 0:
                 return X, Y, False
             X, Y = X - g * gx / n2, Y - g * gy / n2
-            if abs(g) < 1e-13:
+            g_new = self.G(X, Y)
+            if not math.isfinite(g_new):
+                return X, Y, False
+            if abs(g_new) < 1e-13:
                 return X, Y, True
+            if abs(g_new) > 0.5 * abs(g) or it % 4 == 3:
+                g, gx, gy = self.grad(X, Y)
+            else:
+                g = g_new
         return X, Y, abs(self.G(X, Y)) < 1e-10
 
 
@@ -311,14 +320,13 @@ def _trace(plane: _Plane, X: float, Y: float, direction: float, max_steps: int =
 
 def _along_residence_time(mf: Manifold, T_in: float, lo: float, hi: float):
     plane = _Plane(mf, T_in, lo, hi)
-    starts: list[tuple[float, float]] = []
-    for tau_edge in (lo, hi):
-        for s in roots_along(mf, tau_edge, T_in, plane.T_lo, plane.T_hi, 1500):
-            starts.append(plane.XY(tau_edge, s))
-    interior = []
-    for tau_c in np.exp(np.linspace(plane.x0, plane.x1, 24))[1:-1]:
-        for s in roots_along(mf, float(tau_c), T_in, plane.T_lo, plane.T_hi, 1500):
-            interior.append(plane.XY(float(tau_c), s))
+    # every steady state on the two edges (starts) and on interior columns (to find isolas), in one
+    # vectorised sampling of the manifold
+    taus = np.exp(np.linspace(plane.x0, plane.x1, 24))
+    taus[0], taus[-1] = lo, hi
+    found = roots_along_many(mf, taus, T_in, plane.T_lo, plane.T_hi, 1500 if mf.explicit else 600)
+    starts = [plane.XY(float(taus[c]), s) for c in (0, len(taus) - 1) for s in found[c]]
+    interior = [plane.XY(float(taus[c]), s) for c in range(1, len(taus) - 1) for s in found[c]]
     pieces: list[list[tuple[float, float, float]]] = []
 
     def covered(X: float, Y: float) -> bool:

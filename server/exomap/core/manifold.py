@@ -104,6 +104,7 @@ class Manifold:
                 if self.orders[0, i] != 0
             ]
         self._release: tuple[float, float] | None = None
+        self._last_xi: np.ndarray | None = None
         self._orders_nz = [[i for i in range(self.n) if self.orders[j, i] != 0] for j in range(self.m)]
         self.key = sc.key_species
         self.key_feed = float(self.c_in[self.key])
@@ -288,8 +289,22 @@ class Manifold:
 
     # -- common interface -----------------------------------------------------------------------------
     def evaluate(self, tau: np.ndarray, s: np.ndarray) -> Samples:
-        """Manifold at coordinates (tau, s): s is the extent (explicit path) or T (general path)."""
-        return self.explicit_eval(tau, s) if self.explicit else self.general_eval(tau, s)
+        """Manifold at coordinates (tau, s): s is the extent (explicit path) or T (general path).
+
+        On the general path a single-point call starts its isothermal Newton solve from the previous
+        single-point answer: callers that walk along a curve (root bracketing, continuation) then need one or
+        two iterations instead of a cold start (the solution is unique, so the start only changes the cost).
+        """
+        if self.explicit:
+            return self.explicit_eval(tau, s)
+        if np.size(s) == 1 and np.size(tau) == 1:
+            tau_a, s_a = np.broadcast_arrays(np.asarray(tau, float), np.asarray(s, float))
+            xi = self.isothermal_extents(
+                tau_a, s_a, None if self._last_xi is None else np.broadcast_to(self._last_xi, tau_a.shape + (self.m,))
+            )
+            self._last_xi = xi.reshape(self.m).copy()
+            return self.general_eval(tau_a, s_a, xi)
+        return self.general_eval(tau, s)
 
     def temperature_window(self, T_in_lo: float, T_in_hi: float, tau_hi: float) -> tuple[float, float]:
         """Bounds on every steady temperature for feed temperatures in [T_in_lo, T_in_hi] [K]."""

@@ -140,11 +140,24 @@ def check_point(tau: float, T_in: float) -> None:
 
 def roots_along(mf: Manifold, tau: float, T_in: float, T_lo: float, T_hi: float, n: int = POINT_SAMPLES) -> list[float]:
     """Coordinates s of every root of T_in(tau, s) = T_in, for one tau."""
-    smp = mf.sample(np.array([tau]), T_lo, T_hi, n)
-    s = smp.s[0]
-    f = smp.T_in[0] - T_in
-    d = smp.dTin_ds[0]
-    ok = smp.valid[0] & np.isfinite(f)
+    return roots_along_many(mf, np.array([tau]), T_in, T_lo, T_hi, n)[0]
+
+
+def roots_along_many(
+    mf: Manifold, taus: np.ndarray, T_in: float, T_lo: float, T_hi: float, n: int = POINT_SAMPLES
+) -> list[list[float]]:
+    """:func:`roots_along` for several residence times, sampled in one vectorised call."""
+    smp = mf.sample(np.asarray(taus, dtype=float), T_lo, T_hi, n)
+    return [
+        _roots_in_samples(mf, float(taus[c]), T_in, smp.s[c], smp.T_in[c] - T_in, smp.dTin_ds[c], smp.valid[c])
+        for c in range(len(taus))
+    ]
+
+
+def _roots_in_samples(
+    mf: Manifold, tau: float, T_in: float, s: np.ndarray, f: np.ndarray, d: np.ndarray, valid: np.ndarray
+) -> list[float]:
+    ok = valid & np.isfinite(f)
 
     def phi(x: float) -> float:
         return float(mf.evaluate(np.array([tau]), np.array([x])).T_in[0] - T_in)
@@ -153,13 +166,15 @@ def roots_along(mf: Manifold, tau: float, T_in: float, T_lo: float, T_hi: float,
         return float(mf.evaluate(np.array([tau]), np.array([x])).dTin_ds[0])
 
     roots: list[float] = []
-    for k in range(len(s) - 1):
-        if not (ok[k] and ok[k + 1]):
-            continue
+    # only the sample intervals with a sign change of f or of its slope need a closer look
+    both = ok[:-1] & ok[1:]
+    for k in np.nonzero(both & ((f[:-1] * f[1:] <= 0) | (d[:-1] * d[1:] < 0)))[0]:
         fa, fb = f[k], f[k + 1]
         if fa == 0.0:
             roots.append(float(s[k]))
             continue
+        if fb == 0.0:
+            continue  # taken as the left end of the next interval (or the last sample below)
         if fa * fb < 0:
             roots.append(brentq(phi, s[k], s[k + 1], xtol=1e-14 * max(abs(s[k]), 1e-300), rtol=1e-15, maxiter=200))
         elif d[k] * d[k + 1] < 0:
