@@ -19,10 +19,9 @@ References
 import math
 
 import pytest
-from scipy.optimize import brentq
-
 from exomap.core.dynamics import simulate
 from exomap.core.scenario import R_GAS, Limits, Reaction, Scenario, Valve, Vessel
+from scipy.optimize import brentq
 
 T_A = 350.0  # ambient = coolant temperature [K]
 EA = 100e3  # [J/mol]
