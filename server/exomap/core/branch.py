@@ -280,7 +280,7 @@ class _Plane:
         return X, Y, abs(self.G(X, Y)) < 1e-10
 
 
-def _trace(plane: _Plane, X: float, Y: float, direction: float, max_steps: int = 4000):
+def _trace(plane: _Plane, X: float, Y: float, direction: float, max_steps: int = 4000, max_step: float = 0.02):
     """Pseudo-arclength continuation from (X, Y); returns the list of (X, Y, tX) along the curve."""
     path = [(X, Y, 0.0)]
     h = 0.01
@@ -309,7 +309,7 @@ def _trace(plane: _Plane, X: float, Y: float, direction: float, max_steps: int =
             break
         X, Y, tx, ty = Xc, Yc, ntx, nty
         path.append((X, Y, tx))
-        h = min(h * 1.5, 0.02)
+        h = min(h * 1.5, max_step)
         if not (-1e-9 <= X <= 1 + 1e-9 and -0.05 <= Y <= 1.05):
             break
         if step > 10 and math.hypot(X - X0, Y - Y0) < 0.5 * h:
@@ -318,7 +318,7 @@ def _trace(plane: _Plane, X: float, Y: float, direction: float, max_steps: int =
     return path
 
 
-def _along_residence_time(mf: Manifold, T_in: float, lo: float, hi: float):
+def _along_residence_time(mf: Manifold, T_in: float, lo: float, hi: float, max_step: float = 0.02):
     plane = _Plane(mf, T_in, lo, hi)
     # every steady state on the two edges (starts) and on interior columns (to find isolas), in one
     # vectorised sampling of the manifold
@@ -348,12 +348,12 @@ def _along_residence_time(mf: Manifold, T_in: float, lo: float, hi: float):
         _, gx, gy = plane.grad(X, Y)
         if gy * direction < 0:  # tangent (gy, -gx): make its X component point into the window
             direction = -direction
-        pieces.append(_trace(plane, X, Y, direction))
+        pieces.append(_trace(plane, X, Y, direction, max_step=max_step))
     for X, Y in interior:
         if covered(X, Y):
             continue
-        a = _trace(plane, X, Y, 1.0)
-        b = _trace(plane, X, Y, -1.0)
+        a = _trace(plane, X, Y, 1.0, max_step=max_step)
+        b = _trace(plane, X, Y, -1.0, max_step=max_step)
         pieces.append(list(reversed(b)) + a[1:])
 
     points: list[BranchPoint] = []
@@ -431,6 +431,7 @@ def branch(
     c_in: tuple[float, ...] | None = None,
     T_c: float | None = None,
     samples: int = 1500,
+    max_step: float = 0.02,
 ) -> BranchResult:
     """Steady states along one parameter through an operating point.
 
@@ -445,6 +446,11 @@ def branch(
         Feed temperature held fixed (along the residence time) or marked [K]; default the scenario's.
     lo, hi : float, optional
         Parameter range [s or K]; default the scenario's map window (or a factor 20 / ±50 K around the point).
+    samples : int
+        Samples along the branch coordinate (along the feed temperature) [-].
+    max_step : float
+        Largest continuation step along the residence time, as a fraction of the window's diagonal in
+        (ln tau, coordinate) [-]; turning and Hopf points are solved exactly whatever the step.
 
     Returns
     -------
@@ -472,7 +478,7 @@ def branch(
     if along == FEED_TEMPERATURE:
         points, turns, hopfs = _along_feed_temperature(mf, tau, lo, hi, samples)
     else:
-        points, turns, hopfs = _along_residence_time(mf, T_in, lo, hi)
+        points, turns, hopfs = _along_residence_time(mf, T_in, lo, hi, max_step)
     turns.sort(key=lambda t: (t.tau, t.T_in))
     ok = bool(points)
     return BranchResult(
@@ -494,5 +500,12 @@ def branch(
 def turning_points(
     sc: Scenario, along: str, tau: float | None = None, T_in: float | None = None, **kwargs: object
 ) -> list[TurningPoint]:
-    """Only the turning points of :func:`branch` (same arguments)."""
+    """Only the turning points of :func:`branch` (same arguments).
+
+    Notes
+    -----
+    A fold pair closer together than one continuation step (next to a cusp) shows no turn of the traced
+    curve; the default step (0.02) resolves the demos' cusps, a step of 0.06 already misses a pair 0.6 %
+    apart in residence time next to the jacketed demo's cusp (measured), so it is not used here.
+    """
     return list(branch(sc, along, tau, T_in, **kwargs).turning_points)  # type: ignore[arg-type]
