@@ -35,8 +35,6 @@ import numpy as np
 from exomap.core.errors import ModelInputError
 from exomap.core.scenario import R_GAS, Scenario
 
-_TINY = 1e-300
-
 
 def _solve_small(A: np.ndarray, b: np.ndarray) -> np.ndarray:
     """Solve stacked small systems A x = b (A (..., m, m), b (..., m)); closed form for m <= 2, where
@@ -137,17 +135,6 @@ class Manifold:
                 lr = lr + self.orders[j, i] * logC[..., i]
             r[..., j] = np.exp(lr)
         return r
-
-    def rate_derivatives(self, C: np.ndarray, T: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """(r (...,m), dr/dC (...,m,n), dr/dT (...,m))."""
-        Cp = np.maximum(C, 1e-300)
-        r = self.rates(C, T)
-        dr_dC = np.zeros(np.shape(T) + (self.m, self.n))
-        for j in range(self.m):
-            for i in self._orders_nz[j]:
-                dr_dC[..., j, i] = r[..., j] * self.orders[j, i] / Cp[..., i]
-        dr_dT = r * self.E / (np.asarray(T)[..., None] ** 2)
-        return r, dr_dC, dr_dT
 
     def extent_jacobian(self, C: np.ndarray, T: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """(r (...,m), dr/dxi = dr/dC . nu (...,m,m), dr/dT (...,m)) with C = C_in + nu xi.
