@@ -3,7 +3,6 @@
 import dataclasses
 
 import pytest
-
 from exomap.core.errors import ModelInputError
 from exomap.core.scenario import Limits, Reaction, Scenario, Valve, Vessel, validate
 
