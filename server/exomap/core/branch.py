@@ -380,7 +380,68 @@ def _along_residence_time(mf: Manifold, T_in: float, lo: float, hi: float, max_s
                     if hp is not None:
                         hopfs.append(hp)
             prev = cur
+    for tp in _locus_turning_points(plane, lo, hi):
+        if not any(t.kind == tp.kind and abs(t.tau - tp.tau) <= 1e-7 * tp.tau for t in turns):
+            turns.append(tp)
     return points, turns, hopfs
+
+
+def _locus_turning_points(plane: _Plane, lo: float, hi: float) -> list[TurningPoint]:
+    """Turning points along the residence time read from the fold locus, as a second, independent search.
+
+    The folds of 150 residence-time columns are found exactly (``opmap.fold_columns``, which also finds fold
+    pairs closer together than one sample) and chained column to column by kind; where a chain crosses the
+    branch's feed temperature, or where the feed temperature lies between a chain's last fold and the cusp
+    it runs into, there is a turning point, solved from there like the traced ones. This catches fold pairs
+    that lie within one continuation step (next to a cusp).
+    """
+    from exomap.core.opmap import cusps, fold_columns
+
+    mf, T_in = plane.mf, plane.T_in
+    taus = np.geomspace(lo, hi, 150)
+    cols = fold_columns(mf, mf.sample(taus, plane.T_lo, plane.T_hi, 256 if mf.explicit else 160))
+    f = cols.fold
+    cusp_rows = cusps(mf, taus, cols)
+    guesses: list[tuple[float, float, str]] = []
+    for rising in (True, False):
+        idx = np.nonzero(cols.rising == rising)[0]
+        if idx.size == 0:
+            continue
+        o = idx[np.lexsort((f.s[idx], cols.fold_col[idx]))]
+        c = cols.fold_col[o]
+        rank = np.arange(o.size) - np.searchsorted(c, c)
+        count = np.bincount(c, minlength=taus.size)
+        run = np.cumsum(np.r_[True, (count[1:] != count[:-1]) | (count[:-1] == 0)])
+        chains: dict[tuple[int, int], list[int]] = {}
+        for i, oi in enumerate(o):
+            chains.setdefault((int(run[c[i]]), int(rank[i])), []).append(int(oi))
+        kind = "ignition" if rising else "extinction"
+        for members in chains.values():
+            for a, b in zip(members[:-1], members[1:], strict=False):
+                ga, gb = f.T_in[a] - T_in, f.T_in[b] - T_in
+                if ga * gb < 0:
+                    w = ga / (ga - gb)
+                    guesses.append(
+                        (
+                            float(taus[cols.fold_col[a]] ** (1 - w) * taus[cols.fold_col[b]] ** w),
+                            float(f.s[a] + w * (f.s[b] - f.s[a])),
+                            kind,
+                        )
+                    )
+            for end in (members[0], members[-1]):
+                for tau_c, T_in_c, _ in cusp_rows:
+                    near = abs(math.log(taus[cols.fold_col[end]] / tau_c)) <= 2 * math.log(taus[1] / taus[0])
+                    if near and (f.T_in[end] - T_in) * (T_in_c - T_in) < 0:
+                        w = (f.T_in[end] - T_in) / (f.T_in[end] - T_in_c)
+                        guesses.append((float(taus[cols.fold_col[end]] ** (1 - w) * tau_c**w), float(f.s[end]), kind))
+    out: list[TurningPoint] = []
+    for tau_g, s_g, kind in guesses:
+        if not (lo <= tau_g <= hi):
+            continue
+        tp = _refine_fold(plane, *plane.XY(tau_g, s_g))
+        if tp is not None and tp.kind == kind and lo <= tp.tau <= hi:
+            out.append(tp)
+    return out
 
 
 def _refine_fold(plane: _Plane, X: float, Y: float) -> TurningPoint | None:

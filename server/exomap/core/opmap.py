@@ -251,7 +251,7 @@ def operating_map(
     N = samples or (SAMPLES_EXPLICIT if mf.explicit else SAMPLES_GENERAL)
     T_lo, T_hi = mf.temperature_window(float(T_in[0]), float(T_in[-1]), float(tau[-1]))
     smp = mf.sample(tau, T_lo, T_hi, N)
-    cols = _columns(mf, smp)
+    cols = fold_columns(mf, smp)
     states = _cell_states(mf, smp, cols, T_in)
     region, count, tmax = _classify(sc, states)
     opening = valve_mod.opening_for_flow(sc, sc.vessel.V_set / tau)
@@ -265,7 +265,7 @@ def operating_map(
             if spacing == "log"
             else np.linspace(tau[0], tau[-1], BOUNDARY_COLUMNS)
         )
-        bcols = _columns(mf, mf.sample(btau, T_lo, T_hi, N))
+        bcols = fold_columns(mf, mf.sample(btau, T_lo, T_hi, N))
     boundaries = _boundaries(sc, mf, btau, bcols, float(T_in[0]), float(T_in[-1]))
     return MapResult(
         tau,
@@ -285,7 +285,7 @@ def operating_map(
 
 # -- per column: folds and monotone pieces ----------------------------------------------------------------
 @dataclass
-class _Columns:
+class FoldColumns:
     smp: Samples
     fold_col: np.ndarray  # column of each fold
     fold_k: np.ndarray  # fold lies between samples k and k+1
@@ -331,7 +331,8 @@ def _unhide_fold_pairs(mf: Manifold, smp: Samples) -> Samples:
     return Samples(tau=smp.tau, **fields)
 
 
-def _columns(mf: Manifold, smp: Samples) -> _Columns:
+def fold_columns(mf: Manifold, smp: Samples) -> FoldColumns:
+    """Folds of every sampled column, refined to machine precision, and the Hopf indicator on the samples."""
     smp = _unhide_fold_pairs(mf, smp)
     d = smp.dTin_ds
     c, k = np.nonzero((d[:, :-1] * d[:, 1:]) < 0)
@@ -344,10 +345,10 @@ def _columns(mf: Manifold, smp: Samples) -> _Columns:
         valid = np.zeros(smp.T.shape, dtype=bool)
     else:
         _, hopf, valid = mf.stability(smp.tau, smp.T, smp.xi)
-    return _Columns(smp, c, k, fold, d[c, k] > 0, hopf, valid)
+    return FoldColumns(smp, c, k, fold, d[c, k] > 0, hopf, valid)
 
 
-def _cell_states(mf: Manifold, smp: Samples, cols: _Columns, T_in: np.ndarray) -> dict:
+def _cell_states(mf: Manifold, smp: Samples, cols: FoldColumns, T_in: np.ndarray) -> dict:
     """Every steady state of every cell, as dense arrays (S, n_tin, n_tau) with a presence mask."""
     n_tau, N = smp.s.shape
     n_tin = T_in.size
@@ -505,11 +506,11 @@ def _classify(sc: Scenario, st: dict) -> tuple[np.ndarray, np.ndarray, np.ndarra
 
 
 # -- boundaries -------------------------------------------------------------------------------------------
-def _boundaries(sc: Scenario, mf: Manifold, tau: np.ndarray, cols: _Columns, tin_lo: float, tin_hi: float) -> dict:
+def _boundaries(sc: Scenario, mf: Manifold, tau: np.ndarray, cols: FoldColumns, tin_lo: float, tin_hi: float) -> dict:
     f = cols.fold
     inside = (f.T_in >= tin_lo) & (f.T_in <= tin_hi)
-    cusps = [c for c in _cusps(mf, tau, cols) if tin_lo <= c[1] <= tin_hi]
-    cusp_pts = [(c[0], c[1]) for c in cusps]
+    cusp_rows = [c for c in cusps(mf, tau, cols) if tin_lo <= c[1] <= tin_hi]
+    cusp_pts = [(c[0], c[1]) for c in cusp_rows]
     # ignition: a local maximum of T_in(s) (dT_in/ds goes from + to -); both curves are drawn into the cusp
     ign = _chain(tau, cols.fold_col, f.s, f.T_in, inside & cols.rising, cusp_pts)
     ext = _chain(tau, cols.fold_col, f.s, f.T_in, inside & ~cols.rising, cusp_pts)
@@ -520,7 +521,7 @@ def _boundaries(sc: Scenario, mf: Manifold, tau: np.ndarray, cols: _Columns, tin
         "extinction": ext,
         "hopf": hopf,
         "max_temperature": _max_temperature_curve(sc, mf, tau, tin_lo, tin_hi),
-        "cusp": np.array(cusps, dtype=float).reshape(-1, 3),
+        "cusp": np.array(cusp_rows, dtype=float).reshape(-1, 3),
     }
 
 
@@ -567,7 +568,7 @@ def _chain(
     return np.array(rows, dtype=float).reshape(-1, 2)
 
 
-def _cusps(mf: Manifold, tau: np.ndarray, cols: _Columns) -> list[tuple[float, float, float]]:
+def cusps(mf: Manifold, tau: np.ndarray, cols: FoldColumns) -> list[tuple[float, float, float]]:
     """Cusps between neighbouring columns whose number of folds differs: the fold pair is born there."""
     n_f = np.bincount(cols.fold_col, minlength=tau.size)
     out: list[tuple[float, float, float]] = []
@@ -633,7 +634,7 @@ def _solve_cusp(
     return (math.exp(x_c), float(e.T_in[0]), float(e.T[0]))
 
 
-def _hopf(mf: Manifold, tau: np.ndarray, cols: _Columns) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def _hopf(mf: Manifold, tau: np.ndarray, cols: FoldColumns) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Hopf points of every column: (column, coordinate s, feed temperature)."""
     lead, cplx, smp = cols.lead, cols.cplx, cols.smp
     ch = cplx[:, :-1] & cplx[:, 1:] & ((lead[:, :-1] * lead[:, 1:]) < 0)
