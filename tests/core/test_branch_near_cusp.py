@@ -3,7 +3,6 @@ than one continuation step. Checked against the point solver: between the two fo
 states, just outside them one."""
 
 import pytest
-
 from exomap.cli import load_scenario
 from exomap.core.branch import branch
 from exomap.core.opmap import operating_map
