@@ -28,12 +28,32 @@ rejects positive orders in a reaction's own products).
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
 
 from exomap.core.errors import ModelInputError
 from exomap.core.scenario import R_GAS, Scenario
+
+
+def _solve_list(A: list[list[float]], b: list[float]) -> list[float]:
+    """Solve a small dense system in plain floats (Gaussian elimination with partial pivoting)."""
+    n = len(b)
+    M = [row[:] + [b[i]] for i, row in enumerate(A)]
+    for c in range(n):
+        p = max(range(c, n), key=lambda r: abs(M[r][c]))
+        M[c], M[p] = M[p], M[c]
+        piv = M[c][c] or 1e-300
+        for r in range(c + 1, n):
+            f = M[r][c] / piv
+            if f:
+                for k in range(c, n + 1):
+                    M[r][k] -= f * M[c][k]
+    x = [0.0] * n
+    for c in range(n - 1, -1, -1):
+        x[c] = (M[c][n] - sum(M[c][k] * x[k] for k in range(c + 1, n))) / (M[c][c] or 1e-300)
+    return x
 
 
 def _solve_small(A: np.ndarray, b: np.ndarray) -> np.ndarray:
@@ -285,13 +305,78 @@ class Manifold:
         if self.explicit:
             return self.explicit_eval(tau, s)
         if np.size(s) == 1 and np.size(tau) == 1:
-            tau_a, s_a = np.broadcast_arrays(np.asarray(tau, float), np.asarray(s, float))
-            xi = self.isothermal_extents(
-                tau_a, s_a, None if self._last_xi is None else np.broadcast_to(self._last_xi, tau_a.shape + (self.m,))
-            )
-            self._last_xi = xi.reshape(self.m).copy()
-            return self.general_eval(tau_a, s_a, xi)
+            return self._general_point(np.asarray(tau, float), np.asarray(s, float))
         return self.general_eval(tau, s)
+
+    def _general_point(self, tau_a: np.ndarray, T_a: np.ndarray) -> Samples:
+        """One point of the general path in plain Python floats (numpy's per-call cost dominates for a single
+        point): the same damped Newton on xi = tau r(C_in + nu xi, T) as ``isothermal_extents``, started from
+        the previous single-point answer, then T_in and dT_in/dT as in ``general_eval``."""
+        tau, T = float(tau_a.reshape(-1)[0]), float(T_a.reshape(-1)[0])
+        m, n = self.m, self.n
+        nu = self.nu.tolist()
+        orders = self.orders.tolist()
+        c_in = self.c_in.tolist()
+        lnk = [math.log(self.k0[j]) - self.E[j] / T for j in range(m)]
+        scale = max(max(c_in), 1.0)
+
+        def conc(x: list[float]) -> list[float]:
+            return [c_in[i] + sum(nu[i][k] * x[k] for k in range(m)) for i in range(n)]
+
+        def rates_jac(x: list[float]) -> tuple[list[float], list[list[float]]]:
+            C = conc(x)
+            r = []
+            for j in range(m):
+                lr = lnk[j]
+                for i in self._orders_nz[j]:
+                    lr += orders[j][i] * math.log(max(C[i], 1e-300))
+                r.append(math.exp(lr))
+            Rn = [[0.0] * m for _ in range(m)]
+            for j in range(m):
+                for i in self._orders_nz[j]:
+                    g = r[j] * orders[j][i] / max(C[i], 1e-300)
+                    for k in range(m):
+                        Rn[j][k] += g * nu[i][k]
+            return r, Rn
+
+        if self._last_xi is not None:
+            x = [float(v) for v in self._last_xi]
+        else:
+            r0, _ = rates_jac([0.0] * m)
+            x = self._feasible(np.zeros(m), tau * np.array(r0)).tolist()
+        for _ in range(60):
+            r, Rn = rates_jac(x)
+            res = [x[j] - tau * r[j] for j in range(m)]
+            A = [[(1.0 if j == k else 0.0) - tau * Rn[j][k] for k in range(m)] for j in range(m)]
+            step = _solve_list(A, [-v for v in res])
+            new = self._feasible(np.array(x), np.array(x) + np.array(step)).tolist()
+            done = all(
+                abs(res[j]) <= 1e-12 * (abs(x[j]) + abs(tau * r[j])) + 1e-300 or abs(new[j] - x[j]) <= 1e-15 * scale
+                for j in range(m)
+            )
+            x = new
+            if done:
+                break
+        self._last_xi = np.array(x)
+        r, Rn = rates_jac(x)
+        A = [[(1.0 if j == k else 0.0) - tau * Rn[j][k] for k in range(m)] for j in range(m)]
+        dxi_dT = _solve_list(A, [tau * r[j] * self.E[j] / (T * T) for j in range(m)])
+        a = 1.0 + (self.kappa + self.lam) * tau
+        b = (self.kappa * self.T_c + self.lam * self.sc.T_amb + self.p) * tau
+        J = self.J.tolist()
+        T_in = a * T - sum(J[j] * x[j] for j in range(m)) - b
+        dTin = a - sum(J[j] * dxi_dT[j] for j in range(m))
+        one = np.array([T])
+        return Samples(
+            np.array([tau]),
+            one,
+            one,
+            np.array([x]),
+            np.array([T_in]),
+            np.array([dTin]),
+            np.ones(1),
+            np.array([math.isfinite(T_in)]),
+        )
 
     def temperature_window(self, T_in_lo: float, T_in_hi: float, tau_hi: float) -> tuple[float, float]:
         """Bounds on every steady temperature for feed temperatures in [T_in_lo, T_in_hi] [K]."""
