@@ -1,9 +1,14 @@
 // The scenario editor: the scenario's fields in groups, each shown in a trade unit and accepted as typed.
 // An untouched field keeps its exact SI value; a changed one is sent as typed ("35 degC"), or, when it is a
 // bare number, with the unit shown beside it, so the server's unit parser does every conversion.
-// Errors from the API's fields list are shown beside the field they name.
+// Errors from the API's fields list are shown beside the field they name. Species and reactions can be added
+// and removed (the rules are in editor_rows.js); values typed so far survive those changes.
 
 import { el } from "./check.js";
+import {
+  speciesNameProblem, withSpecies, speciesRemovalProblem, withoutSpecies, withReaction, reactionRemovalProblem,
+  withoutReaction,
+} from "./editor_rows.js";
 
 // Display units: [pint unit string, SI per display unit, offset]
 const UNITS = {
@@ -22,7 +27,7 @@ function groups(doc) {
   const rx = (doc.reactions || []).map((r, j) => {
     const n = Object.values(r.orders || {}).reduce((a, b) => a + Number(b || 0), 0);
     return {
-      title: `Reaction ${j + 1}${r.label ? ": " + r.label : ""}`, key: `reactions[${j}]`,
+      title: `Reaction ${j + 1}${r.label ? ": " + r.label : ""}`, key: `reactions[${j}]`, reaction: j,
       fields: [
         [`reactions[${j}].label`, "Label", "text"],
         ...sp.map((s) => [`reactions[${j}].stoichiometry.${s}`, `Coefficient of ${s} (negative: consumed)`, "number"]),
@@ -51,7 +56,9 @@ function groups(doc) {
       ["outlet_valve.level_control.reset_time", "Level controller reset time", "time"]] },
     { title: "Liquid", key: "liquid", fields: [
       ["liquid.density", "Density", "density"], ["liquid.heat_capacity", "Heat capacity", "specific_heat"]] },
+    { title: "Species", key: "species", species: true, fields: [] },
     ...rx,
+    { key: "reactions-add", addReaction: true, fields: [] },
     { title: "Feed", key: "feed", fields: [
       ["feed.flow", "Flow", "flow"], ["feed.temperature", "Temperature", "temperature"],
       ...sp.map((s) => [`feed.concentrations.${s}`, `Concentration of ${s}`, "concentration"])] },
@@ -121,29 +128,48 @@ const pretty = (u) => String(u).replace(/\^3/g, "³").replace(/\^2/g, "²").repl
 
 function fieldId(path) { return "f-" + path.replace(/[^A-Za-z0-9_-]/g, "_"); }
 
+const clone = (x) => JSON.parse(JSON.stringify(x));
+const NUMBER = /^[-+]?(\d+\.?\d*|\.\d+)([eE][-+]?\d+)?$/;
+
 export class Editor {
+  // `doc` is the saved scenario (canonical, SI); `work` is it with the species and reactions added or removed
+  // so far, still with the saved values; what is typed lives in the inputs until collect().
   constructor(root, doc, { onSave }) {
     this.root = root;
     this.doc = doc;
     this.onSave = onSave;
     this.inputs = new Map();
+    this.slots = new Map(); // field path -> {input, err}: where an error about that path is shown
+    this.reset();
     this.render();
+  }
+
+  reset() {
+    this.work = clone(this.doc);
+    this.serial = 0;
+    // a stable key per reaction, so what was typed in reaction 3 follows it when reaction 2 is removed
+    this.rxKeys = (this.work.reactions || []).map(() => `r${this.serial++}`);
   }
 
   render() {
     const host = this.root.querySelector("#editor-groups");
     host.textContent = "";
     this.inputs.clear();
-    for (const g of groups(this.doc)) {
+    this.slots.clear();
+    for (const g of groups(this.work)) {
+      if (g.addReaction) { host.append(this.addReactionBlock()); continue; }
       const fs = el("fieldset", { class: "editor-group", "data-group": g.key }, el("legend", { text: g.title }));
+      if (g.species) this.speciesRows(fs);
       for (const [path, label, kind, extra] of g.fields) fs.append(this.field(path, label, kind, extra));
+      if (g.reaction !== undefined) this.reactionTools(fs, g.reaction);
       host.append(fs);
     }
+    for (let j = 0; j < (this.work.reactions || []).length; j++) this.updateK0Unit(j);
   }
 
   field(path, label, kind, extra) {
     const id = fieldId(path);
-    const original = getPath(this.doc, path);
+    const original = getPath(this.work, path);
     const row = el("div", { class: "field", "data-field": path });
     row.append(el("label", { for: id, text: label }));
     let input;
@@ -165,14 +191,153 @@ export class Editor {
     row.append(input);
     const unit = kind === "k0" ? extra : UNIT_SHOWN[kind] ?? (UNITS[kind] ? UNITS[kind][0] : "");
     row.append(el("span", { class: "unit", text: pretty(unit) }));
-    row.append(el("span", { id: `${id}-err`, class: "field-error", role: "alert", hidden: "" }));
+    const err = el("span", { id: `${id}-err`, class: "field-error", role: "alert", hidden: "" });
+    row.append(err);
     this.inputs.set(path, { input, kind, original, unit: kind === "k0" ? "" : UNITS[kind] ? UNITS[kind][0] : "" });
+    this.slots.set(path, { input, err });
+    const m = path.match(/^reactions\[(\d+)\]\.orders\./);
+    if (m) input.addEventListener("input", () => this.updateK0Unit(Number(m[1])));
     return row;
   }
 
-  // The document to save: the original with every changed field as typed.
+  // -- species ----------------------------------------------------------------------------------------------
+  speciesRows(fs) {
+    fs.append(el("p", { class: "muted small", text: "The names used in the reactions and the feed. Removing a species "
+      + "also removes it from every reaction and from the feed." }));
+    const list = el("ul", { class: "species-list" });
+    (this.work.species || []).forEach((name, i) => {
+      const id = fieldId(`species[${i}]`);
+      const button = el("button", { type: "button", id, class: "remove-species", "data-species": name,
+        "aria-label": `Remove species ${name}`, "aria-describedby": `${id}-err`, text: "Remove" });
+      button.addEventListener("click", () => this.removeSpecies(name));
+      const err = el("span", { id: `${id}-err`, class: "field-error", role: "alert", hidden: "" });
+      list.append(el("li", { class: "species-row", "data-species": name },
+        el("span", { class: "species-name", text: name }), button, err));
+      this.slots.set(`species[${i}]`, { input: button, err });
+    });
+    fs.append(list);
+    const row = el("div", { class: "field species-add", "data-field": "new-species" });
+    const input = el("input", { id: "f-new-species", type: "text", spellcheck: "false", autocomplete: "off",
+      "aria-describedby": "f-new-species-err" });
+    input.addEventListener("keydown", (ev) => {
+      if (ev.key === "Enter") { ev.preventDefault(); this.addSpecies(input.value); }
+    });
+    const button = el("button", { type: "button", id: "add-species", text: "Add species" });
+    button.addEventListener("click", () => this.addSpecies(input.value));
+    const err = el("span", { id: "f-new-species-err", class: "field-error", role: "alert", hidden: "" });
+    row.append(el("label", { for: "f-new-species", text: "New species name" }), input, button, err);
+    fs.append(row);
+    this.slots.set("species", { input, err });
+  }
+
+  addSpecies(typed) {
+    const name = String(typed).trim();
+    const problem = speciesNameProblem(name, this.work.species);
+    if (problem) { this.refuse("f-new-species", problem); return; }
+    this.restructure(withSpecies(this.work, name), this.rxKeys);
+    this.say(`Species ${name} added; its coefficients, orders and feed concentration are 0 until typed.`);
+    this.root.querySelector("#f-new-species").focus();
+  }
+
+  removeSpecies(name) {
+    const i = this.work.species.indexOf(name);
+    // judged on what is typed now, not on the saved coefficients
+    const problem = speciesRemovalProblem(this.collect(), name);
+    if (problem) { this.refuse(fieldId(`species[${i}]`), problem); return; }
+    this.restructure(withoutSpecies(this.work, name), this.rxKeys);
+    this.say(`Species ${name} removed, from the reactions and the feed too.`);
+    const next = this.root.querySelectorAll(".remove-species")[i] || this.root.querySelector("#f-new-species");
+    next.focus();
+  }
+
+  // -- reactions --------------------------------------------------------------------------------------------
+  reactionTools(fs, j) {
+    const r = this.work.reactions[j];
+    const id = `remove-reaction-${j}`;
+    const button = el("button", { type: "button", id, class: "remove-reaction",
+      "aria-label": `Remove reaction ${j + 1}${r.label ? ` (${r.label})` : ""}`, "aria-describedby": `${id}-err`,
+      text: "Remove this reaction" });
+    button.addEventListener("click", () => this.removeReaction(j));
+    fs.append(el("div", { class: "reaction-tools" }, button,
+      el("span", { id: `${id}-err`, class: "field-error", role: "alert", hidden: "" })));
+    // errors about a whole stoichiometry or orders go beside its first field
+    for (const part of ["stoichiometry", "orders"]) {
+      const first = this.slots.get(`reactions[${j}].${part}.${(this.work.species || [])[0]}`);
+      if (first) this.slots.set(`reactions[${j}].${part}`, first);
+    }
+  }
+
+  addReactionBlock() {
+    const button = el("button", { type: "button", id: "add-reaction", text: "Add a reaction" });
+    button.addEventListener("click", () => this.addReaction());
+    return el("div", { class: "reaction-add" }, button,
+      el("span", { class: "muted small", text: " Its coefficients, orders and kinetics are typed in the new group." }));
+  }
+
+  addReaction() {
+    this.restructure(withReaction(this.work), [...this.rxKeys, `r${this.serial++}`]);
+    const j = this.work.reactions.length - 1;
+    this.say(`Reaction ${j + 1} added; fill in its fields below the others.`);
+    this.root.querySelector(`#${CSS.escape(fieldId(`reactions[${j}].label`))}`).focus();
+  }
+
+  removeReaction(j) {
+    const problem = reactionRemovalProblem(this.work);
+    if (problem) { this.refuse(`remove-reaction-${j}`, problem); return; }
+    const label = this.work.reactions[j].label;
+    this.restructure(withoutReaction(this.work, j), this.rxKeys.filter((_, i) => i !== j));
+    this.say(`Reaction ${j + 1}${label ? ` (${label})` : ""} removed; the ones after it are renumbered.`);
+    this.root.querySelector("#add-reaction").focus();
+  }
+
+  // The unit of a pre-exponential factor follows the orders typed for its reaction.
+  updateK0Unit(j) {
+    const f = this.inputs.get(`reactions[${j}].pre_exponential`);
+    if (!f) return;
+    let n = 0;
+    for (const s of this.work.species || []) {
+      const o = this.inputs.get(`reactions[${j}].orders.${s}`);
+      const t = o ? o.input.value.trim() : "";
+      if (t === "") continue;
+      if (!NUMBER.test(t)) return; // leave the unit until the orders are numbers again
+      n += Number(t);
+    }
+    f.input.closest(".field").querySelector(".unit").textContent = pretty(K0_UNIT(n));
+  }
+
+  // Re-render on a changed structure, keeping what was typed in every field that is still there.
+  restructure(work, rxKeys) {
+    const stable = (path, keys) => path.replace(/^reactions\[(\d+)\]/, (_, j) => `reactions#${keys[Number(j)]}`);
+    const typed = new Map();
+    for (const [path, { input, kind }] of this.inputs)
+      typed.set(stable(path, this.rxKeys), kind === "bool" ? input.checked : input.value);
+    this.work = work;
+    this.rxKeys = rxKeys;
+    this.render();
+    for (const [path, { input, kind }] of this.inputs) {
+      const key = stable(path, this.rxKeys);
+      if (!typed.has(key)) continue;
+      if (kind === "bool") input.checked = typed.get(key); else input.value = typed.get(key);
+    }
+    for (let j = 0; j < this.work.reactions.length; j++) this.updateK0Unit(j);
+    this.clearErrors();
+  }
+
+  refuse(id, message) {
+    this.clearErrors();
+    const err = this.root.querySelector(`#${CSS.escape(id)}-err`);
+    err.textContent = message;
+    err.hidden = false;
+  }
+
+  say(message) {
+    const status = this.root.querySelector("#editor-rows-status");
+    if (status) status.textContent = message;
+  }
+
+  // The document to save: the working document with every changed field as typed.
   collect() {
-    const out = JSON.parse(JSON.stringify(this.doc));
+    const out = clone(this.work);
     for (const [path, f] of this.inputs) {
       const { input, kind } = f;
       const current = kind === "bool" ? String(input.checked) : input.value;
@@ -183,7 +348,7 @@ export class Editor {
       else {
         const t = input.value.trim();
         if (t === "") value = undefined;
-        else if (/^[-+]?(\d+\.?\d*|\.\d+)([eE][-+]?\d+)?$/.test(t)) value = f.unit ? `${t} ${f.unit}` : Number(t);
+        else if (NUMBER.test(t)) value = f.unit ? `${t} ${f.unit}` : Number(t);
         else value = t;
       }
       setPath(out, path, value);
@@ -211,19 +376,20 @@ export class Editor {
     let first = null;
     for (const { field, message } of fields || []) {
       const path = String(field).replace(/^scenario\./, "");
-      let target = null;
+      let slot = null;
       for (const p of ancestors(path)) {
-        const f = this.inputs.get(p);
-        if (f) { target = f.input; break; }
+        slot = this.slots.get(p);
+        if (slot) break;
         const group = this.root.querySelector(`[data-group="${CSS.escape(p)}"]`);
-        if (group) { target = group.querySelector("input,select,textarea"); break; }
+        const input = group && group.querySelector("input,select,textarea");
+        if (input) { slot = { input, err: this.root.querySelector(`#${CSS.escape(input.id)}-err`) }; break; }
       }
-      if (!target) { left.push({ field, message }); continue; }
-      const err = this.root.querySelector(`#${CSS.escape(target.id)}-err`);
+      if (!slot || !slot.err) { left.push({ field, message }); continue; }
+      const { input, err } = slot;
       err.textContent = err.textContent ? `${err.textContent}; ${message}` : message;
       err.hidden = false;
-      target.setAttribute("aria-invalid", "true");
-      first = first || target;
+      if (input.tagName !== "BUTTON") input.setAttribute("aria-invalid", "true");
+      first = first || input;
     }
     if (first) first.focus();
     return left;
@@ -231,6 +397,8 @@ export class Editor {
 
   revert() {
     this.clearErrors();
+    this.reset();
     this.render();
+    this.say("");
   }
 }
