@@ -235,3 +235,24 @@ def test_new_species_name_is_checked_and_added_by_keyboard(page: Any, server: st
     assert page.evaluate("(p) => p.scrollWidth <= p.clientWidth", panel.element_handle())
     page.locator("#editor [data-group='species']").scroll_into_view_if_needed()
     screenshot(page, "editor-rows-species")
+
+
+def test_undo_takes_back_added_and_removed_rows(page: Any, server: str, demo_ids: dict[str, str]) -> None:
+    open_editor(page, server, demo_ids["product-decomposition"])
+    page.fill("#f-new-species", "constructor")  # a name that is also a built-in property in the browser
+    page.click("#add-species")
+    page.wait_for_selector("#editor .species-row[data-species='constructor']")
+    assert page.input_value(field("feed.concentrations.constructor")) == ""
+    page.click("#add-reaction")
+    page.fill(field("reactions[2].label"), "side reaction")
+    # the group's heading and its remove button follow the label typed
+    assert page.inner_text("#editor [data-group='reactions[2]'] > legend") == "Reaction 3: side reaction"
+    assert page.get_attribute("#remove-reaction-2", "aria-label") == "Remove reaction 3 (side reaction)"
+    page.click("#editor .remove-species[data-species='D']")
+    page.wait_for_selector("#editor .species-row[data-species='D']", state="detached")
+
+    page.click("#editor-revert")
+    species = page.eval_on_selector_all("#editor .species-row", "rows => rows.map(r => r.dataset.species)")
+    assert species == ["A", "P", "D"]
+    assert page.locator("#editor [data-group^='reactions[']").count() == 2
+    assert page.input_value(field("reactions[1].stoichiometry.D")) == "1"

@@ -88,7 +88,11 @@ export function pathParts(path) {
 }
 export function getPath(obj, path) {
   let v = obj;
-  for (const p of pathParts(path)) { if (v === null || v === undefined) return undefined; v = v[p]; }
+  // own keys only, so a species named like a built-in property ("constructor") reads as absent
+  for (const p of pathParts(path)) {
+    if (v === null || typeof v !== "object" || !Object.prototype.hasOwnProperty.call(v, p)) return undefined;
+    v = v[p];
+  }
   return v;
 }
 function setPath(obj, path, value) {
@@ -197,6 +201,8 @@ export class Editor {
     this.slots.set(path, { input, err });
     const m = path.match(/^reactions\[(\d+)\]\.orders\./);
     if (m) input.addEventListener("input", () => this.updateK0Unit(Number(m[1])));
+    const lab = path.match(/^reactions\[(\d+)\]\.label$/);
+    if (lab) input.addEventListener("input", () => this.updateLegend(Number(lab[1])));
     return row;
   }
 
@@ -290,6 +296,14 @@ export class Editor {
     this.root.querySelector("#add-reaction").focus();
   }
 
+  updateLegend(j) {
+    const legend = this.root.querySelector(`[data-group="reactions[${j}]"] > legend`);
+    const label = this.inputs.get(`reactions[${j}].label`).input.value.trim();
+    if (legend) legend.textContent = `Reaction ${j + 1}${label ? ": " + label : ""}`;
+    const button = this.root.querySelector(`#remove-reaction-${j}`);
+    if (button) button.setAttribute("aria-label", `Remove reaction ${j + 1}${label ? ` (${label})` : ""}`);
+  }
+
   // The unit of a pre-exponential factor follows the orders typed for its reaction.
   updateK0Unit(j) {
     const f = this.inputs.get(`reactions[${j}].pre_exponential`);
@@ -319,7 +333,7 @@ export class Editor {
       if (!typed.has(key)) continue;
       if (kind === "bool") input.checked = typed.get(key); else input.value = typed.get(key);
     }
-    for (let j = 0; j < this.work.reactions.length; j++) this.updateK0Unit(j);
+    for (let j = 0; j < this.work.reactions.length; j++) { this.updateK0Unit(j); this.updateLegend(j); }
     this.clearErrors();
   }
 

@@ -13,6 +13,7 @@ export function speciesNameProblem(name, species) {
   if (name === "") return "Type a name for the new species, e.g. B or MeOH.";
   if (!NAME.test(name))
     return `"${name}" is not a species name: use one word of letters, digits and underscores that starts with a letter, e.g. B or MeOH.`;
+  if (name === "__proto__") return `"${name}" is reserved; choose another name.`;
   if (name.length > MAX_NAME) return `A species name has at most ${MAX_NAME} characters; this one has ${name.length}.`;
   if ((species || []).includes(name)) return `There is already a species named ${name}.`;
   const other = (species || []).find((s) => s.toLowerCase() === name.toLowerCase());
