@@ -81,14 +81,15 @@ def test_a_job_past_its_budget_is_stopped_and_its_worker_replaced(make_client) -
     served by a replacement worker."""
     from web_helpers import assert_error
 
-    # budget: a 500 x 500 map (about 0.7 s here with its answer) is well over it, a steady state well under
-    client = make_client(executor="process", workers=1, request_time_budget_s=0.25)
+    # budget: a 1000 x 1000 map (about 2 s here with its answer; a 500 x 500 one became too fast as the core
+    # got faster) is well over it, a steady state well under
+    client = make_client(executor="process", workers=1, request_time_budget_s=0.5, max_map_cells=1_000_000)
     sid = client.post("/api/v1/scenarios", json=ADIABATIC).json()["id"]
     runner = client.app.state.service.runner
     runner.warm_up()  # the pool's start is not part of any request's budget
     pool = runner._processes
     (first,) = list(pool._all)
-    slow = client.post("/api/v1/map", json={"scenario_id": sid, "points": [500, 500]})
+    slow = client.post("/api/v1/map", json={"scenario_id": sid, "points": [1000, 1000]})
     assert_error(slow, 503, "time_budget_exceeded")
     first.process.join(timeout=10)
     assert not first.process.is_alive(), "the worker of the stopped job is still running"
