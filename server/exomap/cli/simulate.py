@@ -118,6 +118,8 @@ def render(sc: Any, r: Any) -> str:
     lines.append(
         f"Stop: {r.stop_reason}" + ("" if r.stop_reason == "completed" else f" at {fmt.minutes(r.t_end)} ({r.message})")
     )
+    if "not stable" in r.message:
+        lines.append(f"Note: {r.message.split('; ', 1)[1]}.")
     lines.append(
         f"Peak temperature {fmt.celsius(r.peak_T)} at {fmt.minutes(r.peak_t)}; end {fmt.celsius(r.T[-1])}, "
         f"level {r.h[-1]:.2f} m" + (", steady" if r.settled() else "")

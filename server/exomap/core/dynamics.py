@@ -345,6 +345,10 @@ class _Plant:
 # ---------------------------------------------------------------------------------------------------------
 
 
+#: Temperature added to a start on a steady state that is not stable (saddle or unstable) [K].
+UNSTABLE_NUDGE_K = 0.1
+
+
 def _steady_start(sc: Scenario, tau: float, T_in: float, start: str) -> tuple[np.ndarray, float]:
     from exomap.core.steady import steady_states  # lazy: steady imports heavier machinery
 
@@ -364,9 +368,23 @@ def _steady_start(sc: Scenario, tau: float, T_in: float, start: str) -> tuple[np
                 field="start",
             )
         s = saddles[0]
-    y0 = np.concatenate(([sc.vessel.h_set], np.asarray(s.C, dtype=float), [float(s.T), 0.0]))
+    # a state that is not stable is left by any disturbance, but a start exactly on it stays there to
+    # rounding for hours; nudge it so the run shows where the tank goes (the answer's message says so)
+    T0 = float(s.T) + (UNSTABLE_NUDGE_K if s.stability != "stable" else 0.0)
+    y0 = np.concatenate(([sc.vessel.h_set], np.asarray(s.C, dtype=float), [T0, 0.0]))
     x = s.valve_opening
     return y0, float(x) if x is not None and math.isfinite(x) else math.nan
+
+
+def _start_nudged(sc: Scenario, tau: float, T_in: float, y0: np.ndarray) -> bool:
+    """Whether _steady_start moved the start off its (not stable) steady state."""
+    from exomap.core.steady import steady_states
+
+    T0 = float(y0[1 + sc.n_species])
+    return any(
+        abs(T0 - (s.T + UNSTABLE_NUDGE_K)) < 1e-9 and s.stability != "stable"
+        for s in steady_states(sc, tau, T_in).states
+    )
 
 
 def _explicit_initial(sc: Scenario, initial: Any) -> np.ndarray:
@@ -714,6 +732,7 @@ def simulate(
     budget = [MAX_RHS_EVALUATIONS]
     stop_reason = "completed"
     message = "completed"
+    nudged = start_name in ("low", "middle", "high") and initial is None and _start_nudged(sc, tau_v, T_in_v, y0)
     while True:
         while k_ev < len(evs) and evs[k_ev].t <= t:
             e = evs[k_ev]
@@ -824,6 +843,11 @@ def simulate(
     if T_all[k_max] > peak_T:  # a recorded point can beat the refined step maximum only by round-off
         peak_T, peak_t = float(T_all[k_max]), float(t_all[k_max])
     alarms.sort(key=lambda a: a["time_s"])
+    if nudged:
+        message += (
+            f"; the starting steady state is not stable, so the run starts {UNSTABLE_NUDGE_K:g} K above it "
+            "(exactly on it the tank would stay to rounding)"
+        )
     return SimulationResult(
         success=True,
         message=message,
