@@ -169,5 +169,7 @@ export function simulationSummary(sim) {
   parts.push(alarms.length ? `${alarms.length} alarm${alarms.length > 1 ? "s" : ""}: ` + alarms.map((a) =>
     `${String(a.kind || "alarm").replace(/_/g, " ")} at ${fmtTime(a.time_s ?? a.at_s)}`).join(", ") : "no alarms");
   if (sim.stop_reason && sim.stop_reason !== "completed") parts.push(`stopped early: ${sim.stop_reason}`);
+  // the core says when it nudged a start off a steady state that is not stable
+  if (typeof sim.message === "string" && sim.message.includes("not stable")) parts.push(sim.message.split("; ").slice(1).join("; "));
   return parts.join(" · ");
 }
