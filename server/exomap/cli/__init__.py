@@ -99,6 +99,30 @@ def add_scenario_argument(parser: argparse.ArgumentParser) -> None:
     )
 
 
+def add_operating_point_arguments(parser: argparse.ArgumentParser, *, what: str = "") -> None:
+    """The ``--residence-time`` and ``--feed-temperature`` options of the computing sub-commands; ``what``
+    qualifies them (e.g. "held fixed or marked")."""
+    tail = f" {what}" if what else ""
+    parser.add_argument(
+        "--residence-time",
+        metavar="VALUE",
+        help=f"residence time V/q{tail}, e.g. '40 min' (default: the scenario's feed flow)",
+    )
+    parser.add_argument(
+        "--feed-temperature",
+        metavar="VALUE",
+        help=f"feed temperature{tail}, e.g. '35 degC' (default: the scenario's)",
+    )
+
+
+def operating_point(args: argparse.Namespace) -> tuple[float | None, float | None]:
+    """(tau [s], T_in [K]) from the options of :func:`add_operating_point_arguments`; None where not given."""
+    return (
+        quantity(args.residence_time, "time", "--residence-time"),
+        quantity(args.feed_temperature, "temperature", "--feed-temperature"),
+    )
+
+
 def quantity(value: str | None, dimension: str, option: str) -> float | None:
     """An option value with units (``"40 min"``) in SI; a bare number is SI (s, K, m^3/s, ...)."""
     if value is None:

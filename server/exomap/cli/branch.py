@@ -7,7 +7,14 @@ from __future__ import annotations
 import argparse
 
 from exomap.cli import _format as fmt
-from exomap.cli import add_scenario_argument, load_scenario, print_json, quantity
+from exomap.cli import (
+    add_operating_point_arguments,
+    add_scenario_argument,
+    load_scenario,
+    operating_point,
+    print_json,
+    quantity,
+)
 
 ALONG = {"residence-time": "residence_time", "feed-temperature": "feed_temperature"}
 #: Rows of the readable table (the JSON has every point).
@@ -25,16 +32,7 @@ def add_parser(subparsers: argparse._SubParsersAction) -> argparse.ArgumentParse
     )
     add_scenario_argument(parser)
     parser.add_argument("--along", required=True, choices=list(ALONG), help="the parameter that varies")
-    parser.add_argument(
-        "--residence-time",
-        metavar="VALUE",
-        help="residence time held fixed or marked, e.g. '40 min' (default: the scenario's)",
-    )
-    parser.add_argument(
-        "--feed-temperature",
-        metavar="VALUE",
-        help="feed temperature held fixed or marked, e.g. '35 degC' (default: the scenario's)",
-    )
+    add_operating_point_arguments(parser, what="held fixed or marked")
     parser.add_argument(
         "--from",
         dest="lo",
@@ -125,8 +123,7 @@ def run(args: argparse.Namespace) -> int:
 
     sc = load_scenario(args.scenario)
     along = ALONG[args.along]
-    tau = quantity(args.residence_time, "time", "--residence-time")
-    T_in = quantity(args.feed_temperature, "temperature", "--feed-temperature")
+    tau, T_in = operating_point(args)
     dimension = "time" if along == "residence_time" else "temperature"
     lo = quantity(args.lo, dimension, "--from")
     hi = quantity(args.hi, dimension, "--to")

@@ -8,7 +8,13 @@ import argparse
 from typing import Any
 
 from exomap.cli import _format as fmt
-from exomap.cli import add_scenario_argument, load_scenario, print_json, quantity
+from exomap.cli import (
+    add_operating_point_arguments,
+    add_scenario_argument,
+    load_scenario,
+    operating_point,
+    print_json,
+)
 
 #: Readable names of the margins, with how to print their values.
 _MARGINS: tuple[tuple[str, str, str], ...] = (
@@ -33,14 +39,7 @@ def add_parser(subparsers: argparse._SubParsersAction) -> argparse.ArgumentParse
         "take units, e.g. '40 min', '35 degC'; a bare number is SI (s, K).",
     )
     add_scenario_argument(parser)
-    parser.add_argument(
-        "--residence-time",
-        metavar="VALUE",
-        help="residence time V/q, e.g. '40 min' (default: the scenario's feed flow)",
-    )
-    parser.add_argument(
-        "--feed-temperature", metavar="VALUE", help="feed temperature, e.g. '35 degC' (default: the scenario's)"
-    )
+    add_operating_point_arguments(parser)
     parser.add_argument(
         "--branch",
         choices=("low", "high"),
@@ -142,8 +141,7 @@ def run(args: argparse.Namespace) -> int:
     from exomap.core.check import check_setpoint
 
     sc = load_scenario(args.scenario)
-    tau = quantity(args.residence_time, "time", "--residence-time")
-    T_in = quantity(args.feed_temperature, "temperature", "--feed-temperature")
+    tau, T_in = operating_point(args)
     result = check_setpoint(sc, tau=tau, T_in=T_in, branch=args.branch)
     if args.json:
         print_json(result.to_dict())

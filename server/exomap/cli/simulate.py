@@ -16,7 +16,15 @@ from typing import Any
 
 import numpy as np
 
-from exomap.cli import CliInputError, add_scenario_argument, load_scenario, print_json, quantity
+from exomap.cli import (
+    CliInputError,
+    add_operating_point_arguments,
+    add_scenario_argument,
+    load_scenario,
+    operating_point,
+    print_json,
+    quantity,
+)
 from exomap.cli import _format as fmt
 
 #: Rows of the readable time table.
@@ -42,14 +50,7 @@ def add_parser(subparsers: argparse._SubParsersAction) -> argparse.ArgumentParse
         "of solvent, or an empty tank filling (default: low)",
     )
     parser.add_argument("--events", metavar="FILE", type=Path, help="JSON file with the list of events")
-    parser.add_argument(
-        "--residence-time",
-        metavar="VALUE",
-        help="residence time V/q, e.g. '40 min' (default: the scenario's feed flow)",
-    )
-    parser.add_argument(
-        "--feed-temperature", metavar="VALUE", help="feed temperature, e.g. '35 degC' (default: the scenario's)"
-    )
+    add_operating_point_arguments(parser)
     out = parser.add_mutually_exclusive_group()
     out.add_argument("--json", action="store_true", help="print the answer document (SI) as JSON")
     out.add_argument("--csv", metavar="FILE", help="write the time series (SI) as CSV to FILE ('-' for stdout)")
@@ -167,8 +168,7 @@ def run(args: argparse.Namespace) -> int:
 
     sc = load_scenario(args.scenario)
     duration = quantity(args.duration, "time", "--duration")
-    tau = quantity(args.residence_time, "time", "--residence-time")
-    T_in = quantity(args.feed_temperature, "temperature", "--feed-temperature")
+    tau, T_in = operating_point(args)
     if duration is None or duration <= 0:
         raise CliInputError("--duration", "the duration must be positive, e.g. '4 h'")
     if tau is not None and tau <= 0:

@@ -6,7 +6,14 @@ from __future__ import annotations
 import argparse
 
 from exomap.cli import _format as fmt
-from exomap.cli import add_scenario_argument, load_scenario, print_json, quantity
+from exomap.cli import (
+    add_operating_point_arguments,
+    add_scenario_argument,
+    load_scenario,
+    operating_point,
+    print_json,
+    quantity,
+)
 
 
 def add_parser(subparsers: argparse._SubParsersAction) -> argparse.ArgumentParser:
@@ -19,14 +26,7 @@ def add_parser(subparsers: argparse._SubParsersAction) -> argparse.ArgumentParse
         "'40 min', '35 degC'; a bare number is SI (s, K).",
     )
     add_scenario_argument(parser)
-    parser.add_argument(
-        "--residence-time",
-        metavar="VALUE",
-        help="residence time V/q, e.g. '40 min' (default: the scenario's feed flow)",
-    )
-    parser.add_argument(
-        "--feed-temperature", metavar="VALUE", help="feed temperature, e.g. '35 degC' (default: the scenario's)"
-    )
+    add_operating_point_arguments(parser)
     parser.add_argument(
         "--coolant-temperature",
         metavar="VALUE",
@@ -97,8 +97,7 @@ def run(args: argparse.Namespace) -> int:
     from exomap.core.steady import steady_states
 
     sc = load_scenario(args.scenario)
-    tau = quantity(args.residence_time, "time", "--residence-time")
-    T_in = quantity(args.feed_temperature, "temperature", "--feed-temperature")
+    tau, T_in = operating_point(args)
     T_c = quantity(args.coolant_temperature, "temperature", "--coolant-temperature")
     result = steady_states(sc, sc.tau_nominal if tau is None else tau, sc.T_in if T_in is None else T_in, T_c=T_c)
     if args.json:
