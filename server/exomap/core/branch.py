@@ -30,10 +30,13 @@ from scipy.optimize import brentq, fsolve
 
 from exomap.core.errors import ModelInputError
 from exomap.core.manifold import Manifold
+from exomap.core.opmap import FoldColumns, cusps, fold_columns
 from exomap.core.scenario import Scenario, validate
-from exomap.core.steady import check_point, roots_along_many
+from exomap.core.steady import check_point, roots_in_samples
 
 RESIDENCE_TIME, FEED_TEMPERATURE = "residence_time", "feed_temperature"
+#: Residence-time columns sampled for a branch along the residence time (fold locus and starting states).
+LOCUS_COLUMNS = 150
 ALONG = (RESIDENCE_TIME, FEED_TEMPERATURE)
 
 
@@ -320,13 +323,18 @@ def _trace(plane: _Plane, X: float, Y: float, direction: float, max_steps: int =
 
 def _along_residence_time(mf: Manifold, T_in: float, lo: float, hi: float, max_step: float = 0.02):
     plane = _Plane(mf, T_in, lo, hi)
-    # every steady state on the two edges (starts) and on interior columns (to find isolas), in one
-    # vectorised sampling of the manifold
-    taus = np.exp(np.linspace(plane.x0, plane.x1, 24))
-    taus[0], taus[-1] = lo, hi
-    found = roots_along_many(mf, taus, T_in, plane.T_lo, plane.T_hi, 1500 if mf.explicit else 600)
-    starts = [plane.XY(float(taus[c]), s) for c in (0, len(taus) - 1) for s in found[c]]
-    interior = [plane.XY(float(taus[c]), s) for c in range(1, len(taus) - 1) for s in found[c]]
+    # one vectorised sampling of the manifold on 150 residence-time columns serves both the fold-locus search
+    # for turning points and the steady states that start the continuation: those on the two edges, and
+    # those on every sixth interior column (to find isolas)
+    taus = np.geomspace(lo, hi, LOCUS_COLUMNS)
+    cols = fold_columns(mf, mf.sample(taus, plane.T_lo, plane.T_hi, 256 if mf.explicit else 160))
+    smp = cols.smp
+
+    def roots(c: int) -> list[float]:
+        return roots_in_samples(mf, float(taus[c]), T_in, smp.s[c], smp.T_in[c] - T_in, smp.dTin_ds[c], smp.valid[c])
+
+    starts = [plane.XY(float(taus[c]), s) for c in (0, taus.size - 1) for s in roots(c)]
+    interior = [plane.XY(float(taus[c]), s) for c in range(6, taus.size - 1, 6) for s in roots(c)]
     pieces: list[list[tuple[float, float, float]]] = []
 
     def covered(X: float, Y: float) -> bool:
@@ -380,26 +388,23 @@ def _along_residence_time(mf: Manifold, T_in: float, lo: float, hi: float, max_s
                     if hp is not None:
                         hopfs.append(hp)
             prev = cur
-    for tp in _locus_turning_points(plane, lo, hi):
+    for tp in _locus_turning_points(plane, taus, cols):
         if not any(t.kind == tp.kind and abs(t.tau - tp.tau) <= 1e-7 * tp.tau for t in turns):
             turns.append(tp)
     return points, turns, hopfs
 
 
-def _locus_turning_points(plane: _Plane, lo: float, hi: float) -> list[TurningPoint]:
+def _locus_turning_points(plane: _Plane, taus: np.ndarray, cols: FoldColumns) -> list[TurningPoint]:
     """Turning points along the residence time read from the fold locus, as a second, independent search.
 
-    The folds of 150 residence-time columns are found exactly (``opmap.fold_columns``, which also finds fold
+    The folds of the residence-time columns ``taus`` are found exactly (``opmap.fold_columns``, which also finds fold
     pairs closer together than one sample) and chained column to column by kind; where a chain crosses the
     branch's feed temperature, or where the feed temperature lies between a chain's last fold and the cusp
     it runs into, there is a turning point, solved from there like the traced ones. This catches fold pairs
     that lie within one continuation step (next to a cusp).
     """
-    from exomap.core.opmap import cusps, fold_columns
-
     mf, T_in = plane.mf, plane.T_in
-    taus = np.geomspace(lo, hi, 150)
-    cols = fold_columns(mf, mf.sample(taus, plane.T_lo, plane.T_hi, 256 if mf.explicit else 160))
+    lo, hi = float(taus[0]), float(taus[-1])
     f = cols.fold
     cusp_rows = cusps(mf, taus, cols)
     guesses: list[tuple[float, float, str]] = []

@@ -140,23 +140,15 @@ def check_point(tau: float, T_in: float) -> None:
 
 def roots_along(mf: Manifold, tau: float, T_in: float, T_lo: float, T_hi: float, n: int = POINT_SAMPLES) -> list[float]:
     """Coordinates s of every root of T_in(tau, s) = T_in, for one tau."""
-    return roots_along_many(mf, np.array([tau]), T_in, T_lo, T_hi, n)[0]
+    smp = mf.sample(np.array([tau]), T_lo, T_hi, n)
+    return roots_in_samples(mf, tau, T_in, smp.s[0], smp.T_in[0] - T_in, smp.dTin_ds[0], smp.valid[0])
 
 
-def roots_along_many(
-    mf: Manifold, taus: np.ndarray, T_in: float, T_lo: float, T_hi: float, n: int = POINT_SAMPLES
-) -> list[list[float]]:
-    """:func:`roots_along` for several residence times, sampled in one vectorised call."""
-    smp = mf.sample(np.asarray(taus, dtype=float), T_lo, T_hi, n)
-    return [
-        _roots_in_samples(mf, float(taus[c]), T_in, smp.s[c], smp.T_in[c] - T_in, smp.dTin_ds[c], smp.valid[c])
-        for c in range(len(taus))
-    ]
-
-
-def _roots_in_samples(
+def roots_in_samples(
     mf: Manifold, tau: float, T_in: float, s: np.ndarray, f: np.ndarray, d: np.ndarray, valid: np.ndarray
 ) -> list[float]:
+    """Roots of f = T_in(tau, s) - T_in from samples (s, f, d = dT_in/ds) of one column, refined by Brent's
+    method; two roots on either side of an extremum between two samples are found too."""
     ok = valid & np.isfinite(f)
 
     def phi(x: float) -> float:
