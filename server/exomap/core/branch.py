@@ -30,7 +30,7 @@ from scipy.optimize import brentq, fsolve
 
 from exomap.core.errors import ModelInputError
 from exomap.core.manifold import Manifold
-from exomap.core.opmap import FoldColumns, cusps, fold_columns
+from exomap.core.opmap import FoldColumns, chains, cusps, fold_columns
 from exomap.core.scenario import Scenario, validate
 from exomap.core.steady import check_point, roots_in_samples
 
@@ -409,19 +409,8 @@ def _locus_turning_points(plane: _Plane, taus: np.ndarray, cols: FoldColumns) ->
     cusp_rows = cusps(mf, taus, cols)
     guesses: list[tuple[float, float, str]] = []
     for rising in (True, False):
-        idx = np.nonzero(cols.rising == rising)[0]
-        if idx.size == 0:
-            continue
-        o = idx[np.lexsort((f.s[idx], cols.fold_col[idx]))]
-        c = cols.fold_col[o]
-        rank = np.arange(o.size) - np.searchsorted(c, c)
-        count = np.bincount(c, minlength=taus.size)
-        run = np.cumsum(np.r_[True, (count[1:] != count[:-1]) | (count[:-1] == 0)])
-        chains: dict[tuple[int, int], list[int]] = {}
-        for i, oi in enumerate(o):
-            chains.setdefault((int(run[c[i]]), int(rank[i])), []).append(int(oi))
         kind = "ignition" if rising else "extinction"
-        for members in chains.values():
+        for members in chains(cols.fold_col, f.s, cols.rising == rising, taus.size):
             for a, b in zip(members[:-1], members[1:], strict=False):
                 ga, gb = f.T_in[a] - T_in, f.T_in[b] - T_in
                 if ga * gb < 0:

@@ -525,27 +525,34 @@ def _boundaries(sc: Scenario, mf: Manifold, tau: np.ndarray, cols: FoldColumns, 
     }
 
 
+def chains(col: np.ndarray, s: np.ndarray, keep: np.ndarray, n_columns: int) -> list[list[int]]:
+    """Indices of the kept points found column by column, grouped into curves in column order: the k-th point
+    (by s) of a column continues the k-th point of the previous column while both columns hold the same
+    number of points; a change of that number starts new curves."""
+    idx = np.nonzero(keep)[0]
+    o = idx[np.lexsort((s[idx], col[idx]))]
+    c = col[o]
+    rank = np.arange(o.size) - np.searchsorted(c, c)
+    count = np.bincount(c, minlength=n_columns)
+    run = np.cumsum(np.r_[True, (count[1:] != count[:-1]) | (count[:-1] == 0)])
+    groups: dict[tuple[int, int], list[int]] = {}
+    for i, oi in enumerate(o):
+        groups.setdefault((int(run[c[i]]), int(rank[i])), []).append(int(oi))
+    return [groups[k] for k in sorted(groups)]
+
+
 def _chain(
     tau: np.ndarray, col: np.ndarray, s: np.ndarray, T_in: np.ndarray, keep: np.ndarray, ends: list[tuple[float, float]]
 ) -> np.ndarray:
     """Order points found column by column into curves, rows (tau, T_in) with a NaN row between pieces.
 
-    The k-th point (by s) of a column continues the k-th point of the previous column while both columns hold
-    the same number of points; a change of that number starts new pieces. Each point of ``ends`` (a cusp) is
-    attached to the piece end nearest to it, so the ignition and extinction curves meet there.
+    The pieces are those of :func:`chains`. Each point of ``ends`` (a cusp) is attached to the piece end
+    nearest to it, so the ignition and extinction curves meet there.
     """
     idx = np.nonzero(keep)[0]
     if idx.size == 0:
         return np.zeros((0, 2))
-    o = idx[np.lexsort((s[idx], col[idx]))]
-    c = col[o]
-    rank = np.arange(o.size) - np.searchsorted(c, c)
-    count = np.bincount(c, minlength=tau.size)
-    run = np.cumsum(np.r_[True, (count[1:] != count[:-1]) | (count[:-1] == 0)])
-    pieces: dict[tuple[int, int], list[tuple[float, float]]] = {}
-    for i, oi in enumerate(o):
-        pieces.setdefault((int(run[c[i]]), int(rank[i])), []).append((float(tau[c[i]]), float(T_in[oi])))
-    curves = [pieces[k] for k in sorted(pieces)]
+    curves = [[(float(tau[col[i]]), float(T_in[i])) for i in members] for members in chains(col, s, keep, tau.size)]
     lx = np.log(tau[-1] / tau[0]) or 1.0
     ly = float(np.ptp(T_in[idx])) or 1.0
     for e in ends:
