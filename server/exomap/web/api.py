@@ -19,8 +19,8 @@ from pydantic import ValidationError
 import exomap
 from exomap.web.errors import ApiError, error_responses
 from exomap.web.jobs import Answer
-from exomap.web.query import refuse_unknown_query
 from exomap.web.models import BranchRequest, CheckRequest, MapRequest, SimulateRequest, SteadyRequest
+from exomap.web.query import refuse_unknown_query
 from exomap.web.service import REQUEST_MODELS, Service
 from exomap.web.settings import Settings
 

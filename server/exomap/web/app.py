@@ -4,8 +4,8 @@ Nothing happens at import time. ``create_app`` opens the scenario store in ``set
 demo scenarios; the pool of workers starts on the first computation (or at startup under uvicorn, through the
 lifespan) and stops with the app.
 
-Middleware, outermost first: security headers, HEAD answered as GET without a body, gzip (answers over 1 kB), CORS (only when ``cors_origins`` is
-set), the request-body limit. Every failure goes through ``exomap.web.errors``.
+Middleware, outermost first: security headers, HEAD answered as GET without a body, gzip (answers over 1 kB),
+CORS (only when ``cors_origins`` is set), the request-body limit. Every failure goes through ``exomap.web.errors``.
 """
 
 from __future__ import annotations

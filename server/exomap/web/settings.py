@@ -79,9 +79,7 @@ class Settings(BaseSettings):
         if value is None:
             return None
         if value.strip() == "":
-            raise ValueError(
-                "EXOMAP_SAVE_TOKEN is set but empty; unset it to save without a token, or give a token"
-            )
+            raise ValueError("EXOMAP_SAVE_TOKEN is set but empty; unset it to save without a token, or give a token")
         if not all(33 <= ord(ch) <= 126 for ch in value):
             raise ValueError(
                 "the save token must be printable ASCII without spaces (a header cannot carry anything else)"
