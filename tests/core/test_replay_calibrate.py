@@ -8,7 +8,6 @@ event handling) for the replay; the known true parameters for the calibration, w
 from __future__ import annotations
 
 import json
-import math
 from importlib import resources
 
 import numpy as np

@@ -142,8 +142,10 @@ class Dataset:
             "start": iso(float(self.epoch_s[0])),
             "end": iso(float(self.epoch_s[-1])),
             "duration_s": float(self.epoch_s[-1] - self.epoch_s[0]),
-            "roles": {r: {"tag": self.tags[r], "unit": self.units[r], "values": int(np.isfinite(v).sum())}
-                      for r, v in sorted(self.series.items())},  # fmt: skip
+            "roles": {
+                r: {"tag": self.tags[r], "unit": self.units[r], "values": int(np.isfinite(v).sum())}
+                for r, v in sorted(self.series.items())
+            },  # fmt: skip
             "dropped_bad": dict(self.dropped_bad),
             "gaps": [{"start": iso(a), "end": iso(b), "length_s": b - a} for a, b in self.gaps],
             "median_step_s": self.median_step_s,
@@ -221,7 +223,9 @@ def _check_mapping(mapping: Mapping[str, str]) -> dict[str, str]:
     for tag, role in mapping.items():
         role_dimension(role)
         if role in by_role:
-            raise _fail("mapping", f"tags {by_role[role]!r} and {tag!r} are both mapped to {role}; map one tag per role")
+            raise _fail(
+                "mapping", f"tags {by_role[role]!r} and {tag!r} are both mapped to {role}; map one tag per role"
+            )
         by_role[role] = tag
     return dict(mapping)
 
@@ -300,7 +304,9 @@ def _finish(epoch: np.ndarray, series: dict, tags: dict, unit_of: dict, rows: in
             notes: list[str]) -> Dataset:  # fmt: skip
     steps = np.diff(epoch)
     median = float(np.median(steps)) if steps.size else 0.0
-    gaps = [(float(epoch[k]), float(epoch[k + 1])) for k in np.nonzero(steps > GAP_FACTOR * median)[0]] if median else []
+    gaps = (
+        [(float(epoch[k]), float(epoch[k + 1])) for k in np.nonzero(steps > GAP_FACTOR * median)[0]] if median else []
+    )
     irregular = bool(steps.size and median > 0 and np.mean(np.abs(steps - median) > 0.1 * median) > 0.05)
     return Dataset(epoch, series, tags, unit_of, rows, dropped, gaps, median, irregular, layout, notes)
 
