@@ -273,12 +273,23 @@ class Service:
                 "time_budget_exceeded", f"reading the scenario took longer than the budget of {budget:g} s"
             ) from None
         key = (kind, resolved.id, _freeze(params), fmt)
+        return await self.computed(key, jobs.run_job, kind, resolved.scenario, params, fmt, deadline=deadline)
+
+    async def computed(self, key: Any, fn: Any, *args: Any, deadline: float | None = None) -> tuple[jobs.Answer, bool]:
+        """The answer of ``fn(*args)`` (a job returning ``Answer | JobError``) from the cache, from the same
+        computation already in flight, or computed in the runner; and whether it came from the cache.
+
+        Failures are ``ApiError``: 503 ``busy`` (queue full), ``time_budget_exceeded``, ``worker_lost``, or
+        the job's domain error.
+        """
         cached = self.cache.get(key)
         if cached is not None:
             return cached, True  # type: ignore[return-value]
         task = self._inflight.get(key)
         if task is None:
-            task = asyncio.ensure_future(self._compute(key, kind, resolved.scenario, params, fmt, deadline))
+            if deadline is None:
+                deadline = time.monotonic() + self.settings.request_time_budget_s
+            task = asyncio.ensure_future(self._compute(key, fn, args, deadline))
             self._inflight[key] = task
             task.add_done_callback(lambda t: self._finished(key, t))
         # shield: a client that goes away does not cancel the computation others may be waiting for
@@ -290,12 +301,10 @@ class Service:
         if not task.cancelled():
             task.exception()  # retrieved here too, in case every requester went away
 
-    async def _compute(
-        self, key: Any, kind: str, scenario: Any, params: dict[str, Any], fmt: str, deadline: float
-    ) -> jobs.Answer:
+    async def _compute(self, key: Any, fn: Any, args: tuple[Any, ...], deadline: float) -> jobs.Answer:
         budget = self.settings.request_time_budget_s
         try:
-            out = await self.runner.run(jobs.run_job, kind, scenario, params, fmt, budget_s=budget, deadline=deadline)
+            out = await self.runner.run(fn, *args, budget_s=budget, deadline=deadline)
         except Busy as exc:
             raise unavailable("busy", str(exc)) from None
         except BudgetExceeded as exc:
