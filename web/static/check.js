@@ -34,8 +34,10 @@ const ENDINGS = {
 export function upsetEnding(u) {
   if (u.stop_reason === "solver_failed") return "could not be simulated";
   const words = ENDINGS[u.ending] || u.ending || u.stop_reason || "—";
-  return ["rising", "falling", "oscillating", "moving"].includes(u.ending) ? `${words} (${fmtTime(u.duration_s)})`
-    : `${words} at ${fmtTime(u.end_time_s)}`;
+  if (!["rising", "falling", "oscillating", "moving"].includes(u.ending)) return `${words} at ${fmtTime(u.end_time_s)}`;
+  const bound = u.ending === "rising" && Number.isFinite(u.adiabatic_ceiling_K)
+    ? `, can reach at most ${fmtTemp(u.adiabatic_ceiling_K)}` : "";
+  return `${words} (${fmtTime(u.duration_s)})${bound}`;
 }
 
 // Every alarm of an upset with its time: "temperature alarm 7.6 min · maximum temperature 12.6 min".
