@@ -7,6 +7,7 @@ on the loopback address unless told otherwise.
 from __future__ import annotations
 
 import argparse
+import sys
 from pathlib import Path
 
 
@@ -56,6 +57,7 @@ def run(args: argparse.Namespace) -> int:
     from pydantic import ValidationError
 
     from exomap.web.app import create_app
+    from exomap.web.store import StoreUnavailableError
 
     try:
         settings = settings_from_args(args)
@@ -64,10 +66,14 @@ def run(args: argparse.Namespace) -> int:
             where = ".".join(str(p) for p in err["loc"]) or "settings"
             print(f"exomap serve: {where}: {err['msg']}")
         return 2
-    app = create_app(settings, warm_up=True)
+    try:
+        app = create_app(settings, warm_up=True)
+    except StoreUnavailableError as exc:
+        print(f"exomap serve: {exc}", file=sys.stderr)
+        return 2
     print(
         f"exomap: serving on http://{settings.host}:{settings.port}/ (API docs at /api/docs); "
-        f"scenario store in {settings.data_dir.resolve()}"
+        f"scenario store {app.state.store.database.where}"
     )
     uvicorn.run(app, host=settings.host, port=settings.port, log_level=args.log_level, proxy_headers=False)
     return 0
