@@ -204,7 +204,7 @@ def install_error_handlers(app: FastAPI) -> None:
     async def _store(request: Request, exc: StoreUnavailableError) -> JSONResponse:
         # the message names the file or server, never a password (see exomap.web.store_pg.describe)
         log.error("store unavailable on %s %s: %s", request.method, request.url.path, exc)
-        return error_response(503, "store_unavailable", str(exc), headers={"Retry-After": "5"})
+        return error_response(503, "store_unavailable", str(exc), headers={"Retry-After": str(RETRY_AFTER_S)})
 
     @app.exception_handler(RequestValidationError)
     async def _validation(request: Request, exc: RequestValidationError) -> JSONResponse:
