@@ -31,6 +31,7 @@ from typing import Any
 
 import numpy as np
 
+from exomap.core import valve as valve_mod
 from exomap.core.cautions import CAUTIONS
 from exomap.core.dynamics import SimulationResult, simulate
 from exomap.core.errors import ConvergenceError, ModelInputError
@@ -478,7 +479,17 @@ def check_setpoint(
     margins.append(Margin("steady_temperature_to_max_K", lim.T_max - T, pol.min_temperature_margin))
     margins.append(Margin("mtsr_to_max_K", lim.T_max - safety.mtsr, pol.min_mtsr_margin))
     x = float(st.valve_opening)
-    if math.isfinite(x):
+    x_status = valve_mod.opening_status(x)
+    if x_status in (valve_mod.BELOW_RANGE, valve_mod.ABOVE_RANGE):
+        # the inverse characteristic gives an opening no valve can take: say so in words, never as the number
+        why = (
+            "the flow is below what the valve passes at the smallest opening of its characteristic: below its range"
+            if x_status == valve_mod.BELOW_RANGE
+            else "the valve cannot pass the flow even fully open: above its range (valve too small)"
+        )
+        margins.append(Margin("valve_opening_to_usable_range_percent", None, 0.0, why))
+        reasons_marg.append(f"the outlet valve cannot hold the set level at this flow: {why}")
+    elif math.isfinite(x):
         margins.append(
             Margin(
                 "valve_opening_to_usable_range_percent",
@@ -537,7 +548,7 @@ def check_setpoint(
             text, unit, name, factor = labels[m.key]
             thr = getattr(pol, name)
             reasons_marg.append(f"{text} is {m.value:.1f} {unit}, below the {_threshold(sc, name, thr * factor, unit)}")
-    if math.isfinite(x) and not pol.valve_min <= x <= pol.valve_max:
+    if x_status == valve_mod.IN_RANGE and not pol.valve_min <= x <= pol.valve_max:
         default = (pol.valve_min, pol.valve_max) == (_DEFAULT_POLICY.valve_min, _DEFAULT_POLICY.valve_max)
         reasons_marg.append(
             f"the outlet valve must be {100 * x:.1f} % open to pass the flow at the set level, outside the usable "
