@@ -27,6 +27,7 @@ from exomap.web.answers import (
 from exomap.web.errors import ApiError, error_responses
 from exomap.web.jobs import Answer
 from exomap.web.models import BranchRequest, CheckRequest, MapRequest, SimulateRequest, SteadyRequest
+from exomap.web.query import refuse_unknown_query
 from exomap.web.service import REQUEST_MODELS, Service
 from exomap.web.settings import Settings
 
@@ -151,7 +152,8 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
     """The ``/api/v1`` router. ``example_scenario`` is the OpenAPI example of a scenario body."""
     from exomap.schema.document import ScenarioDoc  # the answer model of GET /scenarios/{id}
 
-    router = APIRouter(prefix="/api/v1")
+    # every route refuses query parameters it does not declare (a misspelt one would be silently ignored)
+    router = APIRouter(prefix="/api/v1", dependencies=[Depends(refuse_unknown_query)])
 
     @router.get(
         "/health",
@@ -159,7 +161,7 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         tags=["service"],
         summary="Liveness: answers at once, even while maps compute",
         response_class=JSONResponse,
-        responses=answer_responses(HealthAnswer),
+        responses=answer_responses(HealthAnswer, 422),  # 422: an undeclared query parameter
     )
     async def health() -> JSONResponse:
         return JSONResponse({"status": "ok"})
@@ -170,7 +172,7 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         tags=["service"],
         summary="Version of exomap and of the scenario format it reads",
         response_class=JSONResponse,
-        responses=answer_responses(VersionAnswer),
+        responses=answer_responses(VersionAnswer, 422),  # 422: an undeclared query parameter
     )
     async def version() -> JSONResponse:
         return JSONResponse({"version": exomap.__version__, "scenario_format": SCENARIO_FORMAT})
@@ -181,7 +183,7 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         tags=["scenarios"],
         summary="Demo and saved scenarios",
         response_class=JSONResponse,
-        responses=answer_responses(ScenarioList),
+        responses=answer_responses(ScenarioList, 422),  # 422: an undeclared query parameter
     )
     async def list_scenarios(service: ServiceDep) -> JSONResponse:
         return JSONResponse({"scenarios": [s.summary() for s in service.store.list()]})
@@ -193,7 +195,7 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         summary="The canonical document of one scenario (SI numbers)",
         response_class=Response,
         responses=answer_responses(
-            ScenarioDoc, 404, description="The canonical document: every default filled in, every quantity SI."
+            ScenarioDoc, 404, 422, description="The canonical document: every default filled in, every quantity SI."
         ),
     )
     async def get_scenario(
@@ -439,7 +441,7 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         if events is not None:
             try:
                 parsed_events = json.loads(events)
-            except ValueError:
+            except (ValueError, RecursionError):  # RecursionError: lists nested thousands deep
                 raise ApiError(
                     422,
                     "invalid_request",

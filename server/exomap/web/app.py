@@ -4,8 +4,8 @@ Nothing happens at import time. ``create_app`` opens the scenario store in ``set
 demo scenarios; the pool of workers starts on the first computation (or at startup under uvicorn, through the
 lifespan) and stops with the app.
 
-Middleware, outermost first: security headers, gzip (answers over 1 kB), CORS (only when ``cors_origins`` is
-set), the request-body limit. Every failure goes through ``exomap.web.errors``.
+Middleware, outermost first: security headers, HEAD answered as GET without a body, gzip (answers over 1 kB),
+CORS (only when ``cors_origins`` is set), the request-body limit. Every failure goes through ``exomap.web.errors``.
 """
 
 from __future__ import annotations
@@ -25,7 +25,7 @@ from starlette.middleware.gzip import GZipMiddleware
 from exomap.web import apidocs, pages
 from exomap.web.api import API_VERSION, build_router
 from exomap.web.errors import install_error_handlers
-from exomap.web.middleware import BodyLimit, SecurityHeaders
+from exomap.web.middleware import BodyLimit, HeadAsGet, SecurityHeaders
 from exomap.web.service import Service
 from exomap.web.settings import Settings
 from exomap.web.store import ScenarioStore, load_demos
@@ -108,5 +108,6 @@ def create_app(settings: Settings | None = None, *, warm_up: bool = False) -> Fa
             allow_headers=["Content-Type", "Authorization"],
         )
     app.add_middleware(GZipMiddleware, minimum_size=1000)
+    app.add_middleware(HeadAsGet)
     app.add_middleware(SecurityHeaders)
     return app

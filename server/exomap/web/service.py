@@ -17,7 +17,7 @@ import anyio.to_thread
 
 from exomap.web import jobs
 from exomap.web.cache import AnswerCache
-from exomap.web.errors import ApiError
+from exomap.web.errors import ApiError, unavailable
 from exomap.web.models import (
     BranchRequest,
     CheckRequest,
@@ -26,7 +26,7 @@ from exomap.web.models import (
     SimulateRequest,
     SteadyRequest,
 )
-from exomap.web.runner import BudgetExceeded, Runner
+from exomap.web.runner import BudgetExceeded, Runner, WorkerLost
 from exomap.web.settings import Settings
 from exomap.web.store import ScenarioStore
 
@@ -264,7 +264,10 @@ class Service:
                 jobs.run_job, kind, resolved.scenario, params, fmt, budget_s=self.settings.request_time_budget_s
             )
         except BudgetExceeded as exc:
-            raise ApiError(503, "time_budget_exceeded", str(exc), headers={"Retry-After": "5"}) from None
+            raise unavailable("time_budget_exceeded", str(exc)) from None
+        except WorkerLost as exc:
+            # the worker died (killed from outside, out of memory); a replacement is starting, so a retry works
+            raise unavailable("worker_lost", f"{exc}; try again") from None
         if isinstance(out, jobs.JobError):
             raise self._job_error(out)
         self.cache.put(key, out)
@@ -290,7 +293,7 @@ class Service:
         if err.kind == "convergence":
             return ApiError(422, "no_convergence", err.message)
         if err.kind == "budget":
-            return ApiError(503, "time_budget_exceeded", err.message, headers={"Retry-After": "5"})
+            return unavailable("time_budget_exceeded", err.message)
         raise RuntimeError(f"unknown job error kind {err.kind!r}")
 
 
