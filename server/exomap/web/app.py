@@ -24,6 +24,7 @@ from starlette.middleware.gzip import GZipMiddleware
 
 from exomap.web import apidocs, pages
 from exomap.web.api import API_VERSION, build_router
+from exomap.web.compare import build_compare_router
 from exomap.web.errors import install_error_handlers
 from exomap.web.middleware import BodyLimit, HeadAsGet, SecurityHeaders
 from exomap.web.service import Service
@@ -95,6 +96,7 @@ def create_app(settings: Settings | None = None, *, warm_up: bool = False) -> Fa
 
     install_error_handlers(app)
     app.include_router(build_router(_example_document([d.name for d in store.demos if d.name])))
+    app.include_router(build_compare_router())
     apidocs.install(app)
     pages.install(app, settings)
 
