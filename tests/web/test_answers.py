@@ -209,7 +209,44 @@ CASES: list[Case] = [
         f"/api/v1/scenarios/{SAVED}/simulate",
         params={"duration": "10 min", "format": "csv"},
     ),
+    # -- compare: two scenarios without checks, one scenario at two setpoints with both checks
+    Case(
+        "compare-two-scenarios",
+        "getCompare",
+        "GET",
+        "/api/v1/compare",
+        params={"a": "jacketed-first-order", "b": "adiabatic-second-order", "points": "8,8", "checks": "false"},
+        expect=lambda a: a["checks"] is None and len(a["fields"]) > 0 and a["map"]["transitions"],
+    ),
+    Case(
+        "compare-two-setpoints",
+        "computeCompare",
+        "POST",
+        "/api/v1/compare",
+        json={
+            "a": {"scenario_id": SAVED},
+            "b": {"scenario": ADIABATIC, "residence_time": "80 min", "branch": "high"},
+            "points": [8, 8],
+        },
+        expect=lambda a: a["same_scenario"] and a["checks"] is not None,
+    ),
     # -- errors, each in the shared shape and documented for its route
+    Case(
+        "error-compare-unknown",
+        "getCompare",
+        "GET",
+        "/api/v1/compare",
+        404,
+        params={"a": "0123456789abcdef", "b": "mild-single-state"},
+    ),  # fmt: skip
+    Case(
+        "error-compare-side",
+        "computeCompare",
+        "POST",
+        "/api/v1/compare",
+        422,
+        json={"a": {"scenario_id": SAVED}, "b": {"scenario_id": SAVED, "residence_time": "5 kg"}},
+    ),  # fmt: skip
     Case("error-health-query", "getHealth", "GET", "/api/v1/health", 422, params={"verbose": "1"}),
     Case("error-version-query", "getVersion", "GET", "/api/v1/version", 422, params={"v": "2"}),
     Case("error-list-query", "listScenarios", "GET", "/api/v1/scenarios", 422, params={"demo": "true"}),

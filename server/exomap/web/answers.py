@@ -24,7 +24,7 @@ from __future__ import annotations
 
 from typing import Annotated, Literal
 
-from pydantic import BaseModel, ConfigDict, Field
+from pydantic import BaseModel, ConfigDict, Field, JsonValue
 
 
 class Answer(BaseModel):
@@ -366,6 +366,90 @@ class SimulateAnswer(Answer):
     peak_temperature_K: float
     peak_time_s: float
     stop_reason: StopReason
+
+
+# -- compare -------------------------------------------------------------------------------------------------
+class CompareSideAnswer(Answer):
+    scenario_id: str = Field(description="Content id of the side's scenario.")
+    title: str
+
+
+class FieldChange(Answer):
+    """One field of the scenario documents that differs."""
+
+    field: str = Field(description="Dotted path in the scenario document, e.g. 'feed.flow'.")
+    change: Literal["changed", "added", "removed"]
+    a: JsonValue = Field(description="Canonical (SI) value before; null when the field was added.")
+    b: JsonValue = Field(description="Canonical (SI) value after; null when the field was removed.")
+    a_text: str = Field(description="The value before in plant units ('—' when added).")
+    b_text: str = Field(description="The value after in plant units ('—' when removed).")
+    relative_change: float | None = Field(
+        description="(b − a)/|a| for numbers other than absolute temperatures; null otherwise."
+    )
+
+
+class SetpointAnswer(Answer):
+    residence_time_s: float
+    feed_temperature_K: float
+    flow_m3_per_s: float
+    branch: Literal["low", "high"] | None = Field(description="The branch asked for; null: the default (low).")
+
+
+class TransitionAnswer(Answer):
+    model_config = ConfigDict(extra="forbid", populate_by_name=True)
+
+    from_: RegionKey = Field(alias="from", description="Region before.")
+    to: RegionKey = Field(description="Region after.")
+    cells: int = Field(description="Cells that changed so.")
+
+
+class MapComparisonAnswer(Answer):
+    """Both maps on one shared grid; grids are indexed [feed temperature][residence time]."""
+
+    residence_time_s: list[float]
+    feed_temperature_K: list[float]
+    spacing: Literal["log", "linear"]
+    legend: list[LegendEntry]
+    region_a: list[list[int]]
+    region_b: list[list[int]]
+    state_count_a: list[list[int]]
+    state_count_b: list[list[int]]
+    changed: list[list[bool]] = Field(description="The cell's region differs.")
+    direction: list[list[int]] = Field(description="+1 worse, -1 better, 0 unchanged.")
+    changed_count: int
+    worse_count: int
+    better_count: int
+    cells: int = Field(description="Cells of the grid.")
+    transitions: list[TransitionAnswer] = Field(description="Counted region changes, most cells first.")
+    limit_temperature_a_K: float
+    limit_temperature_b_K: float
+    valve_limited_a: list[list[bool]]
+    valve_limited_b: list[list[bool]]
+    boundaries_a: BoundariesAnswer
+    boundaries_b: BoundariesAnswer
+    success: bool
+    message: str
+
+
+class CompareChecksAnswer(Answer):
+    a: CheckAnswer
+    b: CheckAnswer
+
+
+class CompareAnswer(Answer):
+    """Before (a) and after (b) a change (DESIGN.md §13)."""
+
+    a: CompareSideAnswer
+    b: CompareSideAnswer
+    same_scenario: bool = Field(description="Both sides are one scenario (two setpoints compared).")
+    fields: list[FieldChange] = Field(description="Fields that differ, in document order; empty for one scenario.")
+    setpoint_a: SetpointAnswer
+    setpoint_b: SetpointAnswer
+    map: MapComparisonAnswer
+    checks: CompareChecksAnswer | None = Field(description="Both setpoint checks; null when not asked for.")
+    cautions: list[str]
+    success: bool
+    message: str
 
 
 #: The model of each computation's answer, by kind (the route names and the service's kinds).
