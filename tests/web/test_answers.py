@@ -16,7 +16,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 import pytest
-from exomap.web.answers import ANSWER_MODELS, Answer, UpsetAnswer
+from exomap.web.answers import Answer
 from exomap.web.app import create_app
 from exomap.web.errors import ErrorBody
 from exomap.web.settings import Settings
@@ -425,33 +425,62 @@ def test_past_the_time_budget_the_503_is_documented(make_client: Any) -> None:
 # -- edge answers built by the core directly (the routes serialise exactly these) ----------------------------
 
 
-def test_a_failed_upset_fits_the_upset_model() -> None:
-    from exomap.core.check import UpsetResult
-    from exomap.web.jobs import dumps
+def test_an_undetermined_check_with_no_state_fits_the_check_model(api: Any, monkeypatch: pytest.MonkeyPatch) -> None:
+    """The route's answer when no steady state converged (forced here: every demo has a state everywhere)."""
+    import dataclasses
 
-    failed = UpsetResult.failed("cooling_lost", "cooling lost", [{"at": 0.0, "do": "cooling_loss"}], 3600.0, "why")
-    UpsetAnswer.model_validate_json(dumps(failed.to_dict()), strict=True)
+    from exomap.core import steady
+
+    real = steady.steady_states
+
+    def none_found(*args: Any, **kwargs: Any) -> Any:
+        return dataclasses.replace(real(*args, **kwargs), states=(), success=False, message="none converged (test)")
+
+    monkeypatch.setattr(steady, "steady_states", none_found)
+    client, _ = api
+    response = client.get("/api/v1/scenarios/mild-single-state/check", params={"residence_time": "47 min"})
+    assert response.status_code == 200, response.text[:300]
+    answer = conform(client.app, "getCheck", response)
+    assert answer is not None
+    assert answer["verdict"] == "undetermined" and answer["states"] == [] and answer["margins"] == {}
+    assert answer["safety"] is None and answer["state_index"] is None
 
 
-def test_no_state_found_fits_the_steady_model() -> None:
-    from exomap.core.steady import SteadyStateResult
-    from exomap.web.jobs import dumps
+def test_an_undetermined_check_with_failed_upsets_fits_the_check_model(
+    api: Any, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """The route's answer when the integrator cannot follow the upsets (forced here)."""
+    from exomap.core import check
+    from exomap.core.errors import ConvergenceError
 
-    empty = SteadyStateResult(
-        tau=600.0,
-        T_in=300.0,
-        q=1e-3,
-        c_in=(1000.0, 0.0),
-        T_c=290.0,
-        V=0.6,
-        h=1.0,
-        states=(),
-        success=False,
-        message="no steady state converged",
-        species=("A", "B"),
-        samples=0,
-    )
-    ANSWER_MODELS["steady"].model_validate_json(dumps(empty.to_dict()), strict=True)
+    def fails(*args: Any, **kwargs: Any) -> Any:
+        raise ConvergenceError("integrator failed (test)")
+
+    monkeypatch.setattr(check, "simulate", fails)
+    client, _ = api
+    response = client.get("/api/v1/scenarios/jacketed-first-order/check", params={"residence_time": "47 min"})
+    assert response.status_code == 200, response.text[:300]
+    answer = conform(client.app, "getCheck", response)
+    assert answer is not None and answer["verdict"] == "undetermined"
+    assert {u["stop_reason"] for u in answer["upsets"]} == {"solver_failed"}
+    assert all(u["peak_temperature_K"] is None for u in answer["upsets"])
+
+
+def test_no_state_found_fits_the_steady_model(api: Any, monkeypatch: pytest.MonkeyPatch) -> None:
+    import dataclasses
+
+    from exomap.core import steady
+
+    real = steady.steady_states
+
+    def none_found(*args: Any, **kwargs: Any) -> Any:
+        return dataclasses.replace(real(*args, **kwargs), states=(), success=False, message="none converged (test)")
+
+    monkeypatch.setattr(steady, "steady_states", none_found)
+    client, _ = api
+    response = client.get("/api/v1/scenarios/mild-single-state/steady", params={"residence_time": "47 min"})
+    answer = conform(client.app, "getSteady", response)
+    assert answer is not None and answer["states"] == [] and answer["success"] is False
 
 
 def test_the_answer_enumerations_are_the_cores() -> None:

@@ -209,6 +209,8 @@ class CheckPolicyDoc(_Model):
     valve_min: Q("fraction", sign="nonnegative", upper=1.0) = _POLICY.valve_min
     valve_max: Q("fraction", sign="nonnegative", upper=1.0) = _POLICY.valve_max
     upset_duration: Q("time", sign="positive") = _POLICY.upset_duration
+    # None (left out of the canonical JSON, so adding the field kept every scenario id) means the default
+    min_time_to_act: Q("time", sign="positive") | None = None
 
 
 class MapDoc(_Model):

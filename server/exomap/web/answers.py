@@ -22,9 +22,18 @@ Conventions (see README, "JSON API"):
 
 from __future__ import annotations
 
-from typing import Annotated, Literal
+from typing import Annotated, Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, JsonValue
+
+
+def _no_default(schema: dict[str, Any]) -> None:
+    schema.pop("default", None)
+
+
+def MaybeAbsent() -> Any:  # noqa: N802 - reads as a type in the field declarations
+    """A field that is either present with its type or absent (never null): not required in the schema."""
+    return Field(default=None, json_schema_extra=_no_default)
 
 
 class Answer(BaseModel):
@@ -52,7 +61,7 @@ Action = Literal[  # exomap.core.events.ACTIONS
     "valve_auto",
 ]
 AlarmKind = Literal["alarm_temperature", "max_temperature", "level_high", "level_low", "overflow", "empty"]
-StopReason = Literal["completed", "overflow", "empty"]
+StopReason = Literal["completed", "settled", "overflow", "empty"]  # "settled": a run asked to stop when settled
 
 
 # -- service -------------------------------------------------------------------------------------------------
@@ -220,13 +229,15 @@ class MarginAnswer(Answer):
 
 
 class MarginsAnswer(Answer):
-    feed_temperature_rise_to_ignition_K: MarginAnswer
-    residence_time_rise_to_ignition_percent: MarginAnswer
-    feed_temperature_drop_to_extinction_K: MarginAnswer
-    residence_time_drop_to_extinction_percent: MarginAnswer
-    steady_temperature_to_max_K: MarginAnswer
-    mtsr_to_max_K: MarginAnswer
-    valve_opening_to_usable_range_percent: MarginAnswer
+    """Each margin by its key; the object is empty when the check is undetermined before its margins."""
+
+    feed_temperature_rise_to_ignition_K: MarginAnswer = MaybeAbsent()
+    residence_time_rise_to_ignition_percent: MarginAnswer = MaybeAbsent()
+    feed_temperature_drop_to_extinction_K: MarginAnswer = MaybeAbsent()
+    residence_time_drop_to_extinction_percent: MarginAnswer = MaybeAbsent()
+    steady_temperature_to_max_K: MarginAnswer = MaybeAbsent()
+    mtsr_to_max_K: MarginAnswer = MaybeAbsent()
+    valve_opening_to_usable_range_percent: MarginAnswer = MaybeAbsent()
 
 
 class SafetyAnswer(Answer):
@@ -235,7 +246,10 @@ class SafetyAnswer(Answer):
     process_temperature_K: float
     conversion: float = Field(description="Of the first reactant of the first reaction at the operating state.")
     adiabatic_temperature_rise_K: float = Field(description="ΔT_ad of the feed by the synthesis reactions.")
-    decomposition_temperature_rise_K: float = Field(description="Further rise the decomposition could add.")
+    decomposition: str | None = Field(description="'no decomposition reaction given', or null when one is.")
+    decomposition_temperature_rise_K: float | None = Field(
+        description="Further rise the decomposition could add; null without a decomposition reaction."
+    )
     mtsr_K: float = Field(description="Maximum temperature of the synthesis reaction, T + ΔT_ad·(1 − X).")
     tmr_ad_s: float | None = Field(description="Time to maximum rate, adiabatic; null when no heat is released.")
     tmr_ad_decomposition_at_mtsr_s: float | None = Field(description="null without a decomposition reaction.")
@@ -286,9 +300,10 @@ class UpsetAnswer(Answer):
     key: str = Field(description="e.g. 'feed_warmer', 'cooling_lost'.")
     label: str
     events: list[EventAnswer]
-    duration_s: float
+    duration_s: float = Field(description="The cap of the run [s]; it ends earlier when it settles or stops.")
     peak_temperature_K: float | None = Field(description="null when the integrator failed (see stop_reason).")
     peak_time_s: float | None
+    alarms: list[UpsetAlarmAnswer] = Field(description="Every alarm, in time order.")
     time_to_alarm_s: float | None = Field(description="First crossing of the alarm temperature; null: none.")
     time_to_max_temperature_s: float | None = Field(description="First crossing of the maximum; null: none.")
     level_min_m: float | None
@@ -296,9 +311,21 @@ class UpsetAnswer(Answer):
     final_temperature_K: float | None
     final_level_m: float | None
     settled: bool
-    stop_reason: Literal["completed", "overflow", "empty", "solver_failed"]
+    stop_reason: Literal["completed", "settled", "overflow", "empty", "solver_failed"]
     end_time_s: float | None
+    temperature_rate_at_end_K_per_h: float | None = Field(description="dT/dt when the run ended; null: failed.")
+    ending: Literal["settled", "overflow", "empty", "oscillating", "rising", "falling", "moving", ""] = Field(
+        description="How the run ended ('' when the integrator failed)."
+    )
+    adiabatic_ceiling_K: float | None = Field(
+        description="Highest temperature the run could reach with no heat removal; null when not computed."
+    )
     message: str
+
+
+class UpsetAlarmAnswer(Answer):
+    kind: AlarmKind
+    time_s: float
 
 
 class LimitsAnswer(Answer):
@@ -307,6 +334,24 @@ class LimitsAnswer(Answer):
     level_high_m: float | None
     level_low_m: float | None
     technical_limit_temperature_K: float | None
+    vessel_height_m: float
+
+
+class PolicyAnswer(Answer):
+    """The check_policy values the verdict used (the others are in the reasons)."""
+
+    min_time_to_act_s: float = Field(description="An upset overflowing sooner makes the point marginal.")
+    upset_duration_s: float = Field(description="Cap of each upset run.")
+
+
+class MtsrAnswer(Answer):
+    """MTSR, what it assumes, and its dynamic counterpart (the interlocked cooling-loss upset)."""
+
+    temperature_K: float
+    assumes: str
+    interlocked_upset_peak_temperature_K: float | None = Field(description="null without a jacket or if it failed.")
+    interlocked_upset_peak_time_s: float | None
+    note: str
 
 
 class CheckAnswer(Answer):
@@ -316,13 +361,15 @@ class CheckAnswer(Answer):
     reasons: list[str] = Field(description="One per finding, each with its number and threshold.")
     operating_point: OperatingPointAnswer
     states: list[SteadyStateAnswer]
-    state_index: int = Field(description="Index in states of the state the tank is taken to be on.")
+    state_index: int | None = Field(description="Index in states of the state assumed; null: no state found.")
     assumption: str = Field(description="Which state was assumed, and why.")
-    region: RegionKey
+    region: RegionKey | None = Field(description="Map region of the point; null when undetermined before it.")
     margins: MarginsAnswer
-    safety: SafetyAnswer
+    safety: SafetyAnswer | None = Field(description="null when the check is undetermined before them.")
+    mtsr: MtsrAnswer | None = Field(description="null when there are no safety figures.")
     upsets: list[UpsetAnswer]
     limits: LimitsAnswer
+    policy: PolicyAnswer
     cautions: list[str]
     success: bool
     message: str

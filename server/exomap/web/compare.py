@@ -158,29 +158,12 @@ def _prepare(service: Any, req: CompareRequest) -> tuple[Any, Any, dict[str, Any
 async def compare_answer(service: Any, req: CompareRequest) -> tuple[Any, bool]:
     """The serialised compare answer and whether it came from the cache."""
     from exomap.web import compare_job
-    from exomap.web.runner import BudgetExceeded
     from exomap.web.service import _freeze
 
     ra, rb, params, header = await anyio.to_thread.run_sync(_prepare, service, req)
     key = ("compare", ra.id, rb.id, _freeze(params))
-    cached = service.cache.get(key)
-    if cached is not None:
-        return cached, True
-    try:
-        out = await service.runner.run(
-            compare_job.run_compare,
-            ra.scenario,
-            rb.scenario,
-            params,
-            header,
-            budget_s=service.settings.request_time_budget_s,
-        )
-    except BudgetExceeded as exc:
-        raise ApiError(503, "time_budget_exceeded", str(exc), headers={"Retry-After": "5"}) from None
-    if not isinstance(out, compare_job.Answer):
-        raise service._job_error(out)
-    service.cache.put(key, out)
-    return out, False
+    # cache, single flight, admission (503 busy) and the time budget as every other computation
+    return await service.computed(key, compare_job.run_compare, ra.scenario, rb.scenario, params, header)
 
 
 def _number(value: str | None) -> float | str | None:
