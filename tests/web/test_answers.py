@@ -99,7 +99,7 @@ CASES: list[Case] = [
         "POST",
         "/api/v1/steady",
         json={"scenario": NO_DRIVING_PRESSURE, "residence_time": "40 min"},
-        expect=lambda a: all(s["valve_opening"] is None for s in a["states"]),
+        expect=lambda a: {s["valve_opening_status"] for s in a["states"]} == {"no_driving_pressure"},
     ),
     Case(
         "steady-valve-cannot-pass",
@@ -107,7 +107,9 @@ CASES: list[Case] = [
         "GET",
         "/api/v1/scenarios/jacketed-first-order/steady",
         params={"residence_time": "6 min"},
-        expect=lambda a: a["states"][0]["valve_opening"] > 1,
+        expect=lambda a: (
+            a["states"][0]["valve_opening"] is None and a["states"][0]["valve_opening_status"] == "above_range"
+        ),
     ),
     Case("steady-by-id", "computeSteady", "POST", "/api/v1/steady", json={"scenario_id": SAVED}),
     # -- branches: turning points and Hopf points
@@ -494,3 +496,7 @@ def test_the_answer_enumerations_are_the_cores() -> None:
     assert set(typing.get_args(answers.RegionKey)) == set(REGION_KEYS)
     assert set(typing.get_args(answers.Action)) == set(ACTIONS)
     assert set(typing.get_args(answers.Start)) == {*STARTS, "initial"}
+    from exomap.core import valve
+
+    statuses = {valve.IN_RANGE, valve.BELOW_RANGE, valve.ABOVE_RANGE, valve.NO_DRIVING_PRESSURE}
+    assert set(typing.get_args(answers.SteadyStateAnswer.model_fields["valve_opening_status"].annotation)) == statuses

@@ -118,8 +118,12 @@ class SteadyStateAnswer(Answer):
     oscillatory: bool = Field(description="The leading eigenvalues are a complex pair.")
     eigenvalues_per_s: list[Pair] = Field(description="Eigenvalues as [real, imaginary] pairs [1/s].")
     valve_opening: float | None = Field(
-        description="Opening the outlet valve needs to pass the flow at the set level [-]; null when no "
-        "opening can (no driving pressure)."
+        description="Opening the outlet valve needs to pass the flow at the set level [-], 0..1; null when no "
+        "opening can (valve_opening_status says why)."
+    )
+    valve_opening_status: Literal["in_range", "below_range", "above_range", "no_driving_pressure"] = Field(
+        description="Whether the valve can take that opening: below_range (flow below what the characteristic "
+        "passes at its smallest opening), above_range (valve too small), no_driving_pressure."
     )
     sensitivity: float | None = Field(
         description="dT/dT_in along the state's branch [K/K]; null at a turning point (infinite)."
@@ -212,7 +216,8 @@ class MapAnswer(Answer):
     )
     limit_temperature_K: float = Field(description="The scenario's maximum temperature [K].")
     valve_opening: list[float | None] = Field(
-        description="Valve opening needed at each residence time [-]; null where no opening passes the flow."
+        description="Valve opening needed at each residence time [-], 0..1; null where the valve cannot take it "
+        "(valve_limited is true there)."
     )
     valve_limited: list[list[bool]] = Field(description="The valve is outside its usable range (overlay).")
     boundaries: BoundariesAnswer
