@@ -34,6 +34,8 @@ KNOWN = {
     5: "spurious-negative-states",
     7: "bracket-crash-parallel",
     13: "singular-isothermal-jacobian",
+    44: "map-false-unstable",
+    72: "bracket-crash-parallel",
 }
 #: The fixed seed set of the normal suite (quick level: about a minute on a quiet machine).
 FIXED = range(0, 12)

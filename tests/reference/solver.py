@@ -586,8 +586,19 @@ class Column:
         ref, e = self.ref, self.e
         sig = np.sign(ref.hopf_function(self.tau, e["u"], e["C"], e["T"], e["lnr"]))
         out = []
-        for k in np.nonzero(sig[:-1] * sig[1:] < 0)[0]:
-            Th = brentq(self.h_at, self.T[k], self.T[k + 1], xtol=1e-12, rtol=1e-15, maxiter=300)
+        ks = np.nonzero(sig[:-1] * sig[1:] < 0)[0]
+        if ks.size:
+            # most sign changes are neutral saddles (two real eigenvalues +-mu on the middle branch); a Hopf
+            # point needs a complex pair at one end of its grid interval at least (the grid is ~0.1 K fine)
+            ev = ref.eig(self.tau, e["u"][ks], e["C"][ks], e["T"][ks], e["lnr"][ks])
+            ev1 = ref.eig(self.tau, e["u"][ks + 1], e["C"][ks + 1], e["T"][ks + 1], e["lnr"][ks + 1])
+
+            def cplx(w: np.ndarray) -> np.ndarray:
+                return np.any(np.abs(w.imag) > 1e-9 * np.max(np.abs(w), axis=1, keepdims=True), axis=1)
+
+            ks = ks[cplx(ev) | cplx(ev1)]
+        for k in ks:
+            Th = brentq(self.h_at, self.T[k], self.T[k + 1], xtol=1e-10, rtol=1e-15, maxiter=300)
             pair = _pair_at_zero(self.ev_at(Th))
             # the vanishing sum: a complex pair (Hopf) or two real eigenvalues +-mu (a neutral saddle)?
             if pair is not None and abs(pair[0].imag) > 1e-9 * max(abs(pair[0]), 1e-300):
