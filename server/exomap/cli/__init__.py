@@ -30,6 +30,7 @@ COMMANDS: dict[str, str] = {
     "replay": "drive the scenario with recorded plant data, beside the recorded outputs",
     "calibrate": "fit scenario parameters to plant data, with uncertainty",
     "compare": "before and after a change: fields, map cells that changed region, both checks",
+    "study": "run a batch study: scenarios x setpoints x analyses, one JSON line each",
 }
 
 #: Exit status for bad input (argparse uses 2 as well).

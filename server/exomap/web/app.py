@@ -1,6 +1,7 @@
 """The application factory: ``create_app(settings)`` builds the whole web service (API, docs page, pages).
 
-Nothing happens at import time. ``create_app`` opens the scenario store in ``settings.data_dir`` and reads the
+Nothing happens at import time. ``create_app`` opens the scenario store (``settings.database_url``, by default
+the SQLite file in ``settings.data_dir``), applying its migrations, and reads the
 demo scenarios; the pool of workers starts on the first computation (or at startup under uvicorn, through the
 lifespan) and stops with the app.
 
@@ -22,15 +23,14 @@ from fastapi import FastAPI
 from starlette.middleware.cors import CORSMiddleware
 from starlette.middleware.gzip import GZipMiddleware
 
-import exomap
 from exomap.web import apidocs, pages
-from exomap.web.api import build_router
+from exomap.web.api import API_VERSION, build_router
 from exomap.web.compare import build_compare_router
 from exomap.web.errors import install_error_handlers
 from exomap.web.middleware import BodyLimit, HeadAsGet, SecurityHeaders
 from exomap.web.service import Service
 from exomap.web.settings import Settings
-from exomap.web.store import ScenarioStore, load_demos
+from exomap.web.store import open_store
 
 log = logging.getLogger("exomap.web")
 
@@ -62,7 +62,7 @@ def create_app(settings: Settings | None = None, *, warm_up: bool = False) -> Fa
         for the workers to import the core.
     """
     settings = settings if settings is not None else Settings()
-    store = ScenarioStore(settings.data_dir, demos=load_demos())
+    store = open_store(settings)  # StoreUnavailableError when it cannot be opened: exomap serve says why
     service = Service(settings, store)
 
     @asynccontextmanager
@@ -81,10 +81,11 @@ def create_app(settings: Settings | None = None, *, warm_up: bool = False) -> Fa
 
     app = FastAPI(
         title="exomap",
-        version=exomap.__version__,
+        version=API_VERSION,
         summary="Steady states, operating maps, setpoint checks and dynamics of exothermic stirred tanks.",
         description="Screening aid, not a design or safety basis. Quantities are SI numbers or strings with "
-        'units. Every error has the shape {"error": {status, code, message, fields}}.',
+        'units. Every error has the shape {"error": {status, code, message, fields}}. The version above is the '
+        "API's (README, JSON API); exomap's own is answered by /api/v1/version.",
         openapi_url=apidocs.OPENAPI_PATH,
         docs_url=None,  # the built-in pages load scripts from a CDN; /api/docs is served offline instead
         redoc_url=None,

@@ -12,7 +12,7 @@ import json
 from typing import Annotated, Any, Literal
 
 import anyio.to_thread
-from fastapi import APIRouter, FastAPI, Query, Request
+from fastapi import APIRouter, Depends, FastAPI, Query, Request
 from fastapi.responses import Response
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_validator
 
@@ -158,29 +158,12 @@ def _prepare(service: Any, req: CompareRequest) -> tuple[Any, Any, dict[str, Any
 async def compare_answer(service: Any, req: CompareRequest) -> tuple[Any, bool]:
     """The serialised compare answer and whether it came from the cache."""
     from exomap.web import compare_job
-    from exomap.web.runner import BudgetExceeded
     from exomap.web.service import _freeze
 
     ra, rb, params, header = await anyio.to_thread.run_sync(_prepare, service, req)
     key = ("compare", ra.id, rb.id, _freeze(params))
-    cached = service.cache.get(key)
-    if cached is not None:
-        return cached, True
-    try:
-        out = await service.runner.run(
-            compare_job.run_compare,
-            ra.scenario,
-            rb.scenario,
-            params,
-            header,
-            budget_s=service.settings.request_time_budget_s,
-        )
-    except BudgetExceeded as exc:
-        raise ApiError(503, "time_budget_exceeded", str(exc), headers={"Retry-After": "5"}) from None
-    if not isinstance(out, compare_job.Answer):
-        raise service._job_error(out)
-    service.cache.put(key, out)
-    return out, False
+    # cache, single flight, admission (503 busy) and the time budget as every other computation
+    return await service.computed(key, compare_job.run_compare, ra.scenario, rb.scenario, params, header)
 
 
 def _number(value: str | None) -> float | str | None:
@@ -242,20 +225,22 @@ def api_query_of_view(state: dict[str, str]) -> dict[str, str]:
 
 def build_compare_router() -> APIRouter:
     """``POST /api/v1/compare`` and ``GET /api/v1/compare``."""
-    from exomap.web.api import _answer_response, get_service
-    from exomap.web.errors import error_responses
+    from exomap.web.answers import CompareAnswer
+    from exomap.web.api import _answer_response, answer_responses, get_service
+    from exomap.web.query import refuse_unknown_query
 
-    router = APIRouter(prefix="/api/v1")
-    content = {"application/json": {"schema": {"type": "object"}}}
-    responses: dict[int | str, dict[str, Any]] = {
-        200: {"description": "The compare answer (DESIGN.md §13).", "content": content},
-        **error_responses(400, 404, 413, 422, 503),
-    }
+    router = APIRouter(prefix="/api/v1", dependencies=[Depends(refuse_unknown_query)])
+
+    def responses(post: bool) -> dict[int | str, dict[str, Any]]:
+        errors = (400, 404, 413, 422, 503) if post else (404, 413, 422, 503)
+        return answer_responses(CompareAnswer, *errors, description="The compare answer (DESIGN.md §13).")
 
     @router.post(
         "/compare",
         summary="Compare two scenarios or two setpoints: changed fields, changed map cells, both checks",
-        responses=responses,
+        operation_id="computeCompare",
+        tags=["compare"],
+        responses=responses(post=True),
         response_class=Response,
     )
     async def post_compare(request: Request, req: CompareRequest) -> Response:
@@ -266,7 +251,9 @@ def build_compare_router() -> APIRouter:
     @router.get(
         "/compare",
         summary="Compare (GET twin of the compare page): a=ID&b=ID, setpoints residence_time_a ...",
-        responses=responses,
+        operation_id="getCompare",
+        tags=["compare"],
+        responses=responses(post=False),
         response_class=Response,
     )
     async def get_compare(

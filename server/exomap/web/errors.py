@@ -20,8 +20,10 @@ from typing import Any
 from fastapi import FastAPI, Request
 from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
-from pydantic import BaseModel, Field
+from pydantic import BaseModel, ConfigDict, Field
 from starlette.exceptions import HTTPException as StarletteHTTPException
+
+from exomap.web.store import StoreUnavailableError
 
 log = logging.getLogger("exomap.web")
 
@@ -45,11 +47,15 @@ RETRY_AFTER_S = 5
 
 
 class FieldError(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+
     field: str = Field(description="Dotted path of the offending input, e.g. 'scenario.vessel.diameter'.")
     message: str = Field(description="What is wrong and what is expected (the unit, for a quantity).")
 
 
 class ErrorDetail(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+
     status: int = Field(description="The HTTP status code, repeated.")
     code: str = Field(description="A stable machine-readable key, e.g. 'invalid_scenario', 'not_found'.")
     message: str = Field(description="One sentence for a person.")
@@ -58,6 +64,8 @@ class ErrorDetail(BaseModel):
 
 class ErrorBody(BaseModel):
     """The body of every error answer."""
+
+    model_config = ConfigDict(extra="forbid")
 
     error: ErrorDetail
 
@@ -197,6 +205,12 @@ def install_error_handlers(app: FastAPI) -> None:
     @app.exception_handler(ApiError)
     async def _api_error(request: Request, exc: ApiError) -> JSONResponse:
         return error_response(exc.status, exc.code, exc.message, exc.fields, headers=exc.headers)
+
+    @app.exception_handler(StoreUnavailableError)
+    async def _store(request: Request, exc: StoreUnavailableError) -> JSONResponse:
+        # the message names the file or server, never a password (see exomap.web.store_pg.describe)
+        log.error("store unavailable on %s %s: %s", request.method, request.url.path, exc)
+        return error_response(503, "store_unavailable", str(exc), headers={"Retry-After": str(RETRY_AFTER_S)})
 
     @app.exception_handler(RequestValidationError)
     async def _validation(request: Request, exc: RequestValidationError) -> JSONResponse:
