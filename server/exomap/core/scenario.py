@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field, replace
+from typing import Any
 
 import numpy as np
 
@@ -159,6 +160,11 @@ class CheckPolicy:
         Usable valve opening range [-]. Default 0.2..0.8 (common practice).
     upset_duration : float
         Simulated time of each upset [s]. Default 4 h.
+    max_unsafe_probability : float
+        Under uncertain data (DESIGN.md §11): the highest acceptable one-sided 95 % bound on the probability
+        that a cell is unsafe (runaway or unstable) or that the check's verdict is ``outside`` [-]. Default
+        0.05 (a project default, not a standard: 1 in 20 under the stated uncertainty; with the default 256
+        samples a cell qualifies with up to 7 unsafe samples, and below 59 samples none can).
     """
 
     min_feed_temperature_margin: float = 10.0
@@ -170,6 +176,7 @@ class CheckPolicy:
     valve_min: float = 0.2
     valve_max: float = 0.8
     upset_duration: float = 4 * 3600.0
+    max_unsafe_probability: float = 0.05
 
 
 @dataclass(frozen=True)
@@ -231,6 +238,8 @@ class Scenario:
     map: MapSpec | None = None
     title: str = ""
     description: str = ""
+    #: How well the data are known (``exomap.core.uncertainty.UncertaintySpec``) or None.
+    uncertainty: Any = None
 
     # -- derived arrays (cheap; computed on demand, never stored) -------------------------------------
     @property
