@@ -222,26 +222,28 @@ def validate_spec(sc: Scenario, spec: UncertaintySpec) -> None:
             "reference_temperature must be an absolute temperature in K", field="uncertainty.reference_temperature"
         )
     seen: set[str] = set()
-    for p in spec.parameters:
+    for i, p in enumerate(spec.parameters):
         kind, _ = parse_target(sc, p.target)
         where = p.target
+        field = f"uncertainty.parameters[{i}]"
         if p.target in seen:
-            raise ModelInputError(f"target {where!r} is given twice", field="uncertainty")
+            raise ModelInputError(f"target {where!r} is given twice", field=field)
         seen.add(p.target)
         if p.distribution not in DISTRIBUTIONS:
             raise ModelInputError(
                 f"{where}: distribution must be one of {', '.join(DISTRIBUTIONS)}, got {p.distribution!r}",
-                field="uncertainty",
+                field=field,
             )
-        nominal = nominal_value(sc, p.target, spec.T_ref or sc.T_in)
+        T_ref = reference_temperature(sc, spec) if kind == "rate_constant" else sc.T_in
+        nominal = nominal_value(sc, p.target, T_ref)
         if p.distribution == "normal":
             if p.sd is None or not (math.isfinite(p.sd) and p.sd >= 0):
-                raise ModelInputError(f"{where}: a normal distribution needs sd >= 0", field="uncertainty")
+                raise ModelInputError(f"{where}: a normal distribution needs sd >= 0", field=field)
             if kind in _POSITIVE | _NONNEGATIVE and p.sd > 0 and nominal < POSITIVE_SD_RATIO * p.sd:
                 raise ModelInputError(
                     f"{where}: a normal with sd {p.sd:g} about {nominal:g} reaches non-physical values (sd must be "
                     f"at most 1/{POSITIVE_SD_RATIO:g} of the nominal value); use a lognormal with a factor",
-                    field="uncertainty",
+                    field=field,
                 )
         elif p.distribution == "lognormal":
             if p.factor is None or not (math.isfinite(p.factor) and p.factor >= 1):
@@ -249,14 +251,16 @@ def validate_spec(sc: Scenario, spec: UncertaintySpec) -> None:
                     f"{where}: a lognormal needs factor >= 1 (the geometric standard deviation)", field="uncertainty"
                 )
             if kind in ("reaction_enthalpy",) and nominal == 0:
-                raise ModelInputError(f"{where}: a lognormal about a nominal value of 0 has no spread", field="uncertainty")
+                raise ModelInputError(
+                    f"{where}: a lognormal about a nominal value of 0 has no spread", field="uncertainty"
+                )
         else:
             if p.low is None or p.high is None or not (math.isfinite(p.low) and math.isfinite(p.high)):
-                raise ModelInputError(f"{where}: a uniform distribution needs low and high", field="uncertainty")
+                raise ModelInputError(f"{where}: a uniform distribution needs low and high", field=field)
             if not p.low < p.high:
-                raise ModelInputError(f"{where}: expected low < high, got {p.low:g}, {p.high:g}", field="uncertainty")
+                raise ModelInputError(f"{where}: expected low < high, got {p.low:g}, {p.high:g}", field=field)
             if (kind in _POSITIVE and p.low <= 0) or (kind in _NONNEGATIVE and p.low < 0):
-                raise ModelInputError(f"{where}: low must be positive, got {p.low:g}", field="uncertainty")
+                raise ModelInputError(f"{where}: low must be positive, got {p.low:g}", field=field)
     _correlation_matrix(spec)
 
 
@@ -350,7 +354,9 @@ def reference_temperature(sc: Scenario, spec: UncertaintySpec) -> float:
     return float(pick[0].T) if pick else float(sc.T_in)
 
 
-def draw(sc: Scenario, spec: UncertaintySpec, *, samples: int | None = None, seed: int | None = None) -> ParameterSamples:
+def draw(
+    sc: Scenario, spec: UncertaintySpec, *, samples: int | None = None, seed: int | None = None
+) -> ParameterSamples:
     """The parameter samples of a spec (scrambled Sobol, Gaussian copula); ``samples``/``seed`` override the
     spec's. Raises ``ModelInputError`` naming the offending target."""
     if samples is not None or seed is not None:
@@ -482,6 +488,7 @@ class StackedManifold:
         lam = samples.UA_loss[i] / rhocpV
         p = sc.P_agitator / rhocpV
         self.tau = tau
+        self._kappa, self._lam, self._p, self._T_c, self._T_amb = kappa, lam, p, samples.T_c[i], sc.T_amb
         self.lnk0tau = np.log(samples.k0[i, 0] * tau)
         self.E = samples.Ea[i, 0] / R_GAS
         self.J = -samples.dH[i, 0] / (sc.rho * samples.cp[i])
@@ -500,6 +507,28 @@ class StackedManifold:
         # scalars the map machinery reads: whether any column has heat exchange (Hopf points are possible)
         self.kappa = float(np.max(kappa))
         self.lam = float(np.max(lam))
+
+    def temperature_window(self, T_in_lo: float, T_in_hi: float) -> tuple[float, float]:
+        """The union over the columns of ``Manifold.temperature_window`` at each column's residence time [K]."""
+        inf = np.inf
+        lo = np.minimum.reduce(
+            [
+                np.full(self.tau.shape, T_in_lo),
+                np.where(self._kappa > 0, self._T_c, inf),
+                np.where(self._lam > 0, self._T_amb, inf),
+            ]
+        )
+        hi = np.maximum.reduce(
+            [
+                np.full(self.tau.shape, T_in_hi),
+                np.where(self._kappa > 0, self._T_c, -inf),
+                np.where(self._lam > 0, self._T_amb, -inf),
+            ]
+        )
+        release = self.J * self.xi_max  # one reaction: the limiting reactant runs out
+        hi = hi + np.maximum(release, 0.0) + self._p * self.tau
+        lo = lo + np.minimum(release, 0.0)
+        return float(np.min(np.maximum(lo - 2.0, 50.0))), float(np.max(hi + 5.0))
 
     def _col(self, code: np.ndarray) -> tuple[np.ndarray, Callable[[np.ndarray], np.ndarray]]:
         code = np.asarray(code)
@@ -873,23 +902,38 @@ def uncertainty_map(
             "the scenario has no uncertainty block: add one with the uncertain parameters (DESIGN.md §11)",
             field="uncertainty",
         )
-    ps = draw(sc, spec, samples=samples, seed=seed)
+    n_req = spec.samples if samples is None else samples
     tau, T_in = opmap._grid_args(sc, tau_range, T_in_range, points, spacing)
-    if ps.n * tau.size * T_in.size > MAX_SAMPLE_CELLS:
+    if n_req * tau.size * T_in.size > MAX_SAMPLE_CELLS:
         raise LimitExceededError(
-            f"{ps.n} samples x {tau.size} x {T_in.size} cells is more than the limit of {MAX_SAMPLE_CELLS} "
+            f"{n_req} samples x {tau.size} x {T_in.size} cells is more than the limit of {MAX_SAMPLE_CELLS} "
             "sample-cells",
             field="samples",
         )
-    nominal = opmap.operating_map(sc, tau_range=(tau[0], tau[-1]), T_in_range=(T_in[0], T_in[-1]),
-                                  points=(tau.size, T_in.size), spacing=spacing)
+    ps = draw(sc, spec, samples=samples, seed=seed)
+    nominal = opmap.operating_map(
+        sc,
+        tau_range=(tau[0], tau[-1]),
+        T_in_range=(T_in[0], T_in[-1]),
+        points=(tau.size, T_in.size),
+        spacing=spacing,
+    )
     T_max = sc.limits.T_max
-    # one temperature window for every sample: the union of theirs
-    mfs = [Manifold(ps.scenario(i)) for i in range(ps.n)]
-    wins = np.array([mf.temperature_window(float(T_in[0]), float(T_in[-1]), float(tau[-1])) for mf in mfs])
-    T_lo, T_hi = float(wins[:, 0].min()), float(wins[:, 1].max())
     n_tau, n_tin = tau.size, T_in.size
-    explicit = all(mf.explicit for mf in mfs)
+    explicit = False
+    mfs: list[Manifold] = []
+    if len(sc.reactions) == 1:
+        whole = StackedManifold(ps, np.full(ps.n, tau[-1]), np.arange(ps.n))
+        explicit = bool(np.all(whole.ok))
+    if explicit:
+        # one temperature window for every sample, the union of theirs (Manifold.temperature_window, per sample)
+        T_lo, T_hi = whole.temperature_window(float(T_in[0]), float(T_in[-1]))
+    else:
+        mfs = [Manifold(ps.scenario(i)) for i in range(ps.n)]
+        wins = np.array([mf.temperature_window(float(T_in[0]), float(T_in[-1]), float(tau[-1])) for mf in mfs])
+        T_lo, T_hi = float(wins[:, 0].min()), float(wins[:, 1].max())
+    if explicit and not stacked:
+        mfs = [Manifold(ps.scenario(i)) for i in range(ps.n)]
     if stacked and explicit:
         N = STACKED_SAMPLES
         region = np.empty((ps.n * n_tau, n_tin), dtype=np.int8)

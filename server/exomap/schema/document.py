@@ -16,6 +16,7 @@ Decisions written down here (the format is silent on them)
 * Species missing from ``stoichiometry``, ``orders`` or ``feed.concentrations`` have 0 there.
 * ``check_policy`` fields default to ``exomap.core.scenario.CheckPolicy`` (project defaults); margins in K are
   temperature differences ("10 K"; "10 degC" is read as an interval of 10 K).
+* ``uncertainty`` (DESIGN.md §11) is described in ``exomap.schema.uncertainty``.
 * ``agitator_power`` (W, default 0) is dissipated in the liquid; ``reactions[].decomposition`` (default false)
   marks a decomposition reaction, used for TD24 and the criticality class.
 """
@@ -30,6 +31,7 @@ from pydantic_core import PydanticCustomError
 
 from exomap.core.scenario import CheckPolicy, MapSpec
 from exomap.schema.quantity import DIMENSIONS, QuantityProblem, expected, pre_exponential_to_si, to_si
+from exomap.schema.uncertainty import UncertaintyDoc
 
 FORMAT = "exomap-scenario/1"
 _POLICY = CheckPolicy()
@@ -241,6 +243,14 @@ class ScenarioDoc(_Model):
     limits: LimitsDoc
     check_policy: Annotated[CheckPolicyDoc, BeforeValidator(_none_to_default)] = Field(default_factory=CheckPolicyDoc)
     map: MapDoc | None = None
+    uncertainty: UncertaintyDoc | None = None
+
+    @model_validator(mode="after")
+    def _uncertainty_si(self) -> ScenarioDoc:
+        from exomap.schema.uncertainty import to_si_in_place
+
+        to_si_in_place(self)  # the canonical form holds SI floats (like a cv stored as kv)
+        return self
 
     def to_core(self) -> Any:
         """The plain SI ``exomap.core.scenario.Scenario``, checked by ``exomap.core.scenario.validate``.
