@@ -809,6 +809,29 @@ class UncertaintyMapResult:
             "message": self.message,
         }
 
+    def to_csv(self) -> str:
+        """One row per cell: the probabilities, their bounds, whether the cell is in the robust window."""
+        import csv
+        import io
+
+        out = io.StringIO()
+        w = csv.writer(out, lineterminator="\n")
+        w.writerow(
+            ["residence_time_s", "feed_temperature_K"]
+            + [f"probability_{k}" for k in PROBABILITY_KEYS]
+            + [f"upper_bound_95_{k}" for k in PROBABILITY_KEYS]
+            + ["robust"]
+        )
+        for i, T_in in enumerate(self.T_in):
+            for j, tau in enumerate(self.tau):
+                w.writerow(
+                    [f"{tau:.6g}", f"{T_in:.6g}"]
+                    + [f"{self.probability[k][i, j]:.6g}" for k in PROBABILITY_KEYS]
+                    + [f"{self.upper[k][i, j]:.6g}" for k in PROBABILITY_KEYS]
+                    + [int(bool(self.robust[i, j]))]
+                )
+        return out.getvalue()
+
 
 def _drivers(ps: ParameterSamples, n_tau: int, ign: np.ndarray, ext: np.ndarray, unsafe_share: np.ndarray) -> list:
     """How much each parameter moves the boundaries: per residence time, the least-squares slope of the
