@@ -20,6 +20,7 @@ import exomap
 from exomap.web.errors import ApiError, error_responses
 from exomap.web.jobs import Answer
 from exomap.web.models import BranchRequest, CheckRequest, MapRequest, SimulateRequest, SteadyRequest
+from exomap.web.query import refuse_unknown_query
 from exomap.web.service import REQUEST_MODELS, Service
 from exomap.web.settings import Settings
 
@@ -160,7 +161,8 @@ def _validated(model: type, data: dict[str, Any]) -> Any:
 
 def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
     """The ``/api/v1`` router. ``example_scenario`` is the OpenAPI example of a scenario body."""
-    router = APIRouter(prefix="/api/v1")
+    # every route refuses query parameters it does not declare (a misspelt one would be silently ignored)
+    router = APIRouter(prefix="/api/v1", dependencies=[Depends(refuse_unknown_query)])
 
     @router.get(
         "/health",
@@ -447,7 +449,7 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         if events is not None:
             try:
                 parsed_events = json.loads(events)
-            except ValueError:
+            except (ValueError, RecursionError):  # RecursionError: lists nested thousands deep
                 raise ApiError(
                     422,
                     "invalid_request",
