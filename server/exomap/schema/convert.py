@@ -139,7 +139,7 @@ def to_core(doc: ScenarioDoc) -> Scenario:
         UA_loss=doc.heat_loss.ua if doc.heat_loss else 0.0,
         T_amb=doc.heat_loss.ambient_temperature if doc.heat_loss else defaults["T_amb"].default,
         P_agitator=doc.agitator_power,
-        policy=CheckPolicy(**doc.check_policy.model_dump()),
+        policy=CheckPolicy(**{k: v for k, v in doc.check_policy.model_dump().items() if v is not None}),
         map=(
             MapSpec(
                 tau_range=tuple(doc.map.residence_time),

@@ -149,6 +149,14 @@ def _pair(value: str | None) -> list[float | str] | str | None:
     return [_number_or_text(p) for p in parts]  # type: ignore[misc]
 
 
+def _whole(value: str | None) -> int | str | None:
+    """A whole-number query value as an int (left as text otherwise, so validation names the field)."""
+    if value is None:
+        return None
+    text = value.strip()
+    return int(text) if text.lstrip("-").isdigit() else text
+
+
 def _validated(model: type, data: dict[str, Any]) -> Any:
     """Build a request model from query values; errors become the usual 422 with ``query`` locations."""
     try:
@@ -383,6 +391,10 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         feed_temperature: Annotated[str | None, Query(description="Window 'lo,hi', e.g. '0 degC,120 degC'.")] = None,
         points: Annotated[str | None, Query(description="Grid 'n_tau,n_tin', e.g. '200,200'.")] = None,
         spacing: Annotated[str | None, Query(description="'log' or 'linear' residence-time axis.")] = None,
+        samples: Annotated[
+            str | None, Query(description="Probability map with this many samples (a power of two, e.g. 256).")
+        ] = None,
+        seed: Annotated[str | None, Query(description="Seed of the samples (with samples).")] = None,
         format: Annotated[str, Query(description="'json' or 'csv'.", pattern="^(json|csv)$")] = "json",
     ) -> Response:
         pts: Any = None
@@ -397,6 +409,8 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
                 "feed_temperature": _pair(feed_temperature),
                 "points": pts,
                 "spacing": spacing,
+                "samples": _whole(samples),
+                "seed": _whole(seed),
             },
         )
         out, hit = await service.answer("map", req, format)
