@@ -72,6 +72,7 @@ def run(args: argparse.Namespace) -> int:
     from pydantic_settings import SettingsError
 
     from exomap.web.app import create_app
+    from exomap.web.store import StoreUnavailableError
 
     try:
         settings = settings_from_args(args)
@@ -79,10 +80,14 @@ def run(args: argparse.Namespace) -> int:
         for line in _setting_errors(exc):
             print(line, file=sys.stderr)
         return 2
-    app = create_app(settings, warm_up=True)
+    try:
+        app = create_app(settings, warm_up=True)
+    except StoreUnavailableError as exc:
+        print(f"exomap serve: {exc}", file=sys.stderr)
+        return 2
     print(
         f"exomap: serving on http://{settings.host}:{settings.port}/ (API docs at /api/docs); "
-        f"scenario store in {settings.data_dir.resolve()}"
+        f"scenario store {app.state.store.database.where}"
     )
     uvicorn.run(app, host=settings.host, port=settings.port, log_level=args.log_level, proxy_headers=False)
     return 0

@@ -211,6 +211,8 @@ class CheckPolicyDoc(_Model):
     valve_min: Q("fraction", sign="nonnegative", upper=1.0) = _POLICY.valve_min
     valve_max: Q("fraction", sign="nonnegative", upper=1.0) = _POLICY.valve_max
     upset_duration: Q("time", sign="positive") = _POLICY.upset_duration
+    # None (left out of the canonical JSON, so adding the field kept every scenario id) means the default
+    min_time_to_act: Q("time", sign="positive") | None = None
     # null when not given, so the canonical form (and the id) of a scenario that does not set it is unchanged
     max_unsafe_probability: Q("fraction", sign="nonnegative", upper=1.0) | None = None
 

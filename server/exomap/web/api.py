@@ -53,7 +53,7 @@ ANSWER_SCHEMAS: dict[str, dict[str, Any]] = {
         "type": "object",
         "required": ["verdict", "reasons", "cautions"],
         "properties": {
-            "verdict": {"type": "string", "enum": ["inside", "marginal", "outside"]},
+            "verdict": {"type": "string", "enum": ["inside", "marginal", "outside", "undetermined"]},
             "reasons": {"type": "array"},
             "cautions": {"type": "array"},
         },

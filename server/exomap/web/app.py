@@ -1,6 +1,7 @@
 """The application factory: ``create_app(settings)`` builds the whole web service (API, docs page, pages).
 
-Nothing happens at import time. ``create_app`` opens the scenario store in ``settings.data_dir`` and reads the
+Nothing happens at import time. ``create_app`` opens the scenario store (``settings.database_url``, by default
+the SQLite file in ``settings.data_dir``), applying its migrations, and reads the
 demo scenarios; the pool of workers starts on the first computation (or at startup under uvicorn, through the
 lifespan) and stops with the app.
 
@@ -30,7 +31,7 @@ from exomap.web.errors import install_error_handlers
 from exomap.web.middleware import BodyLimit, HeadAsGet, SecurityHeaders
 from exomap.web.service import Service
 from exomap.web.settings import Settings
-from exomap.web.store import ScenarioStore, load_demos
+from exomap.web.store import open_store
 
 log = logging.getLogger("exomap.web")
 
@@ -62,7 +63,7 @@ def create_app(settings: Settings | None = None, *, warm_up: bool = False) -> Fa
         for the workers to import the core.
     """
     settings = settings if settings is not None else Settings()
-    store = ScenarioStore(settings.data_dir, demos=load_demos())
+    store = open_store(settings)  # StoreUnavailableError when it cannot be opened: exomap serve says why
     service = Service(settings, store)
 
     @asynccontextmanager

@@ -23,6 +23,8 @@ from fastapi.responses import JSONResponse
 from pydantic import BaseModel, Field
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
+from exomap.web.store import StoreUnavailableError
+
 log = logging.getLogger("exomap.web")
 
 #: Code of each plain HTTP status the framework raises on its own.
@@ -197,6 +199,12 @@ def install_error_handlers(app: FastAPI) -> None:
     @app.exception_handler(ApiError)
     async def _api_error(request: Request, exc: ApiError) -> JSONResponse:
         return error_response(exc.status, exc.code, exc.message, exc.fields, headers=exc.headers)
+
+    @app.exception_handler(StoreUnavailableError)
+    async def _store(request: Request, exc: StoreUnavailableError) -> JSONResponse:
+        # the message names the file or server, never a password (see exomap.web.store_pg.describe)
+        log.error("store unavailable on %s %s: %s", request.method, request.url.path, exc)
+        return error_response(503, "store_unavailable", str(exc), headers={"Retry-After": str(RETRY_AFTER_S)})
 
     @app.exception_handler(RequestValidationError)
     async def _validation(request: Request, exc: RequestValidationError) -> JSONResponse:

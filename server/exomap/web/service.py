@@ -225,6 +225,15 @@ class Service:
             return out | self._samples(req, sc)
         if kind == "check":
             tau, T_in = self._point(req, sc)
+            cap = float(sc.policy.upset_duration)
+            if cap > s.max_duration_s:  # each upset is a simulation: the same limit
+                raise ApiError(
+                    413,
+                    "too_long",
+                    f"check_policy.upset_duration of {cap:g} s is longer than the limit of one simulation, "
+                    f"{s.max_duration_s:g} s",
+                    [{"field": "check_policy.upset_duration", "message": f"at most {s.max_duration_s:g} s"}],
+                )
             return {"tau": tau, "T_in": T_in, "branch": req.branch}
         if kind == "simulate":
             from exomap.core.events import parse_events
