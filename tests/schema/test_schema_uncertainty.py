@@ -124,3 +124,16 @@ def test_max_unsafe_probability_policy(doc):
     with pytest.raises(ScenarioError) as exc:
         parse_scenario(doc)
     assert exc.value.field == "check_policy.max_unsafe_probability"
+
+
+def test_cli_check_samples(doc, tmp_path, capsys):
+    _block(doc, {"target": "reactions[0].activation_energy", "distribution": "normal", "sd": "2 kJ/mol"})
+    path = tmp_path / "s.json"
+    path.write_text(json.dumps(doc))
+    assert main(["check", str(path), "--samples", "8", "--seed", "2", "--json"]) == 0
+    out = json.loads(capsys.readouterr().out)
+    block = out["uncertainty"]
+    assert block["samples"] == 8 and block["seed"] == 2
+    assert set(block["quantiles"]) == {"temperature_K", "mtsr_K", "tmr_ad_s"}
+    assert main(["check", str(path), "--seed", "2"]) == 2
+    assert "--samples" in capsys.readouterr().err

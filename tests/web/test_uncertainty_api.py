@@ -82,3 +82,16 @@ def test_a_bad_block_is_a_422_naming_the_target(client) -> None:
     err = r.json()["error"]["fields"][0]
     assert err["field"].endswith("uncertainty.parameters[1].sd")
     assert "reactions[0].activation_energy" in err["message"] and "J/mol" in err["message"]
+
+
+def test_check_with_samples_is_the_core_answer(client, uncertain_id) -> None:
+    from exomap.core.uncertain_check import uncertain_check
+
+    sc = schema.parse_scenario(UNCERTAIN).to_core()
+    want = json.loads(dumps(uncertain_check(sc, samples=8, seed=1).to_dict()))
+    got = client.get(f"/api/v1/scenarios/{uncertain_id}/check?samples=8&seed=1")
+    assert got.status_code == 200, got.text
+    assert got.json() == want
+    block = want["uncertainty"]
+    assert block["samples"] == 8 and 0.0 <= block["probability_outside"] <= block["probability_marginal_or_worse"]
+    assert "uncertainty" not in client.get(f"/api/v1/scenarios/{uncertain_id}/check").json()

@@ -429,6 +429,10 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         residence_time: Tau = None,
         feed_temperature: Tin = None,
         branch: Annotated[str | None, Query(description="'low' or 'high': which stable state is assumed.")] = None,
+        samples: Annotated[
+            str | None, Query(description="Also check under the uncertainty block with this many samples (e.g. 256).")
+        ] = None,
+        seed: Annotated[str | None, Query(description="Seed of the samples (with samples).")] = None,
     ) -> Response:
         req = _validated(
             CheckRequest,
@@ -437,6 +441,8 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
                 "residence_time": _number_or_text(residence_time),
                 "feed_temperature": _number_or_text(feed_temperature),
                 "branch": branch,
+                "samples": _whole(samples),
+                "seed": _whole(seed),
             },
         )
         out, hit = await service.answer("check", req)

@@ -126,6 +126,17 @@ def compute(kind: str, sc: Any, params: dict[str, Any]) -> Any:
             points=params.get("points"),
             spacing=params.get("spacing", "log"),
         )
+    if kind == "check" and params.get("samples") is not None:
+        from exomap.core.uncertain_check import uncertain_check
+
+        return uncertain_check(
+            sc,
+            tau=params["tau"],
+            T_in=params["T_in"],
+            branch=params.get("branch"),
+            samples=params["samples"],
+            seed=params.get("seed"),
+        )
     if kind == "check":
         from exomap.core.check import check_setpoint
 

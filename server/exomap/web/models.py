@@ -144,6 +144,14 @@ class CheckRequest(OperatingPoint):
     branch: Literal["low", "high"] | None = Field(
         default=None, description="Which stable state the tank is on where there are several; default: low."
     )
+    samples: Annotated[StrictInt, Field(ge=8, le=16384)] | None = Field(
+        default=None,
+        description="Also check under the scenario's uncertainty block (DESIGN.md §11) with this many samples, a "
+        "power of two (e.g. 256): adds the 'uncertainty' block; absent: the nominal check only.",
+    )
+    seed: Annotated[StrictInt, Field(ge=0, le=2**32 - 1)] | None = Field(
+        default=None, description="Seed of the samples (with samples); default: the uncertainty block's (0)."
+    )
 
 
 class SimulateRequest(OperatingPoint):

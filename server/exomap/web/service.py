@@ -234,7 +234,7 @@ class Service:
                     f"{s.max_duration_s:g} s",
                     [{"field": "check_policy.upset_duration", "message": f"at most {s.max_duration_s:g} s"}],
                 )
-            return {"tau": tau, "T_in": T_in, "branch": req.branch}
+            return {"tau": tau, "T_in": T_in, "branch": req.branch} | self._samples(req, sc)
         if kind == "simulate":
             from exomap.core.events import parse_events
 
