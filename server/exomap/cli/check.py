@@ -124,7 +124,7 @@ def render(sc: Any, r: Any) -> str:
     lines.append(
         f"Tank state: {fmt.celsius(st.T)}, {st.stability}"
         + (" (oscillatory)" if st.oscillatory else "")
-        + f", conversion {fmt.percent(st.conversion, 1)}, valve {fmt.percent(st.valve_opening)} open"
+        + f", conversion {fmt.percent(st.conversion, 1)}, valve {fmt.opening(st.valve_opening)}"
     )
     lines.append(f"Assumed: {r.assumption}")
     others = [fmt.celsius(s.T) + f" {s.stability}" for i, s in enumerate(r.steady.states) if i != r.state_index]

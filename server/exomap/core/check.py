@@ -43,6 +43,7 @@ from typing import Any
 
 import numpy as np
 
+from exomap.core import valve as valve_mod
 from exomap.core.cautions import CAUTIONS
 from exomap.core.dynamics import SETTLED_DT_PER_H, SETTLED_T_BAND, SimulationResult, simulate
 from exomap.core.errors import ConvergenceError, LimitExceededError, ModelInputError
@@ -555,7 +556,10 @@ def _margins(sc: Scenario, tau: float, T_in: float, states: tuple[Any, ...], idx
     out.append(Margin("steady_temperature_to_max_K", lim.T_max - float(st.T), pol.min_temperature_margin))
     out.append(Margin("mtsr_to_max_K", lim.T_max - mtsr, pol.min_mtsr_margin))
     x = float(st.valve_opening)
-    if math.isfinite(x):
+    why = _valve_out_of_range(x)
+    if why:  # an opening no valve can take: said in words, never as the number
+        out.append(Margin("valve_opening_to_usable_range_percent", None, 0.0, why))
+    elif math.isfinite(x):
         out.append(
             Margin(
                 "valve_opening_to_usable_range_percent",
@@ -782,10 +786,23 @@ def margins_below_thresholds(ev: _Evidence) -> list[Finding]:
     return out
 
 
+def _valve_out_of_range(x: float) -> str:
+    """Why the opening from the inverse characteristic is no opening the valve can take ('' when it can)."""
+    status = valve_mod.opening_status(x)
+    if status == valve_mod.BELOW_RANGE:
+        return "the flow is below what the valve passes at the smallest opening of its characteristic: below its range"
+    if status == valve_mod.ABOVE_RANGE:
+        return "the valve cannot pass the flow even fully open: above its range (valve too small)"
+    return ""
+
+
 def valve_range(ev: _Evidence) -> list[Finding]:
     """``marginal``: the valve opening needed is outside its usable range, or the valve cannot pass the flow."""
     pol = ev.sc.policy
     x = float(ev.state.valve_opening)
+    why = _valve_out_of_range(x)
+    if why:
+        return [Finding("marginal", f"the outlet valve cannot hold the set level at this flow: {why}")]
     if not math.isfinite(x):
         return [
             Finding("marginal", "the outlet valve has no driving pressure at the set level: it cannot pass the flow")

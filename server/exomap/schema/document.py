@@ -30,7 +30,15 @@ from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, ValidationIn
 from pydantic_core import PydanticCustomError
 
 from exomap.core.scenario import CheckPolicy, MapSpec
-from exomap.schema.quantity import DIMENSIONS, QuantityProblem, expected, pre_exponential_to_si, to_si
+from exomap.schema.quantity import (
+    DIMENSIONS,
+    QuantityProblem,
+    expected,
+    pre_exponential_order,
+    pre_exponential_to_si,
+    to_si,
+)
+from exomap.schema.text import Description, Label, Text, Title
 from exomap.schema.uncertainty import UncertaintyDoc
 
 FORMAT = "exomap-scenario/1"
@@ -139,7 +147,7 @@ class OutletValveDoc(_Model):
 
 
 class ReactionDoc(_Model):
-    label: str = ""
+    label: Label = ""
     stoichiometry: dict[str, float]
     orders: dict[str, Annotated[float, Field(ge=0.0)]]
     pre_exponential: float
@@ -151,16 +159,25 @@ class ReactionDoc(_Model):
     @classmethod
     def _k0(cls, value: object, info: ValidationInfo) -> float:
         orders = info.data.get("orders")
-        declared = (info.context or {}).get("species")
-        if isinstance(orders, dict):
-            # orders in undeclared species are reported as such (cross_check), not as a wrong k0 dimension
-            total = float(
-                sum(n for s, n in orders.items() if not (isinstance(declared, list) and declared) or s in declared)
-            )
+        context = info.context or {}
+        declared = context.get("species")
+        # without a species list in the context (a direct model_validate) every order counts
+        certain = "species" not in context or (
+            isinstance(declared, list) and all(isinstance(s, str) for s in declared) and bool(declared)
+        )
+        if isinstance(orders, dict) and certain and ("species" not in context or all(s in declared for s in orders)):
+            total: float | None = float(sum(orders.values()))
         else:
-            total = 1.0
+            # the orders failed their own check or name an undeclared species (a typo): the total order is
+            # not known, so the dimension of k0 cannot be held against it. Those fields are reported
+            # themselves; k0 is only refused when its unit is no rate constant of any order.
+            total = None
         try:
-            x = pre_exponential_to_si(value, total)
+            if total is None:
+                implied = pre_exponential_order(value)
+                x = pre_exponential_to_si(value, 1.0 if implied is None else implied)
+            else:
+                x = pre_exponential_to_si(value, total)
         except QuantityProblem as exc:
             raise _problem(str(exc)) from None
         if not x > 0:
@@ -233,9 +250,9 @@ class ScenarioDoc(_Model):
     """A validated scenario document; every quantity is an SI float."""
 
     format: Literal["exomap-scenario/1"] = FORMAT
-    title: str = ""
-    description: str = ""
-    species: list[Annotated[str, Field(min_length=1, max_length=40, pattern=r"^[^\s.\[\]]+$")]] = Field(min_length=1)
+    title: Title = ""
+    description: Description = ""
+    species: list[Annotated[Text(40), Field(min_length=1, pattern=r"^[^\s.\[\]]+$")]] = Field(min_length=1)
     liquid: LiquidDoc
     vessel: VesselDoc
     outlet_valve: OutletValveDoc
