@@ -277,6 +277,10 @@ def test_answer_document_keys_and_robust_window(adiabatic):
     d = um.to_dict()
     for key in ("probability", "upper_bound_95", "robust_window", "boundary_bands", "drivers", "samples", "seed"):
         assert key in d
+    # the nominal map's own answer is part of it (its regions, boundaries, ...), same grid
+    nominal = operating_map(sc, **WINDOW).to_dict()
+    assert d["region"] == nominal["region"] and d["boundaries"] == nominal["boundaries"]
+    assert d["residence_time_s"] == nominal["residence_time_s"]
     assert set(d["probability"]) == {"runaway", "unstable", "multiple", "unsafe"}
     up = np.array(d["upper_bound_95"]["unsafe"])
     np.testing.assert_array_equal(np.array(d["robust_window"]), up < sc.policy.max_unsafe_probability)

@@ -767,7 +767,8 @@ class UncertaintyMapResult:
     message: str
 
     def to_dict(self) -> dict:
-        from exomap.core.cautions import cautions
+        """The nominal map's answer (DESIGN.md §4: regions, boundaries, ...) with the probability keys of
+        DESIGN.md §11 added, so a client of the map reads either."""
 
         def grid(a: np.ndarray) -> list:
             return np.round(np.asarray(a, float), 6).tolist()
@@ -776,38 +777,31 @@ class UncertaintyMapResult:
             arr = np.asarray(arr, dtype=float)
             return np.where(np.isfinite(arr), arr, np.array(None, dtype=object)).tolist()
 
-        nom = self.nominal.to_dict()  # type: ignore[attr-defined]
-        return {
-            "residence_time_s": self.tau.tolist(),
-            "feed_temperature_K": self.T_in.tolist(),
-            "spacing": self.spacing,
-            "samples": self.samples,
-            "seed": self.seed,
-            "reference_temperature_K": self.T_ref,
-            "parameters": list(self.targets),
-            "probability": {k: grid(self.probability[k]) for k in PROBABILITY_KEYS},
-            "upper_bound_95": {k: grid(self.upper[k]) for k in PROBABILITY_KEYS},
-            "max_unsafe_probability": self.max_unsafe_probability,
-            "robust_window": self.robust.tolist(),
-            "boundary_bands": {
-                kind: {
-                    "fraction": np.round(self.bands[kind]["fraction"], 6).tolist(),
-                    **{f"q{round(100 * q):02d}": rows(self.bands[kind][q]) for q in BAND_QUANTILES},
-                }
-                for kind in ("ignition", "extinction")
-            },
-            "drivers": list(self.drivers),
-            "nominal": {
-                "region": nom["region"],
-                "legend": nom["legend"],
-                "boundaries": nom["boundaries"],
-                "limit_temperature_K": nom["limit_temperature_K"],
-            },
-            "method": self.method,
-            "cautions": cautions(),
-            "success": self.success,
-            "message": self.message,
-        }
+        d = self.nominal.to_dict()  # type: ignore[attr-defined]
+        d.update(
+            {
+                "samples": self.samples,
+                "seed": self.seed,
+                "reference_temperature_K": self.T_ref,
+                "parameters": list(self.targets),
+                "probability": {k: grid(self.probability[k]) for k in PROBABILITY_KEYS},
+                "upper_bound_95": {k: grid(self.upper[k]) for k in PROBABILITY_KEYS},
+                "max_unsafe_probability": self.max_unsafe_probability,
+                "robust_window": self.robust.tolist(),
+                "boundary_bands": {
+                    kind: {
+                        "fraction": np.round(self.bands[kind]["fraction"], 6).tolist(),
+                        **{f"q{round(100 * q):02d}": rows(self.bands[kind][q]) for q in BAND_QUANTILES},
+                    }
+                    for kind in ("ignition", "extinction")
+                },
+                "drivers": list(self.drivers),
+                "method": self.method,
+                "success": self.success and bool(d["success"]),
+                "message": f"{self.message}; nominal map: {d['message']}",
+            }
+        )
+        return d
 
     def to_csv(self) -> str:
         """One row per cell: the probabilities, their bounds, whether the cell is in the robust window."""
