@@ -69,6 +69,9 @@ SUMMARIES = {
 }
 CSV_KINDS = ("map", "simulate")
 
+#: Most scenarios one page of the listing may hold.
+MAX_PAGE = 500
+
 SCENARIO_SUMMARY = {
     "type": "object",
     "required": ["id", "title", "description", "demo", "name"],
@@ -196,34 +199,61 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
 
     @router.get(
         "/scenarios",
-        summary="Demo and saved scenarios",
+        summary="Demo and saved scenarios, one page at a time (summaries; the documents are one GET each)",
         responses={
             200: {
                 "content": {
                     "application/json": {
                         "schema": {
                             "type": "object",
-                            "required": ["scenarios"],
-                            "properties": {"scenarios": {"type": "array", "items": SCENARIO_SUMMARY}},
+                            "required": ["scenarios", "total", "limit", "offset", "next"],
+                            "properties": {
+                                "scenarios": {"type": "array", "items": SCENARIO_SUMMARY},
+                                "total": {"type": "integer", "description": "Demos and saved scenarios in all."},
+                                "limit": {"type": "integer"},
+                                "offset": {"type": "integer"},
+                                "next": {
+                                    "type": ["string", "null"],
+                                    "description": "URL of the next page; null on the last one.",
+                                },
+                            },
                         }
                     }
                 }
-            }
+            },
+            **error_responses(422, 503),
         },
     )
-    async def list_scenarios(service: ServiceDep) -> JSONResponse:
-        return JSONResponse({"scenarios": [s.summary() for s in service.store.list()]})
+    async def list_scenarios(
+        service: ServiceDep,
+        limit: Annotated[int, Query(ge=1, le=MAX_PAGE, description=f"Scenarios per page (1-{MAX_PAGE}).")] = 100,
+        offset: Annotated[int, Query(ge=0, description="How many to skip (demos first, then oldest saved).")] = 0,
+    ) -> JSONResponse:
+        page = await anyio.to_thread.run_sync(service.store.page, limit, offset)
+        following = page.next_offset
+        return JSONResponse(
+            {
+                "scenarios": [s.summary() for s in page.items],
+                "total": page.total,
+                "limit": page.limit,
+                "offset": page.offset,
+                "next": None if following is None else f"/api/v1/scenarios?limit={limit}&offset={following}",
+            }
+        )
 
     @router.get(
         "/scenarios/{scenario_id}",
         summary="The canonical document of one scenario (SI numbers)",
-        responses={200: {"content": {"application/json": {"schema": _OBJECT}}}, **error_responses(404)},
+        responses={
+            200: {"content": {"application/json": {"schema": _OBJECT}}},
+            **error_responses(404, 503),
+        },
     )
     async def get_scenario(
         service: ServiceDep,
         scenario_id: Annotated[str, Path(description="Scenario id (16 hex digits) or a demo's name.")],
     ) -> Response:
-        stored = service.store.get(scenario_id)
+        stored = await anyio.to_thread.run_sync(service.store.get, scenario_id)
         if stored is None:
             raise ApiError(404, "not_found", f"no scenario with id {scenario_id!r}")
         return Response(stored.document, media_type="application/json")
