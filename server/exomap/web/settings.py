@@ -71,6 +71,11 @@ class Settings(BaseSettings):
         description="Origins allowed to call the API from a browser (CORS), comma-separated "
         "('http://a.example,http://b.example') or a JSON list; empty keeps cross-origin calls closed.",
     )
+    allowed_hosts: Annotated[list[str], NoDecode] = Field(
+        default_factory=list,
+        description="Host names the server answers to, comma-separated (e.g. 'exomap.plant.example'); others get "
+        "400, which stops DNS rebinding. Empty: localhost, 127.0.0.1, ::1 and the listening address. '*' = any.",
+    )
     cache_entries: int = Field(
         default=256, ge=0, description="Answers kept in the in-memory LRU cache of repeated requests; 0 disables it."
     )
@@ -109,9 +114,9 @@ class Settings(BaseSettings):
             )
         return value
 
-    @field_validator("cors_origins", mode="before")
+    @field_validator("cors_origins", "allowed_hosts", mode="before")
     @classmethod
-    def _origins(cls, value: Any) -> Any:
+    def _comma_list(cls, value: Any) -> Any:
         if isinstance(value, str):
             text = value.strip()
             if text.startswith("["):
@@ -121,7 +126,7 @@ class Settings(BaseSettings):
                     return json.loads(text)
                 except ValueError:
                     raise ValueError(
-                        "expected origins separated by commas, e.g. 'http://a.example,http://b.example', "
+                        "expected items separated by commas, e.g. 'http://a.example,http://b.example', "
                         "or a JSON list of strings"
                     ) from None
             return [item.strip() for item in text.split(",") if item.strip()]

@@ -516,9 +516,7 @@ class ScenarioStore:
         room = limit - len(demos)
         if room > 0:
             rows = self.database.fetch_page(room, max(offset - len(self.demos), 0))
-        saved = [
-            StoredScenario(r.id, r.title, _cut(r.description), "") for r in rows if r.id not in self._demo_by_id
-        ]
+        saved = [StoredScenario(r.id, r.title, _cut(r.description), "") for r in rows if r.id not in self._demo_by_id]
         items = [StoredScenario(d.id, d.title, _cut(d.description), "", True, d.name) for d in demos] + saved
         return ScenarioPage(items, len(self.demos) + self.database.count(), limit, offset)
 
