@@ -5,8 +5,9 @@ the SQLite file in ``settings.data_dir``), applying its migrations, and reads th
 demo scenarios; the pool of workers starts on the first computation (or at startup under uvicorn, through the
 lifespan) and stops with the app.
 
-Middleware, outermost first: security headers, the Host check, HEAD answered as GET without a body, gzip (answers over 1 kB),
-CORS (only when ``cors_origins`` is set), the request-body limit. Every failure goes through ``exomap.web.errors``.
+Middleware, outermost first: security headers, the Host check, HEAD answered as GET without a body, gzip
+(answers over 1 kB), CORS (only when ``cors_origins`` is set), the request-body limit. Every failure goes through
+``exomap.web.errors``.
 """
 
 from __future__ import annotations
