@@ -103,7 +103,7 @@ def create_app(settings: Settings | None = None, *, warm_up: bool = False) -> Fa
     pages.install(app, settings)
 
     # add_middleware wraps the app, so the last added is the outermost.
-    app.add_middleware(BodyLimit, max_bytes=settings.max_body_bytes)
+    app.add_middleware(BodyLimit, max_bytes=settings.max_body_bytes, timeout_s=settings.body_timeout_s)
     if settings.cors_origins:
         app.add_middleware(
             CORSMiddleware,

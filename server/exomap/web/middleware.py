@@ -5,6 +5,7 @@ Both are plain ASGI (no BaseHTTPMiddleware), so they add no task per request and
 
 from __future__ import annotations
 
+import asyncio
 import json
 from collections.abc import Awaitable, Callable, MutableMapping
 from typing import Any
@@ -70,15 +71,17 @@ async def _send_error(send: Send, status: int, code: str, message: str) -> None:
 
 
 class BodyLimit:
-    """Refuse request bodies over ``max_bytes`` with 413, whether or not they declare a Content-Length.
+    """Refuse request bodies over ``max_bytes`` with 413, whether or not they declare a Content-Length, and
+    bodies that take longer than ``timeout_s`` to arrive with 408.
 
     A declared length over the limit is refused before reading; otherwise the body is read up to the limit
     and replayed to the app (bodies are small: the limit is about a megabyte).
     """
 
-    def __init__(self, app: ASGIApp, max_bytes: int) -> None:
+    def __init__(self, app: ASGIApp, max_bytes: int, timeout_s: float = 30.0) -> None:
         self.app = app
         self.max_bytes = max_bytes
+        self.timeout_s = timeout_s
 
     async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
         if scope["type"] != "http" or scope.get("method") in ("GET", "HEAD", "OPTIONS"):
@@ -98,17 +101,25 @@ class BodyLimit:
         chunks: list[bytes] = []
         size = 0
         more = True
-        while more:
-            message = await receive()
-            if message["type"] == "http.disconnect":
-                return
-            chunk = message.get("body", b"")
-            size += len(chunk)
-            if size > self.max_bytes:
-                await _send_error(send, 413, "body_too_large", too_big)
-                return
-            chunks.append(chunk)
-            more = message.get("more_body", False)
+        try:
+            # one deadline for the whole body: a client trickling a few bytes now and then is dropped
+            async with asyncio.timeout(self.timeout_s):
+                while more:
+                    message = await receive()
+                    if message["type"] == "http.disconnect":
+                        return
+                    chunk = message.get("body", b"")
+                    size += len(chunk)
+                    if size > self.max_bytes:
+                        await _send_error(send, 413, "body_too_large", too_big)
+                        return
+                    chunks.append(chunk)
+                    more = message.get("more_body", False)
+        except TimeoutError:
+            await _send_error(
+                send, 408, "request_timeout", f"the request body did not arrive within {self.timeout_s:g} s"
+            )
+            return
         body = b"".join(chunks)
         replayed = False
 

@@ -55,6 +55,25 @@ class Settings(BaseSettings):
     max_body_bytes: int = Field(
         default=1_000_000, gt=0, description="Largest request body accepted [bytes]; larger bodies get 413."
     )
+    header_timeout_s: float = Field(
+        default=10.0,
+        gt=0,
+        description="Longest time a client may take to send a request's line and headers [s]; past it 408 and the "
+        "connection is closed (a connection that sends nothing is closed too).",
+    )
+    body_timeout_s: float = Field(
+        default=30.0,
+        gt=0,
+        description="Longest time a client may take to send a request body [s]; past it 408.",
+    )
+    max_url_bytes: int = Field(
+        default=32_768, ge=1024, description="Longest request line (method, URL, version) [bytes]; longer gets 414."
+    )
+    max_header_bytes: int = Field(
+        default=65_536,
+        ge=4096,
+        description="Largest request head (request line and headers) [bytes]; larger gets 431.",
+    )
     request_time_budget_s: float = Field(
         default=30.0,
         gt=0,
