@@ -105,7 +105,7 @@ class Settings(BaseSettings):
         default=2, ge=1, le=64, description="Computations run at once, off the event loop (pool size)."
     )
     max_queued: int = Field(
-        default=16,
+        default=32,
         ge=0,
         description="Computations that may wait for a free worker; past it a request is answered 503 'busy' at "
         "once, with Retry-After (pages, saves and cached answers never wait behind computations).",
