@@ -110,10 +110,11 @@ class StoredScenario:
     name: str | None = None
 
     def summary(self) -> dict[str, Any]:
+        """The listing's fields; the description cut to ``SUMMARY_CHARS`` (the whole text is in the document)."""
         return {
             "id": self.id,
             "title": self.title,
-            "description": self.description,
+            "description": _cut(self.description),
             "demo": self.demo,
             "name": self.name,
         }
