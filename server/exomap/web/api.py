@@ -54,11 +54,11 @@ MAX_PAGE = 500
 
 
 def answer_responses(
-    model: type[BaseModel], *errors: int, status: int = 200, description: str = "The answer.", csv: bool = False
+    model: type[BaseModel] | Any, *errors: int, status: int = 200, description: str = "The answer.", csv: bool = False
 ) -> dict[int | str, dict[str, Any]]:
-    """``responses=`` of a route: its answer model at ``status`` (and CSV text when ``csv``) and the shared
-    error shape at each status of ``errors``. The routes send bytes (no validation per request); the tests
-    hold every answer to its model."""
+    """``responses=`` of a route: its answer model at ``status`` (a union ``A | B`` when the answer depends on
+    the request), CSV text too when ``csv``, and the shared error shape at each status of ``errors``. The routes
+    send bytes (no validation per request); the tests hold every answer to its model."""
     out: dict[str, Any] = {"model": model, "description": description}
     if csv:
         # JSON first: a generated client reads the first content type as the typed answer
