@@ -38,7 +38,7 @@ SCENARIO_FORMAT = "exomap-scenario/1"
 #: enumeration value); MAJOR for anything that breaks a client generated from the previous document (a key,
 #: route or operation id removed or renamed, a type or unit changed, a request field made required) -- a
 #: MAJOR bump also moves the routes to the next prefix (/api/v2) and keeps /api/v1 serving until retired.
-API_VERSION = "1.0.0"
+API_VERSION = "1.1.0"
 
 SUMMARIES = {
     "steady": "Every steady state at an operating point, with its stability",
@@ -136,6 +136,14 @@ def _pair(value: str | None) -> list[float | str] | str | None:
     if len(parts) != 2:
         return value
     return [_number_or_text(p) for p in parts]  # type: ignore[misc]
+
+
+def _whole(value: str | None) -> int | str | None:
+    """A whole-number query value as an int (left as text otherwise, so validation names the field)."""
+    if value is None:
+        return None
+    text = value.strip()
+    return int(text) if text.lstrip("-").isdigit() else text
 
 
 def _validated(model: type, data: dict[str, Any]) -> Any:
@@ -371,6 +379,10 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         feed_temperature: Annotated[str | None, Query(description="Window 'lo,hi', e.g. '0 degC,120 degC'.")] = None,
         points: Annotated[str | None, Query(description="Grid 'n_tau,n_tin', e.g. '200,200'.")] = None,
         spacing: Annotated[str | None, Query(description="'log' or 'linear' residence-time axis.")] = None,
+        samples: Annotated[
+            str | None, Query(description="Probability map with this many samples (a power of two, e.g. 256).")
+        ] = None,
+        seed: Annotated[str | None, Query(description="Seed of the samples (with samples).")] = None,
         format: Annotated[str, Query(description="'json' or 'csv'.", pattern="^(json|csv)$")] = "json",
     ) -> Response:
         pts: Any = None
@@ -385,6 +397,8 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
                 "feed_temperature": _pair(feed_temperature),
                 "points": pts,
                 "spacing": spacing,
+                "samples": _whole(samples),
+                "seed": _whole(seed),
             },
         )
         out, hit = await service.answer("map", req, format)
@@ -405,6 +419,10 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         residence_time: Tau = None,
         feed_temperature: Tin = None,
         branch: Annotated[str | None, Query(description="'low' or 'high': which stable state is assumed.")] = None,
+        samples: Annotated[
+            str | None, Query(description="Also check under the uncertainty block with this many samples (e.g. 256).")
+        ] = None,
+        seed: Annotated[str | None, Query(description="Seed of the samples (with samples).")] = None,
     ) -> Response:
         req = _validated(
             CheckRequest,
@@ -413,6 +431,8 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
                 "residence_time": _number_or_text(residence_time),
                 "feed_temperature": _number_or_text(feed_temperature),
                 "branch": branch,
+                "samples": _whole(samples),
+                "seed": _whole(seed),
             },
         )
         out, hit = await service.answer("check", req)

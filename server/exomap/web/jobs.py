@@ -104,6 +104,18 @@ def compute(kind: str, sc: Any, params: dict[str, Any]) -> Any:
             c_in=params.get("c_in"),
             T_c=params.get("T_c"),
         )
+    if kind == "map" and params.get("samples") is not None:
+        from exomap.core.uncertainty import uncertainty_map
+
+        return uncertainty_map(
+            sc,
+            tau_range=params.get("tau_range"),
+            T_in_range=params.get("T_in_range"),
+            points=params.get("points"),
+            spacing=params.get("spacing", "log"),
+            samples=params["samples"],
+            seed=params.get("seed"),
+        )
     if kind == "map":
         from exomap.core.opmap import operating_map
 
@@ -113,6 +125,17 @@ def compute(kind: str, sc: Any, params: dict[str, Any]) -> Any:
             T_in_range=params.get("T_in_range"),
             points=params.get("points"),
             spacing=params.get("spacing", "log"),
+        )
+    if kind == "check" and params.get("samples") is not None:
+        from exomap.core.uncertain_check import uncertain_check
+
+        return uncertain_check(
+            sc,
+            tau=params["tau"],
+            T_in=params["T_in"],
+            branch=params.get("branch"),
+            samples=params["samples"],
+            seed=params.get("seed"),
         )
     if kind == "check":
         from exomap.core.check import check_setpoint
