@@ -219,7 +219,7 @@ def test_all_saved_scenarios_of_a_store(tmp_path: Path, database_url: str, load_
     assert record["status"] == "failed" and "0123456789abcdef" in record["error"]["message"]
 
 
-def test_samples_run_the_analysis_under_uncertain_kinetics_when_installed(tmp_path: Path, load_demo) -> None:
+def test_samples_run_the_analysis_under_uncertain_kinetics_when_installed(tmp_path: Path, load_demo, capsys) -> None:
     """``samples`` makes a map the probability map of DESIGN.md §11 (exactly the core's answer), or is refused
     naming the field where this installation has no uncertain-kinetics work."""
     from importlib.util import find_spec
@@ -248,3 +248,11 @@ def test_samples_run_the_analysis_under_uncertain_kinetics_when_installed(tmp_pa
     sc = schema.parse_scenario(doc).to_core()
     want = uncertainty_map(sc, samples=8, points=(12, 8)).to_dict()
     assert json.loads(dumps_line(record))["answer"] == json.loads(dumps_line({"a": want}))["a"]
+    # a check with samples is the answer of exomap check --samples N --seed S --json
+    check = {"format": FORMAT, "scenarios": ["tank.json"], "analyses": [{"name": "check", "samples": 8, "seed": 3}]}
+    (case,) = plan_study(check, base_dir=tmp_path).cases
+    record = json.loads(dumps_line(run_case(case)))
+    assert record["status"] == "ok", record["error"]
+    assert record["answer"]["uncertainty"]["samples"] == 8
+    expected = _cli_json(capsys, "check", str(tmp_path / "tank.json"), "--samples", "8", "--seed", "3", "--json")
+    assert record["answer"] == expected
