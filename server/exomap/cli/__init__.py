@@ -27,6 +27,8 @@ COMMANDS: dict[str, str] = {
     "map": "operating map of residence time against feed temperature",
     "check": "check a setpoint: margins, upsets, verdict",
     "simulate": "dynamic response to events",
+    "replay": "drive the scenario with recorded plant data, beside the recorded outputs",
+    "calibrate": "fit scenario parameters to plant data, with uncertainty",
     "compare": "before and after a change: fields, map cells that changed region, both checks",
     "study": "run a batch study: scenarios x setpoints x analyses, one JSON line each",
 }
