@@ -63,6 +63,26 @@ MIGRATIONS: tuple[Migration, ...] = (
             "CREATE INDEX IF NOT EXISTS scenarios_saved_at ON scenarios (saved_at, id)",
         ),
     ),
+    Migration(
+        3,
+        "datasets: content id, summary (JSON), canonical SI content (CSV), time saved",
+        sqlite=(
+            """CREATE TABLE IF NOT EXISTS datasets (
+                id       TEXT PRIMARY KEY,
+                summary  TEXT NOT NULL,
+                content  TEXT NOT NULL,
+                saved_at REAL NOT NULL
+            )""",
+        ),
+        postgresql=(
+            """CREATE TABLE IF NOT EXISTS datasets (
+                id       TEXT PRIMARY KEY,
+                summary  TEXT NOT NULL,
+                content  TEXT NOT NULL,
+                saved_at DOUBLE PRECISION NOT NULL
+            )""",
+        ),
+    ),
 )
 
 LATEST = MIGRATIONS[-1].version
