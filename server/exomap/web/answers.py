@@ -84,15 +84,22 @@ class ScenarioSummary(Answer):
 
     id: str = Field(description="Content id: 16 hex digits of the SHA-256 of the canonical document.")
     title: str = Field(description="The scenario's title ('' when it has none).")
-    description: str = Field(description="The scenario's description ('' when it has none).")
+    description: str = Field(
+        description="The scenario's description ('' when it has none), cut to 300 characters (ending in an "
+        "ellipsis) in the listing; the whole text is in the document."
+    )
     demo: bool = Field(description="True for a demo shipped with exomap.")
     name: str | None = Field(description="A demo's file name (usable as its id); null for a saved scenario.")
 
 
 class ScenarioList(Answer):
-    """The demos first, then the saved scenarios."""
+    """One page of the listing: the demos first, then the saved scenarios, oldest first."""
 
-    scenarios: list[ScenarioSummary] = Field(description="Every scenario the server holds.")
+    scenarios: list[ScenarioSummary] = Field(description="The scenarios of this page.")
+    total: int = Field(description="How many scenarios the server holds (demos and saved).")
+    limit: int = Field(description="Most scenarios per page, as asked (default 100).")
+    offset: int = Field(description="How many scenarios come before this page.")
+    next: str | None = Field(description="URL of the next page; null on the last one.")
 
 
 # -- steady states -------------------------------------------------------------------------------------------

@@ -49,6 +49,9 @@ SUMMARIES = {
 }
 CSV_KINDS = ("map", "simulate")
 
+#: Most scenarios one page of the listing may hold.
+MAX_PAGE = 500
+
 
 def answer_responses(
     model: type[BaseModel] | Any, *errors: int, status: int = 200, description: str = "The answer.", csv: bool = False
@@ -189,12 +192,26 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         "/scenarios",
         operation_id="listScenarios",
         tags=["scenarios"],
-        summary="Demo and saved scenarios",
+        summary="Demo and saved scenarios, one page at a time (summaries; the documents are one GET each)",
         response_class=JSONResponse,
-        responses=answer_responses(ScenarioList, 422),  # 422: an undeclared query parameter
+        responses=answer_responses(ScenarioList, 422, 503),  # 422: an undeclared or out-of-range parameter
     )
-    async def list_scenarios(service: ServiceDep) -> JSONResponse:
-        return JSONResponse({"scenarios": [s.summary() for s in service.store.list()]})
+    async def list_scenarios(
+        service: ServiceDep,
+        limit: Annotated[int, Query(ge=1, le=MAX_PAGE, description=f"Scenarios per page (1-{MAX_PAGE}).")] = 100,
+        offset: Annotated[int, Query(ge=0, description="How many to skip (demos first, then oldest saved).")] = 0,
+    ) -> JSONResponse:
+        page = await anyio.to_thread.run_sync(service.store.page, limit, offset)
+        following = page.next_offset
+        return JSONResponse(
+            {
+                "scenarios": [s.summary() for s in page.items],
+                "total": page.total,
+                "limit": page.limit,
+                "offset": page.offset,
+                "next": None if following is None else f"/api/v1/scenarios?limit={limit}&offset={following}",
+            }
+        )
 
     @router.get(
         "/scenarios/{scenario_id}",
@@ -203,14 +220,18 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         summary="The canonical document of one scenario (SI numbers)",
         response_class=Response,
         responses=answer_responses(
-            ScenarioDoc, 404, 422, description="The canonical document: every default filled in, every quantity SI."
+            ScenarioDoc,
+            404,
+            422,
+            503,
+            description="The canonical document: every default filled in, every quantity SI.",
         ),
     )
     async def get_scenario(
         service: ServiceDep,
         scenario_id: Annotated[str, Path(description="Scenario id (16 hex digits) or a demo's name.")],
     ) -> Response:
-        stored = service.store.get(scenario_id)
+        stored = await anyio.to_thread.run_sync(service.store.get, scenario_id)
         if stored is None:
             raise ApiError(404, "not_found", f"no scenario with id {scenario_id!r}")
         return Response(stored.document, media_type="application/json")
