@@ -17,6 +17,7 @@ Rules
 * Gauge pressures: ``barg``, ``psig`` and ``kPag`` (a lone unit on an absolute-pressure field) are read above
   the standard atmosphere, 101325 Pa exactly (ISO 2533; the value that defines 1 atm), so ``"0.2 barg"`` is
   121325 Pa. A site whose gauges read against its local barometer types an absolute pressure instead.
+* Superscripts and the middle dot are read as typed on a page: ``m³/h`` = ``m^3/h``, ``kJ/(kg·K)``.
 * ``gpm`` is the US gallon (231 in^3 exactly, NIST SP 811 B.8) per minute.
 * NaN and infinity are rejected, and so are unit strings containing arithmetic (pint evaluates them) beyond
   exponents, to keep parsing cheap and predictable. A unit that is not understood is named in the message,
@@ -149,7 +150,8 @@ def split_value(value: str, hint: str) -> tuple[float, str]:
     if m is None:
         raise QuantityProblem(f"{value!r} does not start with a number; {hint}")
     magnitude = _finite(float(m.group(1)), hint)
-    unit = m.group(2)
+    # the spellings of a page or a data sheet: m³ -> m^3, kJ/(kg·K) -> kJ/(kg*K)
+    unit = m.group(2).replace("³", "^3").replace("²", "^2").replace("·", "*")
     if not _UNIT_CHARS_RE.match(unit):
         raise QuantityProblem(f"unit {unit!r} not understood; {hint}")
     if _STACKED_RE.search(unit):
@@ -164,7 +166,7 @@ def _parse_units(unit: str, hint: str) -> Any:
     ureg = registry()
     try:
         return ureg.parse_units(unit)
-    except Exception as exc:  # pint's parser raises many kinds (UndefinedUnitError, TokenError, ...)
+    except Exception:  # pint's parser raises many kinds (UndefinedUnitError, TokenError, ...)
         raise QuantityProblem(f"unit {unit!r} not understood; {hint}") from None
 
 

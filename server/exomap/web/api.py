@@ -440,11 +440,20 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         feed_temperature: Tin = None,
         start: Annotated[str | None, Query(description="'low' or 'high' starting state.")] = None,
         duration: Annotated[str | None, Query(description="Simulated time: '2 h' or seconds.")] = None,
-        events: Annotated[str | None, Query(description="The events as a JSON list (URL-encoded).")] = None,
+        events: Annotated[
+            str | None,
+            Query(
+                description="The events: a JSON list (URL-encoded), or event lines as the pages write them, one a "
+                "line ('at 10 min do feed_stop')."
+            ),
+        ] = None,
         format: Annotated[str, Query(description="'json' or 'csv'.", pattern="^(json|csv)$")] = "json",
     ) -> Response:
         parsed_events: Any = None
-        if events is not None:
+        if events is not None and not events.lstrip().startswith("["):
+            # event lines, as a page link carries them (exomap.core.events.event_from_text reads each)
+            parsed_events = [line for line in events.splitlines() if line.strip() and not line.lstrip().startswith("#")]
+        elif events is not None:
             try:
                 parsed_events = json.loads(events)
             except ValueError:

@@ -160,7 +160,8 @@ class SimulateRequest(OperatingPoint):
     start: Literal["low", "high"] = Field(default="low", description="Steady state the simulation starts from.")
     events: list[Any] = Field(
         default_factory=list,
-        description="Events applied during the run, e.g. {'at': '10 min', 'do': 'feed_stop'} (exomap.core.events).",
+        description="Events applied during the run, each an object, e.g. {'at': '10 min', 'do': 'feed_stop'}, or a "
+        "line of text as the pages teach, e.g. 'at 10 min set feed_temperature to 45 degC' (exomap.core.events).",
     )
     duration: Quantity | None = Field(
         default=None, description="Simulated time, e.g. '2 h' or seconds; default: the check policy's upset duration."
