@@ -257,14 +257,25 @@ def test_new_scenario_from_a_demo(page: Any, server: str, api: httpx.Client, dem
     page.wait_for_selector("#editor [data-field='title'] input", timeout=TIMEOUT)
     page.fill("#editor [data-field='title'] input", "My copy of the demo (invented)")
     page.click("#editor-save")
+    # the demo's description no longer describes the copy: the page asks for a new one before saving
+    err = page.locator("#editor [data-field='description'] .field-error")
+    err.wait_for(state="visible", timeout=TIMEOUT)
+    assert "Describe the new scenario" in err.inner_text()
+    assert urlparse(page.url).path.endswith(demo["id"])
+    page.fill("#editor [data-field='description'] textarea", "Invented copy of the demo for a test.")
+    page.click("#editor-save")
     page.wait_for_url(re.compile(r"/scenarios/(?!" + demo["id"] + r")[0-9a-f]+"), timeout=TIMEOUT)
     new_id = urlparse(page.url).path.rsplit("/", 1)[-1]
     saved = {s["id"]: s for s in api.get("/api/v1/scenarios").json()["scenarios"]}
     assert saved[new_id]["title"] == "My copy of the demo (invented)" and not saved[new_id]["demo"]
-    # everything else is the demo's: the two documents differ in the title only
+    # the lineage is stored and shown
+    assert saved[new_id]["derived_from"] == demo["id"]
+    page.wait_for_selector("#scenario-derived:not([hidden])", timeout=TIMEOUT)
+    assert page.get_attribute("#scenario-derived a", "href").startswith(f"/scenarios/{demo['id']}")
+    # everything else is the demo's: the two documents differ in the title and description only
     a = api.get(f"/api/v1/scenarios/{demo['id']}").json()
     b = api.get(f"/api/v1/scenarios/{new_id}").json()
-    assert {k for k in a if a[k] != b.get(k)} == {"title"}
+    assert {k for k in a if a[k] != b.get(k)} == {"title", "description"}
 
 
 def test_bad_unit_in_editor_is_shown_beside_the_field(page: Any, server: str, test_tank: str) -> None:
@@ -292,6 +303,7 @@ def test_save_copy_link_and_open_in_fresh_browser(
     page.goto(f"{server}/scenarios/{test_tank}?panel=editor")
     page.wait_for_selector("#editor [data-field='feed.temperature'] input")
     page.fill("#editor [data-field='feed.temperature'] input", "30 degC")
+    page.fill("#editor [data-field='description'] textarea", "Invented test tank with a 30 degC feed.")
     page.click("#editor-save")
     page.wait_for_url(re.compile(r"/scenarios/(?!" + test_tank + r")[0-9a-f]+"), timeout=TIMEOUT)
     new_id = urlparse(page.url).path.rsplit("/", 1)[-1]

@@ -404,7 +404,7 @@ def test_simulation_link_reruns_the_same_run(new_context: Any, server: str, api:
     other = open_page(new_context())
     other.goto(href(page))
     other.wait_for_function(SIM_DRAWN, timeout=TIMEOUT)
-    assert other.input_value("#sim-events") == lines and other.input_value("#sim-duration") == "1 h"
+    assert other.input_value("#sim-events") == lines and other.input_value("#sim-duration") == "60 min"
     assert other.evaluate(SIM_SERIES) == shown
     # and it is the API's answer to the same text events (the GET twin reads the lines as the page sends them)
     answer = api.get(

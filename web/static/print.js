@@ -64,6 +64,18 @@ function table(node, rows) {
   for (const [k, v] of rows) node.append(el("tr", {}, el("th", { scope: "row", text: k }), el("td", { text: v })));
 }
 
+// "Derived from" the scenario this one was saved from (store metadata), so a reviewer sees the lineage.
+async function derivedFrom() {
+  try {
+    const all = (await getJSON(urls.apiScenarios(), "Listing scenarios")).scenarios || [];
+    const me = all.find((s) => s.id === ID);
+    if (!me || !me.derived_from) return;
+    const origin = all.find((s) => s.id === me.derived_from);
+    $("p-derived").textContent = `Derived from ${origin ? `“${origin.title}” ` : ""}(scenario id ${me.derived_from}).`;
+    $("p-derived").hidden = false;
+  } catch { /* the lineage line is a nicety */ }
+}
+
 async function main() {
   wireProblemBox();
   wireSignoff();
@@ -80,6 +92,7 @@ async function main() {
     };
     const full = { ...state, ...sp };
     table($("p-summary"), summaryRows(sc, sp));
+    derivedFrom();
     const [Plotly, map, chk] = await Promise.all([plotlyReady(), getJSON(urls.mapOfPage(ID, full), "Computing the map"),
       getJSON(urls.twinOfPage(ID, full), "Checking the setpoint")]);
     const q = volume(sc) / sp.residence_time;

@@ -462,11 +462,22 @@ async function saveEdits() {
   const doc = view.editor.collect();
   view.editor.clearErrors();
   fieldError("editor-error", "");
+  // a changed scenario keeps its origin's description only if the engineer says so: ask for a new one
+  const original = (view.scenario.description || "").trim();
+  if (original && String(doc.description || "").trim() === original) {
+    const msg = "Describe the new scenario: the description of the one it was made from may no longer hold " +
+      "(edit it, or type the same text again with a change).";
+    const left = view.editor.showErrors([{ field: "description", message: msg }]);
+    if (left.length) fieldError("editor-error", msg);
+    const box = document.querySelector("#editor [data-field='description'] textarea, #editor [data-field='description'] input");
+    if (box) box.focus();
+    return;
+  }
   const headers = {};
   const token = sessionStorage.getItem("exomap-token");
   if (token) headers.Authorization = `Bearer ${token}`;
   try {
-    const saved = await postJSON(urls.apiScenarios(), doc, "Checking and saving the scenario", headers);
+    const saved = await postJSON(urls.apiSaveScenario(ID), doc, "Checking and saving the scenario", headers);
     const next = { ...state, panel: "check", upset: null };
     window.location.assign(urls.scenarioPage(saved.id, next));
   } catch (e) {
@@ -562,8 +573,16 @@ async function main() {
 async function listDemoFlag() {
   try {
     const list = await getJSON(urls.apiScenarios(), "Listing scenarios");
-    const me = (list.scenarios || []).find((s) => s.id === ID);
+    const all = list.scenarios || [];
+    const me = all.find((s) => s.id === ID);
     if (me && me.demo) $("scenario-demo").hidden = false;
+    const origin = me && me.derived_from ? all.find((s) => s.id === me.derived_from) : null;
+    if (me && me.derived_from) {
+      const box = $("scenario-derived");
+      box.textContent = "· derived from ";
+      box.append(el("a", { href: urls.scenarioPage(me.derived_from), text: origin ? origin.title || origin.id : me.derived_from }));
+      box.hidden = false;
+    }
   } catch { /* the demo note is a nicety */ }
 }
 

@@ -76,6 +76,8 @@ export const absolute = (path) => new URL(path, window.location.origin).href;
 
 // -- API ----------------------------------------------------------------------------------------------
 export const apiScenarios = () => `${API}/scenarios`;
+// Saving an edit records the scenario it came from (store metadata, not part of the content id).
+export const apiSaveScenario = (derivedFrom) => `${API}/scenarios` + query({ derived_from: derivedFrom });
 export const apiScenario = (id) => `${API}/scenarios/${seg(id)}`;
 export const apiVersion = () => `${API}/version`;
 export const apiPost = (kind) => `${API}/${seg(kind)}`;

@@ -77,6 +77,7 @@ SCENARIO_SUMMARY = {
         "description": {"type": "string"},
         "demo": {"type": "boolean"},
         "name": {"type": ["string", "null"]},
+        "derived_from": {"type": ["string", "null"], "description": "Id of the scenario this one was saved from."},
     },
 }
 
@@ -247,6 +248,14 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         document: Annotated[
             dict[str, Any], Body(description="A scenario document (DESIGN.md §3).", examples=[body_example])
         ],
+        derived_from: Annotated[
+            str | None,
+            Query(
+                description="Id of the stored scenario this one was edited from (kept as store metadata, not part "
+                "of the content id).",
+                max_length=200,
+            ),
+        ] = None,
     ) -> JSONResponse:
         if settings.save_token:
             auth = request.headers.get("authorization", "")
@@ -262,8 +271,18 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
                 )
         from exomap import schema
 
+        if derived_from is not None:
+            origin = service.store.get(derived_from)
+            if origin is None:
+                raise ApiError(
+                    422,
+                    "invalid_input",
+                    f"derived_from: no stored scenario has the id {derived_from!r}",
+                    [{"field": "derived_from", "message": "no stored scenario has this id"}],
+                )
+            derived_from = origin.id  # a demo named by its file name is recorded by its content id
         try:
-            stored, created = await anyio.to_thread.run_sync(service.store.save, document)
+            stored, created = await anyio.to_thread.run_sync(service.store.save, document, derived_from)
         except schema.ScenarioError as exc:
             raise ApiError(422, "invalid_scenario", "the scenario is not valid; see fields", exc.errors) from None
         headers = {"Location": f"/api/v1/scenarios/{stored.id}"}

@@ -9,6 +9,11 @@ sees every scenario saved before.
 Demo scenarios (the JSON files of the package ``exomap.demos``) are read once when the store opens and listed
 first, marked ``demo``, with their file name (without ``.json``) as ``name``; they are looked up by id or by
 that name. They are never written to the database.
+
+Lineage: a scenario saved from an edit may name the scenario it was derived from (``save(doc,
+derived_from=id)``). That is store metadata, not part of the document, so it does not change the content id;
+the first save of a content keeps its lineage (a later save of the same content changes nothing). A database
+made before the column existed gets it on open.
 """
 
 from __future__ import annotations
@@ -31,7 +36,8 @@ CREATE TABLE IF NOT EXISTS scenarios (
     title       TEXT NOT NULL,
     description TEXT NOT NULL,
     document    TEXT NOT NULL,
-    saved_at    REAL NOT NULL
+    saved_at    REAL NOT NULL,
+    derived_from TEXT
 )
 """
 
@@ -46,6 +52,8 @@ class StoredScenario:
     document: str
     demo: bool = False
     name: str | None = None
+    #: id of the scenario this one was saved from (store metadata, not part of the content id)
+    derived_from: str | None = None
 
     def summary(self) -> dict[str, Any]:
         return {
@@ -54,6 +62,7 @@ class StoredScenario:
             "description": self.description,
             "demo": self.demo,
             "name": self.name,
+            "derived_from": self.derived_from,
         }
 
 
@@ -112,6 +121,9 @@ class ScenarioStore:
         conn = self._conn()
         conn.execute("PRAGMA journal_mode=WAL")
         conn.execute(SCHEMA)
+        columns = {row[1] for row in conn.execute("PRAGMA table_info(scenarios)")}
+        if "derived_from" not in columns:  # a database made before lineage was kept
+            conn.execute("ALTER TABLE scenarios ADD COLUMN derived_from TEXT")
         conn.commit()
         self.demos = list(demos) if demos is not None else []
         self._demo_by_id = {d.id: d for d in self.demos}
@@ -148,34 +160,41 @@ class ScenarioStore:
             return self._demo_by_name[key]
         row = (
             self._conn()
-            .execute("SELECT id, title, description, document FROM scenarios WHERE id = ?", (key,))
+            .execute("SELECT id, title, description, document, derived_from FROM scenarios WHERE id = ?", (key,))
             .fetchone()
         )
         if row is None:
             return None
-        return StoredScenario(row[0], row[1], row[2], row[3])
+        return StoredScenario(row[0], row[1], row[2], row[3], derived_from=row[4])
 
     def list(self) -> list[StoredScenario]:
         """Demos first (by name), then saved scenarios, oldest first; a saved copy of a demo is listed once."""
         rows = (
             self._conn()
-            .execute("SELECT id, title, description, document FROM scenarios ORDER BY saved_at, id")
+            .execute("SELECT id, title, description, document, derived_from FROM scenarios ORDER BY saved_at, id")
             .fetchall()
         )
-        saved = [StoredScenario(*r) for r in rows if r[0] not in self._demo_by_id]
+        saved = [StoredScenario(*r[:4], derived_from=r[4]) for r in rows if r[0] not in self._demo_by_id]
         return self.demos + saved
 
     # -- writing -------------------------------------------------------------------------------------------------
-    def save(self, doc: dict[str, Any]) -> tuple[StoredScenario, bool]:
-        """Validate and save a scenario; return it and whether it is new (False: already there)."""
+    def save(self, doc: dict[str, Any], derived_from: str | None = None) -> tuple[StoredScenario, bool]:
+        """Validate and save a scenario; return it and whether it is new (False: already there).
+
+        ``derived_from`` is the id of the scenario this one was edited from (kept only on the first save of
+        this content; it never changes the id).
+        """
         sid, text, title, description = canonicalize(doc)
         if sid in self._demo_by_id:
             return self._demo_by_id[sid], False
+        if derived_from == sid:
+            derived_from = None  # saved unchanged: not derived from itself
         conn = self._conn()
         with conn:
             cur = conn.execute(
-                "INSERT OR IGNORE INTO scenarios (id, title, description, document, saved_at) VALUES (?,?,?,?,?)",
-                (sid, title, description, text, time.time()),
+                "INSERT OR IGNORE INTO scenarios (id, title, description, document, saved_at, derived_from) "
+                "VALUES (?,?,?,?,?,?)",
+                (sid, title, description, text, time.time(), derived_from),
             )
         created = cur.rowcount == 1
         stored = self.get(sid)
