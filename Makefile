@@ -1,5 +1,6 @@
 # exomap task runner; the targets match the README.
-#   make install   editable install with the test extras (+ Chromium for the browser tests when missing)
+#   make install   editable install with the test extras (+ Chromium for the browser tests and the PostgreSQL
+#                  server binaries for the shared-store tests, when missing)
 #   make test      the whole test suite, browser tests included (installs first)
 #   make serve     the web service with the demo scenarios on the embedded SQLite store (installs first)
 #   make bench     the side-by-side benchmarks in benchmarks/
@@ -21,6 +22,10 @@ $(STAMP): pyproject.toml
 	@if [ ! -x /usr/bin/chromium ]; then \
 		echo "Chromium not found at /usr/bin/chromium: installing it for the browser tests"; \
 		$(SUDO) apt-get update && $(SUDO) apt-get install -y chromium; \
+	fi
+	@if ! ls /usr/lib/postgresql/*/bin/initdb >/dev/null 2>&1; then \
+		echo "PostgreSQL server binaries not found: installing them for the shared-store tests"; \
+		$(SUDO) apt-get update && { $(SUDO) apt-get install -y postgresql-15 || $(SUDO) apt-get install -y postgresql; }; \
 	fi
 	@mkdir -p $(dir $(STAMP)) && touch $(STAMP)
 

@@ -29,3 +29,48 @@ def load_demo():
         return json.loads((SCENARIOS / f"{name}.json").read_text(encoding="utf-8"))
 
     return load
+
+
+# -- PostgreSQL (the shared store of DESIGN.md §14) ----------------------------------------------------------
+@pytest.fixture(scope="session")
+def postgres_server():
+    """One real PostgreSQL server for the whole session (tests/pgserver.py), stopped at the end.
+
+    Missing server binaries FAIL the tests that need them (never a skip): `make install` and `.ci/run` install
+    the postgresql-15 package when /usr/lib/postgresql/15/bin/initdb is missing.
+    """
+    import sys
+
+    sys.path.insert(0, str(Path(__file__).parent))
+    from pgserver import PostgresServer, find_bindir
+
+    bindir = find_bindir()
+    if bindir is None:
+        pytest.fail(
+            "PostgreSQL server binaries (initdb, pg_ctl) not found: install them with "
+            "`apt-get install -y postgresql-15` (make install and .ci/run do this)"
+        )
+    server = PostgresServer(bindir)
+    try:
+        server.start()
+    except BaseException:
+        server.stop()
+        raise
+    yield server
+    server.stop()
+
+
+@pytest.fixture
+def postgres_url(postgres_server):
+    """URL of a fresh, empty database on the session's PostgreSQL server, dropped after the test."""
+    url = postgres_server.new_database()
+    yield url
+    postgres_server.drop_database(url)
+
+
+@pytest.fixture(params=["sqlite", "postgresql"])
+def database_url(request, tmp_path: Path) -> str:
+    """A fresh store on each backend: an SQLite file under tmp_path, or a new PostgreSQL database."""
+    if request.param == "sqlite":
+        return f"sqlite:///{tmp_path / 'db' / 'scenarios.sqlite3'}"
+    return request.getfixturevalue("postgres_url")

@@ -15,8 +15,8 @@ def open_page(ctx: Any) -> Any:
     return ctx.guard.watch(ctx.new_page())
 
 
-def screenshot(page: Any, name: str) -> Path:
+def screenshot(page: Any, name: str, full_page: bool = False) -> Path:
     SCREENSHOTS.mkdir(parents=True, exist_ok=True)
     path = SCREENSHOTS / f"{name}.png"
-    page.screenshot(path=str(path), full_page=False)
+    page.screenshot(path=str(path), full_page=full_page)
     return path

@@ -15,6 +15,12 @@ def _bad_unit() -> dict:
     return doc
 
 
+def _ten_year_upsets() -> dict:
+    doc = copy.deepcopy(ADIABATIC)
+    doc["check_policy"] = {"upset_duration": "3650 d"}  # each upset is a simulation: the same 7-day limit
+    return doc
+
+
 def _bad_k0() -> dict:
     doc = copy.deepcopy(ADIABATIC)
     doc["reactions"][0]["pre_exponential"] = "4e10 m^3/(mol s)"  # a second-order unit on a first-order rate
@@ -40,6 +46,14 @@ CASES = [
     ("post", "/api/v1/map", {"json": {"scenario_id": "{id}", "points": [501, 500]}}, 413, "too_many_cells", "points"),
     ("get", "/api/v1/scenarios/{id}/map?points=1000,1000", {}, 413, "too_many_cells", "points"),
     ("post", "/api/v1/simulate", {"json": {"scenario_id": "{id}", "duration": "8 d"}}, 413, "too_long", "duration"),
+    (
+        "post",
+        "/api/v1/check",
+        {"json": {"scenario": _ten_year_upsets()}},
+        413,
+        "too_long",
+        "check_policy.upset_duration",
+    ),
     (
         "post",
         "/api/v1/simulate",

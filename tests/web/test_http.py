@@ -85,8 +85,8 @@ def test_openapi_has_an_example_for_every_request_body(client) -> None:
                 or ([content["example"]] if "example" in content else [])
             )
             assert examples, f"{method.upper()} {path} has no request example"
-    # POST scenarios, steady, branch, map, check, simulate
-    assert bodies == 6
+    # POST scenarios, steady, branch, map, check, simulate, compare
+    assert bodies == 7
 
 
 def test_request_examples_are_valid_requests(client) -> None:

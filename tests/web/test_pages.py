@@ -166,7 +166,15 @@ def test_nothing_is_loaded_from_another_host() -> None:
 
 
 def test_partials_start_with_underscore() -> None:
-    pages = {"layout.html", "home.html", "scenario.html", "print.html", "missing.html"}
+    pages = {
+        "layout.html",
+        "home.html",
+        "scenario.html",
+        "print.html",
+        "missing.html",
+        "compare.html",
+        "compare_print.html",
+    }
     for path in (ASSETS / "templates").glob("*.html"):
         text = path.read_text(encoding="utf-8")
         for included in re.findall(r'{%\s*include\s+"([^"]+)"', text):

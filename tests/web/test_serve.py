@@ -102,5 +102,5 @@ def test_bad_option_value_is_a_clear_error(capsys: pytest.CaptureFixture[str]) -
     serve.add_parser(parser.add_subparsers())
     args = parser.parse_args(["serve", "--port", "70000"])
     assert serve.run(args) == 2
-    out = capsys.readouterr().out
-    assert "port" in out and "Traceback" not in out
+    err = capsys.readouterr().err
+    assert "port" in err and "Traceback" not in err

@@ -45,3 +45,64 @@ def test_bad_setting_is_refused_naming_it() -> None:
 
     with pytest.raises(ValidationError, match="max_map_cells"):
         Settings(max_map_cells=0)
+
+
+def test_empty_save_token_is_refused_loudly(monkeypatch: pytest.MonkeyPatch) -> None:
+    from pydantic import ValidationError
+
+    monkeypatch.setenv("EXOMAP_SAVE_TOKEN", "")
+    with pytest.raises(ValidationError, match="save_token") as info:
+        Settings()
+    assert "unset it" in str(info.value)
+
+
+@pytest.mark.parametrize("token", ["pässwort", "two words", "tab\there"])
+def test_token_a_header_cannot_carry_is_refused(token: str) -> None:
+    from pydantic import ValidationError
+
+    with pytest.raises(ValidationError, match="printable ASCII"):
+        Settings(save_token=token)
+
+
+def test_plain_string_cors_origins_are_split_on_commas(monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setenv("EXOMAP_CORS_ORIGINS", "http://127.0.0.1:9000, https://plant.example")
+    assert Settings().cors_origins == ["http://127.0.0.1:9000", "https://plant.example"]
+    monkeypatch.setenv("EXOMAP_CORS_ORIGINS", "")
+    assert Settings().cors_origins == []
+
+
+def test_cors_origin_that_is_not_an_origin_is_a_clear_error(monkeypatch: pytest.MonkeyPatch) -> None:
+    from pydantic import ValidationError
+
+    monkeypatch.setenv("EXOMAP_CORS_ORIGINS", "plant.example")
+    with pytest.raises(ValidationError, match="is not an origin"):
+        Settings()
+
+
+def test_serve_prints_one_line_per_bad_setting(monkeypatch: pytest.MonkeyPatch, capsys) -> None:
+    import argparse
+
+    from exomap.cli import serve
+
+    monkeypatch.setenv("EXOMAP_SAVE_TOKEN", "")
+    monkeypatch.setenv("EXOMAP_CORS_ORIGINS", "[not json")
+    parser = argparse.ArgumentParser()
+    serve.add_parser(parser.add_subparsers())
+    assert serve.run(parser.parse_args(["serve"])) == 2
+    err = capsys.readouterr().err
+    assert "Traceback" not in err
+    assert "EXOMAP_SAVE_TOKEN" in err and "EXOMAP_CORS_ORIGINS" in err
+
+
+def test_every_setting_is_documented_in_the_readme() -> None:
+    """README's settings table has one row per field: the variable, its default and its description."""
+    readme = (Path(__file__).resolve().parents[2] / "README.md").read_text(encoding="utf-8")
+    rows = {}
+    for line in readme.splitlines():
+        if line.startswith("| `EXOMAP_"):
+            cells = [c.strip() for c in line.strip("|").split("|")]
+            rows[cells[0].strip("`")] = cells
+    for name, info in Settings.model_fields.items():
+        variable = f"EXOMAP_{name.upper()}"
+        assert variable in rows, f"{variable} is missing from README's settings table"
+        assert rows[variable][2] == info.description, f"README's description of {variable} differs from settings.py"

@@ -1,4 +1,8 @@
-"""The scenario store: content ids, idempotent saves, persistence across restarts, concurrent saves, demos."""
+"""The scenario store: content ids, idempotent saves, persistence across restarts, concurrent saves, demos.
+
+Every test here runs on both backends (the ``database_url`` fixture: an SQLite file, and a fresh database on the
+session's real PostgreSQL server).
+"""
 
 from __future__ import annotations
 
@@ -9,16 +13,23 @@ import threading
 from importlib import resources
 from pathlib import Path
 
+import pytest
 from exomap import schema
-from exomap.web.store import ScenarioStore, load_demos
+from exomap.web.store import ScenarioStore, SQLiteDatabase, load_demos, open_database
 from web_scenarios import ADIABATIC, variant
 
 HEX16 = re.compile(r"^[0-9a-f]{16}$")
 
 
-def test_save_restart_load_round_trip(make_client, tmp_path: Path) -> None:
+@pytest.fixture
+def client(make_client, database_url):
+    """An app on the test's backend (overrides the SQLite-only fixture of conftest.py)."""
+    return make_client(database_url=database_url)
+
+
+def test_save_restart_load_round_trip(make_client, tmp_path: Path, database_url: str) -> None:
     data = tmp_path / "shared"
-    first = make_client(data_dir=data)
+    first = make_client(data_dir=data, database_url=database_url)
     saved = first.post("/api/v1/scenarios", json=ADIABATIC)
     assert saved.status_code == 201
     sid = saved.json()["id"]
@@ -26,7 +37,7 @@ def test_save_restart_load_round_trip(make_client, tmp_path: Path) -> None:
     before = first.get(f"/api/v1/scenarios/{sid}").text
     first.__exit__(None, None, None)
 
-    second = make_client(data_dir=data)  # a new app on the same data folder
+    second = make_client(data_dir=data, database_url=database_url)  # a new app on the same store
     after = second.get(f"/api/v1/scenarios/{sid}")
     assert after.status_code == 200
     assert after.text == before
@@ -60,19 +71,18 @@ def test_different_scenarios_never_share_an_id(client) -> None:
     assert all(HEX16.match(i) for i in ids)
 
 
-def test_nothing_is_overwritten(tmp_path: Path) -> None:
-    store = ScenarioStore(tmp_path)
+def test_nothing_is_overwritten(tmp_path: Path, database_url: str) -> None:
+    store = ScenarioStore(open_database(database_url, tmp_path))
     stored, created = store.save(ADIABATIC)
     again, created_again = store.save(ADIABATIC)
     assert created and not created_again
     assert again.document == stored.document
-    rows = store._conn().execute("SELECT COUNT(*) FROM scenarios").fetchone()[0]
-    assert rows == 1
+    assert [r.id for r in store.database.fetch_all()] == [stored.id]
     store.close()
 
 
-def test_concurrent_saves_are_safe(tmp_path: Path) -> None:
-    store = ScenarioStore(tmp_path)
+def test_concurrent_saves_are_safe(tmp_path: Path, database_url: str) -> None:
+    store = ScenarioStore(open_database(database_url, tmp_path))
     docs = []
     for k in range(8):
         doc = copy.deepcopy(ADIABATIC)
@@ -105,7 +115,8 @@ def test_concurrent_saves_are_safe(tmp_path: Path) -> None:
     # each scenario was created exactly once, whatever the interleaving
     assert sum(created for _, created in results) == 8
     assert {s.id for s in store.list()} == ids
-    assert store._conn().execute("PRAGMA journal_mode").fetchone()[0].lower() == "wal"
+    if isinstance(store.database, SQLiteDatabase):
+        assert store.database._conn().execute("PRAGMA journal_mode").fetchone()[0].lower() == "wal"
     store.close()
 
 

@@ -110,6 +110,13 @@ function fmtEntry(key, m) {
   return s;
 }
 
+// the opening needed at the set level, or in words when no valve can take it (below or above its range)
+function valveText(s) {
+  if (s.valve_opening_status === "below_range") return "below its range";
+  if (s.valve_opening_status === "above_range") return "above its range";
+  return s.valve_opening === null || s.valve_opening === undefined ? "—" : fmtPct(s.valve_opening);
+}
+
 export function renderStates(table, states, assumedIndex) {
   table.textContent = "";
   table.append(el("tr", {}, ...["", "Temperature", "Conversion", "Stability", "Valve opening"].map((h) =>
@@ -119,7 +126,7 @@ export function renderStates(table, states, assumedIndex) {
     table.append(el("tr", { class: i === assumedIndex ? "assumed" : null },
       el("td", { text: i === assumedIndex ? "operating" : "" }), el("td", { text: fmtTemp(s.temperature_K) }),
       el("td", { text: fmtPct(s.conversion) }), el("td", { text: stab }),
-      el("td", { text: s.valve_opening === null || s.valve_opening === undefined ? "—" : fmtPct(s.valve_opening) })));
+      el("td", { text: valveText(s) })));
   });
   if (!states || !states.length) table.append(el("tr", {}, el("td", { colspan: "5", text: "no steady state found" })));
 }

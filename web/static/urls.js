@@ -101,3 +101,36 @@ export function mapOfPage(id, state, format) {
     points: state.points, format,
   });
 }
+
+// -- compare (the server's twin: exomap/web/urls.py COMPARE_KEYS) ---------------------------------------
+export const COMPARE_KEYS = [
+  "a", "b", "residence_time_a", "feed_temperature_a", "branch_a", "residence_time_b", "feed_temperature_b",
+  "branch_b", "map_residence_time", "map_feed_temperature", "points", "prepared_by", "reviewed_by",
+  "change_reference", "review_date",
+];
+const SIGN_OFF = ["prepared_by", "reviewed_by", "change_reference", "review_date"];
+
+function compareOrdered(state) {
+  const out = {};
+  for (const k of COMPARE_KEYS) if (state && state[k] !== undefined && state[k] !== null && state[k] !== "") out[k] = state[k];
+  return out;
+}
+
+export function readCompareState(search = window.location.search) {
+  const q = new URLSearchParams(search);
+  const st = {};
+  for (const k of COMPARE_KEYS) if (q.has(k) && q.get(k) !== "") st[k] = q.get(k);
+  for (const k of ["residence_time_a", "feed_temperature_a", "residence_time_b", "feed_temperature_b"])
+    if (k in st) st[k] = Number.isFinite(Number(st[k])) ? Number(st[k]) : undefined;
+  return st;
+}
+
+export const comparePage = (state) => "/compare" + query(compareOrdered(state));
+export const comparePrintPage = (state) => "/compare/print" + query(compareOrdered(state));
+
+// The GET twin of a comparison: the page's keys, the map window without its "map_" prefix, no sign-off fields.
+export function apiCompare(state) {
+  const p = {};
+  for (const [k, v] of Object.entries(compareOrdered(state))) if (!SIGN_OFF.includes(k)) p[k.replace(/^map_/, "")] = v;
+  return `${API}/compare` + query(p);
+}

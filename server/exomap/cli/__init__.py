@@ -1,4 +1,4 @@
-"""Command-line interface: ``exomap serve|steady|branch|map|check|simulate``.
+"""Command-line interface: ``exomap serve|steady|branch|map|check|simulate|compare``.
 
 Each sub-command lives in its own module ``exomap.cli.<name>`` exposing ``add_parser(subparsers)`` and
 ``run(args) -> int``. Only the module of the command being run is imported (``exomap steady`` never loads the
@@ -27,6 +27,7 @@ COMMANDS: dict[str, str] = {
     "map": "operating map of residence time against feed temperature",
     "check": "check a setpoint: margins, upsets, verdict",
     "simulate": "dynamic response to events",
+    "compare": "before and after a change: fields, map cells that changed region, both checks",
 }
 
 #: Exit status for bad input (argparse uses 2 as well).

@@ -47,6 +47,18 @@ def percent(x: float | None, digits: int = 0) -> str:
     return "-" if _missing(x) else f"{100.0 * x:.{digits}f} %"
 
 
+def opening(x: float) -> str:
+    """A valve opening needed [-] as ``"38 % open"``, or in words when no valve can take it."""
+    from exomap.core.valve import ABOVE_RANGE, BELOW_RANGE, opening_status
+
+    status = opening_status(x)
+    if status == BELOW_RANGE:
+        return "below its range"
+    if status == ABOVE_RANGE:
+        return "above its range (too small)"
+    return "-" if _missing(x) else f"{100.0 * x:.0f} % open"
+
+
 def number(x: float | None, fmt: str = ".3g") -> str:
     return "-" if _missing(x) else format(x, fmt)
 

@@ -63,6 +63,34 @@ def _when(t: float | None) -> str:
     return "-" if t is None else fmt.minutes(t)
 
 
+#: Alarm kinds in words.
+_ALARM_WORDS = {
+    "alarm_temperature": "temperature alarm",
+    "max_temperature": "maximum temperature",
+    "level_high": "level high",
+    "level_low": "level low",
+    "overflow": "overflow",
+    "empty": "empty",
+}
+#: How an upset ended, in words.
+_ENDINGS = {
+    "settled": "settled",
+    "overflow": "stopped: overflow",
+    "empty": "stopped: empty",
+    "rising": "still heating at the cap",
+    "falling": "still cooling at the cap",
+    "oscillating": "still oscillating at the cap",
+    "moving": "level still moving at the cap",
+    "": "could not be simulated",
+}
+
+
+def _alarms(u: Any) -> str:
+    if u.failed:
+        return "unknown"
+    return ", ".join(f"{_ALARM_WORDS.get(a['kind'], a['kind'])} {fmt.minutes(a['time_s'])}" for a in u.alarms) or "none"
+
+
 def render(sc: Any, r: Any) -> str:
     """The readable report of a CheckResult."""
     st = r.state
@@ -72,6 +100,11 @@ def render(sc: Any, r: Any) -> str:
     lines.append(
         f"Operating point: residence time {fmt.minutes(r.tau)}, feed {fmt.celsius(r.T_in)}, flow {fmt.flow(q)}"
     )
+    if r.verdict == "undetermined":  # nothing computed from a failed computation is shown (DESIGN.md §6)
+        lines += ["VERDICT: UNDETERMINED", "", "What failed:"]
+        lines.extend(f"  - {reason}" for reason in r.reasons)
+        lines += ["", fmt.cautions_block()]
+        return "\n".join(lines)
     lines.append(f"VERDICT: {r.verdict.upper()}   (region: {r.region})")
     lines.append("")
     lines.append("Reasons:")
@@ -80,7 +113,7 @@ def render(sc: Any, r: Any) -> str:
     lines.append(
         f"Tank state: {fmt.celsius(st.T)}, {st.stability}"
         + (" (oscillatory)" if st.oscillatory else "")
-        + f", conversion {fmt.percent(st.conversion, 1)}, valve {fmt.percent(st.valve_opening)} open"
+        + f", conversion {fmt.percent(st.conversion, 1)}, valve {fmt.opening(st.valve_opening)}"
     )
     lines.append(f"Assumed: {r.assumption}")
     others = [fmt.celsius(s.T) + f" {s.stability}" for i, s in enumerate(r.steady.states) if i != r.state_index]
@@ -98,18 +131,26 @@ def render(sc: Any, r: Any) -> str:
     lines.append("")
     s = r.safety
     tmr = "-" if s.tmr_ad is None or s.tmr_ad == float("inf") else fmt.minutes(s.tmr_ad)
+    decomposition = (
+        f"TD24 {fmt.celsius(s.td24)}" if s.has_decomposition else "no decomposition reaction given (no TD24)"
+    )
     lines.append(
         f"Thermal safety: dT_ad {fmt.kelvin_difference(s.dT_ad)}, MTSR {fmt.celsius(s.mtsr)}, TMRad {tmr} from the "
-        f"operating state, TD24 {fmt.celsius(s.td24)}, criticality class "
+        f"operating state, {decomposition}, criticality class "
         + ("-" if s.criticality_class is None else str(s.criticality_class))
         + f" ({s.criticality_reason})"
     )
+    mtsr = r.mtsr_block()
+    lines.append(f"  {mtsr['assumes']}.")
+    if mtsr["note"]:
+        lines.append(f"  Beside it: {mtsr['note']}.")
     lines.append("")
-    dur = fmt.minutes(r.upsets[0].duration) if r.upsets else "-"
+    cap = fmt.minutes(r.upsets[0].duration) if r.upsets else "-"
     lines.append(
-        f"Upsets from the operating state ({dur} each; max temperature {fmt.celsius(sc.limits.T_max)}"
+        f"Upsets from the operating state, each followed until it settles or stops (at most {cap}); maximum "
+        f"temperature {fmt.celsius(sc.limits.T_max)}"
         + (f", alarm {fmt.celsius(sc.limits.T_alarm)}" if sc.limits.T_alarm is not None else "")
-        + "):"
+        + f"; time to act {fmt.minutes(sc.policy.min_time_to_act)}:"
     )
     rows = []
     for u in r.upsets:
@@ -117,19 +158,18 @@ def render(sc: Any, r: Any) -> str:
             [
                 u.label,
                 fmt.celsius(u.peak_T),
-                _when(u.peak_t),
-                _when(u.time_to_alarm),
-                _when(u.time_to_max),
+                _when(None if u.failed else u.peak_t),
                 f"{u.level_min:.2f}..{u.level_max:.2f} m" if u.level_min == u.level_min else "-",
                 fmt.celsius(u.final_T),
-                "steady" if u.settled else ("stopped: " + u.stop_reason if u.stop_reason != "completed" else "moving"),
+                _ENDINGS.get(u.ending, u.ending) + ("" if u.failed else f" at {fmt.minutes(u.end_time)}"),
+                _alarms(u),
             ]
         )
     lines.append(
         fmt.table(
-            ["upset", "peak", "at", "to alarm", "to max", "level", "end", "settles"],
+            ["upset", "peak", "at", "level", "end", "how it ended", "alarms (time after the upset)"],
             rows,
-            right=[False, True, True, True, True, True, True, False],
+            right=[False, True, True, True, True, False, False],
         )
     )
     lines += ["", fmt.cautions_block()]

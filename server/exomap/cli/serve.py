@@ -7,6 +7,7 @@ on the loopback address unless told otherwise.
 from __future__ import annotations
 
 import argparse
+import sys
 from pathlib import Path
 
 
@@ -50,24 +51,43 @@ def settings_from_args(args: argparse.Namespace):  # noqa: ANN201 - Settings, im
     return Settings(**overrides)
 
 
+def _setting_errors(exc: Exception) -> list[str]:
+    """One line per bad setting, naming its environment variable (and option), without a traceback."""
+    from pydantic import ValidationError
+
+    if not isinstance(exc, ValidationError):  # pydantic-settings' SettingsError: a value it could not decode
+        return [f"exomap serve: {exc}"]
+    lines = []
+    for err in exc.errors():
+        name = ".".join(str(p) for p in err["loc"]) or "settings"
+        message = str(err["msg"]).removeprefix("Value error, ")
+        lines.append(f"exomap serve: EXOMAP_{name.upper()} / {name}: {message}")
+    return lines
+
+
 def run(args: argparse.Namespace) -> int:
     """Run the server until interrupted; return the exit status."""
     import uvicorn
     from pydantic import ValidationError
+    from pydantic_settings import SettingsError
 
     from exomap.web.app import create_app
+    from exomap.web.store import StoreUnavailableError
 
     try:
         settings = settings_from_args(args)
-    except ValidationError as exc:
-        for err in exc.errors():
-            where = ".".join(str(p) for p in err["loc"]) or "settings"
-            print(f"exomap serve: {where}: {err['msg']}")
+    except (ValidationError, SettingsError) as exc:
+        for line in _setting_errors(exc):
+            print(line, file=sys.stderr)
         return 2
-    app = create_app(settings, warm_up=True)
+    try:
+        app = create_app(settings, warm_up=True)
+    except StoreUnavailableError as exc:
+        print(f"exomap serve: {exc}", file=sys.stderr)
+        return 2
     print(
         f"exomap: serving on http://{settings.host}:{settings.port}/ (API docs at /api/docs); "
-        f"scenario store in {settings.data_dir.resolve()}"
+        f"scenario store {app.state.store.database.where}"
     )
     uvicorn.run(app, host=settings.host, port=settings.port, log_level=args.log_level, proxy_headers=False)
     return 0

@@ -59,7 +59,7 @@ def render(sc, result) -> str:  # noqa: ANN001 - Scenario, SteadyStateResult
                 fmt.percent(s.conversion, 1),
                 s.stability + (" (oscillatory)" if s.oscillatory else ""),
                 "-" if lead is None else f"{lead.real:.3g}" + (f" ± {abs(lead.imag):.3g}i" if lead.imag else ""),
-                fmt.percent(s.valve_opening),
+                fmt.opening(s.valve_opening),
                 fmt.number(s.sensitivity, ".2f"),
                 "above max" if s.T > sc.limits.T_max else "",
             ]

@@ -283,8 +283,11 @@ class _Plane:
         return X, Y, abs(self.G(X, Y)) < 1e-10
 
 
-def _trace(plane: _Plane, X: float, Y: float, direction: float, max_steps: int = 4000, max_step: float = 0.02):
-    """Pseudo-arclength continuation from (X, Y); returns the list of (X, Y, tX) along the curve."""
+def _trace(
+    plane: _Plane, X: float, Y: float, direction: float, max_steps: int = 4000, max_step: float = 0.02
+) -> tuple[list[tuple[float, float, float]], bool]:
+    """Pseudo-arclength continuation from (X, Y); returns the list of (X, Y, tX) along the curve and whether
+    it came back to its start (a closed curve, an isola: the start is not repeated at the end)."""
     path = [(X, Y, 0.0)]
     h = 0.01
     _, gx, gy = plane.grad(X, Y)
@@ -316,9 +319,9 @@ def _trace(plane: _Plane, X: float, Y: float, direction: float, max_steps: int =
         if not (-1e-9 <= X <= 1 + 1e-9 and -0.05 <= Y <= 1.05):
             break
         if step > 10 and math.hypot(X - X0, Y - Y0) < 0.5 * h:
-            path.append((X0, Y0, tx))  # closed curve (isola)
-            break
-    return path
+            path.pop()  # back at the start: a closed curve (isola), each point listed once
+            return path, True
+    return path, False
 
 
 def _along_residence_time(mf: Manifold, T_in: float, lo: float, hi: float, max_step: float = 0.02):
@@ -336,6 +339,7 @@ def _along_residence_time(mf: Manifold, T_in: float, lo: float, hi: float, max_s
     starts = [plane.XY(float(taus[c]), s) for c in (0, taus.size - 1) for s in roots(c)]
     interior = [plane.XY(float(taus[c]), s) for c in range(6, taus.size - 1, 6) for s in roots(c)]
     pieces: list[list[tuple[float, float, float]]] = []
+    closed_pieces: set[int] = set()
 
     def covered(X: float, Y: float) -> bool:
         for p in pieces:
@@ -356,12 +360,16 @@ def _along_residence_time(mf: Manifold, T_in: float, lo: float, hi: float, max_s
         _, gx, gy = plane.grad(X, Y)
         if gy * direction < 0:  # tangent (gy, -gx): make its X component point into the window
             direction = -direction
-        pieces.append(_trace(plane, X, Y, direction, max_step=max_step))
+        pieces.append(_trace(plane, X, Y, direction, max_step=max_step)[0])
     for X, Y in interior:
         if covered(X, Y):
             continue
-        a = _trace(plane, X, Y, 1.0, max_step=max_step)
-        b = _trace(plane, X, Y, -1.0, max_step=max_step)
+        a, closed = _trace(plane, X, Y, 1.0, max_step=max_step)
+        if closed:  # an isola: one direction has gone all the way round
+            pieces.append(a)
+            closed_pieces.add(len(pieces) - 1)
+            continue
+        b, _ = _trace(plane, X, Y, -1.0, max_step=max_step)
         pieces.append(list(reversed(b)) + a[1:])
 
     points: list[BranchPoint] = []
@@ -369,14 +377,18 @@ def _along_residence_time(mf: Manifold, T_in: float, lo: float, hi: float, max_s
     hopfs: list[HopfPoint] = []
     for k, path in enumerate(pieces):
         prev = None
-        for X, Y, tx in path:
+        # a closed piece comes back to its first point: that last step is checked for turns too, but the
+        # point is listed once
+        wrap = [path[0]] if k in closed_pieces and len(path) > 2 else []
+        for i, (X, Y, tx) in enumerate(path + wrap):
             tau, s = plane.tau_s(X, Y)
             if not (lo * (1 - 1e-12) <= tau <= hi * (1 + 1e-12)):
                 prev = None
                 continue
             e = _one(mf, tau, s)
             re, cplx, _ = _lead(mf, tau, s)
-            points.append(BranchPoint(tau, tau, T_in, float(e.T[0]), _conversion(mf, e.xi[0]), re < 0, cplx, k))
+            if i < len(path):
+                points.append(BranchPoint(tau, tau, T_in, float(e.T[0]), _conversion(mf, e.xi[0]), re < 0, cplx, k))
             cur = (X, Y, tx, re, cplx)
             if prev is not None:
                 if prev[2] * tx < 0:
@@ -388,10 +400,25 @@ def _along_residence_time(mf: Manifold, T_in: float, lo: float, hi: float, max_s
                     if hp is not None:
                         hopfs.append(hp)
             prev = cur
-    for tp in _locus_turning_points(plane, taus, cols):
-        if not any(t.kind == tp.kind and abs(t.tau - tp.tau) <= 1e-7 * tp.tau for t in turns):
-            turns.append(tp)
-    return points, turns, hopfs
+    turns = _distinct(turns + _locus_turning_points(plane, taus, cols))
+    return points, turns, _distinct(hopfs)
+
+
+def _distinct(found: list) -> list:
+    """Turning or Hopf points with each point once: two finds of one point (from two traced pieces, from
+    both sides of a closed curve, or from the fold locus and a traced piece) agree to solver accuracy."""
+    out: list = []
+    for p in found:
+        same = (
+            getattr(q, "kind", None) == getattr(p, "kind", None)
+            and abs(q.tau - p.tau) <= 1e-7 * p.tau
+            and abs(q.T_in - p.T_in) <= 1e-7 * p.T_in
+            and abs(q.T - p.T) <= 1e-6 * p.T
+            for q in out
+        )
+        if not any(same):
+            out.append(p)
+    return out
 
 
 def _locus_turning_points(plane: _Plane, taus: np.ndarray, cols: FoldColumns) -> list[TurningPoint]:

@@ -1,12 +1,20 @@
 """The setpoint check of DESIGN.md §6: is the tank inside its safe operating window at this point?
 
-``check_setpoint()`` finds every steady state at the operating point, decides which one the tank is on, its
-map region, its margins to ignition, extinction, the maximum temperature and the valve's usable range, its
-thermal-safety figures, and simulates a battery of credible upsets from it. The verdict is ``outside``,
-``marginal`` or ``inside``, with one reason per finding; each reason states the number and the threshold.
+``check_setpoint()`` is the list of DESIGN.md §6 as named steps:
 
-Thresholds are the project defaults of ``CheckPolicy`` (DESIGN.md §6), overridable in the scenario's
-``check_policy``; the maximum and alarm temperatures are the scenario's ``limits``.
+1. ``_operating_point``: the point and the request checked (the upsets' cap bounded like a simulation);
+2. ``steady_states`` and ``_pick_state``: every steady state, and which one the tank is on;
+3. ``region_of``: the map region of the point;
+4. ``_margins``: to ignition, extinction, the maximum temperature and the valve's usable range;
+5. ``safety_figures``: ΔT_ad, MTSR, TMRad, TD24, criticality class;
+6. ``run_upsets``: the upset battery, each followed until it settles, stops, or reaches its cap;
+7. ``_findings``: one rule function per line of the verdict rules, each returning its findings;
+8. ``_verdict``: ``undetermined`` when any computation the verdict rests on failed (and then only those
+   reasons), else the worst finding: ``outside``, ``marginal``, or ``inside``.
+
+Each reason states the number, the threshold and where the threshold comes from (the scenario's limits, a
+project default overridable in ``check_policy``, common practice, or a published method); regions are named in
+the map legend's words.
 
 Notes
 -----
@@ -18,9 +26,13 @@ Notes
   extinction. A turning point counts for the state only when it lies on the state's side: an ignition point
   ahead of a low state (its temperature above the state's), an extinction point behind a hot state (its
   temperature below the state's). The branches span the scenario's map window (or a wide default).
-* Upsets start from the operating state at time 0 and last ``check_policy.upset_duration``; they are
-  integrated at ``UPSET_RTOL`` with ``UPSET_POINTS`` recorded points (the peak is refined between solver
-  steps, alarm times are root-found, so neither depends on the recording).
+* Upsets start from the operating state at time 0 and are followed until they settle, stop (overflow,
+  empty) or reach ``check_policy.upset_duration`` (the cap); one still heating at its cap is a reason. They
+  are integrated at ``UPSET_RTOL`` (the peak is refined between solver steps, alarm times are root-found).
+* ``cooling_lost_feed_stopped`` is the dynamic counterpart of MTSR: cooling lost, and the interlock stops the
+  feed and shuts the outlet at the same moment, so the hold-up is closed as MTSR assumes. (The outflow does not
+  change the temperature of a well-mixed tank, but an open outlet would drain it and end the run before the
+  reaction does.) Without heat loss, agitator power or decomposition its peak is MTSR.
 """
 
 from __future__ import annotations
@@ -31,10 +43,12 @@ from typing import Any
 
 import numpy as np
 
+from exomap.core import valve as valve_mod
 from exomap.core.cautions import CAUTIONS
-from exomap.core.dynamics import SimulationResult, simulate
-from exomap.core.errors import ConvergenceError, ModelInputError
-from exomap.core.safety import SafetyFigures, safety_figures
+from exomap.core.dynamics import SETTLED_DT_PER_H, SETTLED_T_BAND, SimulationResult, simulate
+from exomap.core.errors import ConvergenceError, LimitExceededError, ModelInputError
+from exomap.core.regions import REGIONS
+from exomap.core.safety import DAY, SafetyFigures, safety_figures, tmr_ad
 from exomap.core.scenario import CheckPolicy, Scenario, validate
 
 #: The feed-temperature step of the "feed warmer" upset [K] (DESIGN.md §6).
@@ -43,23 +57,41 @@ UPSET_FEED_RISE = 10.0
 UPSET_FLOW_DOWN, UPSET_FLOW_UP = 0.5, 1.5
 #: Factor of the "feed stronger" upset on every species in the feed [-] (DESIGN.md §6).
 UPSET_STRONGER = 1.2
+#: Factor on the jacket's UA of the "cooling at half" upset [-] (DESIGN.md §6).
+UPSET_UA_FACTOR = 0.5
+#: The coolant-temperature step of the "coolant warmer" upset [K] (DESIGN.md §6).
+UPSET_COOLANT_RISE = 10.0
 BRANCHES = ("low", "high")
 #: Integrator tolerance of the upsets [-]: peak temperatures to a few hundredths of a kelvin, enough for a
 #: screening check, and about a quarter less work than the simulator's default of 1e-6.
 UPSET_RTOL = 1e-5
-#: Recorded points per upset (the level extremes are read off them; the peak is refined separately).
+#: Recorded points per upset cap (the level extremes are read off them and the solver steps).
 UPSET_POINTS = 240
+#: Longest cap an upset may have [s]: the service's default limit on one simulation (7 days). The web layer
+#: passes its own configured limit.
+MAX_UPSET_DURATION = 7 * 86400.0
+#: Verdict words, mildest first ("undetermined" overrides them all).
+VERDICTS = ("inside", "marginal", "outside")
 _DEFAULT_POLICY = CheckPolicy()
+_REGION_LABEL = {key: label for _, key, label in REGIONS}
+#: What MTSR assumes, in the words the answer and the page use.
+MTSR_ASSUMES = (
+    "MTSR = T + ΔT_ad·(1 − X) is the temperature the tank reaches when, at the operating state, the feed and the "
+    "outlet stop and all cooling is lost: the unconverted reactant held up reacts with no heat removal and "
+    "nothing more comes in"
+)
 
 
 @dataclass(frozen=True)
 class Margin:
-    """One margin: ``value`` in the unit of its key, None when it does not exist (``note`` says why)."""
+    """One margin: ``value`` in the unit of its key, None when it does not exist (``note`` says why).
+    ``failed`` marks a margin that could not be computed (the verdict is then undetermined)."""
 
     key: str
     value: float | None
     threshold: float | None
     note: str = ""
+    failed: bool = False
 
     @property
     def ok(self) -> bool | None:
@@ -73,8 +105,12 @@ class Margin:
 
 @dataclass(frozen=True)
 class UpsetResult:
-    """What one upset does to the tank, from a simulation of ``duration`` [s] (times [s], temperatures [K],
-    levels [m])."""
+    """What one upset does to the tank (times [s], temperatures [K], levels [m]).
+
+    ``duration`` is the cap; ``end_time`` when the run ended (settled, stopped, or at the cap).
+    ``alarms`` are ``{"kind", "time_s"}`` in time order (kinds of ``ALARM_KINDS``). ``dT_end_per_h`` is
+    the temperature's rate of change at the end [K/h]; ``rising`` says the run reached its cap still heating.
+    """
 
     key: str
     label: str
@@ -82,8 +118,7 @@ class UpsetResult:
     duration: float
     peak_T: float
     peak_t: float
-    time_to_alarm: float | None
-    time_to_max: float | None
+    alarms: tuple[dict[str, Any], ...]
     level_min: float
     level_max: float
     final_T: float
@@ -91,10 +126,41 @@ class UpsetResult:
     settled: bool
     stop_reason: str
     end_time: float
+    dT_end_per_h: float = math.nan
+    ending: str = ""
+    ceiling_T: float = math.nan
     message: str = ""
 
+    @property
+    def failed(self) -> bool:
+        return self.stop_reason == "solver_failed"
+
+    @property
+    def rising(self) -> bool:
+        """Still heating when the cap was reached."""
+        return self.ending == "rising"
+
+    def bounded_below(self, T: float) -> bool:
+        """Whether a run still heating at its cap can never reach ``T`` [K] (its adiabatic ceiling is below)."""
+        return math.isfinite(self.ceiling_T) and self.ceiling_T < T
+
+    def first(self, kind: str) -> float | None:
+        """Time [s] of the first alarm of this kind, or None."""
+        return next((a["time_s"] for a in self.alarms if a["kind"] == kind), None)
+
+    @property
+    def time_to_alarm(self) -> float | None:
+        return self.first("alarm_temperature")
+
+    @property
+    def time_to_max(self) -> float | None:
+        return self.first("max_temperature")
+
     @classmethod
-    def of(cls, key: str, label: str, events: list[dict[str, Any]], sim: SimulationResult) -> UpsetResult:
+    def of(
+        cls, key: str, label: str, events: list[dict[str, Any]], sim: SimulationResult, ceiling_T: float = math.nan
+    ) -> UpsetResult:
+        n = len(sim.species)
         return cls(
             key=key,
             label=label,
@@ -102,8 +168,7 @@ class UpsetResult:
             duration=sim.duration,
             peak_T=sim.peak_T,
             peak_t=sim.peak_t,
-            time_to_alarm=sim.first_alarm("alarm_temperature"),
-            time_to_max=sim.first_alarm("max_temperature"),
+            alarms=tuple({"kind": a["kind"], "time_s": float(a["time_s"])} for a in sim.alarms),
             level_min=float(np.min(sim.h)),
             level_max=float(np.max(sim.h)),
             final_T=float(sim.T[-1]),
@@ -111,30 +176,17 @@ class UpsetResult:
             settled=sim.settled(),
             stop_reason=sim.stop_reason,
             end_time=sim.t_end,
+            dT_end_per_h=float(sim.dydt_end[1 + n]) * 3600.0,
+            ending=_ending(sim),
+            ceiling_T=ceiling_T,
         )
 
     @classmethod
-    def failed(cls, key: str, label: str, events: list[dict[str, Any]], duration: float, why: str) -> UpsetResult:
+    def failed_run(cls, key: str, label: str, events: list[dict[str, Any]], duration: float, why: str) -> UpsetResult:
         """An upset the integrator could not follow: every outcome unknown (NaN), ``stop_reason`` says so."""
         nan = math.nan
-        return cls(
-            key,
-            label,
-            tuple(events),
-            duration,
-            nan,
-            nan,
-            None,
-            None,
-            nan,
-            nan,
-            nan,
-            nan,
-            False,
-            "solver_failed",
-            nan,
-            message=why,
-        )
+        return cls(key, label, tuple(events), duration, nan, nan, (), nan, nan, nan, nan, False, "solver_failed", nan,
+                   message=why)  # fmt: skip
 
     def to_dict(self) -> dict[str, Any]:
         def fin(x: float) -> float | None:
@@ -147,6 +199,7 @@ class UpsetResult:
             "duration_s": self.duration,
             "peak_temperature_K": fin(self.peak_T),
             "peak_time_s": fin(self.peak_t),
+            "alarms": [dict(a) for a in self.alarms],
             "time_to_alarm_s": self.time_to_alarm,
             "time_to_max_temperature_s": self.time_to_max,
             "level_min_m": fin(self.level_min),
@@ -156,8 +209,45 @@ class UpsetResult:
             "settled": self.settled,
             "stop_reason": self.stop_reason,
             "end_time_s": fin(self.end_time),
+            "temperature_rate_at_end_K_per_h": fin(self.dT_end_per_h),
+            "ending": self.ending,
+            "adiabatic_ceiling_K": fin(self.ceiling_T),
             "message": self.message,
         }
+
+
+def _ending(sim: SimulationResult) -> str:
+    """How a run ended: ``settled``, ``overflow``, ``empty``, or, at its cap, ``oscillating`` (T turned up and
+    down by more than the settle band over the last quarter), ``rising``, ``falling`` or ``moving`` (the level)."""
+    if sim.settled():
+        return "settled"
+    if sim.stop_reason != "completed":
+        return sim.stop_reason
+    n = len(sim.species)
+    tail = sim.T[sim.t >= 0.75 * sim.t_end]
+    steps = np.diff(tail)
+    steps = steps[np.abs(steps) > 1e-9]
+    turns = int(np.count_nonzero(np.diff(np.sign(steps)) != 0)) if steps.size > 1 else 0
+    if turns >= 2 and float(np.ptp(tail)) > SETTLED_T_BAND:
+        return "oscillating"
+    dT = float(sim.dydt_end[1 + n]) * 3600.0
+    if dT > SETTLED_DT_PER_H:
+        return "rising"
+    if dT < -SETTLED_DT_PER_H:
+        return "falling"
+    return "moving"
+
+
+#: Alarm kinds an upset can list (DESIGN.md §4).
+ALARM_KINDS = ("alarm_temperature", "max_temperature", "level_high", "level_low", "overflow", "empty")
+
+
+@dataclass(frozen=True)
+class Finding:
+    """One line of the verdict rules that fired: ``level`` is ``undetermined``, ``outside`` or ``marginal``."""
+
+    level: str
+    text: str
 
 
 @dataclass(frozen=True)
@@ -167,20 +257,21 @@ class CheckResult:
     Attributes
     ----------
     verdict : str
-        ``inside`` | ``marginal`` | ``outside``.
+        ``inside`` | ``marginal`` | ``outside`` | ``undetermined``.
     reasons : tuple of str
+        With ``undetermined``, only what failed.
     tau, T_in : float
         Operating point [s], [K].
     branch : str or None
         As requested.
     steady : SteadyStateResult
-    state_index : int
-        Index in ``steady.states`` of the state the tank is taken to be on.
+    state_index : int or None
+        Index in ``steady.states`` of the state the tank is taken to be on (None: no state found).
     assumption : str
-    region : str
+    region : str or None
         Map region key (DESIGN.md §5).
     margins : tuple of Margin
-    safety : SafetyFigures
+    safety : SafetyFigures or None
     upsets : tuple of UpsetResult
     cautions : tuple of str
     """
@@ -191,11 +282,11 @@ class CheckResult:
     T_in: float
     branch: str | None
     steady: Any
-    state_index: int
+    state_index: int | None
     assumption: str
-    region: str
+    region: str | None
     margins: tuple[Margin, ...]
-    safety: SafetyFigures
+    safety: SafetyFigures | None
     upsets: tuple[UpsetResult, ...]
     cautions: tuple[str, ...] = CAUTIONS
     success: bool = True
@@ -203,16 +294,54 @@ class CheckResult:
     valve_opening: float = math.nan
     valve_range: tuple[float, float] = (0.2, 0.8)
     limits: dict[str, float | None] = field(default_factory=dict)
+    policy: dict[str, float] = field(default_factory=dict)
 
     @property
     def state(self) -> Any:
-        return self.steady.states[self.state_index]
+        return None if self.state_index is None else self.steady.states[self.state_index]
 
     def margin(self, key: str) -> Margin:
         for m in self.margins:
             if m.key == key:
                 return m
         raise KeyError(key)
+
+    def upset(self, key: str) -> UpsetResult:
+        for u in self.upsets:
+            if u.key == key:
+                return u
+        raise KeyError(key)
+
+    def mtsr_block(self) -> dict[str, Any] | None:
+        """MTSR, what it assumes, and the interlocked upset's peak beside it (None without safety figures)."""
+        if self.safety is None:
+            return None
+        inter = next((u for u in self.upsets if u.key == "cooling_lost_feed_stopped"), None)
+        lost = next((u for u in self.upsets if u.key == "cooling_lost"), None)
+        out: dict[str, Any] = {
+            "temperature_K": self.safety.mtsr,
+            "assumes": MTSR_ASSUMES,
+            "interlocked_upset_peak_temperature_K": None,
+            "interlocked_upset_peak_time_s": None,
+            "note": "",
+        }
+        notes = []
+        if inter is not None and not inter.failed:
+            out["interlocked_upset_peak_temperature_K"] = inter.peak_T
+            out["interlocked_upset_peak_time_s"] = inter.peak_t
+            notes.append(
+                f"the upset '{inter.label}' is its dynamic counterpart and peaks at {_abs(inter.peak_T)}; the two "
+                "agree without heat loss to ambient, agitator power and decomposition, which MTSR leaves out"
+            )
+        elif inter is None:
+            notes.append("no jacket: the interlocked cooling-loss upset does not apply")
+        if lost is not None and not lost.failed and lost.peak_T > self.safety.mtsr + 0.5:
+            notes.append(
+                f"the upset '{lost.label}' peaks higher, at {_abs(lost.peak_T)}, because the feed keeps running and "
+                "brings fresh reactant, which MTSR assumes stopped"
+            )
+        out["note"] = "; ".join(notes)
+        return out
 
     def to_dict(self) -> dict[str, Any]:
         steady = self.steady.to_dict()
@@ -225,21 +354,23 @@ class CheckResult:
             "assumption": self.assumption,
             "region": self.region,
             "margins": {m.key: m.to_dict() for m in self.margins},
-            "safety": self.safety.to_dict(),
+            "safety": None if self.safety is None else self.safety.to_dict(),
+            "mtsr": self.mtsr_block(),
             "upsets": [u.to_dict() for u in self.upsets],
             "limits": dict(self.limits),
+            "policy": dict(self.policy),
             "cautions": list(self.cautions),
             "success": self.success,
             "message": self.message,
         }
 
 
-# ---------------------------------------------------------------------------------------------------------
+# -- words ----------------------------------------------------------------------------------------------------
 
 
 def _abs(T: float) -> str:
-    """An absolute temperature for a reason: '398.1 K (125.0 degC)' (K for machines, degC for people)."""
-    return f"{T:.1f} K ({T - 273.15:.1f} degC)"
+    """An absolute temperature for a reason: '398.1 K (125.0 °C)' (K for machines, °C for people)."""
+    return f"{T:.1f} K ({T - 273.15:.1f} °C)"
 
 
 def _below(margin: float) -> str:
@@ -247,16 +378,41 @@ def _below(margin: float) -> str:
     return f"{margin:.1f} K below" if margin >= 0 else f"{-margin:.1f} K above"
 
 
-def _threshold(sc: Scenario, name: str, value: float, unit: str) -> str:
-    """'threshold 10 K (project default; check_policy.x overrides it)' or '(from the scenario's ...)'."""
-    text = f"{value:g} {unit}".rstrip()
+def _min(t: float) -> str:
+    return f"{t / 60:.1f} min"
+
+
+def _source(sc: Scenario, name: str, *, common_practice: bool = False) -> str:
+    """Where a check_policy threshold comes from, in words."""
     if getattr(_DEFAULT_POLICY, name) == getattr(sc.policy, name):
-        return f"threshold {text} (project default, overridable in check_policy.{name})"
-    return f"threshold {text} (set in the scenario's check_policy.{name})"
+        cp = ", common practice" if common_practice else ""
+        return f"project default{cp}, overridable in check_policy.{name}"
+    return f"set in the scenario's check_policy.{name}"
+
+
+def _threshold(sc: Scenario, name: str, value: float, unit: str, *, common_practice: bool = False) -> str:
+    """'threshold 10 K (project default, overridable in check_policy.x)'."""
+    text = f"{value:g} {unit}".rstrip()
+    return f"threshold {text} ({_source(sc, name, common_practice=common_practice)})"
+
+
+def _region(key: str) -> str:
+    """A region in the map legend's words."""
+    return f"the map region “{_REGION_LABEL[key]}”"
+
+
+_T_MAX_SOURCE = "scenario limit limits.max_temperature"
+_TD24_SOURCE = (
+    "TD24, the temperature at which the decomposition's time to maximum rate under adiabatic conditions is 24 h "
+    "(Townsend & Tou; Stoessel), from the scenario's decomposition reaction"
+)
+
+
+# -- steps ----------------------------------------------------------------------------------------------------
 
 
 def upset_battery(sc: Scenario) -> list[tuple[str, str, list[dict[str, Any]]]]:
-    """The upsets of DESIGN.md §6 as (key, label, events); cooling lost only for a jacketed tank."""
+    """The upsets of DESIGN.md §6 as (key, label, events); the cooling upsets only for a jacketed tank."""
     stronger = [
         {"at": 0.0, "scale": f"feed_concentration.{s}", "by": UPSET_STRONGER}
         for s, c in zip(sc.species, sc.c_in, strict=True)
@@ -283,8 +439,47 @@ def upset_battery(sc: Scenario) -> list[tuple[str, str, list[dict[str, Any]]]]:
         ("outlet_blocked", "outlet blocked", [{"at": 0.0, "do": "outlet_block"}]),
     ]
     if sc.UA_jacket > 0:
-        battery.append(("cooling_lost", "cooling lost", [{"at": 0.0, "do": "cooling_loss"}]))
+        battery += [
+            ("cooling_lost", "cooling lost", [{"at": 0.0, "do": "cooling_loss"}]),
+            (
+                "cooling_lost_feed_stopped",
+                "cooling lost, interlock stops the feed and shuts the outlet",
+                [{"at": 0.0, "do": "cooling_loss"}, {"at": 0.0, "do": "feed_stop"}, {"at": 0.0, "do": "outlet_block"}],
+            ),
+            (
+                "cooling_half",
+                f"cooling at {UPSET_UA_FACTOR:.0%} of its UA",
+                [{"at": 0.0, "scale": "jacket_ua", "by": UPSET_UA_FACTOR}],
+            ),
+            (
+                "coolant_warmer",
+                f"coolant {UPSET_COOLANT_RISE:g} K warmer",
+                [{"at": 0.0, "add": "coolant_temperature", "value": UPSET_COOLANT_RISE}],
+            ),
+        ]
     return battery
+
+
+def _operating_point(
+    sc: Scenario, tau: float | None, T_in: float | None, branch: str | None, max_duration: float
+) -> tuple[float, float]:
+    """The operating point [s], [K], with every request value and the upsets' cap checked."""
+    validate(sc)
+    if branch is not None and branch not in BRANCHES:
+        raise ModelInputError(f"branch must be one of {', '.join(BRANCHES)}, got {branch!r}", field="branch")
+    for value, name, unit in ((tau, "residence_time", "s"), (T_in, "feed_temperature", "K")):
+        if value is not None and (
+            isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value) or value <= 0
+        ):
+            raise ModelInputError(f"{name} must be a finite positive number [{unit}], got {value!r}", field=name)
+    cap = sc.policy.upset_duration
+    if not cap <= max_duration:
+        raise LimitExceededError(
+            f"check_policy.upset_duration {cap:g} s is longer than the limit of one simulation, {max_duration:g} s "
+            f"({max_duration / 86400:g} d); give a time [s] of at most that, e.g. '24 h'",
+            field="check_policy.upset_duration",
+        )
+    return float(sc.tau_nominal if tau is None else tau), float(sc.T_in if T_in is None else T_in)
 
 
 def _pick_state(states: tuple[Any, ...], branch: str | None) -> tuple[int, str]:
@@ -312,19 +507,14 @@ def _branch_margins(sc: Scenario, tau: float, T_in: float, state: Any, n_states:
 
     pol = sc.policy
     T = float(state.T)
-    out: list[Margin] = []
-    try:
-        tp_T = turning_points(sc, "feed_temperature", tau, T_in)
-    except ModelInputError as exc:
-        tp_T, why_T = [], f"the feed-temperature branch could not be traced: {exc}"
-    else:
-        why_T = ""
-    try:
-        tp_tau = turning_points(sc, "residence_time", tau, T_in)
-    except ModelInputError as exc:
-        tp_tau, why_tau = [], f"the residence-time branch could not be traced: {exc}"
-    else:
-        why_tau = ""
+    traced: dict[str, tuple[list[Any], str]] = {}
+    for along, words in (("feed_temperature", "feed-temperature"), ("residence_time", "residence-time")):
+        try:
+            traced[along] = (list(turning_points(sc, along, tau, T_in)), "")
+        except (ModelInputError, ConvergenceError) as exc:
+            traced[along] = ([], f"the {words} branch could not be traced: {exc}")
+    tp_T, why_T = traced["feed_temperature"]
+    tp_tau, why_tau = traced["residence_time"]
 
     ign_T = [p.T_in - T_in for p in tp_T if p.kind == "ignition" and p.T_in > T_in and p.T > T]
     ext_T = [T_in - p.T_in for p in tp_T if p.kind == "extinction" and p.T_in < T_in and p.T < T]
@@ -342,39 +532,414 @@ def _branch_margins(sc: Scenario, tau: float, T_in: float, state: Any, n_states:
         side = "above" if kind == "ignition" else "below"
         return f"no {kind} point {side} the operating point along the {along} within the branch's range"
 
-    out.append(
-        Margin(
-            "feed_temperature_rise_to_ignition_K",
-            min(ign_T) if ign_T else None,
-            pol.min_feed_temperature_margin,
-            "" if ign_T else none_why("ignition", "feed temperature", why_T),
+    def margin(key: str, values: list[float], threshold: float | None, kind: str, along: str, why: str) -> Margin:
+        if values:
+            return Margin(key, min(values), threshold, "" if threshold is not None else "no threshold: for information")
+        return Margin(key, None, threshold, none_why(kind, along, why), failed=bool(why))
+
+    return [
+        margin("feed_temperature_rise_to_ignition_K", ign_T, pol.min_feed_temperature_margin, "ignition",
+               "feed temperature", why_T),
+        margin("residence_time_rise_to_ignition_percent", ign_tau, 100.0 * pol.min_residence_time_margin,
+               "ignition", "residence time", why_tau),
+        margin("feed_temperature_drop_to_extinction_K", ext_T, pol.min_extinction_margin, "extinction",
+               "feed temperature", why_T),
+        margin("residence_time_drop_to_extinction_percent", ext_tau, None, "extinction", "residence time", why_tau),
+    ]  # fmt: skip
+
+
+def _margins(sc: Scenario, tau: float, T_in: float, states: tuple[Any, ...], idx: int, mtsr: float) -> list[Margin]:
+    """Every margin of DESIGN.md §6 at the operating state."""
+    st = states[idx]
+    pol, lim = sc.policy, sc.limits
+    out = _branch_margins(sc, tau, T_in, st, len(states), idx)
+    out.append(Margin("steady_temperature_to_max_K", lim.T_max - float(st.T), pol.min_temperature_margin))
+    out.append(Margin("mtsr_to_max_K", lim.T_max - mtsr, pol.min_mtsr_margin))
+    x = float(st.valve_opening)
+    why = _valve_out_of_range(x)
+    if why:  # an opening no valve can take: said in words, never as the number
+        out.append(Margin("valve_opening_to_usable_range_percent", None, 0.0, why))
+    elif math.isfinite(x):
+        out.append(
+            Margin(
+                "valve_opening_to_usable_range_percent",
+                100.0 * min(x - pol.valve_min, pol.valve_max - x),
+                0.0,
+                f"opening {100 * x:.1f} % of a usable {100 * pol.valve_min:g}-{100 * pol.valve_max:g} %",
+            )
         )
-    )
-    out.append(
-        Margin(
-            "residence_time_rise_to_ignition_percent",
-            min(ign_tau) if ign_tau else None,
-            100.0 * pol.min_residence_time_margin,
-            "" if ign_tau else none_why("ignition", "residence time", why_tau),
-        )
-    )
-    out.append(
-        Margin(
-            "feed_temperature_drop_to_extinction_K",
-            min(ext_T) if ext_T else None,
-            pol.min_extinction_margin,
-            "" if ext_T else none_why("extinction", "feed temperature", why_T),
-        )
-    )
-    out.append(
-        Margin(
-            "residence_time_drop_to_extinction_percent",
-            min(ext_tau) if ext_tau else None,
-            None,
-            ("no threshold: for information" if ext_tau else none_why("extinction", "residence time", why_tau)),
-        )
-    )
+    else:
+        out.append(
+            Margin("valve_opening_to_usable_range_percent", None, 0.0, "no driving pressure across the valve at the "
+                   "set level")
+        )  # fmt: skip
     return out
+
+
+def run_upsets(sc: Scenario, tau: float, T_in: float, state: Any) -> list[UpsetResult]:
+    """The upset battery from the operating state, each followed until it settles, stops or reaches the cap
+    ``check_policy.upset_duration``; an upset the integrator cannot follow is kept, marked failed."""
+    y0 = np.concatenate(([sc.vessel.h_set], np.asarray(state.C, dtype=float), [float(state.T), 0.0]))
+    cap = sc.policy.upset_duration
+    out: list[UpsetResult] = []
+    for key, label, events in upset_battery(sc):
+        try:
+            sim = simulate(
+                sc,
+                tau=tau,
+                T_in=T_in,
+                initial=y0,
+                events=events,
+                duration=cap,
+                rtol=UPSET_RTOL,
+                record_every=cap / UPSET_POINTS,
+                until_settled=True,
+            )
+        except ConvergenceError as exc:
+            out.append(UpsetResult.failed_run(key, label, events, cap, str(exc)))
+            continue
+        out.append(UpsetResult.of(key, label, events, sim, _ceiling(sc, events, sim)))
+    return out
+
+
+def _ceiling(sc: Scenario, events: list[dict[str, Any]], sim: SimulationResult) -> float:
+    """The highest temperature a run whose feed is stopped can still reach from its end [K], or NaN.
+
+    .. math:: T_{top} = \\max(T_{end}, T_{eq}) + \\Delta T_{ad}(C_{end}), \\quad
+              T_{eq} = \\frac{UA_j T_c + UA_l T_{amb} + P}{UA_j + UA_l}
+
+    With the feed stopped nothing more comes in and the outflow leaves the intensive state alone: without
+    reaction the temperature relaxes towards T_eq (jacket, heat loss and agitator in balance), and the reactions
+    can add at most the adiabatic rise of everything left in the tank (decomposition included). NaN when the feed
+    runs, or agitator power meets no heat removal (no bound).
+    """
+    from exomap.core.safety import adiabatic_temperature_rise
+
+    actions = [e.get("do") for e in events]
+    if "feed_stop" not in actions:
+        return math.nan
+    n = len(sim.species)
+    UA_j = 0.0 if "cooling_loss" in actions else sc.UA_jacket
+    UA = UA_j + sc.UA_loss
+    T_end = float(sim.y_end[1 + n])
+    if UA > 0:
+        T_eq = (UA_j * sc.T_c + sc.UA_loss * sc.T_amb + sc.P_agitator) / UA
+    elif sc.P_agitator > 0:
+        return math.nan
+    else:
+        T_eq = T_end
+    return max(T_end, T_eq) + adiabatic_temperature_rise(sc, sim.y_end[1 : 1 + n], "all")
+
+
+# -- the verdict rules (DESIGN.md §6), one function each --------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class _Evidence:
+    """Everything the rules read."""
+
+    sc: Scenario
+    steady: Any
+    idx: int
+    region: str
+    margins: tuple[Margin, ...]
+    safety: SafetyFigures
+    upsets: tuple[UpsetResult, ...]
+
+    @property
+    def state(self) -> Any:
+        return self.steady.states[self.idx]
+
+
+def failed_computations(ev: _Evidence) -> list[Finding]:
+    """``undetermined``: a state that did not converge, a branch not traced, an upset not followed, a TD24
+    that cannot be bounded."""
+    out = []
+    if not ev.steady.success:
+        out.append(
+            Finding(
+                "undetermined",
+                f"the steady states at this point did not converge ({ev.steady.message}); nothing computed from "
+                "them can be relied on",
+            )
+        )
+    out += [Finding("undetermined", f"margin {m.key}: {m.note}") for m in ev.margins if m.failed]
+    out += [
+        Finding("undetermined", f"upset '{u.label}' could not be simulated ({u.message}); its outcome is unknown")
+        for u in ev.upsets
+        if u.failed
+    ]
+    s = ev.safety
+    if s.td24 is None and s.dT_ad_decomposition > 0 and tmr_ad(ev.sc, 250.0, ev.state.C, "decomposition") < DAY:
+        out.append(
+            Finding(
+                "undetermined",
+                "TD24 lies below 250 K (the decomposition's TMRad is under 24 h even there); the check cannot bound it",
+            )
+        )
+    return out
+
+
+def operating_state(ev: _Evidence) -> list[Finding]:
+    """``outside``: the operating state is not stable, or it is above the maximum temperature."""
+    st, T_max = ev.state, ev.sc.limits.T_max
+    out = []
+    if st.stability != "stable":
+        out.append(
+            Finding(
+                "outside",
+                f"the operating state at {_abs(st.T)} is {st.stability}"
+                + (" (oscillatory)" if st.oscillatory else "")
+                + ": the tank will not stay there (threshold: every eigenvalue with a negative real part)",
+            )
+        )
+    if st.T > T_max:
+        out.append(
+            Finding(
+                "outside",
+                f"the steady temperature {_abs(st.T)} is above the maximum temperature {_abs(T_max)} ({_T_MAX_SOURCE})",
+            )
+        )
+    return out
+
+
+def map_region(ev: _Evidence) -> list[Finding]:
+    """``outside`` in ``runaway``; ``marginal`` in ``multiple`` or ``sensitive``."""
+    sc, states = ev.sc, ev.steady.states
+    if ev.region == "runaway":
+        hot = max(s.T for s in states if s.stability == "stable")
+        return [
+            Finding(
+                "outside",
+                f"the point lies in {_region('runaway')}: a stable steady state at {_abs(hot)} lies above the "
+                f"maximum temperature {_abs(sc.limits.T_max)} ({_T_MAX_SOURCE})",
+            )
+        ]
+    if ev.region == "multiple":
+        return [
+            Finding(
+                "marginal",
+                f"the point lies in {_region('multiple')}: {len(states)} steady states here (threshold: one); "
+                "an upset can make the tank jump between them",
+            )
+        ]
+    if ev.region == "sensitive":
+        pol = sc.policy
+        return [
+            Finding(
+                "marginal",
+                f"the point lies in {_region('sensitive')}: the steady temperature moves "
+                f"{ev.state.sensitivity:.2f} K per K of feed temperature, above the "
+                f"{_threshold(sc, 'sensitivity', pol.sensitivity, 'K/K')}",
+            )
+        ]
+    return []
+
+
+#: Margins with a threshold: key -> (words, unit, check_policy field, factor from the field to the value).
+_MARGIN_WORDS = {
+    "feed_temperature_rise_to_ignition_K": (
+        "the feed-temperature rise to ignition", "K", "min_feed_temperature_margin", 1.0),
+    "residence_time_rise_to_ignition_percent": (
+        "the residence-time rise to ignition", "%", "min_residence_time_margin", 100.0),
+    "feed_temperature_drop_to_extinction_K": (
+        "the feed-temperature drop to extinction", "K", "min_extinction_margin", 1.0),
+}  # fmt: skip
+
+
+def margins_below_thresholds(ev: _Evidence) -> list[Finding]:
+    """``marginal``: a margin below its threshold; the steady temperature or MTSR too close to the maximum."""
+    sc, lim, pol = ev.sc, ev.sc.limits, ev.sc.policy
+    out = []
+    for m in ev.margins:
+        if m.ok is not False:
+            continue
+        if m.key in _MARGIN_WORDS:
+            words, unit, name, factor = _MARGIN_WORDS[m.key]
+            text = (
+                f"{words} is {m.value:.1f} {unit}, below the {_threshold(sc, name, getattr(pol, name) * factor, unit)}"
+            )
+        elif m.key == "steady_temperature_to_max_K":
+            T = float(ev.state.T)
+            text = (
+                f"the steady temperature {_abs(T)} is {_below(lim.T_max - T)} the maximum temperature "
+                f"{_abs(lim.T_max)} ({_T_MAX_SOURCE}); that margin is {m.value:.1f} K, below the "
+                f"{_threshold(sc, 'min_temperature_margin', pol.min_temperature_margin, 'K')}"
+            )
+        elif m.key == "mtsr_to_max_K":
+            mtsr = ev.safety.mtsr
+            text = (
+                f"MTSR {_abs(mtsr)} is {_below(lim.T_max - mtsr)} the maximum temperature {_abs(lim.T_max)} "
+                f"({_T_MAX_SOURCE}); that margin is {m.value:.1f} K, below the "
+                f"{_threshold(sc, 'min_mtsr_margin', pol.min_mtsr_margin, 'K')}"
+            )
+        else:
+            continue
+        out.append(Finding("marginal", text))
+    if ev.safety.mtsr > lim.T_max and not any(m.key == "mtsr_to_max_K" and m.ok is False for m in ev.margins):
+        out.append(
+            Finding(
+                "marginal",
+                f"MTSR {_abs(ev.safety.mtsr)} exceeds the maximum temperature {_abs(lim.T_max)} ({_T_MAX_SOURCE})",
+            )
+        )
+    return out
+
+
+def _valve_out_of_range(x: float) -> str:
+    """Why the opening from the inverse characteristic is no opening the valve can take ('' when it can)."""
+    status = valve_mod.opening_status(x)
+    if status == valve_mod.BELOW_RANGE:
+        return "the flow is below what the valve passes at the smallest opening of its characteristic: below its range"
+    if status == valve_mod.ABOVE_RANGE:
+        return "the valve cannot pass the flow even fully open: above its range (valve too small)"
+    return ""
+
+
+def valve_range(ev: _Evidence) -> list[Finding]:
+    """``marginal``: the valve opening needed is outside its usable range, or the valve cannot pass the flow."""
+    pol = ev.sc.policy
+    x = float(ev.state.valve_opening)
+    why = _valve_out_of_range(x)
+    if why:
+        return [Finding("marginal", f"the outlet valve cannot hold the set level at this flow: {why}")]
+    if not math.isfinite(x):
+        return [
+            Finding("marginal", "the outlet valve has no driving pressure at the set level: it cannot pass the flow")
+        ]
+    if pol.valve_min <= x <= pol.valve_max:
+        return []
+    default = (pol.valve_min, pol.valve_max) == (_DEFAULT_POLICY.valve_min, _DEFAULT_POLICY.valve_max)
+    return [
+        Finding(
+            "marginal",
+            f"the outlet valve must be {100 * x:.1f} % open to pass the flow at the set level, outside the usable "
+            f"range {100 * pol.valve_min:g}-{100 * pol.valve_max:g} % ("
+            + ("project default, common practice, overridable in" if default else "set in the scenario's")
+            + " check_policy.valve_min/valve_max)",
+        )
+    ]
+
+
+def decomposition(ev: _Evidence) -> list[Finding]:
+    """``outside``: MTSR reaches TD24, or the criticality class is 4 or 5; ``marginal``: class 3, or the
+    maximum temperature at or above TD24."""
+    s, T_max = ev.safety, ev.sc.limits.T_max
+    out = []
+    if s.td24 is not None and s.mtsr >= s.td24:
+        out.append(
+            Finding(
+                "outside",
+                f"MTSR {_abs(s.mtsr)} reaches TD24 {_abs(s.td24)} ({_TD24_SOURCE}): a cooling failure would start "
+                "the decomposition (threshold: MTSR below TD24)",
+            )
+        )
+    cls = s.criticality_class
+    if cls is not None and cls >= 3:
+        level = "outside" if cls >= 4 else "marginal"
+        what = "4 and 5 are outside" if cls >= 4 else "3 is marginal"
+        out.append(
+            Finding(
+                level,
+                f"criticality class {cls} ({s.criticality_reason}; Stoessel's classes from the process temperature, "
+                f"MTSR, the technical limit MTT of limits.technical_limit_temperature and TD24): class {what} "
+                "(threshold: class 2 or lower)",
+            )
+        )
+    if s.td24 is not None and T_max >= s.td24:
+        out.append(
+            Finding(
+                "marginal",
+                f"the maximum temperature {_abs(T_max)} ({_T_MAX_SOURCE}) is at or above TD24 {_abs(s.td24)} "
+                f"({_TD24_SOURCE}): a tank held at its limit would start the decomposition within 24 h "
+                "(threshold: the maximum temperature below TD24)",
+            )
+        )
+    return out
+
+
+def upset_outcomes(ev: _Evidence) -> list[Finding]:
+    """``marginal``: an upset crosses the maximum temperature, overflows sooner than
+    ``check_policy.min_time_to_act``, or is still heating at its cap."""
+    sc, lim, pol = ev.sc, ev.sc.limits, ev.sc.policy
+    out = []
+    for u in ev.upsets:
+        if u.failed:
+            continue
+        t_max = u.time_to_max
+        if t_max is not None and ev.state.T <= lim.T_max:
+            out.append(
+                Finding(
+                    "marginal",
+                    f"upset '{u.label}': the temperature reaches the maximum temperature {_abs(lim.T_max)} "
+                    f"({_T_MAX_SOURCE}) after {_min(t_max)} and peaks at {_abs(u.peak_T)}",
+                )
+            )
+        t_over = u.first("overflow")
+        if t_over is not None and t_over < pol.min_time_to_act:
+            out.append(
+                Finding(
+                    "marginal",
+                    f"upset '{u.label}': the vessel overflows after {_min(t_over)}, sooner than the time to act "
+                    f"{_min(pol.min_time_to_act)} ({_source(sc, 'min_time_to_act', common_practice=True)}: time for "
+                    "an operator to notice, diagnose and act)",
+                )
+            )
+        if u.ending == "oscillating":
+            tail = f"{u.duration / 3600:g} h cap ({_source(sc, 'upset_duration')})"
+            out.append(
+                Finding(
+                    "marginal",
+                    f"upset '{u.label}': still oscillating at the end of its {tail}, peaking at {_abs(u.peak_T)} "
+                    "(threshold: settled); the tank does not come to rest",
+                )
+            )
+        if u.rising and not u.bounded_below(min(lim.T_max, ev.safety.td24 or math.inf)):
+            out.append(
+                Finding(
+                    "marginal",
+                    f"upset '{u.label}': still heating at the end of its {u.duration / 3600:g} h cap "
+                    f"({_source(sc, 'upset_duration')}), at {_abs(u.final_T)} rising {u.dT_end_per_h:.2f} K/h "
+                    f"(threshold: settled, under {SETTLED_DT_PER_H:g} K/h); where it ends is not known",
+                )
+            )
+    return out
+
+
+#: The verdict rules of DESIGN.md §6, in its order.
+RULES = (
+    failed_computations,
+    operating_state,
+    map_region,
+    margins_below_thresholds,
+    upset_outcomes,
+    decomposition,
+    valve_range,
+)
+
+
+def _findings(ev: _Evidence) -> list[Finding]:
+    return [f for rule in RULES for f in rule(ev)]
+
+
+def _verdict(findings: list[Finding], ev: _Evidence | None) -> tuple[str, tuple[str, ...]]:
+    """``undetermined`` with only its reasons when anything failed; else the worst level, worst reasons first."""
+    failed = [f.text for f in findings if f.level == "undetermined"]
+    if failed:
+        return "undetermined", tuple(failed)
+    rank = {v: i for i, v in enumerate(VERDICTS)}
+    worst = max((f.level for f in findings), key=rank.__getitem__, default="inside")
+    reasons = [f.text for lvl in ("outside", "marginal") for f in findings if f.level == lvl]
+    if not reasons and ev is not None:
+        T, T_max = float(ev.state.T), ev.sc.limits.T_max
+        reasons = [
+            f"one stable steady state at {_abs(T)}, {T_max - T:.1f} K below the maximum temperature {_abs(T_max)} "
+            f"({_T_MAX_SOURCE}); every margin at or above its threshold (project defaults unless the scenario's "
+            "check_policy sets them); MTSR below the maximum temperature; no upset of the battery reaches the "
+            "maximum temperature, overflows before the time to act, or is still heating at its cap"
+            + ("; TD24 above MTSR and the maximum temperature" if ev.safety.td24 is not None else "")
+        ]
+    return worst, tuple(reasons)
 
 
 def check_setpoint(
@@ -383,8 +948,9 @@ def check_setpoint(
     tau: float | None = None,
     T_in: float | None = None,
     branch: str | None = None,
+    max_duration: float = MAX_UPSET_DURATION,
 ) -> CheckResult:
-    """Check a setpoint: states, region, margins, safety figures, upsets and a verdict.
+    """Check a setpoint: states, region, margins, safety figures, upsets and a verdict (DESIGN.md §6).
 
     Parameters
     ----------
@@ -395,6 +961,8 @@ def check_setpoint(
         Feed temperature [K]; default the scenario's.
     branch : str, optional
         ``low`` or ``high``: which stable state the tank is on where there are several; default low.
+    max_duration : float
+        Longest allowed ``check_policy.upset_duration`` [s] (the limit of one simulation).
 
     Returns
     -------
@@ -404,13 +972,12 @@ def check_setpoint(
     ------
     ModelInputError
         Bad operating point or branch (``field`` names it).
+    LimitExceededError
+        ``check_policy.upset_duration`` above ``max_duration``.
 
     Notes
     -----
-    Verdict (DESIGN.md §6): ``outside`` when the operating state is not stable or is above the maximum
-    temperature, or the point lies in the ``runaway`` region; ``marginal`` when it lies in ``multiple`` or
-    ``sensitive``, a margin is below its threshold, an upset crosses the maximum temperature, MTSR exceeds it,
-    or the valve is outside its usable range; else ``inside``.
+    The verdict rules are the functions of ``RULES``, one per line of DESIGN.md §6; see the module docstring.
 
     Examples
     --------
@@ -420,192 +987,63 @@ def check_setpoint(
     from exomap.core.regions import region_of
     from exomap.core.steady import steady_states
 
-    validate(sc)
-    if branch is not None and branch not in BRANCHES:
-        raise ModelInputError(f"branch must be one of {', '.join(BRANCHES)}, got {branch!r}", field="branch")
-    for value, name, unit in ((tau, "residence_time", "s"), (T_in, "feed_temperature", "K")):
-        if value is not None and (
-            isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value) or value <= 0
-        ):
-            raise ModelInputError(f"{name} must be a finite positive number [{unit}], got {value!r}", field=name)
-    tau_v = float(sc.tau_nominal if tau is None else tau)
-    T_in_v = float(sc.T_in if T_in is None else T_in)
-    pol = sc.policy
-    lim = sc.limits
-
+    tau_v, T_in_v = _operating_point(sc, tau, T_in, branch, max_duration)
     steady = steady_states(sc, tau_v, T_in_v)
-    states = steady.states
-    if not states:
-        raise ModelInputError("no steady state found at this operating point", field="residence_time")
-    idx, assumption = _pick_state(states, branch)
-    st = states[idx]
-    region = region_of(sc, states)
-    T = float(st.T)
-    reasons_out: list[str] = []
-    reasons_marg: list[str] = []
-
-    # -- where the tank is -------------------------------------------------------------------------------
-    if st.stability != "stable":
-        reasons_out.append(
-            f"the operating state at {_abs(T)} is {st.stability}"
-            + (" (oscillatory)" if st.oscillatory else "")
-            + ": the tank will not stay there (threshold: every eigenvalue with a negative real part)"
-        )
-    if T > lim.T_max:
-        reasons_out.append(
-            f"the steady temperature {_abs(T)} is above the maximum temperature {_abs(lim.T_max)} (scenario limit)"
-        )
-    if region == "runaway":
-        hot = max(s.T for s in states if s.stability == "stable")
-        reasons_out.append(
-            f"region 'runaway': a reachable steady state at {_abs(hot)} lies above the maximum temperature "
-            f"{_abs(lim.T_max)} (scenario limit)"
-        )
-    elif region == "multiple":
-        reasons_marg.append(
-            f"region 'multiple': {len(states)} steady states at this point (threshold: one); "
-            "an upset can make the tank jump between them"
-        )
-    elif region == "sensitive":
-        reasons_marg.append(
-            f"region 'sensitive': the steady temperature moves {st.sensitivity:.2f} K per K of feed temperature, "
-            f"above the {_threshold(sc, 'sensitivity', pol.sensitivity, 'K/K')}"
-        )
-
-    # -- margins -----------------------------------------------------------------------------------------
-    margins = _branch_margins(sc, tau_v, T_in_v, st, len(states), idx)
+    if not steady.states:
+        return _result(sc, tau_v, T_in_v, branch, steady, None, "no steady state found", None, (), None, (),
+                       ("undetermined", (f"no steady state was found at this point ({steady.message})",)))  # fmt: skip
+    idx, assumption = _pick_state(steady.states, branch)
+    st = steady.states[idx]
     safety = safety_figures(sc, tau_v, T_in_v, st)
-    margins.append(Margin("steady_temperature_to_max_K", lim.T_max - T, pol.min_temperature_margin))
-    margins.append(Margin("mtsr_to_max_K", lim.T_max - safety.mtsr, pol.min_mtsr_margin))
-    x = float(st.valve_opening)
-    if math.isfinite(x):
-        margins.append(
-            Margin(
-                "valve_opening_to_usable_range_percent",
-                100.0 * min(x - pol.valve_min, pol.valve_max - x),
-                0.0,
-                f"opening {100 * x:.1f} % of a usable {100 * pol.valve_min:g}-{100 * pol.valve_max:g} %",
-            )
-        )
-    else:
-        margins.append(
-            Margin(
-                "valve_opening_to_usable_range_percent",
-                None,
-                0.0,
-                "no driving pressure across the valve at the set level",
-            )
-        )
-        reasons_marg.append("the outlet valve has no driving pressure at the set level: it cannot pass the flow")
+    if not steady.success:  # nothing computed from a state that did not converge is worth showing
+        ev = _Evidence(sc, steady, idx, region_of(sc, steady.states), (), safety, ())
+        return _result(sc, tau_v, T_in_v, branch, steady, idx, assumption, None, (), None, (),
+                       _verdict(failed_computations(ev), None))  # fmt: skip
+    ev = _Evidence(
+        sc=sc,
+        steady=steady,
+        idx=idx,
+        region=region_of(sc, steady.states),
+        margins=tuple(_margins(sc, tau_v, T_in_v, steady.states, idx, safety.mtsr)),
+        safety=safety,
+        upsets=tuple(run_upsets(sc, tau_v, T_in_v, st)),
+    )
+    return _result(sc, tau_v, T_in_v, branch, steady, idx, assumption, ev.region, ev.margins, safety, ev.upsets,
+                   _verdict(_findings(ev), ev))  # fmt: skip
 
-    labels = {
-        "feed_temperature_rise_to_ignition_K": (
-            "feed-temperature rise to ignition",
-            "K",
-            "min_feed_temperature_margin",
-            1.0,
-        ),
-        "residence_time_rise_to_ignition_percent": (
-            "residence-time rise to ignition",
-            "%",
-            "min_residence_time_margin",
-            100.0,
-        ),
-        "feed_temperature_drop_to_extinction_K": (
-            "feed-temperature drop to extinction",
-            "K",
-            "min_extinction_margin",
-            1.0,
-        ),
-        "steady_temperature_to_max_K": (
-            f"the steady temperature {_abs(T)} is {_below(lim.T_max - T)} the maximum temperature "
-            f"{_abs(lim.T_max)}; that margin",
-            "K",
-            "min_temperature_margin",
-            1.0,
-        ),
-        "mtsr_to_max_K": (
-            f"MTSR {_abs(safety.mtsr)} is {_below(lim.T_max - safety.mtsr)} the maximum temperature "
-            f"{_abs(lim.T_max)}; that margin",
-            "K",
-            "min_mtsr_margin",
-            1.0,
-        ),
-    }
-    for m in margins:
-        if m.ok is False and m.key in labels:
-            text, unit, name, factor = labels[m.key]
-            thr = getattr(pol, name)
-            reasons_marg.append(f"{text} is {m.value:.1f} {unit}, below the {_threshold(sc, name, thr * factor, unit)}")
-    if math.isfinite(x) and not pol.valve_min <= x <= pol.valve_max:
-        default = (pol.valve_min, pol.valve_max) == (_DEFAULT_POLICY.valve_min, _DEFAULT_POLICY.valve_max)
-        reasons_marg.append(
-            f"the outlet valve must be {100 * x:.1f} % open to pass the flow at the set level, outside the usable "
-            f"range {100 * pol.valve_min:g}-{100 * pol.valve_max:g} % ("
-            + ("project default, common practice, overridable in" if default else "set in the scenario's")
-            + " check_policy.valve_min/valve_max)"
-        )
-    if safety.mtsr > lim.T_max and not any(m.key == "mtsr_to_max_K" and m.ok is False for m in margins):
-        reasons_marg.append(
-            f"MTSR {_abs(safety.mtsr)} exceeds the maximum temperature {_abs(lim.T_max)} (scenario limit)"
-        )
 
-    # -- upsets ------------------------------------------------------------------------------------------
-    y0 = np.concatenate(([sc.vessel.h_set], np.asarray(st.C, dtype=float), [T, 0.0]))
-    upsets: list[UpsetResult] = []
-    for key, label, events in upset_battery(sc):
-        try:
-            sim = simulate(
-                sc,
-                tau=tau_v,
-                T_in=T_in_v,
-                initial=y0,
-                events=events,
-                duration=pol.upset_duration,
-                rtol=UPSET_RTOL,
-                record_every=pol.upset_duration / UPSET_POINTS,
-            )
-        except ConvergenceError as exc:
-            upsets.append(UpsetResult.failed(key, label, events, pol.upset_duration, str(exc)))
-            reasons_marg.append(f"upset '{label}' could not be simulated ({exc}); its outcome is unknown")
-            continue
-        up = UpsetResult.of(key, label, events, sim)
-        upsets.append(up)
-        if up.time_to_max is not None and T <= lim.T_max:
-            reasons_marg.append(
-                f"upset '{label}': the temperature reaches the maximum temperature {_abs(lim.T_max)} (scenario "
-                f"limit) after {up.time_to_max / 60:.1f} min and peaks at {_abs(up.peak_T)}"
-            )
-
-    if reasons_out:
-        verdict = "outside"
-    elif reasons_marg:
-        verdict = "marginal"
-    else:
-        verdict = "inside"
-    reasons = reasons_out + reasons_marg
-    if not reasons:
-        reasons = [
-            f"one stable steady state at {_abs(T)}, {lim.T_max - T:.1f} K below the maximum temperature "
-            f"{_abs(lim.T_max)}; every margin at or above its threshold (project defaults unless the scenario's "
-            "check_policy sets them); no upset of the battery reaches the maximum temperature"
-        ]
+def _result(
+    sc: Scenario,
+    tau: float,
+    T_in: float,
+    branch: str | None,
+    steady: Any,
+    idx: int | None,
+    assumption: str,
+    region: str | None,
+    margins: tuple[Margin, ...],
+    safety: SafetyFigures | None,
+    upsets: tuple[UpsetResult, ...],
+    verdict: tuple[str, tuple[str, ...]],
+) -> CheckResult:
+    pol, lim = sc.policy, sc.limits
+    x = math.nan if idx is None else float(steady.states[idx].valve_opening)
     return CheckResult(
-        verdict=verdict,
-        reasons=tuple(reasons),
-        tau=tau_v,
-        T_in=T_in_v,
+        verdict=verdict[0],
+        reasons=verdict[1],
+        tau=tau,
+        T_in=T_in,
         branch=branch,
         steady=steady,
         state_index=idx,
         assumption=assumption,
         region=region,
-        margins=tuple(margins),
+        margins=margins,
         safety=safety,
-        upsets=tuple(upsets),
+        upsets=upsets,
         cautions=CAUTIONS,
-        success=bool(steady.success),
-        message=steady.message,
+        success=verdict[0] != "undetermined",
+        message=steady.message if verdict[0] != "undetermined" else "; ".join(verdict[1]),
         valve_opening=x,
         valve_range=(pol.valve_min, pol.valve_max),
         limits={
@@ -614,8 +1052,21 @@ def check_setpoint(
             "level_high_m": lim.h_high,
             "level_low_m": lim.h_low,
             "technical_limit_temperature_K": lim.T_mtt,
+            "vessel_height_m": sc.vessel.H,
         },
+        policy={"min_time_to_act_s": pol.min_time_to_act, "upset_duration_s": pol.upset_duration},
     )
 
 
-__all__ = ["CheckResult", "Margin", "UpsetResult", "check_setpoint", "upset_battery"]
+__all__ = [
+    "ALARM_KINDS",
+    "CheckResult",
+    "Finding",
+    "MTSR_ASSUMES",
+    "Margin",
+    "RULES",
+    "UpsetResult",
+    "check_setpoint",
+    "run_upsets",
+    "upset_battery",
+]

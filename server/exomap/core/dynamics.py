@@ -15,7 +15,12 @@ Notes
   overflow line) or falls to ``EMPTY_FRACTION`` of the set level (``empty``: the outlet draws gas beyond it).
 * Alarms are the crossings, found by root finding on the dense output: temperature rising through
   ``limits.alarm_temperature`` and ``limits.max_temperature``, level rising through ``limits.level_high``,
-  falling through ``limits.level_low``. A threshold already crossed at the start is reported at time 0.
+  falling through ``limits.level_low``. A threshold already crossed at the start is reported at time 0. The
+  two stops are listed among the alarms too (kinds ``overflow`` and ``empty``), so one time-ordered list
+  says everything that happened.
+* ``until_settled`` ends a run early once nothing changes outside the tank any more and the tank has settled
+  over a window (``SETTLE_WINDOW``): the setpoint check runs its upsets this way, so an upset is followed
+  until it settles, stops, or reaches its cap.
 * The peak temperature is the maximum of the dense output, refined between solver steps.
 """
 
@@ -63,7 +68,7 @@ class SimulationResult:
     ----------
     success, message : bool, str
     stop_reason : str
-        ``completed`` | ``overflow`` | ``empty``.
+        ``completed`` (ran its whole duration) | ``settled`` (``until_settled``) | ``overflow`` | ``empty``.
     tau, T_in : float
         Operating point the run started from [s], [K].
     start : str
@@ -78,7 +83,8 @@ class SimulationResult:
     applied : tuple of dict
         Events applied, with their times.
     alarms : tuple of dict
-        ``{"kind", "time_s", "value"}``; ``value`` is the threshold crossed [K or m].
+        ``{"kind", "time_s", "value"}`` in time order; ``value`` is the threshold crossed [K or m]. Kinds
+        ``alarm_temperature``, ``max_temperature``, ``level_high``, ``level_low``, ``overflow``, ``empty``.
     peak_T, peak_t : float
         Highest temperature [K] and when [s].
     y_end : np.ndarray
@@ -122,8 +128,10 @@ class SimulationResult:
         return min(times) if times else None
 
     def settled(self, *, dT_per_h: float = 0.1, dh_per_h: float = 0.001) -> bool:
-        """True when the run completed and, at its end, T moves less than ``dT_per_h`` [K/h] and the level
-        less than ``dh_per_h`` [m/h]."""
+        """True when the run ended ``settled``, or completed and, at its end, T moves less than ``dT_per_h``
+        [K/h] and the level less than ``dh_per_h`` [m/h]."""
+        if self.stop_reason == "settled":
+            return True
         n = len(self.species)
         return (
             self.stop_reason == "completed"
@@ -211,6 +219,7 @@ class _Plant:
             "coolant_temperature": base.T_c,
             "level_setpoint": base.h_set,
             "valve_opening": base.opening if base.opening is not None else base.bias,
+            "jacket_ua": base.UA_jacket,
         }
         for s, c in zip(sc.species, base.c_in, strict=True):
             self.values[f"feed_concentration.{s}"] = c
@@ -239,7 +248,7 @@ class _Plant:
             T_in=v["feed_temperature"],
             c_in=tuple(v[f"feed_concentration.{s}"] for s in self.species),
             T_c=v["coolant_temperature"],
-            UA_jacket=self.base.UA_jacket if self.cooling_on else 0.0,
+            UA_jacket=v["jacket_ua"] if self.cooling_on else 0.0,
             opening=v["valve_opening"] if self.manual else None,
             bias=self.bias,
             h_set=v["level_setpoint"],
@@ -286,7 +295,7 @@ class _Plant:
         key = {"set": "to", "ramp": "to", "add": "value", "scale": "by"}[e.kind]
         base = e.base_quantity
         bad = (
-            (base in ("feed_flow", "feed_concentration") and new < 0)
+            (base in ("feed_flow", "feed_concentration", "jacket_ua") and new < 0)
             or (base in ("feed_temperature", "coolant_temperature") and new <= 0)
             or (base == "valve_opening" and not 0.0 <= new <= 1.0)
             or (base == "level_setpoint" and not 0.0 < new <= self.sc.vessel.H)
@@ -539,8 +548,348 @@ def _positive(value: Any, name: str, unit: str) -> float:
 
 
 # ---------------------------------------------------------------------------------------------------------
-# simulate
+# simulate: the steps
 # ---------------------------------------------------------------------------------------------------------
+
+
+#: Length of the windows over which a run ``until_settled`` is tested for having settled [s].
+SETTLE_WINDOW = 1800.0
+#: A run has settled when, at the end of a window, T moves less than this [K/h] ...
+SETTLED_DT_PER_H = 0.1
+#: ... and the level less than this [m/h], ...
+SETTLED_DH_PER_H = 0.001
+#: ... and over the whole window T stayed within this band [K] and the level within ``SETTLED_DH_BAND`` [m].
+SETTLED_T_BAND = 0.1
+SETTLED_DH_BAND = 0.001
+
+
+@dataclass(frozen=True)
+class _RunOptions:
+    tau: float
+    T_in: float
+    duration: float
+    max_step: float
+    record_every: float
+    rtol: float
+    method: str
+    until_settled: bool
+
+
+@dataclass(frozen=True)
+class _Start:
+    y0: np.ndarray
+    opening: float
+    name: str
+    nudged: bool
+
+
+def _run_options(
+    sc: Scenario,
+    tau: float | None,
+    T_in: float | None,
+    duration: float,
+    max_step: float | None,
+    record_every: float | None,
+    rtol: float,
+    method: str,
+    until_settled: bool,
+) -> _RunOptions:
+    """Every numeric option checked (``ModelInputError`` naming it), defaults filled in."""
+    duration = _positive(duration, "duration", "s")
+    if method not in METHODS:
+        raise ModelInputError(f"method must be one of {', '.join(METHODS)}, got {method!r}", field="method")
+    return _RunOptions(
+        tau=sc.tau_nominal if tau is None else _positive(tau, "residence_time", "s"),
+        T_in=sc.T_in if T_in is None else _positive(T_in, "feed_temperature", "K"),
+        duration=duration,
+        max_step=math.inf if max_step is None else _positive(max_step, "max_step", "s"),
+        record_every=(
+            duration / DEFAULT_RECORD_POINTS if record_every is None else _positive(record_every, "record_every", "s")
+        ),
+        rtol=_positive(rtol, "rtol", "-"),
+        method=method,
+        until_settled=bool(until_settled),
+    )
+
+
+def _starting_state(sc: Scenario, run: _RunOptions, start: str, initial: Any, T_solvent: float | None) -> _Start:
+    """The state vector at time 0 and the valve opening the run starts with (DESIGN.md §2: a run started on a
+    steady state starts steady)."""
+    q = sc.vessel.V_set / run.tau
+    x_flow = valve_mod.opening_for_flow(sc, q)
+    nudged = False
+    if initial is not None:
+        y0, name = _explicit_initial(sc, initial), "initial"
+    elif start not in STARTS:
+        raise ModelInputError(f"start must be one of {', '.join(STARTS)}, got {start!r}", field="start")
+    elif start in ("low", "middle", "high"):
+        y0, x_ss = _steady_start(sc, run.tau, run.T_in, start)
+        if math.isfinite(x_ss):
+            x_flow = x_ss
+        name = start
+        nudged = _start_nudged(sc, run.tau, run.T_in, y0)
+    else:
+        T0 = run.T_in if T_solvent is None else _positive(T_solvent, "T_solvent", "K")
+        h0 = sc.vessel.h_set * (1.0 if start == "cold" else EMPTY_START_FRACTION)
+        y0, name = np.concatenate(([h0], np.zeros(sc.n_species), [T0, 0.0])), start
+    opening = float(np.clip(x_flow, 0.0, 1.0)) if math.isfinite(x_flow) else 1.0
+    return _Start(y0=y0, opening=opening, name=name, nudged=nudged)
+
+
+class _Watch:
+    """What the integrator watches: the two stops (overflow, empty) and the alarm crossings.
+
+    ``ivp_events`` are the event functions for ``solve_ivp``: the stops first (terminal), then one per alarm.
+    """
+
+    def __init__(self, sc: Scenario) -> None:
+        n = sc.n_species
+        iT = 1 + n
+        lim = sc.limits
+        self.H = sc.vessel.H
+        self.h_empty = sc.vessel.h_set * EMPTY_FRACTION
+        specs: list[tuple[str, int, float, float]] = []  # kind, index, threshold, direction
+        if lim.T_alarm is not None:
+            specs.append(("alarm_temperature", iT, lim.T_alarm, 1.0))
+        specs.append(("max_temperature", iT, lim.T_max, 1.0))
+        if lim.h_high is not None:
+            specs.append(("level_high", 0, lim.h_high, 1.0))
+        if lim.h_low is not None:
+            specs.append(("level_low", 0, lim.h_low, -1.0))
+        self.specs = specs
+        self.ivp_events = [
+            self._crossing(0, self.H, 1.0, terminal=True),
+            self._crossing(0, self.h_empty, -1.0, terminal=True),
+        ] + [self._crossing(i, thr, d, terminal=False) for _, i, thr, d in specs]
+
+    @staticmethod
+    def _crossing(idx: int, thr: float, direction: float, *, terminal: bool) -> Any:
+        def g(t: float, y: np.ndarray) -> float:
+            return float(y[idx] - thr)
+
+        g.terminal = terminal  # type: ignore[attr-defined]
+        g.direction = direction  # type: ignore[attr-defined]
+        return g
+
+    def at_start(self, y0: np.ndarray) -> list[dict[str, Any]]:
+        """Alarms whose threshold is already crossed at time 0."""
+        return [{"kind": kind, "time_s": 0.0, "value": thr} for kind, i, thr, d in self.specs if (y0[i] - thr) * d > 0]
+
+    def crossings(self, sol: Any, t0: float) -> list[dict[str, Any]]:
+        """Alarms crossed in one piece (local time ``sol.t``, starting at ``t0``)."""
+        return [
+            {"kind": kind, "time_s": t0 + float(tc), "value": thr}
+            for (kind, _, thr, _), te in zip(self.specs, sol.t_events[2:], strict=True)
+            for tc in te
+        ]
+
+    def stop(self, sol: Any, t0: float) -> tuple[str, str, dict[str, Any]] | None:
+        """(stop reason, message, alarm) when the piece ended on a stop, else None."""
+        if sol.status != 1:
+            return None
+        if sol.t_events[0].size:
+            t = t0 + float(sol.t_events[0][0])
+            return (
+                "overflow",
+                f"the level reached the vessel height ({self.H:g} m)",
+                {
+                    "kind": "overflow",
+                    "time_s": t,
+                    "value": self.H,
+                },
+            )
+        t = t0 + float(sol.t_events[1][0])
+        return (
+            "empty",
+            f"the tank emptied (level below {self.h_empty:g} m)",
+            {
+                "kind": "empty",
+                "time_s": t,
+                "value": self.h_empty,
+            },
+        )
+
+
+class _Record:
+    """The recorded points, the applied events, the alarms and the running peak of one run."""
+
+    def __init__(self, run: _RunOptions, y0: np.ndarray, iT: int, alarms: list[dict[str, Any]]) -> None:
+        n_grid = int(math.floor(run.duration / run.record_every + 1e-9))
+        self.grid = np.linspace(0.0, n_grid * run.record_every, n_grid + 1)
+        self.iT = iT
+        self.t: list[np.ndarray] = []
+        self.y: list[np.ndarray] = []
+        self.q: list[np.ndarray] = []
+        self.x: list[np.ndarray] = []
+        self.applied: list[dict[str, Any]] = []
+        self.alarms = alarms
+        self.peak_T, self.peak_t = float(y0[iT]), 0.0
+        self.stats = {"nfev": 0, "njev": 0, "nlu": 0, "steps": 0, "pieces": 0}
+
+    def count(self, sol: Any) -> None:
+        self.stats["nfev"] += int(sol.nfev)
+        self.stats["njev"] += int(sol.njev)
+        self.stats["nlu"] += int(sol.nlu)
+        self.stats["steps"] += max(sol.t.size - 1, 0)
+        self.stats["pieces"] += 1
+
+    def peak(self, sol: Any, t0: float) -> None:
+        """Largest temperature at the solver steps, refined on the dense output around it."""
+        iT = self.iT
+        k = int(np.argmax(sol.y[iT]))
+        cand_T, cand_s = float(sol.y[iT, k]), float(sol.t[k])
+        if 0 < k < sol.t.size - 1:
+            lo, hi = float(sol.t[k - 1]), float(sol.t[k + 1])
+            r = minimize_scalar(
+                lambda s, d=sol.sol: -float(d(s)[iT]),
+                bounds=(lo, hi),
+                method="bounded",
+                options={"xatol": 1e-10 * max(1.0, hi)},
+            )
+            if -r.fun > cand_T:
+                cand_T, cand_s = float(-r.fun), float(r.x)
+        if cand_T > self.peak_T:
+            self.peak_T, self.peak_t = cand_T, t0 + cand_s
+
+    def points(self, sol: Any, t0: float, y_start: np.ndarray, extra: list[float], model: Model, plant: _Plant) -> None:
+        """Record the grid points inside one piece, its ends, the given extra times and the peak."""
+        s_end = float(sol.t[-1])
+        t_end = t0 + s_end
+        in_piece = self.grid[(self.grid > t0) & (self.grid < t_end)] - t0
+        more = [tc - t0 for tc in extra if t0 < tc < t_end]
+        if t0 < self.peak_t < t_end:
+            more.append(self.peak_t - t0)
+        local = np.unique(np.concatenate(([0.0], in_piece, more, [s_end])))
+        ys = sol.sol(local)
+        ys[:, 0] = y_start  # the piece starts exactly at the carried state
+        ys[:, -1] = sol.y[:, -1]
+        times = t0 + local
+        qs = np.empty(times.size)
+        xs = np.empty(times.size)
+        for m, tm in enumerate(times):
+            um = plant.inputs(float(tm))
+            xs[m] = model.opening(ys[:, m], um)[0]
+            qs[m] = model.outflow(ys[:, m], um)
+        self.t.append(times)
+        self.y.append(ys)
+        self.q.append(qs)
+        self.x.append(xs)
+
+
+def _solve_piece(
+    model: Model,
+    plant: _Plant,
+    watch: _Watch,
+    run: _RunOptions,
+    atol: np.ndarray,
+    t0: float,
+    t1: float,
+    y: np.ndarray,
+    budget: list[int],
+) -> Any:
+    """One ``solve_ivp`` call from ``t0`` to ``t1`` in the piece's local time s = t - t0.
+
+    A runaway that is fast against the time since the start would otherwise need steps below the spacing of
+    floating-point numbers at t.
+    """
+    fun, jac = _piece_functions(model, plant, t0, plant.inputs(t0) if not plant.ramps else None, budget)
+    implicit = {"jac": jac} if run.method != "RK45" else {}
+    return solve_ivp(
+        fun,
+        (0.0, t1 - t0),
+        y,
+        method=run.method,
+        **implicit,
+        rtol=run.rtol,
+        atol=atol,
+        events=watch.ivp_events,
+        dense_output=True,
+        max_step=run.max_step,
+    )
+
+
+def _has_settled(model: Model, plant: _Plant, t: float, y: np.ndarray, sol: Any, dT_before: float) -> bool:
+    """Whether the run has settled at the end of a window (see ``SETTLE_WINDOW`` and the thresholds beside it).
+
+    Slow at the end of the window is not enough: a damped oscillation is slow at each turn, and a creeping
+    thermal induction is slow before it accelerates. So T and the level must also have stayed inside a narrow
+    band over the whole window, and the temperature must not be moving faster than at the window's start.
+    """
+    n = model.n
+    f = model.rhs(t, y, plant.inputs(t))
+    dT, dh = abs(float(f[1 + n])) * 3600.0, abs(float(f[0])) * 3600.0
+    T_band = float(np.ptp(sol.y[1 + n]))
+    h_band = float(np.ptp(sol.y[0]))
+    return (
+        dT < SETTLED_DT_PER_H
+        and dh < SETTLED_DH_PER_H
+        and T_band < SETTLED_T_BAND
+        and h_band < SETTLED_DH_BAND
+        and (dT <= dT_before * (1.0 + 1e-6) or dT < 1e-3 * SETTLED_DT_PER_H)
+    )
+
+
+def _integrate(
+    model: Model,
+    plant: _Plant,
+    evs: tuple[Event, ...],
+    watch: _Watch,
+    rec: _Record,
+    run: _RunOptions,
+    y0: np.ndarray,
+) -> tuple[float, np.ndarray, str, str]:
+    """Integrate piece by piece between events (and settle windows); returns (t_end, y_end, stop, message)."""
+    sc = model.sc
+    c_scale = max(max(sc.c_in), 1e-3)
+    n = sc.n_species
+    scale = np.concatenate(([sc.vessel.H], np.full(n, c_scale * 1e-2), [100.0, sc.vessel.H * 100.0]))
+    atol = run.rtol * scale
+    t, y, k_ev = 0.0, y0.copy(), 0
+    budget = [MAX_RHS_EVALUATIONS]
+    dT_before = math.inf
+    while True:
+        while k_ev < len(evs) and evs[k_ev].t <= t:
+            e = evs[k_ev]
+            plant.apply(e, t, y)
+            rec.applied.append({"index": e.index, "time_s": t, "event": e.to_dict(), "description": e.describe()})
+            k_ev += 1
+        if t >= run.duration:
+            return t, y, "completed", "completed"
+        t_next = min(evs[k_ev].t if k_ev < len(evs) else math.inf, plant.next_ramp_end(t), run.duration)
+        quiet = k_ev == len(evs) and not plant.ramps  # nothing more will change outside the tank
+        windowed = run.until_settled and quiet and t + SETTLE_WINDOW < t_next
+        if windowed:
+            t_next = t + SETTLE_WINDOW
+        retries = 0
+        while True:
+            t0 = t
+            sol = _solve_piece(model, plant, watch, run, atol, t0, t_next, y, budget)
+            rec.count(sol)
+            failed = sol.status == -1
+            if failed and (sol.t.size < 2 or sol.t[-1] <= 0.0 or retries >= MAX_RESTARTS):
+                raise ConvergenceError(
+                    f"integrator failed at t = {t0 + sol.t[-1]:.6g} s after {retries} restarts: {sol.message}"
+                )
+            crossed = watch.crossings(sol, t0)
+            rec.alarms.extend(crossed)
+            stop = watch.stop(sol, t0)
+            if stop is not None:
+                rec.alarms.append(stop[2])
+            rec.peak(sol, t0)
+            rec.points(sol, t0, y, [a["time_s"] for a in crossed], model, plant)
+            y = sol.y[:, -1].copy()
+            t = t0 + float(sol.t[-1])
+            if stop is not None:
+                return t, y, stop[0], stop[1]
+            if not failed:
+                break
+            retries += 1
+        plant.finish_ramps(t)
+        t = t_next  # exact, no rounding drift onto the next event
+        if windowed:
+            if _has_settled(model, plant, t, y, sol, dT_before):
+                return t, y, "settled", "settled (no more movement than the settle thresholds over a window)"
+            dT_before = abs(float(model.rhs(t, y, plant.inputs(t))[1 + n])) * 3600.0
 
 
 def simulate(
@@ -557,6 +906,7 @@ def simulate(
     record_every: float | None = None,
     rtol: float = 1e-6,
     method: str = "LSODA",
+    until_settled: bool = False,
 ) -> SimulationResult:
     """Simulate the tank from a starting state through a list of events.
 
@@ -580,7 +930,7 @@ def simulate(
     events : list of dict or Event
         See ``exomap.core.events``; SI numbers.
     duration : float
-        Simulated time [s], > 0.
+        Simulated time [s], > 0; with ``until_settled`` the longest the run may go on.
     initial : array or dict, optional
         Explicit starting state: ``[h, C..., T(, I)]`` or ``{"level", "concentrations": {species: C},
         "temperature"}`` [m, mol/m^3, K].
@@ -597,6 +947,9 @@ def simulate(
         ``LSODA`` (default), ``BDF`` or ``Radau``, which use the analytic Jacobian, or ``RK45``, scipy's
         default explicit method without a Jacobian (kept as the baseline of the benchmarks; slow on stiff
         runs).
+    until_settled : bool
+        End the run early, with ``stop_reason`` ``settled``, once nothing changes outside the tank any more and
+        it has settled over a window of ``SETTLE_WINDOW`` (see ``_has_settled``).
 
     Returns
     -------
@@ -617,6 +970,10 @@ def simulate(
     that tolerance (the tests run both). Inputs are rebuilt at the start of each piece, so the solver never
     steps across a discontinuity; each piece runs in its own local time.
 
+    The steps: options checked (``_run_options``), the starting state (``_starting_state``), the plant
+    outside the tank (``_Plant``), what is watched (``_Watch``: stops and alarms), the integration piece by
+    piece (``_integrate``, recording into ``_Record``), and the result (``_result``).
+
     Examples
     --------
     >>> # simulate(sc, start="low", events=[{"at": 600, "do": "feed_stop"}], duration=3600)  # doctest: +SKIP
@@ -629,248 +986,67 @@ def simulate(
         differential equations", SIAM J. Sci. Stat. Comput. 4 (1983) 136-148 (LSODA).
     """
     validate(sc)
-    duration = _positive(duration, "duration", "s")
-    if max_step is not None:
-        max_step = _positive(max_step, "max_step", "s")
-    if record_every is not None:
-        record_every = _positive(record_every, "record_every", "s")
-    rtol = _positive(rtol, "rtol", "-")
-    if method not in METHODS:
-        raise ModelInputError(f"method must be one of {', '.join(METHODS)}, got {method!r}", field="method")
-    if tau is not None:
-        tau = _positive(tau, "residence_time", "s")
-    if T_in is not None:
-        T_in = _positive(T_in, "feed_temperature", "K")
-    tau_v = sc.tau_nominal if tau is None else tau
-    T_in_v = sc.T_in if T_in is None else T_in
-    evs = parse_events(events, species=sc.species, duration=duration)
-
+    run = _run_options(sc, tau, T_in, duration, max_step, record_every, rtol, method, until_settled)
+    evs = parse_events(events, species=sc.species, duration=run.duration)
+    begin = _starting_state(sc, run, start, initial, T_solvent)
     model = Model(sc)
-    n = sc.n_species
-    q = sc.vessel.V_set / tau_v
-    x_flow = valve_mod.opening_for_flow(sc, q)
-    if initial is not None:
-        y0 = _explicit_initial(sc, initial)
-        start_name = "initial"
-    else:
-        if start not in STARTS:
-            raise ModelInputError(f"start must be one of {', '.join(STARTS)}, got {start!r}", field="start")
-        start_name = start
-        if start in ("low", "middle", "high"):
-            y0, x_ss = _steady_start(sc, tau_v, T_in_v, start)
-            if math.isfinite(x_ss):
-                x_flow = x_ss
-        else:
-            T0 = T_in_v if T_solvent is None else _positive(T_solvent, "T_solvent", "K")
-            h0 = sc.vessel.h_set * (1.0 if start == "cold" else EMPTY_START_FRACTION)
-            y0 = np.concatenate(([h0], np.zeros(n), [T0, 0.0]))
-    x0 = float(np.clip(x_flow, 0.0, 1.0)) if math.isfinite(x_flow) else 1.0
-    base = nominal_inputs(sc, tau=tau_v, T_in=T_in_v, opening=x0)
-    plant = _Plant(sc, base, model)
-
-    # scales for absolute tolerances
-    c_scale = max(max(sc.c_in), 1e-3)
-    scale = np.concatenate(([sc.vessel.H], np.full(n, c_scale * 1e-2), [100.0, sc.vessel.H * 100.0]))
-    atol = rtol * scale
-    H = sc.vessel.H
-    h_empty = sc.vessel.h_set * EMPTY_FRACTION
-    iT = 1 + n
-
-    def ev_overflow(t: float, y: np.ndarray) -> float:
-        return float(y[0] - H)
-
-    ev_overflow.terminal = True  # type: ignore[attr-defined]
-    ev_overflow.direction = 1.0  # type: ignore[attr-defined]
-
-    def ev_empty(t: float, y: np.ndarray) -> float:
-        return float(y[0] - h_empty)
-
-    ev_empty.terminal = True  # type: ignore[attr-defined]
-    ev_empty.direction = -1.0  # type: ignore[attr-defined]
-
-    alarm_specs: list[tuple[str, int, float, float]] = []  # kind, index, threshold, direction
-    lim = sc.limits
-    if lim.T_alarm is not None:
-        alarm_specs.append(("alarm_temperature", iT, lim.T_alarm, 1.0))
-    alarm_specs.append(("max_temperature", iT, lim.T_max, 1.0))
-    if lim.h_high is not None:
-        alarm_specs.append(("level_high", 0, lim.h_high, 1.0))
-    if lim.h_low is not None:
-        alarm_specs.append(("level_low", 0, lim.h_low, -1.0))
-
-    def make_alarm(idx: int, thr: float, direction: float) -> Any:
-        def g(t: float, y: np.ndarray) -> float:
-            return float(y[idx] - thr)
-
-        g.terminal = False  # type: ignore[attr-defined]
-        g.direction = direction  # type: ignore[attr-defined]
-        return g
-
-    ivp_events = [ev_overflow, ev_empty] + [make_alarm(i, thr, d) for _, i, thr, d in alarm_specs]
-
-    alarms: list[dict[str, Any]] = []
-    for kind, i, thr, d in alarm_specs:
-        if (y0[i] - thr) * d > 0:
-            alarms.append({"kind": kind, "time_s": 0.0, "value": thr})
-
-    # record grid
-    step = record_every if record_every is not None else duration / DEFAULT_RECORD_POINTS
-    n_grid = int(math.floor(duration / step + 1e-9))
-    grid = np.linspace(0.0, n_grid * step, n_grid + 1)
-
-    rec_t: list[np.ndarray] = []
-    rec_y: list[np.ndarray] = []
-    rec_q: list[np.ndarray] = []
-    rec_x: list[np.ndarray] = []
-    applied: list[dict[str, Any]] = []
-    stats = {"nfev": 0, "njev": 0, "nlu": 0, "steps": 0, "pieces": 0}
-    peak_T, peak_t = float(y0[iT]), 0.0
-
-    t = 0.0
-    y = y0.copy()
-    k_ev = 0
-    budget = [MAX_RHS_EVALUATIONS]
-    stop_reason = "completed"
-    message = "completed"
-    nudged = start_name in ("low", "middle", "high") and initial is None and _start_nudged(sc, tau_v, T_in_v, y0)
-    while True:
-        while k_ev < len(evs) and evs[k_ev].t <= t:
-            e = evs[k_ev]
-            plant.apply(e, t, y)
-            applied.append({"index": e.index, "time_s": t, "event": e.to_dict(), "description": e.describe()})
-            k_ev += 1
-        if t >= duration:
-            break
-        t_next = min(evs[k_ev].t if k_ev < len(evs) else math.inf, plant.next_ramp_end(t), duration)
-        ramping = bool(plant.ramps)
-        u_const = plant.inputs(t)
-        retries = 0
-        while True:
-            # Each piece runs in its own local time s = t - t0: a runaway that is fast against the time
-            # since the start would otherwise need steps below the spacing of floating-point numbers at t.
-            t0 = t
-
-            fun, jac = _piece_functions(model, plant, t0, u_const if not ramping else None, budget)
-
-            implicit = {"jac": jac} if method != "RK45" else {}
-            sol = solve_ivp(
-                fun,
-                (0.0, t_next - t0),
-                y,
-                method=method,
-                **implicit,
-                rtol=rtol,
-                atol=atol,
-                events=ivp_events,
-                dense_output=True,
-                max_step=max_step if max_step is not None else math.inf,
-            )
-            stats["nfev"] += int(sol.nfev)
-            stats["njev"] += int(sol.njev)
-            stats["nlu"] += int(sol.nlu)
-            stats["steps"] += max(sol.t.size - 1, 0)
-            stats["pieces"] += 1
-            failed = sol.status == -1
-            if failed and (sol.t.size < 2 or sol.t[-1] <= 0.0 or retries >= MAX_RESTARTS):
-                raise ConvergenceError(
-                    f"integrator failed at t = {t0 + sol.t[-1]:.6g} s after {retries} restarts: {sol.message}"
-                )
-            s_end = float(sol.t[-1])
-            t_end = t0 + s_end
-            crossing_times: list[float] = []
-            for (kind, _, thr, _), te in zip(alarm_specs, sol.t_events[2:], strict=True):
-                for tc in te:
-                    alarms.append({"kind": kind, "time_s": t0 + float(tc), "value": thr})
-                    crossing_times.append(t0 + float(tc))
-            if sol.status == 1:
-                if sol.t_events[0].size:
-                    stop_reason, message = "overflow", f"the level reached the vessel height ({H:g} m)"
-                else:
-                    stop_reason, message = "empty", f"the tank emptied (level below {h_empty:g} m)"
-
-            # peak: largest temperature at the solver steps, refined on the dense output around it
-            dense = sol.sol
-            k = int(np.argmax(sol.y[iT]))
-            cand_T, cand_s = float(sol.y[iT, k]), float(sol.t[k])
-            if 0 < k < sol.t.size - 1:
-                lo, hi = float(sol.t[k - 1]), float(sol.t[k + 1])
-                r = minimize_scalar(
-                    lambda s, d=dense: -float(d(s)[iT]),
-                    bounds=(lo, hi),
-                    method="bounded",
-                    options={"xatol": 1e-10 * max(1.0, hi)},
-                )
-                if -r.fun > cand_T:
-                    cand_T, cand_s = float(-r.fun), float(r.x)
-            if cand_T > peak_T:
-                peak_T, peak_t = cand_T, t0 + cand_s
-
-            in_piece = grid[(grid > t0) & (grid < t_end)] - t0
-            extra = [tc - t0 for tc in crossing_times if t0 < tc < t_end]
-            if t0 < peak_t < t_end:
-                extra.append(peak_t - t0)
-            local = np.unique(np.concatenate(([0.0], in_piece, extra, [s_end])))
-            ys = dense(local)
-            ys[:, 0] = y  # the piece starts exactly at the carried state
-            ys[:, -1] = sol.y[:, -1]
-            times = t0 + local
-            qs = np.empty(times.size)
-            xs = np.empty(times.size)
-            for m, tm in enumerate(times):
-                um = plant.inputs(float(tm))
-                xs[m] = model.opening(ys[:, m], um)[0]
-                qs[m] = model.outflow(ys[:, m], um)
-            rec_t.append(times)
-            rec_y.append(ys)
-            rec_q.append(qs)
-            rec_x.append(xs)
-
-            y = sol.y[:, -1].copy()
-            t = t_end
-            if not failed:
-                break
-            retries += 1
-
-        if stop_reason != "completed":
-            break
-        plant.finish_ramps(t)
-        t = t_next  # exact, no rounding drift onto the next event
-
-    u_end = plant.inputs(t)
-    t_all = np.concatenate(rec_t)
-    T_all = np.concatenate([r[iT] for r in rec_y])
-    k_max = int(np.argmax(T_all))
-    if T_all[k_max] > peak_T:  # a recorded point can beat the refined step maximum only by round-off
-        peak_T, peak_t = float(T_all[k_max]), float(t_all[k_max])
-    alarms.sort(key=lambda a: a["time_s"])
-    if nudged:
+    plant = _Plant(sc, nominal_inputs(sc, tau=run.tau, T_in=run.T_in, opening=begin.opening), model)
+    watch = _Watch(sc)
+    rec = _Record(run, begin.y0, 1 + sc.n_species, watch.at_start(begin.y0))
+    t_end, y_end, stop_reason, message = _integrate(model, plant, evs, watch, rec, run, begin.y0)
+    if begin.nudged:
         message += (
             f"; the starting steady state is not stable, so the run starts {UNSTABLE_NUDGE_K:g} K above it "
             "(exactly on it the tank would stay to rounding)"
         )
+    return _result(sc, run, begin, evs, rec, model, plant, t_end, y_end, stop_reason, message)
+
+
+def _result(
+    sc: Scenario,
+    run: _RunOptions,
+    begin: _Start,
+    evs: tuple[Event, ...],
+    rec: _Record,
+    model: Model,
+    plant: _Plant,
+    t_end: float,
+    y_end: np.ndarray,
+    stop_reason: str,
+    message: str,
+) -> SimulationResult:
+    n = sc.n_species
+    iT = 1 + n
+    t_all = np.concatenate(rec.t)
+    T_all = np.concatenate([r[iT] for r in rec.y])
+    k_max = int(np.argmax(T_all))
+    peak_T, peak_t = rec.peak_T, rec.peak_t
+    if T_all[k_max] > peak_T:  # a recorded point can beat the refined step maximum only by round-off
+        peak_T, peak_t = float(T_all[k_max]), float(t_all[k_max])
+    alarms = sorted(rec.alarms, key=lambda a: a["time_s"])
     return SimulationResult(
         success=True,
         message=message,
         stop_reason=stop_reason,
-        tau=tau_v,
-        T_in=T_in_v,
-        start=start_name,
-        duration=duration,
+        tau=run.tau,
+        T_in=run.T_in,
+        start=begin.name,
+        duration=run.duration,
         species=tuple(sc.species),
         t=t_all,
-        h=np.concatenate([r[0] for r in rec_y]),
-        C=np.concatenate([r[1 : 1 + n] for r in rec_y], axis=1),
+        h=np.concatenate([r[0] for r in rec.y]),
+        C=np.concatenate([r[1 : 1 + n] for r in rec.y], axis=1),
         T=T_all,
-        q_out=np.concatenate(rec_q),
-        opening=np.concatenate(rec_x),
+        q_out=np.concatenate(rec.q),
+        opening=np.concatenate(rec.x),
         events=evs,
-        applied=tuple(applied),
+        applied=tuple(rec.applied),
         alarms=tuple(alarms),
         peak_T=peak_T,
         peak_t=peak_t,
-        y_end=y,
-        dydt_end=model.rhs(t, y, u_end),
-        stats=stats,
+        y_end=y_end,
+        dydt_end=model.rhs(t_end, y_end, plant.inputs(t_end)),
+        stats=rec.stats,
     )
 
 

@@ -14,7 +14,8 @@ form                                                    meaning
 
 Quantities Q (``QUANTITIES``): ``feed_flow`` [m^3/s], ``feed_temperature`` [K],
 ``feed_concentration.<species>`` [mol/m^3], ``coolant_temperature`` [K], ``valve_opening`` [-, 0..1],
-``level_setpoint`` [m].
+``level_setpoint`` [m], ``jacket_ua`` [W/K] (the jacket's heat-transfer conductance, e.g. halved by fouling or
+a partly lost coolant flow).
 
 Actions: ``feed_stop`` / ``feed_restart`` (the feed pump trips and comes back at the flow it had),
 ``outlet_block`` / ``outlet_unblock`` (no outflow whatever the valve says), ``cooling_loss`` /
@@ -61,6 +62,7 @@ DIMENSIONS: dict[str, str] = {
     "coolant_temperature": "temperature",
     "valve_opening": "fraction",
     "level_setpoint": "length",
+    "jacket_ua": "conductance",
 }
 QUANTITIES: tuple[str, ...] = tuple(DIMENSIONS)
 ACTIONS: tuple[str, ...] = (
@@ -89,6 +91,7 @@ _UNITS = {
     "temperature_difference": "K",
     "time": "s",
     "length": "m",
+    "conductance": "W/K",
 }
 
 UnitParser = Callable[[Any, str, str], float]
@@ -203,7 +206,7 @@ def _check_range(quantity: str, value: float, where: str, kind: str) -> None:
         raise ModelInputError(f"{where} must be a positive absolute temperature [K], got {value:g}", field=where)
     if base == "level_setpoint" and value <= 0:
         raise ModelInputError(f"{where} must be a positive level [m], got {value:g}", field=where)
-    if base in ("feed_flow", "feed_concentration") and value < 0:
+    if base in ("feed_flow", "feed_concentration", "jacket_ua") and value < 0:
         raise ModelInputError(f"{where} must be >= 0 [{_UNITS[DIMENSIONS[base]]}], got {value:g}", field=where)
 
 

@@ -507,7 +507,9 @@ class Manifold:
         x = xi[..., 0]
         r = x / tau
         _, dlogg = self._g(x)
-        alpha = r * dlogg
+        with np.errstate(invalid="ignore"):
+            # no extent (a feed without the reactant): no rate to perturb, and 0 * (-inf) must not be NaN
+            alpha = np.where(r == 0, 0.0, r * dlogg)
         beta = r * self.E[0] / (T * T)
         a = self.a(tau)
         Jb = self.J[0] * beta

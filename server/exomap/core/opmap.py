@@ -87,7 +87,10 @@ class MapResult:
             "state_count": self.state_count.tolist(),
             "max_temperature_K": clean(self.max_temperature),
             "limit_temperature_K": self.T_max,
-            "valve_opening": curve(self.valve_opening),
+            # an opening no valve can take (below 0 or above 1) is None; valve_limited is true there
+            "valve_opening": curve(
+                np.where((self.valve_opening >= 0) & (self.valve_opening <= 1), self.valve_opening, np.nan)
+            ),
             "valve_limited": np.broadcast_to(self.valve_limited, self.region.shape).tolist(),
             "boundaries": {
                 "ignition": curve(b["ignition"]),

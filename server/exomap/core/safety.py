@@ -346,6 +346,9 @@ class SafetyFigures:
     criticality_class : int or None
     criticality_reason : str
     notes : tuple of str
+    has_decomposition : bool
+        Whether the scenario marks a decomposition reaction (without one, TD24 and the decomposition rise are
+        not given, and the answer says so in words).
     """
 
     tau: float
@@ -362,6 +365,7 @@ class SafetyFigures:
     criticality_class: int | None
     criticality_reason: str
     notes: tuple[str, ...] = field(default_factory=tuple)
+    has_decomposition: bool = False
     success: bool = True
     message: str = "ok"
 
@@ -369,11 +373,14 @@ class SafetyFigures:
         def fin(x: float | None) -> float | None:
             return None if x is None or not math.isfinite(x) else float(x)
 
+        given = self.has_decomposition
         return {
             "process_temperature_K": self.T_process,
             "conversion": self.conversion,
             "adiabatic_temperature_rise_K": self.dT_ad,
-            "decomposition_temperature_rise_K": self.dT_ad_decomposition,
+            # without a decomposition reaction there is nothing to report: say so rather than print 0 K and none
+            "decomposition": None if given else "no decomposition reaction given",
+            "decomposition_temperature_rise_K": self.dT_ad_decomposition if given else None,
             "mtsr_K": self.mtsr,
             "tmr_ad_s": fin(self.tmr_ad),
             "tmr_ad_decomposition_at_mtsr_s": fin(self.tmr_ad_decomposition_at_mtsr),
@@ -459,6 +466,7 @@ def safety_figures(sc: Scenario, tau: float, T_in: float, state: Any) -> SafetyF
         mtsr=MTSR,
         tmr_ad=tmr,
         tmr_ad_decomposition_at_mtsr=tmr_dec,
+        has_decomposition=has_dec,
         td24=TD24,
         mtt=MTT,
         criticality_class=cls,

@@ -158,7 +158,13 @@ class CheckPolicy:
     valve_min, valve_max : float
         Usable valve opening range [-]. Default 0.2..0.8 (common practice).
     upset_duration : float
-        Simulated time of each upset [s]. Default 4 h.
+        Cap on the simulated time of each upset [s]: an upset is followed until it settles, stops (overflow,
+        empty) or reaches this; one still heating at the cap is a reason. Default 24 h, the horizon of TD24:
+        a hazard that takes longer than a day to develop is outside what the check looks at.
+    min_time_to_act : float
+        An upset that overflows the vessel sooner than this is marginal [s]. Default 30 min (common practice:
+        an operator's response to an alarm is usually credited only when some 10 to 30 minutes are available
+        to notice, diagnose and act; the upper end is taken).
     """
 
     min_feed_temperature_margin: float = 10.0
@@ -169,7 +175,8 @@ class CheckPolicy:
     sensitivity: float = 3.0
     valve_min: float = 0.2
     valve_max: float = 0.8
-    upset_duration: float = 4 * 3600.0
+    upset_duration: float = 24 * 3600.0
+    min_time_to_act: float = 30 * 60.0
 
 
 @dataclass(frozen=True)

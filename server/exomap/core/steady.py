@@ -43,7 +43,9 @@ POINT_SAMPLES_GENERAL = 1200
 
 @dataclass(frozen=True)
 class SteadyState:
-    """One steady state. ``sensitivity`` is dT/dT_in at fixed residence time [-]."""
+    """One steady state. ``sensitivity`` is dT/dT_in at fixed residence time [-]. ``valve_opening`` is the
+    inverse characteristic's value [-], which can lie outside 0..1; answers report it through
+    ``valve.reported_opening`` and ``valve.opening_status`` (``below_range``, ``above_range``)."""
 
     T: float
     C: tuple[float, ...]
@@ -68,7 +70,8 @@ class SteadyState:
             "stability": self.stability,
             "oscillatory": self.oscillatory,
             "eigenvalues_per_s": [[ev.real, ev.imag] for ev in self.eigenvalues],
-            "valve_opening": _finite_or_none(self.valve_opening),
+            "valve_opening": valve_mod.reported_opening(self.valve_opening),
+            "valve_opening_status": valve_mod.opening_status(self.valve_opening),
             "sensitivity": _finite_or_none(self.sensitivity),
         }
 

@@ -104,9 +104,40 @@ def flow_derivatives(sc: Scenario, h: float, x: float) -> tuple[float, float, fl
     return q, dq_dh, dq_dx
 
 
+#: Words for an opening no valve can take (DESIGN.md §2 asks for the opening needed to pass the flow).
+IN_RANGE, BELOW_RANGE, ABOVE_RANGE, NO_DRIVING_PRESSURE = (
+    "in_range",
+    "below_range",
+    "above_range",
+    "no_driving_pressure",
+)
+
+
+def opening_status(x: float) -> str:
+    """Whether an opening from :func:`opening_for_flow` is one the valve can take: ``in_range`` (0..1),
+    ``below_range`` (the flow is smaller than the valve passes at its smallest opening of its characteristic,
+    e.g. 1/R of full flow for an equal-percentage valve: the inverse characteristic gives a negative
+    opening), ``above_range`` (the valve is too small: more than fully open) or ``no_driving_pressure``."""
+    if not np.isfinite(x):
+        return NO_DRIVING_PRESSURE
+    if x < 0.0:
+        return BELOW_RANGE
+    if x > 1.0:
+        return ABOVE_RANGE
+    return IN_RANGE
+
+
+def reported_opening(x: float) -> float | None:
+    """The opening as reported in answers: the number when the valve can take it (0..1), else None (the
+    status word of :func:`opening_status` says why); never a negative or above-full opening."""
+    return float(x) if opening_status(x) == IN_RANGE else None
+
+
 def opening_for_flow(sc: Scenario, q, h: float | None = None):
-    """Opening [-] that passes q [m^3/s] (scalar or array) at level h (default: the setpoint). May be > 1
-    (valve too small), or nan when there is no driving pressure."""
+    """Opening [-] that passes q [m^3/s] (scalar or array) at level h (default: the setpoint), from the
+    inverse characteristic. May be > 1 (valve too small), < 0 (flow below what the characteristic passes at
+    its smallest opening: equal percentage below 1/R of full flow), or nan when there is no driving pressure;
+    answers report those through :func:`opening_status`, never as the number."""
     h = sc.vessel.h_set if h is None else h
     dp = pressure_drop(sc, h)
     if dp <= 0.0:

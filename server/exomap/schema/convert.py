@@ -72,6 +72,37 @@ def cross_check(doc: ScenarioDoc) -> list[dict[str, str]]:
     return errors
 
 
+def raw_species_errors(doc: dict) -> list[dict[str, str]]:
+    """Species named in reactions or the feed but not declared, read off the raw document: reported beside
+    the field errors of the same document (they are independent of them), so a typo is named at once."""
+    declared = doc.get("species")
+    if not (isinstance(declared, list) and declared and all(isinstance(s, str) for s in declared)):
+        return []
+    listing = ", ".join(declared)
+    errors: list[dict[str, str]] = []
+
+    def known(mapping: object, where: str) -> None:
+        if isinstance(mapping, dict):
+            for name in mapping:
+                if name not in declared:
+                    errors.append(
+                        {
+                            "field": f"{where}.{name}",
+                            "message": f"unknown species {name!r}; declared species: {listing}",
+                        }
+                    )
+
+    reactions = doc.get("reactions")
+    for j, r in enumerate(reactions if isinstance(reactions, list) else []):
+        if isinstance(r, dict):
+            known(r.get("stoichiometry"), f"reactions[{j}].stoichiometry")
+            known(r.get("orders"), f"reactions[{j}].orders")
+    feed = doc.get("feed")
+    if isinstance(feed, dict):
+        known(feed.get("concentrations"), "feed.concentrations")
+    return errors
+
+
 def to_core(doc: ScenarioDoc) -> Scenario:
     """Build the core ``Scenario`` (SI) and run ``exomap.core.scenario.validate`` on it.
 
@@ -134,7 +165,7 @@ def to_core(doc: ScenarioDoc) -> Scenario:
         UA_loss=doc.heat_loss.ua if doc.heat_loss else 0.0,
         T_amb=doc.heat_loss.ambient_temperature if doc.heat_loss else defaults["T_amb"].default,
         P_agitator=doc.agitator_power,
-        policy=CheckPolicy(**doc.check_policy.model_dump()),
+        policy=CheckPolicy(**{k: v for k, v in doc.check_policy.model_dump().items() if v is not None}),
         map=(
             MapSpec(
                 tau_range=tuple(doc.map.residence_time),

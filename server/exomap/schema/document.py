@@ -29,7 +29,14 @@ from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, ValidationIn
 from pydantic_core import PydanticCustomError
 
 from exomap.core.scenario import CheckPolicy, MapSpec
-from exomap.schema.quantity import DIMENSIONS, QuantityProblem, expected, pre_exponential_to_si, to_si
+from exomap.schema.quantity import (
+    DIMENSIONS,
+    QuantityProblem,
+    expected,
+    pre_exponential_order,
+    pre_exponential_to_si,
+    to_si,
+)
 
 FORMAT = "exomap-scenario/1"
 _POLICY = CheckPolicy()
@@ -149,16 +156,25 @@ class ReactionDoc(_Model):
     @classmethod
     def _k0(cls, value: object, info: ValidationInfo) -> float:
         orders = info.data.get("orders")
-        declared = (info.context or {}).get("species")
-        if isinstance(orders, dict):
-            # orders in undeclared species are reported as such (cross_check), not as a wrong k0 dimension
-            total = float(
-                sum(n for s, n in orders.items() if not (isinstance(declared, list) and declared) or s in declared)
-            )
+        context = info.context or {}
+        declared = context.get("species")
+        # without a species list in the context (a direct model_validate) every order counts
+        certain = "species" not in context or (
+            isinstance(declared, list) and all(isinstance(s, str) for s in declared) and bool(declared)
+        )
+        if isinstance(orders, dict) and certain and ("species" not in context or all(s in declared for s in orders)):
+            total: float | None = float(sum(orders.values()))
         else:
-            total = 1.0
+            # the orders failed their own check or name an undeclared species (a typo): the total order is
+            # not known, so the dimension of k0 cannot be held against it. Those fields are reported
+            # themselves; k0 is only refused when its unit is no rate constant of any order.
+            total = None
         try:
-            x = pre_exponential_to_si(value, total)
+            if total is None:
+                implied = pre_exponential_order(value)
+                x = pre_exponential_to_si(value, 1.0 if implied is None else implied)
+            else:
+                x = pre_exponential_to_si(value, total)
         except QuantityProblem as exc:
             raise _problem(str(exc)) from None
         if not x > 0:
@@ -209,6 +225,8 @@ class CheckPolicyDoc(_Model):
     valve_min: Q("fraction", sign="nonnegative", upper=1.0) = _POLICY.valve_min
     valve_max: Q("fraction", sign="nonnegative", upper=1.0) = _POLICY.valve_max
     upset_duration: Q("time", sign="positive") = _POLICY.upset_duration
+    # None (left out of the canonical JSON, so adding the field kept every scenario id) means the default
+    min_time_to_act: Q("time", sign="positive") | None = None
 
 
 class MapDoc(_Model):

@@ -9,7 +9,7 @@ from typing import Any
 
 from pydantic import BaseModel, ValidationError
 
-from exomap.schema.convert import cross_check, to_core
+from exomap.schema.convert import cross_check, raw_species_errors, to_core
 from exomap.schema.document import Dim, ScenarioDoc
 from exomap.schema.errors import ScenarioError
 from exomap.schema.quantity import expected
@@ -179,7 +179,13 @@ def parse_scenario(doc: Any) -> ScenarioDoc:
     try:
         model = ScenarioDoc.model_validate(doc, context={"species": doc.get("species")})
     except ValidationError as exc:
-        raise reshape(exc) from None
+        # every field error at once: an undeclared species (a typo) first, then what pydantic found
+        found = reshape(exc).errors
+        species_ok = not any(e["field"] == "species" or e["field"].startswith("species[") for e in found)
+        errors = raw_species_errors(doc) if species_ok else []
+        fields = {e["field"] for e in errors}
+        errors += [e for e in found if e["field"] not in fields]
+        raise ScenarioError(errors) from None
     errors = cross_check(model)
     if errors:
         raise ScenarioError(errors)

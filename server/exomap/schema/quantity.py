@@ -243,6 +243,28 @@ def pre_exponential_units(total_order: float) -> str:
 _K0_EXAMPLES = {0: "'2e12 mol/(m^3 s)'", 1: "'5e9 1/s'", 2: "'1.2e7 L/(mol s)'", 3: "'4e5 L^2/(mol^2 s)'"}
 
 
+def pre_exponential_order(value: object) -> float | None:
+    """The total reaction order n that a pre-exponential factor's own unit implies, (mol/m^3)^(1-n)/s, or
+    None when it has no unit or its unit is no rate constant of any order (used when the orders themselves
+    are in error, so that k0 is not blamed for them)."""
+    if not isinstance(value, str):
+        return None
+    try:
+        magnitude, unit = split_value(value, "")
+        if not unit:
+            return None
+        dims = dict(registry().Quantity(magnitude, _parse_units(unit, "")).to_base_units().dimensionality)
+    except Exception:  # noqa: BLE001 - any unreadable unit: no implied order
+        return None
+    n = 1.0 - float(dims.get("[substance]", 0.0))
+    ok = (
+        abs(float(dims.get("[time]", 0.0)) + 1.0) < 1e-9
+        and abs(float(dims.get("[length]", 0.0)) - 3.0 * (n - 1.0)) < 1e-9
+    )
+    others = set(dims) - {"[substance]", "[length]", "[time]"}
+    return n if ok and not any(abs(float(dims[k])) > 1e-9 for k in others) else None
+
+
 def pre_exponential_to_si(value: object, total_order: float) -> float:
     """Convert a pre-exponential factor to SI, checking its dimension (mol/m^3)^(1-n)/s against the
     reaction's total order n. A bare number is taken in SI."""

@@ -20,6 +20,7 @@ import exomap
 from exomap.web.errors import ApiError, error_responses
 from exomap.web.jobs import Answer
 from exomap.web.models import BranchRequest, CheckRequest, MapRequest, SimulateRequest, SteadyRequest
+from exomap.web.query import refuse_unknown_query
 from exomap.web.service import REQUEST_MODELS, Service
 from exomap.web.settings import Settings
 
@@ -52,7 +53,7 @@ ANSWER_SCHEMAS: dict[str, dict[str, Any]] = {
         "type": "object",
         "required": ["verdict", "reasons", "cautions"],
         "properties": {
-            "verdict": {"type": "string", "enum": ["inside", "marginal", "outside"]},
+            "verdict": {"type": "string", "enum": ["inside", "marginal", "outside", "undetermined"]},
             "reasons": {"type": "array"},
             "cautions": {"type": "array"},
         },
@@ -161,7 +162,8 @@ def _validated(model: type, data: dict[str, Any]) -> Any:
 
 def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
     """The ``/api/v1`` router. ``example_scenario`` is the OpenAPI example of a scenario body."""
-    router = APIRouter(prefix="/api/v1")
+    # every route refuses query parameters it does not declare (a misspelt one would be silently ignored)
+    router = APIRouter(prefix="/api/v1", dependencies=[Depends(refuse_unknown_query)])
 
     @router.get(
         "/health",
@@ -475,7 +477,7 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         elif events is not None:
             try:
                 parsed_events = json.loads(events)
-            except ValueError:
+            except (ValueError, RecursionError):  # RecursionError: lists nested thousands deep
                 raise ApiError(
                     422,
                     "invalid_request",

@@ -1,11 +1,12 @@
 """The application factory: ``create_app(settings)`` builds the whole web service (API, docs page, pages).
 
-Nothing happens at import time. ``create_app`` opens the scenario store in ``settings.data_dir`` and reads the
+Nothing happens at import time. ``create_app`` opens the scenario store (``settings.database_url``, by default
+the SQLite file in ``settings.data_dir``), applying its migrations, and reads the
 demo scenarios; the pool of workers starts on the first computation (or at startup under uvicorn, through the
 lifespan) and stops with the app.
 
-Middleware, outermost first: security headers, gzip (answers over 1 kB), CORS (only when ``cors_origins`` is
-set), the request-body limit. Every failure goes through ``exomap.web.errors``.
+Middleware, outermost first: security headers, HEAD answered as GET without a body, gzip (answers over 1 kB),
+CORS (only when ``cors_origins`` is set), the request-body limit. Every failure goes through ``exomap.web.errors``.
 """
 
 from __future__ import annotations
@@ -25,11 +26,12 @@ from starlette.middleware.gzip import GZipMiddleware
 import exomap
 from exomap.web import apidocs, pages
 from exomap.web.api import build_router
+from exomap.web.compare import build_compare_router
 from exomap.web.errors import install_error_handlers
-from exomap.web.middleware import BodyLimit, SecurityHeaders
+from exomap.web.middleware import BodyLimit, HeadAsGet, SecurityHeaders
 from exomap.web.service import Service
 from exomap.web.settings import Settings
-from exomap.web.store import ScenarioStore, load_demos
+from exomap.web.store import open_store
 
 log = logging.getLogger("exomap.web")
 
@@ -61,7 +63,7 @@ def create_app(settings: Settings | None = None, *, warm_up: bool = False) -> Fa
         for the workers to import the core.
     """
     settings = settings if settings is not None else Settings()
-    store = ScenarioStore(settings.data_dir, demos=load_demos())
+    store = open_store(settings)  # StoreUnavailableError when it cannot be opened: exomap serve says why
     service = Service(settings, store)
 
     @asynccontextmanager
@@ -95,6 +97,7 @@ def create_app(settings: Settings | None = None, *, warm_up: bool = False) -> Fa
 
     install_error_handlers(app)
     app.include_router(build_router(_example_document([d.name for d in store.demos if d.name])))
+    app.include_router(build_compare_router())
     apidocs.install(app)
     pages.install(app, settings)
 
@@ -108,5 +111,6 @@ def create_app(settings: Settings | None = None, *, warm_up: bool = False) -> Fa
             allow_headers=["Content-Type", "Authorization"],
         )
     app.add_middleware(GZipMiddleware, minimum_size=1000)
+    app.add_middleware(HeadAsGet)
     app.add_middleware(SecurityHeaders)
     return app

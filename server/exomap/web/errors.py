@@ -23,6 +23,8 @@ from fastapi.responses import JSONResponse
 from pydantic import BaseModel, Field
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
+from exomap.web.store import StoreUnavailableError
+
 log = logging.getLogger("exomap.web")
 
 #: Code of each plain HTTP status the framework raises on its own.
@@ -39,6 +41,9 @@ STATUS_CODES = {
     500: "internal_error",
     503: "time_budget_exceeded",
 }
+
+#: Seconds a client is asked to wait before retrying a 503 (``Retry-After``).
+RETRY_AFTER_S = 5
 
 
 class FieldError(BaseModel):
@@ -78,6 +83,11 @@ class ApiError(Exception):
         self.headers = headers
 
 
+def unavailable(code: str, message: str) -> ApiError:
+    """A 503 the client may retry: ``Retry-After`` says when (time budget, busy queue, lost worker, store)."""
+    return ApiError(503, code, message, headers={"Retry-After": str(RETRY_AFTER_S)})
+
+
 def error_body(status: int, code: str, message: str, fields: Sequence[dict[str, str]] = ()) -> dict[str, Any]:
     """The error document (a plain dict) of the shared shape."""
     return {
@@ -109,7 +119,9 @@ def error_responses(*statuses: int) -> dict[int | str, dict[str, Any]]:
         404: "No scenario with that id.",
         413: "The body or the requested work (map cells, events, duration) is over the limit.",
         422: "Invalid request, scenario or operating point; one message per field.",
-        503: "The computation ran past the request time budget.",
+        503: "Retry later (Retry-After): the computation ran past the time budget (time_budget_exceeded), the "
+        "queue of computations is full (busy), a worker process died (worker_lost) or the store cannot be "
+        "read or written (store_unavailable).",
     }
     return {s: {"model": ErrorBody, "description": descriptions.get(s, "Error.")} for s in statuses}
 
@@ -188,6 +200,12 @@ def install_error_handlers(app: FastAPI) -> None:
     async def _api_error(request: Request, exc: ApiError) -> JSONResponse:
         return error_response(exc.status, exc.code, exc.message, exc.fields, headers=exc.headers)
 
+    @app.exception_handler(StoreUnavailableError)
+    async def _store(request: Request, exc: StoreUnavailableError) -> JSONResponse:
+        # the message names the file or server, never a password (see exomap.web.store_pg.describe)
+        log.error("store unavailable on %s %s: %s", request.method, request.url.path, exc)
+        return error_response(503, "store_unavailable", str(exc), headers={"Retry-After": str(RETRY_AFTER_S)})
+
     @app.exception_handler(RequestValidationError)
     async def _validation(request: Request, exc: RequestValidationError) -> JSONResponse:
         fields = validation_fields(exc.errors())
@@ -200,7 +218,8 @@ def install_error_handlers(app: FastAPI) -> None:
         if status == 404:
             message = f"nothing at {request.url.path}"
         elif status == 405:
-            message = f"{request.method} is not allowed on {request.url.path}"
+            method = request.scope.get("exomap.method", request.method)
+            message = f"{method} is not allowed on {request.url.path}"
         else:
             message = str(exc.detail) if exc.detail else code.replace("_", " ")
         if status == 400 and request.method == "POST":

@@ -1,4 +1,4 @@
-"""ASGI middleware of the app: the request-body size guard and the security headers.
+"""ASGI middleware of the app: HEAD on every GET route, the request-body size guard and the security headers.
 
 Both are plain ASGI (no BaseHTTPMiddleware), so they add no task per request and never buffer responses.
 """
@@ -120,3 +120,30 @@ class BodyLimit:
             return await receive()
 
         await self.app(scope, replay, send)
+
+
+class HeadAsGet:
+    """Answer ``HEAD`` on every ``GET`` route: the request goes to the app as ``GET`` and the body is dropped,
+    so the status and headers (``Content-Length`` included) are those a ``GET`` would get (RFC 9110 §9.3.2).
+
+    FastAPI's routes declare GET only and would answer HEAD with 405. The original method is kept in the scope
+    as ``exomap.method`` for messages.
+    """
+
+    def __init__(self, app: ASGIApp) -> None:
+        self.app = app
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if scope["type"] != "http" or scope.get("method") != "HEAD":
+            await self.app(scope, receive, send)
+            return
+        scope = {**scope, "method": "GET", "exomap.method": "HEAD"}
+
+        async def send_headers_only(message: Message) -> None:
+            if message["type"] == "http.response.body":
+                if message.get("more_body", False):
+                    return  # the final (empty) body message below ends the answer
+                message = {"type": "http.response.body", "body": b"", "more_body": False}
+            await send(message)
+
+        await self.app(scope, receive, send_headers_only)

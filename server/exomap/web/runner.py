@@ -10,12 +10,14 @@
 * ``thread``: a thread pool in the server process; lighter, for tests. A job past its budget is answered
   503 at once, but its thread runs on to the end (a thread cannot be stopped from outside).
 
-Jobs beyond the pool size queue; the queueing time counts against the budget. The pool starts on the first
-job (or ``warm_up()``) and stops with the app.
+Jobs beyond the pool size wait, at most ``max_queued`` of them (more are refused at once with ``Busy``); the
+waiting time counts against the budget, and waiting holds no thread (see ``Runner``). The pool starts on the
+first job (or ``warm_up()``) and stops with the app.
 """
 
 from __future__ import annotations
 
+import asyncio
 import logging
 import multiprocessing
 import os
@@ -26,9 +28,6 @@ from collections.abc import Callable
 from concurrent.futures import Future, ThreadPoolExecutor
 from typing import Any
 
-import anyio
-import anyio.to_thread
-
 log = logging.getLogger("exomap.web")
 
 #: Scheduling niceness added to worker processes: when the CPUs are busy, the server process (health,
@@ -38,6 +37,10 @@ WORKER_NICENESS = 10
 
 class BudgetExceeded(Exception):
     """A job ran past the request time budget."""
+
+
+class Busy(Exception):
+    """Every worker is busy and the queue of waiting computations is full."""
 
 
 class WorkerLost(RuntimeError):
@@ -191,16 +194,28 @@ class ProcessWorkers:
 
 # -- the runner -----------------------------------------------------------------------------------------------------
 class Runner:
-    """A bounded pool of workers (processes or threads) with a per-job time budget."""
+    """A bounded pool of workers (processes or threads) with admission control and a per-job time budget.
 
-    def __init__(self, workers: int, kind: str = "process") -> None:
+    Admission: at most ``workers`` jobs run and at most ``max_queued`` wait for a worker; a job arriving when
+    both are full raises ``Busy`` at once (the API answers 503 with Retry-After rather than letting the request
+    wait out its budget). Waiting for a worker is an ``asyncio`` wait on a semaphore: it holds no thread, so
+    pages, saves and request parsing (which use the event loop's thread pool) never queue behind computations.
+    A running job is waited on from a private thread pool of ``workers`` threads (one per running job, never
+    more), not from the event loop's.
+    """
+
+    def __init__(self, workers: int, kind: str = "process", max_queued: int = 16) -> None:
         if kind not in ("process", "thread"):
             raise ValueError(f"unknown executor kind {kind!r}")
         self.workers = workers
         self.kind = kind
+        self.max_queued = max_queued
         self._processes: ProcessWorkers | None = None
         self._threads: ThreadPoolExecutor | None = None
         self._lock = threading.Lock()
+        self._slots: asyncio.Semaphore | None = None
+        self.waiting = 0  # jobs admitted and waiting for a worker (read by tests and the load benchmark)
+        self.running = 0  # jobs holding a worker slot (a thread job past its budget holds it until it ends)
 
     def _process_pool(self) -> ProcessWorkers:
         with self._lock:
@@ -209,6 +224,7 @@ class Runner:
             return self._processes
 
     def _thread_pool(self) -> ThreadPoolExecutor:
+        # ``workers`` threads: they run the jobs (thread kind) or wait on the worker pipes (process kind)
         with self._lock:
             if self._threads is None:
                 self._threads = ThreadPoolExecutor(max_workers=self.workers, thread_name_prefix="exomap-job")
@@ -223,20 +239,61 @@ class Runner:
             for f in [pool.submit(_warm) for _ in range(self.workers)]:
                 f.result(timeout=120)
 
-    async def run(self, fn: Callable[..., Any], *args: Any, budget_s: float) -> Any:
-        """Run ``fn(*args)`` off the event loop; raise ``BudgetExceeded`` past ``budget_s`` seconds."""
-        if self.kind == "process":
-            # the pool's one-off start (workers importing the core) does not count against a request's budget
-            pool = self._processes or await anyio.to_thread.run_sync(self._process_pool)
-            deadline = time.monotonic() + budget_s
-            return await anyio.to_thread.run_sync(pool.run, fn, args, deadline, budget_s)
-        fut = self._thread_pool().submit(fn, *args)
+    async def _acquire(self, deadline: float, budget_s: float) -> None:
+        """Take a worker slot, or raise ``Busy`` (queue full) or ``BudgetExceeded`` (none free in time)."""
+        if self._slots is None:
+            self._slots = asyncio.Semaphore(self.workers)
+        slots = self._slots
+        if slots.locked() and self.waiting >= self.max_queued:
+            raise Busy(
+                f"{self.running} computations are running and {self.waiting} waiting, the most this server "
+                "queues; try again shortly"
+            )
+        self.waiting += 1
         try:
-            with anyio.fail_after(budget_s):
-                return await anyio.to_thread.run_sync(fut.result, abandon_on_cancel=True)
+            async with asyncio.timeout(max(deadline - time.monotonic(), 0.0)):
+                await slots.acquire()
         except TimeoutError:
-            if not fut.cancel():
-                fut.add_done_callback(_consume)
+            raise BudgetExceeded(f"no worker was free within the budget of {budget_s:g} s") from None
+        finally:
+            self.waiting -= 1
+        self.running += 1
+
+    def _release(self, _: object = None) -> None:
+        self.running -= 1
+        assert self._slots is not None
+        self._slots.release()
+
+    async def run(self, fn: Callable[..., Any], *args: Any, budget_s: float, deadline: float | None = None) -> Any:
+        """Run ``fn(*args)`` off the event loop; raise ``Busy`` when the queue is full, ``BudgetExceeded`` past
+        the deadline (default: ``budget_s`` from now; time spent waiting for a worker counts), ``WorkerLost``
+        when a worker process dies."""
+        loop = asyncio.get_running_loop()
+        if self.kind == "process" and self._processes is None:
+            # the pool's one-off start (workers importing the core) does not count against a request's budget
+            await loop.run_in_executor(None, self._process_pool)
+        if deadline is None:
+            deadline = time.monotonic() + budget_s
+        await self._acquire(deadline, budget_s)
+        try:
+            if self.kind == "process":
+                pool = self._process_pool()
+                fut = self._thread_pool().submit(pool.run, fn, args, deadline, budget_s)
+            else:
+                fut = self._thread_pool().submit(fn, *args)
+        except BaseException:
+            self._release()
+            raise
+        # the slot is freed when the job really ends (a thread past its budget keeps it until it finishes)
+        fut.add_done_callback(lambda _: _call_in_loop(loop, self._release))
+        waiter = asyncio.wrap_future(fut)
+        waiter.add_done_callback(_retrieve)  # nobody may be left to read it (the request went away)
+        try:
+            async with asyncio.timeout(max(deadline - time.monotonic(), 0.0) + (0.5 if self.kind == "process" else 0)):
+                return await asyncio.shield(waiter)
+        except TimeoutError:
+            # process jobs stop themselves at the deadline (pool.run kills the worker); a thread runs on
+            fut.add_done_callback(_consume)
             raise BudgetExceeded(f"the computation took longer than the budget of {budget_s:g} s") from None
 
     def shutdown(self) -> None:
@@ -249,6 +306,18 @@ class Runner:
             processes.close()
         if threads is not None:
             threads.shutdown(wait=False, cancel_futures=True)
+
+
+def _call_in_loop(loop: asyncio.AbstractEventLoop, fn: Callable[[], None]) -> None:
+    try:
+        loop.call_soon_threadsafe(fn)
+    except RuntimeError:  # the loop has closed (server stopped): nothing is waiting for the slot any more
+        pass
+
+
+def _retrieve(fut: asyncio.Future) -> None:
+    if not fut.cancelled():
+        fut.exception()
 
 
 def _consume(fut: Future) -> None:

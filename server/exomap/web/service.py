@@ -7,8 +7,10 @@ one question normalise to the same cache key and the same answer bytes.
 
 from __future__ import annotations
 
+import asyncio
 import json
 import threading
+import time
 from collections import OrderedDict
 from dataclasses import dataclass
 from typing import Any
@@ -17,7 +19,7 @@ import anyio.to_thread
 
 from exomap.web import jobs
 from exomap.web.cache import AnswerCache
-from exomap.web.errors import ApiError
+from exomap.web.errors import ApiError, unavailable
 from exomap.web.models import (
     BranchRequest,
     CheckRequest,
@@ -26,7 +28,7 @@ from exomap.web.models import (
     SimulateRequest,
     SteadyRequest,
 )
-from exomap.web.runner import BudgetExceeded, Runner
+from exomap.web.runner import BudgetExceeded, Busy, Runner, WorkerLost
 from exomap.web.settings import Settings
 from exomap.web.store import ScenarioStore
 
@@ -74,10 +76,11 @@ class Service:
     def __init__(self, settings: Settings, store: ScenarioStore) -> None:
         self.settings = settings
         self.store = store
-        self.runner = Runner(settings.workers, settings.executor)
+        self.runner = Runner(settings.workers, settings.executor, settings.max_queued)
         self.cache = AnswerCache(settings.cache_entries, settings.cache_bytes)
         self._scenarios: OrderedDict[str, Any] = OrderedDict()
         self._lock = threading.Lock()
+        self._inflight: dict[Any, asyncio.Future] = {}  # cache key -> the computation answering it (event loop)
 
     # -- scenarios ----------------------------------------------------------------------------------------------
     def _core_of_document(self, doc: dict[str, Any], prefix: str) -> tuple[str, Any]:
@@ -207,6 +210,15 @@ class Service:
             return {"tau_range": tau_range, "T_in_range": T_in_range, "points": points, "spacing": req.spacing}
         if kind == "check":
             tau, T_in = self._point(req, sc)
+            cap = float(sc.policy.upset_duration)
+            if cap > s.max_duration_s:  # each upset is a simulation: the same limit
+                raise ApiError(
+                    413,
+                    "too_long",
+                    f"check_policy.upset_duration of {cap:g} s is longer than the limit of one simulation, "
+                    f"{s.max_duration_s:g} s",
+                    [{"field": "check_policy.upset_duration", "message": f"at most {s.max_duration_s:g} s"}],
+                )
             return {"tau": tau, "T_in": T_in, "branch": req.branch}
         if kind == "simulate":
             from exomap.core.events import parse_events
@@ -237,16 +249,12 @@ class Service:
         raise ValueError(f"unknown kind {kind!r}")
 
     # -- answers ------------------------------------------------------------------------------------------------
-    async def answer(self, kind: str, req: Any, fmt: str = "json") -> tuple[jobs.Answer, bool]:
-        """The serialised answer of one request and whether it came from the cache."""
+    def prepare(self, kind: str, req: Any) -> tuple[Resolved, dict[str, Any]]:
+        """The request's scenario and the SI arguments of its core call (blocking: parsing, store, pint)."""
         from exomap import schema
         from exomap.core.errors import LimitExceededError, ModelInputError
 
-        if req.scenario is not None:
-            # parsing a whole inline document (pint, pydantic) is done off the event loop
-            resolved = await anyio.to_thread.run_sync(self.resolve, req)
-        else:
-            resolved = self.resolve(req)
+        resolved = self.resolve(req)
         try:
             params = self.params(kind, req, resolved.scenario)
         except LimitExceededError as exc:
@@ -255,20 +263,68 @@ class Service:
             raise self._input(exc) from None
         except schema.ScenarioError as exc:
             raise ApiError(422, "invalid_input", str(exc), exc.errors) from None
+        return resolved, params
+
+    async def answer(self, kind: str, req: Any, fmt: str = "json") -> tuple[jobs.Answer, bool]:
+        """The serialised answer of one request and whether it came from the cache.
+
+        Everything that can take time runs off the event loop and inside the request's time budget: reading
+        and parsing the scenario (inline or stored) and its parameters in a thread, the computation in the
+        runner. Identical requests in flight at once (the cache key) share one computation.
+        """
+        budget = self.settings.request_time_budget_s
+        deadline = time.monotonic() + budget
+        try:
+            with anyio.fail_after(budget):
+                resolved, params = await anyio.to_thread.run_sync(self.prepare, kind, req, abandon_on_cancel=True)
+        except TimeoutError:
+            raise unavailable(
+                "time_budget_exceeded", f"reading the scenario took longer than the budget of {budget:g} s"
+            ) from None
         key = (kind, resolved.id, _freeze(params), fmt)
+        return await self.computed(key, jobs.run_job, kind, resolved.scenario, params, fmt, deadline=deadline)
+
+    async def computed(self, key: Any, fn: Any, *args: Any, deadline: float | None = None) -> tuple[jobs.Answer, bool]:
+        """The answer of ``fn(*args)`` (a job returning ``Answer | JobError``) from the cache, from the same
+        computation already in flight, or computed in the runner; and whether it came from the cache.
+
+        Failures are ``ApiError``: 503 ``busy`` (queue full), ``time_budget_exceeded``, ``worker_lost``, or
+        the job's domain error.
+        """
         cached = self.cache.get(key)
         if cached is not None:
             return cached, True  # type: ignore[return-value]
+        task = self._inflight.get(key)
+        if task is None:
+            if deadline is None:
+                deadline = time.monotonic() + self.settings.request_time_budget_s
+            task = asyncio.ensure_future(self._compute(key, fn, args, deadline))
+            self._inflight[key] = task
+            task.add_done_callback(lambda t: self._finished(key, t))
+        # shield: a client that goes away does not cancel the computation others may be waiting for
+        return await asyncio.shield(task), False
+
+    def _finished(self, key: Any, task: asyncio.Future) -> None:
+        if self._inflight.get(key) is task:
+            del self._inflight[key]
+        if not task.cancelled():
+            task.exception()  # retrieved here too, in case every requester went away
+
+    async def _compute(self, key: Any, fn: Any, args: tuple[Any, ...], deadline: float) -> jobs.Answer:
+        budget = self.settings.request_time_budget_s
         try:
-            out = await self.runner.run(
-                jobs.run_job, kind, resolved.scenario, params, fmt, budget_s=self.settings.request_time_budget_s
-            )
+            out = await self.runner.run(fn, *args, budget_s=budget, deadline=deadline)
+        except Busy as exc:
+            raise unavailable("busy", str(exc)) from None
         except BudgetExceeded as exc:
-            raise ApiError(503, "time_budget_exceeded", str(exc), headers={"Retry-After": "5"}) from None
+            raise unavailable("time_budget_exceeded", str(exc)) from None
+        except WorkerLost as exc:
+            # the worker died (killed from outside, out of memory); a replacement is starting, so a retry works
+            raise unavailable("worker_lost", f"{exc}; try again") from None
         if isinstance(out, jobs.JobError):
             raise self._job_error(out)
         self.cache.put(key, out)
-        return out, False
+        return out
 
     @staticmethod
     def _limit(exc: Any) -> ApiError:
@@ -290,7 +346,7 @@ class Service:
         if err.kind == "convergence":
             return ApiError(422, "no_convergence", err.message)
         if err.kind == "budget":
-            return ApiError(503, "time_budget_exceeded", err.message, headers={"Retry-After": "5"})
+            return unavailable("time_budget_exceeded", err.message)
         raise RuntimeError(f"unknown job error kind {err.kind!r}")
 
 

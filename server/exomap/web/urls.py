@@ -157,3 +157,38 @@ def api_map_of_page(scenario_id: str, state: Mapping[str, object] | None = None,
     if fmt:
         params["format"] = fmt
     return api_answer(scenario_id, "map", params)
+
+
+# -- compare ----------------------------------------------------------------------------------------------------
+#: Query keys of the compare page, in link order (exomap.web.compare.VIEW_KEYS).
+COMPARE_KEYS = (
+    "a",
+    "b",
+    "residence_time_a",
+    "feed_temperature_a",
+    "branch_a",
+    "residence_time_b",
+    "feed_temperature_b",
+    "branch_b",
+    "map_residence_time",
+    "map_feed_temperature",
+    "points",
+    "prepared_by",
+    "reviewed_by",
+    "change_reference",
+    "review_date",
+)
+
+
+def compare_page(state: Mapping[str, object]) -> str:
+    """The compare page of a view state (``a``, ``b``, setpoints, window, sign-off fields)."""
+    return "/compare" + _query({k: state[k] for k in COMPARE_KEYS if k in state})
+
+
+def compare_print_page(state: Mapping[str, object]) -> str:
+    return "/compare/print" + _query({k: state[k] for k in COMPARE_KEYS if k in state})
+
+
+def api_compare(params: Mapping[str, object]) -> str:
+    """GET twin of a comparison (``a``, ``b``, ``residence_time_a`` ..., window ``residence_time=lo,hi``)."""
+    return f"{API}/compare" + _query(params)
