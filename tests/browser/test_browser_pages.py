@@ -284,6 +284,7 @@ def test_bad_unit_in_editor_is_shown_beside_the_field(page: Any, server: str, te
     start_url = page.url
     page.fill("#editor [data-field='feed.temperature'] input", "35 kg")
     page.fill("#editor [data-field='vessel.diameter'] input", "1.2 degC")
+    page.fill("#editor [data-field='description'] textarea", "Invented: a test of bad units.")
     page.click("#editor-save")
     err = page.locator("#editor [data-field='feed.temperature'] .field-error")
     err.wait_for(state="visible", timeout=TIMEOUT)

@@ -8,6 +8,7 @@ and the URL module round-trips view state.
 from __future__ import annotations
 
 import html
+import json
 import re
 from html.parser import HTMLParser
 from importlib import resources
@@ -309,3 +310,42 @@ def test_simulate_takes_the_event_lines_the_page_teaches(client: Any) -> None:
     assert bad.status_code == 422
     fields = bad.json()["error"]["fields"]
     assert fields[0]["field"] == "events[1]" and "not an event line" in fields[0]["message"]
+
+
+def test_coolant_temperature_is_a_setpoint_of_a_jacketed_tank(client: Any) -> None:
+    """check, simulate and map take the coolant temperature; each answer is the core's on the scenario with
+    that coolant (the API's own default when it is absent), and a tank without a jacket refuses it by name."""
+    import dataclasses
+
+    from exomap import schema
+    from exomap.core.check import check_setpoint
+    from exomap.web.jobs import dumps
+
+    listing = client.get("/api/v1/scenarios").json()["scenarios"]
+    jacketed = next(s for s in listing if s["name"] == "jacketed-first-order")
+    doc = client.get(f"/api/v1/scenarios/{jacketed['id']}").json()
+    core = schema.parse_scenario(doc).to_core()
+    # 15 degC = 288.15 K (SI Brochure §2.3.1)
+    warm = dataclasses.replace(core, T_c=288.15)
+    want = json.loads(dumps(check_setpoint(warm, tau=2400.0, T_in=core.T_in).to_dict()))
+    got = client.get(
+        f"/api/v1/scenarios/{jacketed['id']}/check", params={"residence_time": 2400, "coolant_temperature": "15 degC"}
+    )
+    assert got.status_code == 200, got.text
+    assert got.json() == want
+    plain = client.get(f"/api/v1/scenarios/{jacketed['id']}/check", params={"residence_time": 2400}).json()
+    assert plain != want  # the coolant moved the answer, so the test can tell
+    m = client.get(
+        f"/api/v1/scenarios/{jacketed['id']}/map", params={"points": "20,20", "coolant_temperature": 288.15}
+    ).json()
+    m0 = client.get(f"/api/v1/scenarios/{jacketed['id']}/map", params={"points": "20,20"}).json()
+    assert m["region"] != m0["region"] or m["boundaries"] != m0["boundaries"]
+    sim = client.post(
+        "/api/v1/simulate",
+        json={"scenario_id": jacketed["id"], "residence_time": 2400, "duration": 600, "coolant_temperature": "15 degC"},
+    )
+    assert sim.status_code == 200, sim.text
+    adiabatic = next(s for s in listing if s["name"] == "adiabatic-second-order")
+    bad = client.get(f"/api/v1/scenarios/{adiabatic['id']}/check", params={"coolant_temperature": "15 degC"})
+    assert bad.status_code == 422
+    assert bad.json()["error"]["fields"][0]["field"] == "coolant_temperature"

@@ -155,7 +155,7 @@ def test_lineage_is_store_metadata_not_content(make_client, tmp_path: Path) -> N
     data = tmp_path / "lineage"
     data.mkdir()
     # a database as made before lineage was kept
-    old = sqlite3.connect(data / ScenarioStore.FILE_NAME)
+    old = sqlite3.connect(data / SQLiteDatabase.FILE_NAME)
     old.execute(
         "CREATE TABLE scenarios (id TEXT PRIMARY KEY, title TEXT NOT NULL, description TEXT NOT NULL, "
         "document TEXT NOT NULL, saved_at REAL NOT NULL)"

@@ -139,7 +139,7 @@ const pick = (u, ...keys) => { for (const k of keys) if (u[k] !== undefined) ret
 // Upset battery table; onOpen(i) opens a response (omitted in print).
 export function renderUpsets(table, upsets, onOpen) {
   table.textContent = "";
-  const head = ["Upset", "Peak temperature", "at", "Time to alarm", "Time to maximum temperature", "Level range",
+  const head = ["Upset", "Peak temperature", "at", "Time to the temperature alarm", "Time to maximum temperature", "Level range",
     "Settles at"];
   if (onOpen) head.push("");
   table.append(el("tr", {}, ...head.map((h) => el("th", { scope: "col", text: h }))));

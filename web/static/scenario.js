@@ -53,12 +53,20 @@ const nominalTau = (doc) => clean(volume(doc) / doc.feed.flow);
 const flowAt = (tau) => (view.scenario && Number.isFinite(tau) ? volume(view.scenario) / tau : NaN);
 const roundTau = (s) => { const m = s / 60; const p = Number(m.toPrecision(3)); return clean(p * 60); };
 const roundTin = (K) => clean(Math.round((K - 273.15) * 10) / 10 + 273.15);
-const setpoint = () => ({ residence_time: state.residence_time, feed_temperature: state.feed_temperature });
+// The setpoint as the API takes it; the coolant temperature only when it is set away from the scenario's.
+const setpoint = () => ({ residence_time: state.residence_time, feed_temperature: state.feed_temperature,
+  ...(state.coolant_temperature ? { coolant_temperature: state.coolant_temperature } : {}) });
+// The scenario document as the setpoint has it (the heat balance is drawn from it).
+const scenarioAtSetpoint = () => (state.coolant_temperature && view.scenario.jacket
+  ? { ...view.scenario, jacket: { ...view.scenario.jacket, coolant_temperature: state.coolant_temperature } } : view.scenario);
 let spLast = "tau"; // which of residence time and feed flow was typed last: that one sets the setpoint
 
 function fillSetpointInputs() {
   $("sp-tau").value = inputMin(state.residence_time);
   $("sp-tin").value = inputTemp(state.feed_temperature);
+  const jacket = view.scenario && view.scenario.jacket;
+  $("sp-tc-field").hidden = !jacket;
+  if (jacket) $("sp-tc").value = inputTemp(state.coolant_temperature ?? jacket.coolant_temperature);
   const q = flowAt(state.residence_time);
   $("sp-flow").value = inputFlow(q);
   const nominal = view.scenario ? view.scenario.feed.flow : NaN;
@@ -118,6 +126,7 @@ function wireTabs() {
 }
 
 // -- setpoint ---------------------------------------------------------------------------------------------
+let mapCoolant = null; // the coolant temperature the drawn map was computed for
 function moveSetpoint(sp, { push = true } = {}) {
   state.residence_time = sp.residence_time;
   state.feed_temperature = sp.feed_temperature;
@@ -126,6 +135,7 @@ function moveSetpoint(sp, { push = true } = {}) {
   if (view.mapCtl) view.mapCtl.setSetpoint(setpoint());
   syncURL(push);
   loadCheck();
+  if ((state.coolant_temperature || null) !== mapCoolant) loadMap();
   if (state.panel === "curves") loadCurves();
   view.simulation = null;
   if (state.panel === "simulate" && hasSimulation()) runSimulation();
@@ -150,7 +160,17 @@ function wireSetpoint() {
     }
     try { tin = parseTemperature($("sp-tin").value); fieldError("sp-tin-err", ""); }
     catch (e) { fieldError("sp-tin-err", e.message); }
+    let tc = null;
+    const jacket = view.scenario && view.scenario.jacket;
+    if (jacket) {
+      try {
+        const K = parseTemperature($("sp-tc").value);
+        tc = Math.abs(K - jacket.coolant_temperature) < 1e-9 ? null : K;
+        fieldError("sp-tc-err", "");
+      } catch (e) { fieldError("sp-tc-err", e.message.replace("temperature such as", "coolant temperature such as")); return; }
+    }
     if (tau === undefined || tin === undefined) return;
+    state.coolant_temperature = tc;
     state.branch = $("sp-branch").value === "high" ? "high" : null;
     moveSetpoint({ residence_time: tau, feed_temperature: tin });
   });
@@ -207,7 +227,7 @@ function hoverAt(sp) {
   hoverTimer = setTimeout(async () => {
     const seq = ++view.seq.hover;
     try {
-      const ans = await getJSON(urls.apiAnswer(ID, "steady", sp), "Reading the steady states");
+      const ans = await getJSON(urls.apiAnswer(ID, "steady", { ...sp, coolant_temperature: state.coolant_temperature }), "Reading the steady states");
       if (seq !== view.seq.hover) return;
       view.hovered = { point: sp, answer: ans };
       const list = el("ul", { class: "readout-states" });
@@ -223,6 +243,7 @@ async function loadMap(prefetched) {
     const doc = await (prefetched || getJSON(url, "Computing the operating map"));
     performance.mark("exomap:map-answer");
     view.map = doc;
+    mapCoolant = state.coolant_temperature || null;
     if (!state.map_residence_time || !state.map_feed_temperature || !state.points) {
       // write the window the server chose into the URL, so a copied link keeps it
       state.map_residence_time = [doc.residence_time_s[0], doc.residence_time_s.at(-1)];
@@ -375,7 +396,7 @@ async function loadCurves() {
   };
   const heat = async () => {
     try {
-      await drawHeatBalance(Plotly, $("heat-balance"), view.scenario, sp, maxK);
+      await drawHeatBalance(Plotly, $("heat-balance"), scenarioAtSetpoint(), sp, maxK);
     } catch (e) { $("heat-balance").textContent = `The heat balance could not be drawn: ${e.message}`; }
   };
   await Promise.all([one("residence_time", $("curve-tau")), one("feed_temperature", $("curve-tin")), heat()]);

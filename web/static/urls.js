@@ -98,7 +98,7 @@ export function twinOfPage(id, state) {
 export function mapOfPage(id, state, format) {
   return apiAnswer(id, "map", {
     residence_time: state.map_residence_time, feed_temperature: state.map_feed_temperature,
-    points: state.points, format,
+    points: state.points, coolant_temperature: state.coolant_temperature, format,
   });
 }
 

@@ -402,6 +402,7 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         feed_temperature: Annotated[str | None, Query(description="Window 'lo,hi', e.g. '0 degC,120 degC'.")] = None,
         points: Annotated[str | None, Query(description="Grid 'n_tau,n_tin', e.g. '200,200'.")] = None,
         spacing: Annotated[str | None, Query(description="'log' or 'linear' residence-time axis.")] = None,
+        coolant_temperature: Tc = None,
         format: Annotated[str, Query(description="'json' or 'csv'.", pattern="^(json|csv)$")] = "json",
     ) -> Response:
         pts: Any = None
@@ -416,6 +417,7 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
                 "feed_temperature": _pair(feed_temperature),
                 "points": pts,
                 "spacing": spacing,
+                "coolant_temperature": _number_or_text(coolant_temperature),
             },
         )
         out, hit = await service.answer("map", req, format)
@@ -434,6 +436,7 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         residence_time: Tau = None,
         feed_temperature: Tin = None,
         branch: Annotated[str | None, Query(description="'low' or 'high': which stable state is assumed.")] = None,
+        coolant_temperature: Tc = None,
     ) -> Response:
         req = _validated(
             CheckRequest,
@@ -442,6 +445,7 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
                 "residence_time": _number_or_text(residence_time),
                 "feed_temperature": _number_or_text(feed_temperature),
                 "branch": branch,
+                "coolant_temperature": _number_or_text(coolant_temperature),
             },
         )
         out, hit = await service.answer("check", req)
@@ -468,6 +472,7 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
                 "line ('at 10 min do feed_stop')."
             ),
         ] = None,
+        coolant_temperature: Tc = None,
         format: Annotated[str, Query(description="'json' or 'csv'.", pattern="^(json|csv)$")] = "json",
     ) -> Response:
         parsed_events: Any = None
@@ -493,6 +498,7 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
                 "start": start,
                 "duration": _number_or_text(duration),
                 "events": parsed_events,
+                "coolant_temperature": _number_or_text(coolant_temperature),
             },
         )
         out, hit = await service.answer("simulate", req, format)

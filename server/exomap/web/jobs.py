@@ -11,6 +11,7 @@ worker process does not load FastAPI or pydantic.
 
 from __future__ import annotations
 
+import dataclasses
 import gzip
 import json
 import math
@@ -113,7 +114,11 @@ def compute(kind: str, sc: Any, params: dict[str, Any]) -> Any:
             T_in_range=params.get("T_in_range"),
             points=params.get("points"),
             spacing=params.get("spacing", "log"),
+            T_c=params.get("T_c"),
         )
+    if params.get("T_c") is not None:
+        # a coolant-temperature setpoint: the check and the simulation run on the scenario with that coolant
+        sc = dataclasses.replace(sc, T_c=params["T_c"])
     if kind == "check":
         from exomap.core.check import check_setpoint
 

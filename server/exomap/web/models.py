@@ -121,6 +121,9 @@ class MapRequest(ScenarioRef):
     feed_temperature: Range | None = Field(default=None, description="[lo, hi]; default: the scenario's window.")
     points: GridPoints | None = Field(default=None, description="Grid size; default: the scenario's (or 200 x 200).")
     spacing: Literal["log", "linear"] = Field(default="log", description="Spacing of the residence-time axis.")
+    coolant_temperature: Quantity | None = Field(
+        default=None, description="Coolant temperature of the jacket, e.g. '20 degC'; default: the scenario's."
+    )
 
 
 class CheckRequest(OperatingPoint):
@@ -135,6 +138,9 @@ class CheckRequest(OperatingPoint):
 
     branch: Literal["low", "high"] | None = Field(
         default=None, description="Which stable state the tank is on where there are several; default: low."
+    )
+    coolant_temperature: Quantity | None = Field(
+        default=None, description="Coolant temperature of the jacket, e.g. '20 degC'; default: the scenario's."
     )
 
 
@@ -165,4 +171,7 @@ class SimulateRequest(OperatingPoint):
     )
     duration: Quantity | None = Field(
         default=None, description="Simulated time, e.g. '2 h' or seconds; default: the check policy's upset duration."
+    )
+    coolant_temperature: Quantity | None = Field(
+        default=None, description="Coolant temperature of the jacket, e.g. '20 degC'; default: the scenario's."
     )

@@ -154,6 +154,8 @@ def api_map_of_page(scenario_id: str, state: Mapping[str, object] | None = None,
         params["feed_temperature"] = state["map_feed_temperature"]
     if "points" in state:
         params["points"] = state["points"]
+    if "coolant_temperature" in state:
+        params["coolant_temperature"] = state["coolant_temperature"]
     if fmt:
         params["format"] = fmt
     return api_answer(scenario_id, "map", params)
