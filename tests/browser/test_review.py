@@ -419,3 +419,38 @@ def test_simulation_link_reruns_the_same_run(new_context: Any, server: str, api:
     other.wait_for_selector("#sim-events-err:not([hidden])", timeout=TIMEOUT)
     assert other.inner_text("#sim-events-err").startswith("Line 2:")
     screenshot(other, "review-simulation-link")
+
+
+# -- coolant temperature and check thresholds --------------------------------------------------------------------
+def test_coolant_temperature_setpoint_and_policy_thresholds(
+    new_context: Any, server: str, api: httpx.Client, test_tank: str
+) -> None:
+    page = open_page(new_context())
+    page.goto(f"{server}/scenarios/{test_tank}?residence_time=2400")
+    ready(page)
+    doc = api.get(f"/api/v1/scenarios/{test_tank}").json()
+    # the jacketed tank shows its coolant temperature; a new one goes into the link and the check
+    assert page.input_value("#sp-tc") == f"{doc['jacket']['coolant_temperature'] - 273.15:g} °C"
+    page.fill("#sp-tc", "12 °C")
+    page.press("#sp-tc", "Enter")
+    # 12 degC = 285.15 K (SI Brochure §2.3.1)
+    page.wait_for_function(
+        "() => new URL(location.href).searchParams.get('coolant_temperature') === '285.15'", timeout=TIMEOUT
+    )
+    twin = page.get_attribute("link[rel=alternate][type='application/json']", "href")
+    assert "coolant_temperature=285.15" in twin
+    page.wait_for_function(CHECK_DONE, timeout=TIMEOUT)
+    assert page.get_attribute("#verdict", "data-verdict") == api.get(twin).json()["verdict"]
+    # the check thresholds are edited in plant units and saved in SI
+    page.click("#tab-editor")
+    page.wait_for_selector("#editor [data-field='check_policy.min_temperature_margin'] input", timeout=TIMEOUT)
+    assert page.input_value("#editor [data-field='check_policy.valve_min'] input") == "20"
+    page.fill("#editor [data-field='check_policy.min_temperature_margin'] input", "25")
+    page.fill("#editor [data-field='check_policy.valve_min'] input", "15")
+    page.fill("#editor [data-field='description'] textarea", "Invented: the test tank with stricter thresholds.")
+    page.click("#editor-save")
+    page.wait_for_url(re.compile(r"/scenarios/(?!" + test_tank + r")[0-9a-f]+"), timeout=TIMEOUT)
+    new_id = urlparse(page.url).path.rsplit("/", 1)[-1]
+    policy = api.get(f"/api/v1/scenarios/{new_id}").json()["check_policy"]
+    # analytic: 25 K as typed in the K shown; 15 % = 0.15
+    assert policy["min_temperature_margin"] == pytest.approx(25.0) and policy["valve_min"] == pytest.approx(0.15)

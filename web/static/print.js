@@ -111,6 +111,10 @@ async function main() {
     const entry = (map.legend || []).find((e) => e.key === chk.region);
     $("p-assumption").textContent = `Region at the setpoint: ${entry ? entry.label : String(chk.region).replace(/_/g, " ")}.`;
     renderUpsets($("p-upsets"), chk.upsets, null);
+    // page 1 holds the setpoint, the reasons and the map: a long list of reasons takes its room from the map
+    // (measured on screen, where the sheet is narrower than on paper, so the estimate errs on the safe side)
+    const extra = $("p-reasons").getBoundingClientRect().height - 170;
+    if (extra > 0) $("p-map").style.height = `${Math.max(45, 70 - extra / (96 / 25.4)).toFixed(1)}mm`;
     await drawMap(Plotly, $("p-map"), map, sp, { staticPlot: true });
     renderMapLegend($("p-legend"), map);
     document.body.dataset.ready = "1";

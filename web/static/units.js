@@ -87,7 +87,7 @@ export const isPoints = (key) => /_points$/.test(key) || (/opening/.test(key) &&
 // and a region's internal key -> the legend's words. The SI original stays available (title, on hover).
 export function plainText(text, legend = []) {
   let s = String(text);
-  s = s.replace(/(-?\d+(?:\.\d+)?)\s*K\s*\((-?\d+(?:\.\d+)?)\s*degC\)/g, "$2 °C");
+  s = s.replace(/(-?\d+(?:\.\d+)?)\s*K\s*\((-?\d+(?:\.\d+)?)\s*(?:degC|°C)\)/g, "$2 °C");
   s = s.replace(/(\d)\s*degC\b/g, "$1 °C").replace(/\bdegC\b/g, "°C").replace(/(\d)\s*degF\b/g, "$1 °F");
   s = s.replace(/\bregion '([a-z_]+)'/g, (m, key) => {
     const e = (legend || []).find((x) => x.key === key);
@@ -102,7 +102,7 @@ export const fmtNum = (x, digits = 4) => (Number.isFinite(x) ? String(round(x, d
 export function fmtByKey(key, value) {
   if (value === null || value === undefined) return "none";
   if (typeof value === "boolean") return value ? "yes" : "no";
-  if (typeof value === "string") return value;
+  if (typeof value === "string") return plainText(value);
   if (Array.isArray(value)) return value.length ? value.join("; ") : "none";
   if (typeof value !== "number") return JSON.stringify(value);
   if (/_K$/.test(key) && /(temperature|mtsr|mtt|td24|_T_)/i.test(key) && !/(rise|margin|delta|drop|dT|_to_)/i.test(key))
