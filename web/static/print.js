@@ -3,8 +3,8 @@
 import * as urls from "./urls.js";
 import { getJSON, showProblem, wireProblemBox, boot, plotlyReady } from "./api.js";
 import { drawMap, renderMapLegend } from "./map.js";
-import { renderVerdict, renderList, renderKV, renderStates, renderUpsets, el, stateWords } from "./check.js";
-import { fmtMin, fmtTemp, fmtNum, fmtFlow, clean, plainText } from "./units.js";
+import { renderVerdict, renderList, renderKV, renderStates, renderUpsets, el, stateWords, renderSafety, showsDetails } from "./check.js";
+import { fmtMin, fmtTemp, fmtNum, fmtFlow, fmtTime, clean, plainText } from "./units.js";
 
 const $ = (id) => document.getElementById(id);
 const ID = boot().scenario_id;
@@ -105,12 +105,18 @@ async function main() {
     table($("p-setpoint"), rows);
     renderVerdict($("p-verdict"), chk);
     renderList($("p-reasons"), chk.reasons, map.legend);
+    // undetermined: only what failed is printed (DESIGN.md §6)
+    for (const node of document.querySelectorAll(".check-detail")) node.hidden = !showsDetails(chk);
     renderKV($("p-margins"), chk.margins);
-    renderKV($("p-safety"), chk.safety);
+    renderSafety($("p-safety"), $("p-mtsr"), chk);
     renderStates($("p-states"), chk.states, chk.state_index);
     const entry = (map.legend || []).find((e) => e.key === chk.region);
     $("p-assumption").textContent = `Region at the setpoint: ${entry ? entry.label : String(chk.region).replace(/_/g, " ")}.`;
     renderUpsets($("p-upsets"), chk.upsets, null);
+    const pol = chk.policy || {};
+    $("p-upsets-intro").textContent = "Each upset starts at the operating state and runs until it settles, stops "
+      + `(overflow, tank empty) or reaches its cap of ${fmtTime(pol.upset_duration_s)}; every alarm is listed with its time `
+      + `after the upset. An overflow sooner than ${fmtTime(pol.min_time_to_act_s)} (the time to act) is a reason.`;
     // page 1 holds the setpoint, the reasons and the map: a long list of reasons takes its room from the map
     // (measured on screen, where the sheet is narrower than on paper, so the estimate errs on the safe side)
     const extra = $("p-reasons").getBoundingClientRect().height - 170;

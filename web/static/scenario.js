@@ -5,7 +5,7 @@ import { getJSON, postJSON, showProblem, wireProblemBox, boot, plotlyReady, ApiE
 import { drawMap, drawPreview, cellAt, nearest, renderMapLegend } from "./map.js";
 import { drawBranch, drawHeatBalance } from "./curves.js";
 import { renderVerdict, renderList, renderKV, renderStates, renderUpsets, drawResponse, simulationSummary, upsetName,
-  el, stateWords, VERDICT_WORDS } from "./check.js";
+  el, stateWords, VERDICT_WORDS, renderSafety, showsDetails, upsetEnding } from "./check.js";
 import { parseTime, parseTemperature, parseFlow, fmtMin, fmtTime, fmtTemp, fmtPct, fmtFlow, inputMin, inputTemp, inputFlow,
   clean } from "./units.js";
 import { Editor } from "./editor.js";
@@ -341,7 +341,7 @@ function renderCheck(chk) {
   const legend = view.map ? view.map.legend || [] : [];
   const entry = legend.find((e) => e.key === chk.region);
   const region = entry ? `Region at the setpoint: ${entry.label}. ` : chk.region ? `Region at the setpoint: ${String(chk.region).replace(/_/g, " ")}. ` : "";
-  const words = stateWords(chk, state.branch);
+  const words = stateWords(chk);
   $("assumption").textContent = `${region}Operating state: ${words.sentence}.`;
   $("assumption").title = chk.assumption || "";
   // the state selector speaks the same words: with one steady state there is nothing to choose
@@ -350,11 +350,20 @@ function renderCheck(chk) {
   $("sp-state-one").hidden = !one;
   $("sp-state-one").textContent = one ? words.short : "";
   renderList($("reasons"), chk.reasons, legend);
-  renderKV($("margins"), chk.margins);
-  renderKV($("safety"), chk.safety);
-  renderStates($("states"), chk.states, chk.state_index);
-  renderUpsets($("upsets"), chk.upsets, (i) => openUpset(i, true));
   renderList($("check-cautions"), chk.cautions);
+  // an undetermined verdict shows only what failed: nothing computed from it is put in front of a reviewer
+  const details = showsDetails(chk);
+  $("check-details").hidden = !details;
+  $("reasons-title").textContent = details ? "Reasons" : "What failed";
+  if (!details) return;
+  renderKV($("margins"), chk.margins);
+  renderSafety($("safety"), $("mtsr-explained"), chk);
+  renderStates($("states"), chk.states, chk.state_index);
+  const policy = chk.policy || {};
+  $("upsets-intro").textContent = "Each upset starts at the operating state and is simulated on its own until it "
+    + `settles, stops (overflow, tank empty) or reaches its cap of ${fmtTime(policy.upset_duration_s)}; an overflow `
+    + `sooner than ${fmtTime(policy.min_time_to_act_s)} (the time to act) is a reason. Open one to see its response.`;
+  renderUpsets($("upsets"), chk.upsets, (i) => openUpset(i, true));
 }
 
 async function openUpset(i, push) {
@@ -369,11 +378,13 @@ async function openUpset(i, push) {
   try {
     // the upset's own events, from the same operating state, for the same time: the response the check summarised
     const body = { scenario_id: ID, ...setpoint(), start: state.branch || "low", events: u.events || [] };
-    if (u.duration_s) body.duration = u.duration_s;
+    // as far as the check followed it: to where it settled, or its cap (an overflow or empty tank stops by itself)
+    const until = u.ending === "settled" && u.end_time_s > 0 ? u.end_time_s : u.duration_s;
+    if (until) body.duration = until;
     const sim = await postJSON(urls.apiPost("simulate"), body, "Simulating the upset");
     if (state.upset !== i) return;
     await drawResponse(Plotly, $("upset-plot"), sim, { maxK: lim.max_temperature, alarmK: lim.alarm_temperature,
-      heightM: view.scenario.vessel.height });
+      heightM: view.scenario.vessel.height, levelHigh: lim.level_high, levelLow: lim.level_low, endNote: upsetEnding(u) });
   } catch (e) {
     $("upset-plot").textContent = e.message;
   }

@@ -161,7 +161,9 @@ def render(sc: Any, r: Any) -> str:
                 _when(None if u.failed else u.peak_t),
                 f"{u.level_min:.2f}..{u.level_max:.2f} m" if u.level_min == u.level_min else "-",
                 fmt.celsius(u.final_T),
-                _ENDINGS.get(u.ending, u.ending) + ("" if u.failed else f" at {fmt.minutes(u.end_time)}"),
+                _ENDINGS.get(u.ending, u.ending)
+                + ("" if u.failed else f" at {fmt.minutes(u.end_time)}")
+                + (f", at most {fmt.celsius(u.ceiling_T)}" if u.rising and u.ceiling_T == u.ceiling_T else ""),
                 _alarms(u),
             ]
         )

@@ -326,16 +326,20 @@ class CheckResult:
             "note": "",
         }
         notes = []
+        mtsr = self.safety.mtsr
         if inter is not None and not inter.failed:
             out["interlocked_upset_peak_temperature_K"] = inter.peak_T
             out["interlocked_upset_peak_time_s"] = inter.peak_t
+            d = inter.peak_T - mtsr
             notes.append(
-                f"the upset '{inter.label}' is its dynamic counterpart and peaks at {_abs(inter.peak_T)}; the two "
-                "agree without heat loss to ambient, agitator power and decomposition, which MTSR leaves out"
+                f"the upset '{inter.label}' is its dynamic counterpart and peaks at {_abs(inter.peak_T)}, "
+                f"{abs(d):.1f} K {'above' if d >= 0 else 'below'} MTSR; the two agree when there is no heat loss to "
+                "ambient, agitator power or decomposition, which MTSR leaves out"
             )
         elif inter is None:
             notes.append("no jacket: the interlocked cooling-loss upset does not apply")
-        if lost is not None and not lost.failed and lost.peak_T > self.safety.mtsr + 0.5:
+        closed = mtsr if inter is None or inter.failed else max(mtsr, inter.peak_T)
+        if lost is not None and not lost.failed and lost.peak_T > closed + 0.5:
             notes.append(
                 f"the upset '{lost.label}' peaks higher, at {_abs(lost.peak_T)}, because the feed keeps running and "
                 "brings fresh reactant, which MTSR assumes stopped"
