@@ -134,7 +134,7 @@ export function renderSafety(table, note, check) {
   rows.push(["Criticality class", s.criticality_class ? `${s.criticality_class} (${s.criticality_reason})`
     : `not given: ${s.criticality_reason || "—"}`]);
   for (const [k, v] of rows) table.append(el("tr", {}, el("th", { scope: "row", text: k }), el("td", { text: v })));
-  if (note) note.textContent = m.assumes ? `${m.assumes}.${m.note ? " " + m.note.charAt(0).toUpperCase() + m.note.slice(1) + "." : ""}` : "";
+  if (note) note.textContent = m.assumes ? plainText(`${m.assumes}.${m.note ? " " + m.note.charAt(0).toUpperCase() + m.note.slice(1) + "." : ""}`) : "";
 }
 
 // A list of sentences in plant units (the answer's own text, SI and all, on hover); `legend` names regions.
