@@ -34,6 +34,15 @@ ALL_EVENT_FORMS = [
     {"at": "20 min", "ramp": "feed_concentration.A", "to": "2.6 mol/L", "over": "10 min"},
     {"at": "40 min", "do": "cooling_loss"},
 ]
+#: With an uncertainty block (DESIGN.md §11): the rate constant and activation energy known to a few per cent.
+UNCERTAIN = variant(
+    uncertainty={
+        "parameters": [
+            {"target": "reactions[0].rate_constant", "distribution": "lognormal", "factor": 1.3},
+            {"target": "reactions[0].activation_energy", "distribution": "normal", "sd": "2 kJ/mol"},
+        ]
+    }
+)
 #: The outlet cannot pass any flow: the downstream pressure is above the vessel's bottom pressure.
 NO_DRIVING_PRESSURE = variant(
     outlet_valve={"kv": "40 m^3/h", "characteristic": "linear", "opening": 0.5, "downstream_pressure": "5 bar"}
@@ -154,6 +163,30 @@ CASES: list[Case] = [
     ),
     Case("map-csv", "getMap", "GET", f"/api/v1/scenarios/{SAVED}/map", params={"points": "8,8", "format": "csv"}),
     Case("map-inline", "computeMap", "POST", "/api/v1/map", json={"scenario": ADIABATIC, "points": [12, 10]}),
+    Case(
+        "map-uncertain",
+        "computeMap",
+        "POST",
+        "/api/v1/map",
+        json={"scenario": UNCERTAIN, "points": [12, 10], "samples": 8, "seed": 1},
+        expect=lambda a: a["samples"] == 8 and len(a["probability"]["unsafe"]) == 10,
+    ),
+    Case(
+        "check-uncertain",
+        "computeCheck",
+        "POST",
+        "/api/v1/check",
+        json={"scenario": UNCERTAIN, "samples": 8},
+        expect=lambda a: a["uncertainty"]["samples"] == 8,
+    ),
+    Case(
+        "error-map-samples-no-block",
+        "getMap",
+        "GET",
+        f"/api/v1/scenarios/{SAVED}/map",
+        422,
+        params={"samples": "16"},
+    ),  # fmt: skip
     # -- checks: several states, the high branch, an oscillating tank, decomposition, valve out of range
     _check_of(
         "check-multiple-low",

@@ -124,6 +124,14 @@ class MapRequest(ScenarioRef):
     coolant_temperature: Quantity | None = Field(
         default=None, description="Coolant temperature of the jacket, e.g. '20 degC'; default: the scenario's."
     )
+    samples: Annotated[StrictInt, Field(ge=8, le=16384)] | None = Field(
+        default=None,
+        description="Ask for the probability map under the scenario's uncertainty block (DESIGN.md §11) with this "
+        "many samples, a power of two (e.g. 256); absent: the deterministic map.",
+    )
+    seed: Annotated[StrictInt, Field(ge=0, le=2**32 - 1)] | None = Field(
+        default=None, description="Seed of the samples (with samples); default: the uncertainty block's (0)."
+    )
 
 
 class CheckRequest(OperatingPoint):
@@ -141,6 +149,14 @@ class CheckRequest(OperatingPoint):
     )
     coolant_temperature: Quantity | None = Field(
         default=None, description="Coolant temperature of the jacket, e.g. '20 degC'; default: the scenario's."
+    )
+    samples: Annotated[StrictInt, Field(ge=8, le=16384)] | None = Field(
+        default=None,
+        description="Also check under the scenario's uncertainty block (DESIGN.md §11) with this many samples, a "
+        "power of two (e.g. 256): adds the 'uncertainty' block; absent: the nominal check only.",
+    )
+    seed: Annotated[StrictInt, Field(ge=0, le=2**32 - 1)] | None = Field(
+        default=None, description="Seed of the samples (with samples); default: the uncertainty block's (0)."
     )
 
 

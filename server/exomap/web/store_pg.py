@@ -25,7 +25,7 @@ import logging
 from typing import Any
 
 from exomap.web import migrations
-from exomap.web.store import Row, StoreUnavailableError
+from exomap.web.store import SUMMARY_CHARS, Row, StoreUnavailableError
 
 log = logging.getLogger("exomap.web")
 
@@ -144,6 +144,18 @@ class PostgresDatabase:
     def fetch_all(self) -> list[Row]:
         rows = self._run(f"SELECT {_COLUMNS} FROM scenarios ORDER BY saved_at, id", (), "all")
         return [Row(*r) for r in rows]
+
+    def fetch_page(self, limit: int, offset: int) -> list[Row]:
+        rows = self._run(
+            "SELECT id, title, left(description, %s), '', saved_at, derived_from FROM scenarios ORDER BY saved_at, id "
+            "LIMIT %s OFFSET %s",
+            (SUMMARY_CHARS + 1, int(limit), int(offset)),
+            "all",
+        )
+        return [Row(*r) for r in rows]
+
+    def count(self) -> int:
+        return int(self._run("SELECT COUNT(*) FROM scenarios", (), "one")[0])
 
     def close(self) -> None:
         self._pool.close()
