@@ -34,7 +34,7 @@ const ENDINGS = {
 export function upsetEnding(u) {
   if (u.stop_reason === "solver_failed") return "could not be simulated";
   const words = ENDINGS[u.ending] || u.ending || u.stop_reason || "—";
-  if (!["rising", "falling", "oscillating", "moving"].includes(u.ending)) return `${words} at ${fmtTime(u.end_time_s)}`;
+  if (!["rising", "falling", "oscillating", "moving"].includes(u.ending)) return `${words} at ${fmtTime(u.end_time_s, 3)}`;
   const bound = u.ending === "rising" && Number.isFinite(u.adiabatic_ceiling_K)
     ? `, can reach at most ${fmtTemp(u.adiabatic_ceiling_K)}` : "";
   return `${words} (${fmtTime(u.duration_s)})${bound}`;
@@ -44,7 +44,7 @@ export function upsetEnding(u) {
 export function upsetAlarms(u) {
   if (u.stop_reason === "solver_failed") return "unknown";
   const alarms = u.alarms || [];
-  return alarms.length ? alarms.map((a) => `${ALARM_WORDS[a.kind] || String(a.kind).replace(/_/g, " ")} ${fmtTime(a.time_s)}`)
+  return alarms.length ? alarms.map((a) => `${ALARM_WORDS[a.kind] || String(a.kind).replace(/_/g, " ")} ${fmtTime(a.time_s, 3)}`)
     .join(" · ") : "none";
 }
 
@@ -215,7 +215,7 @@ export function renderUpsets(table, upsets, onOpen) {
     const lmin = u.level_min_m, lmax = u.level_max_m;
     const cells = [
       el("th", { scope: "row", text: upsetName(u, i) }), el("td", { text: fmtTemp(u.peak_temperature_K) }),
-      el("td", { text: fmtTime(u.peak_time_s) }), el("td", { class: "alarms", text: upsetAlarms(u) }),
+      el("td", { text: fmtTime(u.peak_time_s, 3) }), el("td", { class: "alarms", text: upsetAlarms(u) }),
       el("td", { text: Number.isFinite(lmin) && Number.isFinite(lmax) ? `${lmin.toFixed(2)}–${lmax.toFixed(2)} m` : "—" }),
       el("td", { text: upsetEnding(u) }),
     ];
@@ -269,14 +269,15 @@ export async function drawResponse(Plotly, node, sim, { maxK, alarmK, title, hei
   const annotations = why ? [{ x: x1, xref: "x", y: 1, yref: "paper", text: why, showarrow: false, xanchor: "right",
     yanchor: "bottom", font: { size: 11 } }] : [];
   const lay = {
-    height: 300, margin: { l: 58, r: 52, t: title || why ? 28 : 10, b: 90 },
+    height: 340, margin: { l: 58, r: 52, t: title || why ? 28 : 10, b: 120 },
     title: title ? { text: title, font: { size: 13 } } : undefined,
     xaxis: { title: { text: "Time [min]" }, ticks: "outside" },
     yaxis: { title: { text: "Tank temperature [°C]" }, ticks: "outside" },
-    yaxis2: { title: { text: "Level [m]" }, overlaying: "y", side: "right", showgrid: false,
+    // the level axis keeps its own round ticks (not those of the temperature grid)
+    yaxis2: { title: { text: "Level [m]" }, overlaying: "y", side: "right", showgrid: false, tickmode: "auto", nticks: 6,
       range: heightM ? [0, heightM * 1.05] : undefined },
     shapes, annotations,
-    legend: { orientation: "h", y: -0.25, yanchor: "top", font: { size: 11 } }, font: { family: "system-ui, sans-serif", size: 12 },
+    legend: { orientation: "h", y: -0.32, yanchor: "top", font: { size: 11 } }, font: { family: "system-ui, sans-serif", size: 12 },
   };
   node.dataset.endNote = why;
   await Plotly.react(node, tr, lay, { displayModeBar: false, responsive: true });
