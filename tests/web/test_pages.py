@@ -175,6 +175,7 @@ def test_partials_start_with_underscore() -> None:
         "missing.html",
         "compare.html",
         "compare_print.html",
+        "uncertainty.html",
     }
     for path in (ASSETS / "templates").glob("*.html"):
         text = path.read_text(encoding="utf-8")

@@ -134,3 +134,35 @@ export function apiCompare(state) {
   for (const [k, v] of Object.entries(compareOrdered(state))) if (!SIGN_OFF.includes(k)) p[k.replace(/^map_/, "")] = v;
   return `${API}/compare` + query(p);
 }
+
+// -- probability map (DESIGN.md §11) -----------------------------------------------------------------------
+export const UNCERTAINTY_KEYS = ["samples", "seed", "show", "map_residence_time", "map_feed_temperature", "points"];
+export const SHOWN = ["unsafe", "runaway", "unstable", "multiple"];
+
+export function readUncertaintyState(search = window.location.search) {
+  const q = new URLSearchParams(search);
+  const whole = (k) => (q.has(k) && /^\d+$/.test(q.get(k)) ? Number(q.get(k)) : null);
+  const st = {
+    samples: whole("samples"),
+    seed: whole("seed"),
+    show: SHOWN.includes(q.get("show")) ? q.get("show") : null,
+    map_residence_time: pair(q.get("map_residence_time")),
+    map_feed_temperature: pair(q.get("map_feed_temperature")),
+    points: pair(q.get("points")),
+  };
+  if (st.points) st.points = st.points.map((n) => Math.round(n));
+  return st;
+}
+
+export function uncertaintyPage(id, state) {
+  const out = {};
+  for (const k of UNCERTAINTY_KEYS) if (state && state[k] !== undefined && state[k] !== null) out[k] = state[k];
+  return `/scenarios/${seg(id)}/uncertainty` + query(out);
+}
+
+export function uncertaintyMap(id, state, format) {
+  return apiAnswer(id, "map", {
+    samples: state.samples ?? 256, seed: state.seed, residence_time: state.map_residence_time,
+    feed_temperature: state.map_feed_temperature, points: state.points, format,
+  });
+}

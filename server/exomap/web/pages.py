@@ -167,8 +167,9 @@ def install(app: FastAPI, settings: Any) -> None:
             return Response(gz, media_type="text/javascript; charset=utf-8", headers=headers)
         return Response(raw, media_type="text/javascript; charset=utf-8", headers=headers)
 
-    from exomap.web import compare
+    from exomap.web import compare, uncertainty_page
 
     compare.install_pages(app, render)
+    uncertainty_page.install_pages(app, render)
 
     app.mount("/static", StaticFiles(directory=str(assets / "static")), name="static")

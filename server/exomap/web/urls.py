@@ -194,3 +194,38 @@ def compare_print_page(state: Mapping[str, object]) -> str:
 def api_compare(params: Mapping[str, object]) -> str:
     """GET twin of a comparison (``a``, ``b``, ``residence_time_a`` ..., window ``residence_time=lo,hi``)."""
     return f"{API}/compare" + _query(params)
+
+
+# -- probability map (DESIGN.md §11) ----------------------------------------------------------------------
+#: Query keys of the probability-map page, in link order.
+UNCERTAINTY_KEYS = ("samples", "seed", "show", "map_residence_time", "map_feed_temperature", "points")
+#: Probabilities the page can shade.
+SHOWN = ("unsafe", "runaway", "unstable", "multiple")
+
+
+def uncertainty_state(query: Mapping[str, str]) -> dict[str, str]:
+    """The view-state keys of the probability-map page (unknown keys dropped, order fixed)."""
+    return {k: query[k] for k in UNCERTAINTY_KEYS if k in query and query[k] != ""}
+
+
+def uncertainty_page(scenario_id: str, state: Mapping[str, object] | None = None) -> str:
+    state = state or {}
+    return f"/scenarios/{_seg(scenario_id)}/uncertainty" + _query({k: state[k] for k in UNCERTAINTY_KEYS if k in state})
+
+
+def api_uncertainty_map(scenario_id: str, state: Mapping[str, object] | None = None, fmt: str | None = None) -> str:
+    """The probability map of the page's view (``samples`` default 256, as the uncertainty block's)."""
+    state = state or {}
+    params: dict[str, object] = {"samples": state.get("samples", 256)}
+    if "seed" in state:
+        params["seed"] = state["seed"]
+    for page_key, api_key in (
+        ("map_residence_time", "residence_time"),
+        ("map_feed_temperature", "feed_temperature"),
+        ("points", "points"),
+    ):
+        if page_key in state:
+            params[api_key] = state[page_key]
+    if fmt:
+        params["format"] = fmt
+    return api_answer(scenario_id, "map", params)
