@@ -113,7 +113,8 @@ def install(app: FastAPI, settings: Any) -> None:
 
     def scenario_view(template: str, page: Any, request: Request, scenario_id: str) -> Response:
         stored = lookup(request, scenario_id)
-        state = urls.view_state(request.query_params)
+        keys = urls.VIEW_KEYS + (urls.SIGNOFF_KEYS if template == "print.html" else ())
+        state = urls.view_state(request.query_params, keys)
         if stored is None:
             return missing(scenario_id)
         if stored.id != scenario_id:
