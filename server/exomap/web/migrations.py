@@ -64,6 +64,12 @@ MIGRATIONS: tuple[Migration, ...] = (
         ),
     ),
     Migration(
+        2,
+        "scenarios: derived_from, the id of the scenario an edit was saved from (lineage; not part of the content)",
+        sqlite=("ALTER TABLE scenarios ADD COLUMN derived_from TEXT",),
+        postgresql=("ALTER TABLE scenarios ADD COLUMN IF NOT EXISTS derived_from TEXT",),
+    ),
+    Migration(
         3,
         "datasets: content id, summary (JSON), canonical SI content (CSV), time saved",
         sqlite=(
