@@ -90,6 +90,10 @@ class ScenarioSummary(Answer):
     )
     demo: bool = Field(description="True for a demo shipped with exomap.")
     name: str | None = Field(description="A demo's file name (usable as its id); null for a saved scenario.")
+    derived_from: str | None = Field(
+        description="Id of the scenario this one was saved from (an edit; store metadata, not part of the content "
+        "id); null when it was not saved from another."
+    )
 
 
 class ScenarioList(Answer):

@@ -63,6 +63,12 @@ MIGRATIONS: tuple[Migration, ...] = (
             "CREATE INDEX IF NOT EXISTS scenarios_saved_at ON scenarios (saved_at, id)",
         ),
     ),
+    Migration(
+        2,
+        "scenarios: derived_from, the id of the scenario an edit was saved from (lineage; not part of the content)",
+        sqlite=("ALTER TABLE scenarios ADD COLUMN derived_from TEXT",),
+        postgresql=("ALTER TABLE scenarios ADD COLUMN IF NOT EXISTS derived_from TEXT",),
+    ),
 )
 
 LATEST = MIGRATIONS[-1].version
