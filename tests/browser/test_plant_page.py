@@ -24,9 +24,10 @@ TIMEOUT = 90_000
 MAP_DRAWN = "() => Boolean(document.getElementById('map') && document.getElementById('map').dataset.drawn)"
 SHOTS = Path("/work/notes/shots")
 
-# Invented: 30 one-minute records near the jacketed demo's nominal point (not plant data).
+# Invented: 30 one-minute records round the jacketed demo's nominal point (not plant data): the throughput
+# is raised from 2.4 to 3.0 m³/h while the feed warms from 46 to 54 °C (times without a zone: read as UTC).
 PLANT_CSV = "time,FI-101 [m^3/h],TI-101 [degC],TI-201 [degC]\n" + "".join(
-    f"2026-11-30T06:{k:02d}:00Z,2.7,{50 + 2 * k / 29:.3f},{80.3 + 0.1 * k:.2f}\n" for k in range(30)
+    f"2026-11-30T06:{k:02d}:00,{2.4 + 0.6 * k / 29:.3f},{46 + 8 * k / 29:.3f},{80.3 + 0.1 * k:.2f}\n" for k in range(30)
 )
 ROLES = {"FI-101": "feed_flow", "TI-101": "feed_temperature", "TI-201": "reactor_temperature"}
 
@@ -70,6 +71,8 @@ def test_plant_panel_upload_overlay_replay_calibrate_and_save(
     did = ans["dataset_id"]
     assert page.get_attribute("#plant-records", "data-value") == str(ans["records"]) == "30"
     assert parse_qs(urlparse(page.url).query)["dataset"] == [did]
+    assert any("UTC" in n for n in ans["notes"])  # the reader's assumption is shown in plain words
+    assert all(n in page.inner_text("#plant-notes") for n in ans["notes"])
     # the plant's path is a trace of the operating map, beside the map's own traces
     page.wait_for_function("() => document.getElementById('map').dataset.plantPath", timeout=TIMEOUT)
     names = page.evaluate("() => document.getElementById('map').data.map(t => t.name)")
@@ -131,7 +134,8 @@ def test_edit_save_compare_with_the_original_and_print(
     ans = api.get("/api/v1/compare", params={"a": jacketed, "b": new_id}).json()
     shown = page.eval_on_selector_all("#cmp-fields tr[data-field]", "rs => rs.map(r => r.dataset.field)")
     assert shown == [d["field"] for d in ans["fields"]]
-    assert "jacket.ua" in shown
+    assert set(shown) == {"description", "jacket.ua"}  # exactly what was edited
+    assert "1.6 kW/K" in page.inner_text("#cmp-fields tr[data-field='jacket.ua']")
     page.fill("#cmp-prepared", "A. Engineer")
     page.dispatch_event("#cmp-prepared", "change")
     page.fill("#cmp-ref", "MOC-0002")
@@ -145,4 +149,3 @@ def test_edit_save_compare_with_the_original_and_print(
     assert page.inner_text("#cp-prepared") == "A. Engineer"
     assert page.inner_text("#cp-ref") == "MOC-0002"
     _shot(page, "compare-print-from-lineage")
-

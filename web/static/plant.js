@@ -272,10 +272,17 @@ export class PlantPanel {
       line: { color: "rgba(16,28,44,0.45)", width: 1 },
       marker: { size: 7, color: t, colorscale: TIME_SCALE, cmin: t[0], cmax: t[t.length - 1] || 1,
         line: { color: "#ffffff", width: 0.8 }, showscale: true,
-        colorbar: { title: { text: "min", side: "top" }, thickness: 10, len: 0.45, x: 0.995, xanchor: "right",
+        colorbar: { title: { text: "time [min]", side: "top" }, thickness: 10, len: 0.45, x: 0.995, xanchor: "right",
           y: 0.02, yanchor: "bottom", bgcolor: "rgba(255,255,255,0.85)", outlinewidth: 0 } },
     };
     await setExtraTraces(await plotlyReady(), $("map"), [trace]);
+    let note = $("plant-map-note");
+    if (!note) {
+      note = el("p", { id: "plant-map-note", class: "small" });
+      $("map-legend").after(note);
+    }
+    note.textContent = `Plant's path (dataset ${ov.dataset_id}): ${x.length} records from ${ov.start}, `
+      + "light dots first, dark dots last; the scale beside the map is minutes from the first record.";
     $("map").dataset.plantPath = String(x.length);
   }
 
