@@ -39,10 +39,25 @@ def test_page_twin_is_the_probability_map_of_its_link(client: Any) -> None:
 
 
 def test_page_of_a_demo_name_redirects_and_unknown_is_404(client: Any) -> None:
-    r = client.get("/scenarios/adiabatic-second-order/uncertainty?samples=64", follow_redirects=False)
+    r = client.get("/scenarios/adiabatic-second-order/uncertainty?samples=64&seed=2", follow_redirects=False)
     assert r.status_code == 307
-    assert r.headers["location"].endswith("/uncertainty?samples=64")
+    assert r.headers["location"].endswith("/uncertainty?samples=64&seed=2")
     assert client.get("/scenarios/0123456789abcdef/uncertainty").status_code == 404
+
+
+def test_the_link_always_names_samples_and_seed(client: Any) -> None:
+    # missing ones are filled from the scenario's uncertainty block (here 128 and 7), then the defaults 256, 0
+    doc = copy.deepcopy(UNCERTAIN)
+    doc["uncertainty"] = {**doc["uncertainty"], "samples": 128, "seed": 7}
+    sid = client.post("/api/v1/scenarios", json=doc).json()["id"]
+    r = client.get(f"/scenarios/{sid}/uncertainty?show=runaway", follow_redirects=False)
+    assert r.status_code == 307
+    assert r.headers["location"] == urls.uncertainty_page(sid, {"samples": "128", "seed": "7", "show": "runaway"})
+    r = client.get(f"/scenarios/{sid}/uncertainty?seed=1", follow_redirects=False)
+    assert r.headers["location"].endswith("?samples=128&seed=1")
+    plain = client.post("/api/v1/scenarios", json=ADIABATIC).json()["id"]
+    r = client.get(f"/scenarios/{plain}/uncertainty", follow_redirects=False)
+    assert r.headers["location"].endswith("?samples=256&seed=0")
 
 
 def test_probability_palette_darkens_steadily() -> None:

@@ -150,6 +150,7 @@ class Dataset:
             },  # fmt: skip
             "dropped_bad": dict(self.dropped_bad),
             "gaps": [{"start": iso(a), "end": iso(b), "length_s": b - a} for a, b in self.gaps],
+            "gap_times": [{"start_s": a, "end_s": b} for a, b in self.gaps],
             "median_step_s": self.median_step_s,
             "irregular_sampling": self.irregular,
             "notes": list(self.notes),
@@ -433,3 +434,27 @@ def _long(df: Any, header: list[str], lower: list[str], mapping: Mapping[str, st
         out[np.searchsorted(epoch, t)] = v
         series[role] = out
     return _finish(epoch, series, tags, unit_of, len(df), dropped, "long", notes)
+
+
+def dataset_from_canonical(summary: Mapping[str, Any], content: str) -> Dataset:
+    """A stored dataset back from its summary and canonical CSV (``Dataset.canonical_csv``); the id is the same."""
+    import pandas as pd
+
+    df = pd.read_csv(io.StringIO(content), dtype=float)
+    epoch = df["time_s"].to_numpy(dtype=float)
+    series = {c: df[c].to_numpy(dtype=float) for c in df.columns if c != "time_s"}
+    roles = summary.get("roles", {})
+    gaps = [(float(g["start_s"]), float(g["end_s"])) for g in summary.get("gap_times", [])]
+    return Dataset(
+        epoch,
+        series,
+        {r: str(v.get("tag", r)) for r, v in roles.items()},
+        {r: str(v.get("unit", "")) for r, v in roles.items()},
+        int(summary.get("rows", epoch.size)),
+        dict(summary.get("dropped_bad", {})),
+        gaps,
+        float(summary.get("median_step_s", 0.0)),
+        bool(summary.get("irregular_sampling", False)),
+        str(summary.get("layout", "wide")),
+        list(summary.get("notes", [])),
+    )

@@ -101,6 +101,14 @@ class Database(Protocol):
         """How many rows there are."""
         ...
 
+    def insert_dataset(self, did: str, summary: str, content: str, saved_at: float) -> bool:
+        """Insert a plant dataset unless its id is there already; True when it was inserted. Durable on return."""
+        ...
+
+    def fetch_dataset(self, did: str) -> tuple[str, str] | None:
+        """(summary JSON, canonical CSV) of one dataset, or None."""
+        ...
+
     def close(self) -> None: ...
 
 
@@ -374,6 +382,28 @@ class SQLiteDatabase:
         except sqlite3.Error as exc:
             raise self._fault(exc) from None
 
+    def insert_dataset(self, did: str, summary: str, content: str, saved_at: float) -> bool:
+        problem = header_problem(self.path)
+        if problem is not None:
+            raise StoreUnavailableError(self._damaged(problem))
+        try:
+            conn = self._conn()
+            with conn:
+                cur = conn.execute(
+                    "INSERT OR IGNORE INTO datasets (id, summary, content, saved_at) VALUES (?,?,?,?)",
+                    (did, summary, content, saved_at),
+                )
+            return cur.rowcount == 1
+        except sqlite3.Error as exc:
+            raise self._fault(exc) from None
+
+    def fetch_dataset(self, did: str) -> tuple[str, str] | None:
+        try:
+            found = self._conn().execute("SELECT summary, content FROM datasets WHERE id = ?", (did,)).fetchone()
+        except sqlite3.Error as exc:
+            raise self._fault(exc) from None
+        return None if found is None else (str(found[0]), str(found[1]))
+
     def close(self) -> None:
         with self._lock:
             for conn in self._connections:
@@ -557,6 +587,41 @@ class ScenarioStore:
         if stored is None:  # pragma: no cover - the row was just inserted or was already there
             raise StoreUnavailableError(f"scenario {sid} vanished from the store {self.database.where}")
         return stored, created
+
+
+class DatasetStore:
+    """Plant datasets (DESIGN.md §12) in the same database as the scenarios, content-addressed: the id is the
+    hash of the canonical content (``exomap.schema.plantdata.Dataset.dataset_id``), so a second upload of the
+    same data is the same id and nothing is overwritten."""
+
+    def __init__(self, database: Database) -> None:
+        self.database = database
+
+    def save(self, dataset: Any) -> tuple[str, bool]:
+        """Save a parsed ``Dataset``; return its id and whether it is new."""
+        import json
+
+        did = dataset.dataset_id
+        summary = json.dumps(dataset.summary(), sort_keys=True)
+        created = self.database.insert_dataset(did, summary, dataset.canonical_csv(), time.time())
+        return did, created
+
+    def summary(self, did: str) -> dict[str, Any] | None:
+        import json
+
+        found = self.database.fetch_dataset(did)
+        return None if found is None else json.loads(found[0])
+
+    def get(self, did: str) -> Any:
+        """The stored dataset as a ``Dataset`` (SI), or None."""
+        import json
+
+        from exomap.schema.plantdata import dataset_from_canonical
+
+        found = self.database.fetch_dataset(did)
+        if found is None:
+            return None
+        return dataset_from_canonical(json.loads(found[0]), found[1])
 
 
 def open_store(settings: Settings) -> ScenarioStore:

@@ -157,5 +157,17 @@ class PostgresDatabase:
     def count(self) -> int:
         return int(self._run("SELECT COUNT(*) FROM scenarios", (), "one")[0])
 
+    def insert_dataset(self, did: str, summary: str, content: str, saved_at: float) -> bool:
+        count = self._run(
+            "INSERT INTO datasets (id, summary, content, saved_at) VALUES (%s, %s, %s, %s) ON CONFLICT (id) DO NOTHING",
+            (did, summary, content, saved_at),
+            "count",
+        )
+        return bool(count == 1)
+
+    def fetch_dataset(self, did: str) -> tuple[str, str] | None:
+        found = self._run("SELECT summary, content FROM datasets WHERE id = %s", (did,), "one")
+        return None if found is None else (str(found[0]), str(found[1]))
+
     def close(self) -> None:
         self._pool.close()

@@ -7,12 +7,26 @@ Its view state is its query string (``exomap.web.urls.UNCERTAINTY_KEYS``): ``sam
 
 from __future__ import annotations
 
+import json
 from typing import Any
 
 from fastapi import FastAPI, Request
 from fastapi.responses import HTMLResponse, RedirectResponse, Response
 
 from exomap.web import urls
+
+
+def _block(document: str) -> tuple[str, str]:
+    """(samples, seed) of a stored document's uncertainty block, as text; the defaults without one."""
+    try:
+        block = json.loads(document).get("uncertainty") or {}
+    except (ValueError, AttributeError):
+        block = {}
+    return str(block.get("samples", 256)), str(block.get("seed", 0))
+
+
+def _in_order(state: dict[str, Any]) -> dict[str, Any]:
+    return {k: state[k] for k in urls.UNCERTAINTY_KEYS if k in state}
 
 
 def install_pages(app: FastAPI, render: Any) -> None:
@@ -28,8 +42,12 @@ def install_pages(app: FastAPI, render: Any) -> None:
             )
             response.status_code = 404
             return response
-        if stored.id != scenario_id:
-            return RedirectResponse(urls.uncertainty_page(stored.id, state), status_code=307)
+        if stored.id != scenario_id or "samples" not in state or "seed" not in state:
+            # the link always names its samples and seed: missing ones are the scenario's block's (256 and 0
+            # by default), and a demo named by its file name goes to its content id, so the link is exact
+            block = _block(stored.document)
+            state = {**state, "samples": state.get("samples", block[0]), "seed": state.get("seed", block[1])}
+            return RedirectResponse(urls.uncertainty_page(stored.id, _in_order(state)), status_code=307)
         return render(
             "uncertainty.html",
             scenario_id=scenario_id,
