@@ -143,3 +143,18 @@ def test_map_nan_unstable():
     with warnings.catch_warnings():
         warnings.simplefilter("error", RuntimeWarning)
         assert_map_cell("map-nan-unstable", ignore_warnings=False)
+
+
+@pytest.mark.xfail(strict=True, reason="finding branch-missed-ignition: feed-temperature branch lists no turning point")
+def test_branch_missed_ignition():
+    from exomap.core.branch import branch
+    from reference.solver import Column
+
+    sc, ref, p = load("branch-missed-ignition")
+    col = Column(ref, p["tau"], *ref.temperature_window(p["lo"], p["hi"], p["tau"]))
+    want = [f for f in col.folds if p["lo"] < f.T_in < p["hi"]]
+    # reference: one ignition at T_in = 265.9526 K (T = 273.69 K) inside the range
+    assert [f.kind for f in want] == ["ignition"]
+    got = branch(sc, "feed_temperature", tau=p["tau"], lo=p["lo"], hi=p["hi"])
+    assert [t.kind for t in got.turning_points] == ["ignition"]
+    assert got.turning_points[0].T_in == pytest.approx(want[0].T_in, abs=1e-6)
