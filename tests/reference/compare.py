@@ -163,6 +163,7 @@ def compare_case(case: Case, level: str = "quick", rng_seed: int | None = None) 
                     continue
                 out.count("map cells")
                 want, got = ref.region(states), keys[int(mp.region[i, j])]
+                out.count(f"map cells {want}")
                 n_got = int(mp.state_count[i, j])
                 if want != got or n_got != len(states):
                     map_bad = True
