@@ -479,8 +479,8 @@ def _operating_point(
     cap = sc.policy.upset_duration
     if not cap <= max_duration:
         raise LimitExceededError(
-            f"check_policy.upset_duration {cap:g} s is longer than the limit of one simulation, {max_duration:g} s "
-            f"({max_duration / 86400:g} d); give a time [s] of at most that, e.g. '24 h'",
+            f"the upsets' cap of {cap:g} s ({cap / 86400:g} d) is longer than the limit of one simulation, "
+            f"{max_duration:g} s ({max_duration / 86400:g} d); give a time of at most that, e.g. '24 h'",
             field="check_policy.upset_duration",
         )
     return float(sc.tau_nominal if tau is None else tau), float(sc.T_in if T_in is None else T_in)

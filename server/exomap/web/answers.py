@@ -84,15 +84,26 @@ class ScenarioSummary(Answer):
 
     id: str = Field(description="Content id: 16 hex digits of the SHA-256 of the canonical document.")
     title: str = Field(description="The scenario's title ('' when it has none).")
-    description: str = Field(description="The scenario's description ('' when it has none).")
+    description: str = Field(
+        description="The scenario's description ('' when it has none), cut to 300 characters (ending in an "
+        "ellipsis) in the listing; the whole text is in the document."
+    )
     demo: bool = Field(description="True for a demo shipped with exomap.")
     name: str | None = Field(description="A demo's file name (usable as its id); null for a saved scenario.")
+    derived_from: str | None = Field(
+        description="Id of the scenario this one was saved from (an edit; store metadata, not part of the content "
+        "id); null when it was not saved from another."
+    )
 
 
 class ScenarioList(Answer):
-    """The demos first, then the saved scenarios."""
+    """One page of the listing: the demos first, then the saved scenarios, oldest first."""
 
-    scenarios: list[ScenarioSummary] = Field(description="Every scenario the server holds.")
+    scenarios: list[ScenarioSummary] = Field(description="The scenarios of this page.")
+    total: int = Field(description="How many scenarios the server holds (demos and saved).")
+    limit: int = Field(description="Most scenarios per page, as asked (default 100).")
+    offset: int = Field(description="How many scenarios come before this page.")
+    next: str | None = Field(description="URL of the next page; null on the last one.")
 
 
 # -- steady states -------------------------------------------------------------------------------------------
@@ -202,8 +213,42 @@ class BoundariesAnswer(Answer):
     cusp: list[CurvePoint] = Field(description="Cusp points [τ [s], T_in [K], T [K]] where ignition meets extinction.")
 
 
+class ProbabilityGridsAnswer(Answer):
+    """One grid per unsafe region, indexed [feed temperature][residence time], each value in 0..1."""
+
+    runaway: list[list[float]]
+    unstable: list[list[float]]
+    multiple: list[list[float]]
+    unsafe: list[list[float]] = Field(description="runaway or unstable.")
+
+
+class BandAnswer(Answer):
+    """A boundary at three quantiles over the samples that have it; points [τ [s], T_in [K] or null]."""
+
+    fraction: list[float] = Field(description="Share of the samples that have this boundary, per residence time.")
+    q05: list[CurvePoint] = Field(description="5 % quantile of its feed temperature; null outside the window.")
+    q50: list[CurvePoint]
+    q95: list[CurvePoint]
+
+
+class BoundaryBandsAnswer(Answer):
+    ignition: BandAnswer
+    extinction: BandAnswer
+
+
+class MapDriverAnswer(Answer):
+    """How far one standard deviation of a parameter moves the boundaries (least squares over the samples)."""
+
+    target: str = Field(description="The uncertain parameter's scenario path, e.g. 'reactions[0].activation_energy'.")
+    ignition_K_per_sd: float | None = Field(description="RMS over residence times [K]; null: no ignition to fit.")
+    extinction_K_per_sd: float | None = Field(description="RMS over residence times [K]; null: none to fit.")
+    boundary_shift_K_per_sd: float | None = Field(description="The larger of the two [K]; null when neither.")
+    unsafe_share_per_sd: float = Field(description="Change of the map's unsafe share per standard deviation [-].")
+
+
 class MapAnswer(Answer):
-    """The operating map; grids are indexed [feed temperature][residence time]."""
+    """The operating map; grids are indexed [feed temperature][residence time]. Asked with ``samples``, it is
+    the nominal map plus the probability keys of DESIGN.md §11 (absent otherwise)."""
 
     residence_time_s: list[float] = Field(description="Residence-time axis [s].")
     feed_temperature_K: list[float] = Field(description="Feed-temperature axis [K].")
@@ -223,6 +268,17 @@ class MapAnswer(Answer):
     boundaries: BoundariesAnswer
     success: bool
     message: str
+    samples: int = MaybeAbsent()
+    seed: int = MaybeAbsent()
+    reference_temperature_K: float = MaybeAbsent()
+    parameters: list[str] = MaybeAbsent()
+    probability: ProbabilityGridsAnswer = MaybeAbsent()
+    upper_bound_95: ProbabilityGridsAnswer = MaybeAbsent()
+    max_unsafe_probability: float = MaybeAbsent()
+    robust_window: list[list[bool]] = MaybeAbsent()
+    boundary_bands: BoundaryBandsAnswer = MaybeAbsent()
+    drivers: list[MapDriverAnswer] = MaybeAbsent()
+    method: str = MaybeAbsent()
 
 
 # -- check ---------------------------------------------------------------------------------------------------
@@ -359,6 +415,52 @@ class MtsrAnswer(Answer):
     note: str
 
 
+class QuantilesAnswer(Answer):
+    q05: float | None = Field(description="null when no sample has a finite value.")
+    q50: float | None
+    q95: float | None
+
+
+class CheckQuantilesAnswer(Answer):
+    temperature_K: QuantilesAnswer
+    mtsr_K: QuantilesAnswer
+    tmr_ad_s: QuantilesAnswer
+
+
+class CheckCountsAnswer(Answer):
+    outside: int = Field(description="Samples judged outside (undetermined ones included).")
+    marginal_or_worse: int
+    undetermined: int = Field(description="Samples whose computation failed.")
+
+
+class CheckBoundsAnswer(Answer):
+    outside: float = Field(description="Exact one-sided 95 % binomial bound on the probability of outside.")
+    marginal_or_worse: float
+
+
+class CheckDriverAnswer(Answer):
+    target: str
+    temperature_K_per_sd: float | None = Field(description="Steady temperature change per standard deviation [K].")
+    mtsr_K_per_sd: float | None
+
+
+class CheckUncertaintyAnswer(Answer):
+    """The check under the scenario's uncertainty block (DESIGN.md §11); upsets on the nominal parameters only."""
+
+    samples: int
+    seed: int
+    reference_temperature_K: float = Field(description="Where the rate constants' uncertainty is stated [K].")
+    parameters: list[str]
+    probability_outside: float
+    probability_marginal_or_worse: float
+    counts: CheckCountsAnswer
+    upper_bound_95: CheckBoundsAnswer
+    max_unsafe_probability: float = Field(description="check_policy.max_unsafe_probability [-].")
+    quantiles: CheckQuantilesAnswer
+    drivers: list[CheckDriverAnswer]
+    upsets: str
+
+
 class CheckAnswer(Answer):
     """The setpoint check (DESIGN.md §6)."""
 
@@ -378,6 +480,7 @@ class CheckAnswer(Answer):
     cautions: list[str]
     success: bool
     message: str
+    uncertainty: CheckUncertaintyAnswer = MaybeAbsent()
 
 
 # -- simulate ------------------------------------------------------------------------------------------------
@@ -502,6 +605,137 @@ class CompareAnswer(Answer):
     cautions: list[str]
     success: bool
     message: str
+
+
+# -- plant data (DESIGN.md §12) ------------------------------------------------------------------------------
+class DatasetRoleAnswer(Answer):
+    tag: str = Field(description="The tag (column) the role was read from.")
+    unit: str = Field(description="The unit the tag was written in (converted to SI).")
+    values: int = Field(description="Good values of the role (bad-flagged and empty ones left out).")
+
+
+class GapAnswer(Answer):
+    start: str = Field(description="Last record before the gap (ISO 8601, UTC).")
+    end: str = Field(description="First record after the gap (ISO 8601, UTC).")
+    length_s: float = Field(description="Length of the gap [s].")
+
+
+class GapTimesAnswer(Answer):
+    start_s: float = Field(description="Last record before the gap, seconds since 1970-01-01 UTC.")
+    end_s: float = Field(description="First record after the gap, seconds since 1970-01-01 UTC.")
+
+
+class DatasetSummaryAnswer(Answer):
+    """What was read from a historian export."""
+
+    dataset_id: str = Field(description="Content id: 16 hex digits of the SHA-256 of the SI content.")
+    layout: Literal["wide", "long"] = Field(description="The layout the file was read as.")
+    rows: int = Field(description="Data rows in the file.")
+    records: int = Field(description="Distinct record times kept.")
+    start: str = Field(description="First record (ISO 8601, UTC).")
+    end: str = Field(description="Last record (ISO 8601, UTC).")
+    duration_s: float = Field(description="Time covered [s].")
+    roles: dict[str, DatasetRoleAnswer] = Field(description="Each mapped role: its tag, unit and good values.")
+    dropped_bad: dict[str, int] = Field(description="Values dropped as flagged bad, per tag.")
+    gaps: list[GapAnswer] = Field(description="Intervals longer than three median spacings.")
+    gap_times: list[GapTimesAnswer] = Field(description="The same gaps in epoch seconds.")
+    median_step_s: float = Field(description="Median spacing of the records [s].")
+    irregular_sampling: bool = Field(description="The spacing varies by more than 10 % around its median.")
+    notes: list[str] = Field(description="What the reader assumed, e.g. times without a zone read as UTC.")
+
+
+class DatasetAnswer(DatasetSummaryAnswer):
+    """A stored dataset's summary."""
+
+    created: bool = Field(description="True when this upload stored it; false when it was there already.")
+
+
+class SimulatedSeriesAnswer(Answer):
+    temperature_K: list[float | None]
+    level_m: list[float | None]
+    outlet_flow_m3_per_s: list[float | None]
+    valve_opening: list[float | None]
+    concentrations_mol_per_m3: dict[str, list[float | None]]
+
+
+class PlantPathAnswer(Answer):
+    residence_time_s: list[float | None] = Field(description="V_set / recorded feed flow at each record [s].")
+    feed_temperature_K: list[float | None] = Field(description="Feed temperature at each record [K].")
+
+
+class ResidualStatisticsAnswer(Answer):
+    count: int
+    mean: float = Field(description="Mean residual (simulated - recorded), SI unit of the output.")
+    sd: float | None = Field(description="Standard deviation; null with one residual.")
+    rms: float
+    max_abs: float
+
+
+class ReplayAnswer(Answer):
+    """The scenario driven by recorded inputs, beside the recorded outputs (SI; null where missing)."""
+
+    dataset: DatasetSummaryAnswer
+    time_s: list[float] = Field(description="Record times from the first record [s].")
+    simulated: SimulatedSeriesAnswer
+    recorded: dict[str, list[float | None]] = Field(
+        description="Recorded outputs: reactor_temperature_K, level_m, valve_opening, outlet_flow_m3_per_s."
+    )
+    path: PlantPathAnswer
+    residuals: dict[str, list[float | None]] = Field(description="Simulated minus recorded, same keys.")
+    residual_statistics: dict[str, ResidualStatisticsAnswer]
+    start_temperature_K: float = Field(description="Temperature of the starting steady state [K].")
+    success: bool
+    message: str
+
+
+class OverlayAnswer(Answer):
+    """Where the plant ran: its (residence time, feed temperature) path in time, for the operating map."""
+
+    dataset_id: str
+    start: str = Field(description="Time of the first record (ISO 8601, UTC).")
+    time_s: list[float] = Field(description="Record times from the first record [s].")
+    residence_time_s: list[float | None] = Field(description="V_set / recorded feed flow [s]; null where missing.")
+    feed_temperature_K: list[float | None] = Field(description="Recorded feed temperature [K]; null where missing.")
+    reactor_temperature_K: list[float | None] = Field(description="Recorded reactor temperature [K], or nulls.")
+    recorded: list[str] = Field(description="The roles the dataset holds.")
+
+
+class EstimateAnswer(Answer):
+    target: str = Field(description="Scenario path of the fitted parameter (DESIGN.md §11).")
+    value: float = Field(description="Estimate, SI (k at the reference temperature for a rate constant).")
+    initial: float = Field(description="The scenario's value before the fit, SI.")
+    standard_error: float = Field(description="Linearised standard error, SI.")
+    interval_95: list[float | None] = Field(
+        min_length=2,
+        max_length=2,
+        description="95 % interval by profile likelihood; null on a side the data leave open.",
+    )
+    unit: str = Field(description="The SI unit of the value.")
+
+
+class ProvenanceAnswer(Answer):
+    scenario_id: str = Field(description="The scenario the calibration started from.")
+    dataset_id: str = Field(description="The dataset it was fitted to.")
+
+
+class CalibrationAnswer(Answer):
+    """Fitted parameters with their uncertainty, and the calibrated scenario."""
+
+    reference_temperature_K: float
+    outputs: list[str] = Field(description="Recorded outputs fitted.")
+    estimates: list[EstimateAnswer]
+    correlations: list[list[float | None]] = Field(description="Correlation matrix of the estimates.")
+    residual_sd: dict[str, float] = Field(description="Residual standard deviation per output, SI.")
+    observations: int
+    degrees_of_freedom: int
+    warnings: list[str] = Field(description="Parameters the data cannot determine, and why.")
+    success: bool
+    message: str
+    dataset: DatasetSummaryAnswer
+    scenario: dict[str, JsonValue] = Field(
+        description="The calibrated scenario document (canonical, SI) with the fit's uncertainty block."
+    )
+    derived_from: ProvenanceAnswer
 
 
 #: The model of each computation's answer, by kind (the route names and the service's kinds).

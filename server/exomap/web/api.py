@@ -38,7 +38,7 @@ SCENARIO_FORMAT = "exomap-scenario/1"
 #: enumeration value); MAJOR for anything that breaks a client generated from the previous document (a key,
 #: route or operation id removed or renamed, a type or unit changed, a request field made required) -- a
 #: MAJOR bump also moves the routes to the next prefix (/api/v2) and keeps /api/v1 serving until retired.
-API_VERSION = "1.0.0"
+API_VERSION = "1.3.0"
 
 SUMMARIES = {
     "steady": "Every steady state at an operating point, with its stability",
@@ -48,6 +48,9 @@ SUMMARIES = {
     "simulate": "Dynamic simulation from a steady state, with events",
 }
 CSV_KINDS = ("map", "simulate")
+
+#: Most scenarios one page of the listing may hold.
+MAX_PAGE = 500
 
 
 def answer_responses(
@@ -138,6 +141,14 @@ def _pair(value: str | None) -> list[float | str] | str | None:
     return [_number_or_text(p) for p in parts]  # type: ignore[misc]
 
 
+def _whole(value: str | None) -> int | str | None:
+    """A whole-number query value as an int (left as text otherwise, so validation names the field)."""
+    if value is None:
+        return None
+    text = value.strip()
+    return int(text) if text.lstrip("-").isdigit() else text
+
+
 def _validated(model: type, data: dict[str, Any]) -> Any:
     """Build a request model from query values; errors become the usual 422 with ``query`` locations."""
     try:
@@ -181,12 +192,26 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         "/scenarios",
         operation_id="listScenarios",
         tags=["scenarios"],
-        summary="Demo and saved scenarios",
+        summary="Demo and saved scenarios, one page at a time (summaries; the documents are one GET each)",
         response_class=JSONResponse,
-        responses=answer_responses(ScenarioList, 422),  # 422: an undeclared query parameter
+        responses=answer_responses(ScenarioList, 422, 503),  # 422: an undeclared or out-of-range parameter
     )
-    async def list_scenarios(service: ServiceDep) -> JSONResponse:
-        return JSONResponse({"scenarios": [s.summary() for s in service.store.list()]})
+    async def list_scenarios(
+        service: ServiceDep,
+        limit: Annotated[int, Query(ge=1, le=MAX_PAGE, description=f"Scenarios per page (1-{MAX_PAGE}).")] = 100,
+        offset: Annotated[int, Query(ge=0, description="How many to skip (demos first, then oldest saved).")] = 0,
+    ) -> JSONResponse:
+        page = await anyio.to_thread.run_sync(service.store.page, limit, offset)
+        following = page.next_offset
+        return JSONResponse(
+            {
+                "scenarios": [s.summary() for s in page.items],
+                "total": page.total,
+                "limit": page.limit,
+                "offset": page.offset,
+                "next": None if following is None else f"/api/v1/scenarios?limit={limit}&offset={following}",
+            }
+        )
 
     @router.get(
         "/scenarios/{scenario_id}",
@@ -195,14 +220,18 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         summary="The canonical document of one scenario (SI numbers)",
         response_class=Response,
         responses=answer_responses(
-            ScenarioDoc, 404, 422, description="The canonical document: every default filled in, every quantity SI."
+            ScenarioDoc,
+            404,
+            422,
+            503,
+            description="The canonical document: every default filled in, every quantity SI.",
         ),
     )
     async def get_scenario(
         service: ServiceDep,
         scenario_id: Annotated[str, Path(description="Scenario id (16 hex digits) or a demo's name.")],
     ) -> Response:
-        stored = service.store.get(scenario_id)
+        stored = await anyio.to_thread.run_sync(service.store.get, scenario_id)
         if stored is None:
             raise ApiError(404, "not_found", f"no scenario with id {scenario_id!r}")
         return Response(stored.document, media_type="application/json")
@@ -230,6 +259,14 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         document: Annotated[
             dict[str, Any], Body(description="A scenario document (DESIGN.md §3).", examples=[body_example])
         ],
+        derived_from: Annotated[
+            str | None,
+            Query(
+                description="Id of the stored scenario this one was edited from (kept as store metadata, not part "
+                "of the content id).",
+                max_length=200,
+            ),
+        ] = None,
     ) -> JSONResponse:
         if settings.save_token:
             auth = request.headers.get("authorization", "")
@@ -245,8 +282,18 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
                 )
         from exomap import schema
 
+        if derived_from is not None:
+            origin = service.store.get(derived_from)
+            if origin is None:
+                raise ApiError(
+                    422,
+                    "invalid_input",
+                    f"derived_from: no stored scenario has the id {derived_from!r}",
+                    [{"field": "derived_from", "message": "no stored scenario has this id"}],
+                )
+            derived_from = origin.id  # a demo named by its file name is recorded by its content id
         try:
-            stored, created = await anyio.to_thread.run_sync(service.store.save, document)
+            stored, created = await anyio.to_thread.run_sync(service.store.save, document, derived_from)
         except schema.ScenarioError as exc:
             raise ApiError(422, "invalid_scenario", "the scenario is not valid; see fields", exc.errors) from None
         headers = {"Location": f"/api/v1/scenarios/{stored.id}"}
@@ -371,6 +418,11 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         feed_temperature: Annotated[str | None, Query(description="Window 'lo,hi', e.g. '0 degC,120 degC'.")] = None,
         points: Annotated[str | None, Query(description="Grid 'n_tau,n_tin', e.g. '200,200'.")] = None,
         spacing: Annotated[str | None, Query(description="'log' or 'linear' residence-time axis.")] = None,
+        coolant_temperature: Tc = None,
+        samples: Annotated[
+            str | None, Query(description="Probability map with this many samples (a power of two, e.g. 256).")
+        ] = None,
+        seed: Annotated[str | None, Query(description="Seed of the samples (with samples).")] = None,
         format: Annotated[str, Query(description="'json' or 'csv'.", pattern="^(json|csv)$")] = "json",
     ) -> Response:
         pts: Any = None
@@ -385,6 +437,9 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
                 "feed_temperature": _pair(feed_temperature),
                 "points": pts,
                 "spacing": spacing,
+                "coolant_temperature": _number_or_text(coolant_temperature),
+                "samples": _whole(samples),
+                "seed": _whole(seed),
             },
         )
         out, hit = await service.answer("map", req, format)
@@ -405,6 +460,11 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         residence_time: Tau = None,
         feed_temperature: Tin = None,
         branch: Annotated[str | None, Query(description="'low' or 'high': which stable state is assumed.")] = None,
+        coolant_temperature: Tc = None,
+        samples: Annotated[
+            str | None, Query(description="Also check under the uncertainty block with this many samples (e.g. 256).")
+        ] = None,
+        seed: Annotated[str | None, Query(description="Seed of the samples (with samples).")] = None,
     ) -> Response:
         req = _validated(
             CheckRequest,
@@ -413,6 +473,9 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
                 "residence_time": _number_or_text(residence_time),
                 "feed_temperature": _number_or_text(feed_temperature),
                 "branch": branch,
+                "coolant_temperature": _number_or_text(coolant_temperature),
+                "samples": _whole(samples),
+                "seed": _whole(seed),
             },
         )
         out, hit = await service.answer("check", req)
@@ -434,11 +497,21 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         feed_temperature: Tin = None,
         start: Annotated[str | None, Query(description="'low' or 'high' starting state.")] = None,
         duration: Annotated[str | None, Query(description="Simulated time: '2 h' or seconds.")] = None,
-        events: Annotated[str | None, Query(description="The events as a JSON list (URL-encoded).")] = None,
+        events: Annotated[
+            str | None,
+            Query(
+                description="The events: a JSON list (URL-encoded), or event lines as the pages write them, one a "
+                "line ('at 10 min do feed_stop')."
+            ),
+        ] = None,
+        coolant_temperature: Tc = None,
         format: Annotated[str, Query(description="'json' or 'csv'.", pattern="^(json|csv)$")] = "json",
     ) -> Response:
         parsed_events: Any = None
-        if events is not None:
+        if events is not None and not events.lstrip().startswith("["):
+            # event lines, as a page link carries them (exomap.core.events.event_from_text reads each)
+            parsed_events = [line for line in events.splitlines() if line.strip() and not line.lstrip().startswith("#")]
+        elif events is not None:
             try:
                 parsed_events = json.loads(events)
             except (ValueError, RecursionError):  # RecursionError: lists nested thousands deep
@@ -457,6 +530,7 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
                 "start": start,
                 "duration": _number_or_text(duration),
                 "events": parsed_events,
+                "coolant_temperature": _number_or_text(coolant_temperature),
             },
         )
         out, hit = await service.answer("simulate", req, format)

@@ -164,6 +164,17 @@ class Service:
         return c_in, T_c
 
     @staticmethod
+    def _coolant(req: Any, sc: Any) -> dict[str, float]:
+        """``{"T_c": ...}`` when the request sets the jacket's coolant temperature (a setpoint input of a
+        jacketed tank), else ``{}`` (so an answer without it keeps its cache key)."""
+        value = getattr(req, "coolant_temperature", None)
+        if value is None:
+            return {}
+        if not sc.UA_jacket > 0:
+            raise invalid("coolant_temperature", "this scenario has no cooling jacket, so no coolant temperature")
+        return {"T_c": quantity(value, "temperature", "coolant_temperature")}
+
+    @staticmethod
     def _range(values: list[Any] | None, dimension: str, field: str) -> tuple[float, float] | None:
         if values is None:
             return None
@@ -172,6 +183,20 @@ class Service:
         if not lo < hi:
             raise invalid(field, f"expected [lo, hi] with lo < hi, got [{lo:g}, {hi:g}] in SI units")
         return lo, hi
+
+    @staticmethod
+    def _samples(req: Any, sc: Any) -> dict[str, Any]:
+        """``samples``/``seed`` of a request asking for an answer under uncertain data (DESIGN.md §11)."""
+        samples, seed = getattr(req, "samples", None), getattr(req, "seed", None)
+        if samples is None:
+            if seed is not None:
+                raise invalid("seed", "a seed applies to sampling: give samples as well")
+            return {}
+        if getattr(sc, "uncertainty", None) is None:
+            raise invalid("samples", "the scenario has no uncertainty block to sample (DESIGN.md §11)")
+        if samples & (samples - 1):
+            raise invalid("samples", f"expected a power of two (the Sobol sequence is balanced there), got {samples}")
+        return {"samples": samples, "seed": seed}
 
     def params(self, kind: str, req: Any, sc: Any) -> dict[str, Any]:
         """SI keyword arguments of the core call for ``kind``; limits checked (413)."""
@@ -207,7 +232,14 @@ class Service:
                     f"a {n[0]} x {n[1]} map has {cells} cells; the limit is {s.max_map_cells}",
                     [{"field": "points", "message": f"at most {s.max_map_cells} cells (n_tau x n_tin)"}],
                 )
-            return {"tau_range": tau_range, "T_in_range": T_in_range, "points": points, "spacing": req.spacing}
+            out = {
+                "tau_range": tau_range,
+                "T_in_range": T_in_range,
+                "points": points,
+                "spacing": req.spacing,
+                **self._coolant(req, sc),
+            }
+            return out | self._samples(req, sc)
         if kind == "check":
             tau, T_in = self._point(req, sc)
             cap = float(sc.policy.upset_duration)
@@ -219,7 +251,7 @@ class Service:
                     f"{s.max_duration_s:g} s",
                     [{"field": "check_policy.upset_duration", "message": f"at most {s.max_duration_s:g} s"}],
                 )
-            return {"tau": tau, "T_in": T_in, "branch": req.branch}
+            return {"tau": tau, "T_in": T_in, "branch": req.branch, **self._coolant(req, sc)} | self._samples(req, sc)
         if kind == "simulate":
             from exomap.core.events import parse_events
 
@@ -245,7 +277,14 @@ class Service:
                     [{"field": "events", "message": f"at most {s.max_events} events"}],
                 )
             events = parse_events(req.events, event_unit_parser, species=sc.species, duration=duration)
-            return {"tau": tau, "T_in": T_in, "start": req.start, "events": events, "duration": duration}
+            return {
+                "tau": tau,
+                "T_in": T_in,
+                "start": req.start,
+                "events": events,
+                "duration": duration,
+                **self._coolant(req, sc),
+            }
         raise ValueError(f"unknown kind {kind!r}")
 
     # -- answers ------------------------------------------------------------------------------------------------
