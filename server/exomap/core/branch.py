@@ -130,9 +130,7 @@ def _one(mf: Manifold, tau: float, s: float):
 
 def _fold_kind(mf: Manifold, tau: float, s: float) -> str:
     """ignition at a local maximum of T_in(s), extinction at a local minimum."""
-    h = 1e-6 * max(abs(s), 1e-12)
-    if mf.explicit:
-        h = min(h, 0.25 * min(s, mf.xi_max - s))
+    h = 1e-6 * max(abs(s), 1.0)  # s is a temperature or the log-odds of the conversion
     d2 = (float(_one(mf, tau, s + h).dTin_ds[0]) - float(_one(mf, tau, s - h).dTin_ds[0])) / (2 * h)
     return "ignition" if d2 < 0 else "extinction"
 
@@ -140,14 +138,13 @@ def _fold_kind(mf: Manifold, tau: float, s: float) -> str:
 def _lead(mf: Manifold, tau: float, s: float) -> tuple[float, bool, float]:
     """(leading real part, complex?, |imag| of the leading pair) of the reduced Jacobian."""
     smp = _one(mf, tau, s)
-    Jr = mf.reduced_jacobian(np.array([tau]), smp.T, smp.xi)[0]
+    Jr = mf.reduced_jacobian(np.array([tau]), smp.T, smp.xi, mf.state_C(smp))[0]
     ev = np.linalg.eigvals(Jr)
     k = int(np.argmax(ev.real))
     return float(ev[k].real), bool(abs(ev[k].imag) > 1e-12 * max(abs(ev[k].real), 1e-30)), float(abs(ev[k].imag))
 
 
-def _conversion(mf: Manifold, xi: np.ndarray) -> float:
-    C = mf.concentrations(xi)
+def _conversion(mf: Manifold, C: np.ndarray) -> float:
     return float(mf.conversion(np.array(C[mf.key])))
 
 
@@ -169,7 +166,8 @@ def _along_feed_temperature(mf: Manifold, tau: float, lo: float, hi: float, n: i
     smp = mf.sample(np.array([tau]), T_lo, T_hi, n)
     s, T_in, d = smp.s[0], smp.T_in[0], smp.dTin_ds[0]
     ok = smp.valid[0] & np.isfinite(T_in)
-    lead, cplx = mf.leading_real_part(smp.tau, smp.T, smp.xi)
+    C = mf.state_C(smp)
+    lead, cplx = mf.leading_real_part(smp.tau, smp.T, smp.xi, C)
     lead, cplx = lead[0], cplx[0]
     points: list[BranchPoint] = []
     turns: list[TurningPoint] = []
@@ -186,7 +184,7 @@ def _along_feed_temperature(mf: Manifold, tau: float, lo: float, hi: float, n: i
                     tau,
                     float(T_in[k]),
                     float(smp.T[0, k]),
-                    _conversion(mf, smp.xi[0, k]),
+                    _conversion(mf, C[0, k]),
                     bool(lead[k] < 0),
                     bool(cplx[k]),
                     piece,
@@ -220,30 +218,24 @@ class _Plane:
         if mf.explicit:
             s_lo = mf.s_bounds(np.array([lo, hi]), T_lo, T_hi)[0].min()
             s_hi = mf.s_bounds(np.array([lo, hi]), T_lo, T_hi)[1].max()
-            self.y0, self.y1 = self._w(s_lo), self._w(s_hi)
+            self.y0, self.y1 = s_lo, s_hi  # the log-odds of the conversion
         else:
             self.y0, self.y1 = -1.0 / T_lo, -1.0 / T_hi
         self.scale = 100.0
 
-    def _w(self, s: float) -> float:
-        return math.log(s / (self.mf.xi_max - s))
-
     def tau_s(self, X: float, Y: float) -> tuple[float, float]:
         tau = math.exp(self.x0 + X * (self.x1 - self.x0))
         y = self.y0 + Y * (self.y1 - self.y0)
-        if self.mf.explicit:
-            s = self.mf.xi_max / (1.0 + math.exp(-y))
-        else:
-            s = -1.0 / y
+        s = y if self.mf.explicit else -1.0 / y
         return tau, s
 
     def XY(self, tau: float, s: float) -> tuple[float, float]:
-        y = self._w(s) if self.mf.explicit else -1.0 / s
+        y = s if self.mf.explicit else -1.0 / s
         return (math.log(tau) - self.x0) / (self.x1 - self.x0), (y - self.y0) / (self.y1 - self.y0)
 
     def ds_dY(self, s: float) -> float:
         if self.mf.explicit:
-            return s * (1.0 - s / self.mf.xi_max) * (self.y1 - self.y0)
+            return self.y1 - self.y0
         return s * s * (self.y1 - self.y0)
 
     def G(self, X: float, Y: float) -> float:
@@ -388,7 +380,9 @@ def _along_residence_time(mf: Manifold, T_in: float, lo: float, hi: float, max_s
             e = _one(mf, tau, s)
             re, cplx, _ = _lead(mf, tau, s)
             if i < len(path):
-                points.append(BranchPoint(tau, tau, T_in, float(e.T[0]), _conversion(mf, e.xi[0]), re < 0, cplx, k))
+                points.append(
+                    BranchPoint(tau, tau, T_in, float(e.T[0]), _conversion(mf, mf.state_C(e)[0]), re < 0, cplx, k)
+                )
             cur = (X, Y, tx, re, cplx)
             if prev is not None:
                 if prev[2] * tx < 0:

@@ -171,10 +171,10 @@ def roots_in_samples(
         if fb == 0.0:
             continue  # taken as the left end of the next interval (or the last sample below)
         if fa * fb < 0:
-            roots.append(brentq(phi, s[k], s[k + 1], xtol=1e-14 * max(abs(s[k]), 1e-300), rtol=1e-15, maxiter=200))
+            roots.append(brentq(phi, s[k], s[k + 1], xtol=1e-14 * max(abs(s[k]), 1.0), rtol=1e-15, maxiter=200))
         elif d[k] * d[k + 1] < 0:
             # an extremum between two samples: two roots may hide on its either side
-            se = brentq(dphi, s[k], s[k + 1], xtol=1e-15 * max(abs(s[k]), 1e-300), rtol=1e-15, maxiter=200)
+            se = brentq(dphi, s[k], s[k + 1], xtol=1e-15 * max(abs(s[k]), 1.0), rtol=1e-15, maxiter=200)
             fe = phi(se)
             if fe * fa < 0:
                 roots.append(brentq(phi, s[k], se, rtol=1e-15, maxiter=200))
@@ -246,7 +246,7 @@ def steady_states(
     for s_root in roots:
         smp = mf.evaluate(np.array([tau]), np.array([s_root]))
         T0 = float(smp.T[0])
-        C0 = mf.concentrations(smp.xi[0])
+        C0 = mf.state_C(smp)[0]
         C, T, res = _polish(model, u, C0, T0)
         y = model.pack(sc.vessel.h_set, C, T, 0.0)
         ev = np.linalg.eigvals(model.reactor_block(y, u))
