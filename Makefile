@@ -5,6 +5,7 @@
 #   make serve     the web service with the demo scenarios on the embedded SQLite store (installs first)
 #   make bench     the side-by-side benchmarks in benchmarks/
 #   make lint      ruff format --check, ruff check, mypy on the core
+#   make openapi   rewrite docs/openapi.json, the API's committed contract, from the code
 
 # The project's virtual environment when there is one (.ci/run makes it), else the python on PATH.
 PYTHON ?= $(if $(wildcard .venv/bin/python),.venv/bin/python,python3)
@@ -14,7 +15,7 @@ SUDO := $(shell [ "$$(id -u)" = 0 ] || echo sudo)
 EXOMAP := $(PYTHON) -c "import sys; from exomap.cli import main; sys.exit(main())"
 STAMP := build/.install-stamp
 
-.PHONY: install test serve bench lint
+.PHONY: install test serve bench lint openapi
 
 # Reinstall only when the package metadata changed (an editable install picks up source changes itself).
 $(STAMP): pyproject.toml
@@ -44,3 +45,6 @@ lint: $(STAMP)
 	$(PYTHON) -m ruff format --check server tests benchmarks
 	$(PYTHON) -m ruff check server tests benchmarks
 	$(PYTHON) -m mypy
+
+openapi: $(STAMP)
+	$(PYTHON) -m exomap.web.apidocs docs/openapi.json

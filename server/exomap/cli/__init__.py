@@ -28,6 +28,7 @@ COMMANDS: dict[str, str] = {
     "check": "check a setpoint: margins, upsets, verdict",
     "simulate": "dynamic response to events",
     "compare": "before and after a change: fields, map cells that changed region, both checks",
+    "study": "run a batch study: scenarios x setpoints x analyses, one JSON line each",
 }
 
 #: Exit status for bad input (argparse uses 2 as well).

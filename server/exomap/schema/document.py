@@ -37,6 +37,7 @@ from exomap.schema.quantity import (
     pre_exponential_to_si,
     to_si,
 )
+from exomap.schema.text import Description, Label, Text, Title
 
 FORMAT = "exomap-scenario/1"
 _POLICY = CheckPolicy()
@@ -144,7 +145,7 @@ class OutletValveDoc(_Model):
 
 
 class ReactionDoc(_Model):
-    label: str = ""
+    label: Label = ""
     stoichiometry: dict[str, float]
     orders: dict[str, Annotated[float, Field(ge=0.0)]]
     pre_exponential: float
@@ -245,9 +246,9 @@ class ScenarioDoc(_Model):
     """A validated scenario document; every quantity is an SI float."""
 
     format: Literal["exomap-scenario/1"] = FORMAT
-    title: str = ""
-    description: str = ""
-    species: list[Annotated[str, Field(min_length=1, max_length=40, pattern=r"^[^\s.\[\]]+$")]] = Field(min_length=1)
+    title: Title = ""
+    description: Description = ""
+    species: list[Annotated[Text(40), Field(min_length=1, pattern=r"^[^\s.\[\]]+$")]] = Field(min_length=1)
     liquid: LiquidDoc
     vessel: VesselDoc
     outlet_valve: OutletValveDoc

@@ -103,7 +103,7 @@ def _message(err: dict[str, Any]) -> str:
     kind = err["type"]
     loc = tuple(err["loc"])
     ctx = err.get("ctx") or {}
-    if kind == "quantity":
+    if kind in ("quantity", "text"):
         return str(ctx.get("text", err["msg"]))
     tp, meta, parent = _walk(loc)
     what = _what(tp, meta)
@@ -127,6 +127,8 @@ def _message(err: dict[str, Any]) -> str:
             "less_than_equal": "at most",
         }[kind]
         return f"must be {words} {bound}; {what}"
+    if kind == "string_too_long":
+        return f"too long: at most {ctx.get('max_length')} characters, got {len(str(err.get('input', '')))}"
     if kind == "string_pattern_mismatch":
         return 'a species name is one word without dots or brackets, e.g. "A" or "MeOH"'
     if kind == "literal_error":

@@ -14,9 +14,16 @@ import anyio.to_thread
 from fastapi import APIRouter, Body, Depends, Path, Query, Request
 from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse, Response
-from pydantic import ValidationError
+from pydantic import BaseModel, ValidationError
 
 import exomap
+from exomap.web.answers import (
+    ANSWER_MODELS,
+    HealthAnswer,
+    ScenarioList,
+    ScenarioSummary,
+    VersionAnswer,
+)
 from exomap.web.errors import ApiError, error_responses
 from exomap.web.jobs import Answer
 from exomap.web.models import BranchRequest, CheckRequest, MapRequest, SimulateRequest, SteadyRequest
@@ -26,40 +33,13 @@ from exomap.web.settings import Settings
 
 SCENARIO_FORMAT = "exomap-scenario/1"
 
-# -- answer schemas for the OpenAPI document (the keys DESIGN.md §4 fixes; more keys are allowed) ---------------
-_OBJECT = {"type": "object"}
-ANSWER_SCHEMAS: dict[str, dict[str, Any]] = {
-    "steady": {
-        "type": "object",
-        "required": ["operating_point", "states"],
-        "properties": {"operating_point": _OBJECT, "states": {"type": "array", "items": _OBJECT}},
-    },
-    "branch": {
-        "type": "object",
-        "required": ["parameter", "points", "turning_points"],
-        "properties": {"points": {"type": "array"}, "turning_points": {"type": "array"}},
-    },
-    "map": {
-        "type": "object",
-        "required": ["residence_time_s", "feed_temperature_K", "region", "legend"],
-        "properties": {
-            "residence_time_s": {"type": "array"},
-            "feed_temperature_K": {"type": "array"},
-            "region": {"type": "array"},
-            "legend": {"type": "array"},
-        },
-    },
-    "check": {
-        "type": "object",
-        "required": ["verdict", "reasons", "cautions"],
-        "properties": {
-            "verdict": {"type": "string", "enum": ["inside", "marginal", "outside", "undetermined"]},
-            "reasons": {"type": "array"},
-            "cautions": {"type": "array"},
-        },
-    },
-    "simulate": {"type": "object"},
-}
+#: Version of the API contract (the OpenAPI document's ``info.version``; committed in docs/openapi.json).
+#: MINOR for an addition a client can ignore (a route, an optional request field, an answer key, an
+#: enumeration value); MAJOR for anything that breaks a client generated from the previous document (a key,
+#: route or operation id removed or renamed, a type or unit changed, a request field made required) -- a
+#: MAJOR bump also moves the routes to the next prefix (/api/v2) and keeps /api/v1 serving until retired.
+API_VERSION = "1.0.0"
+
 SUMMARIES = {
     "steady": "Every steady state at an operating point, with its stability",
     "branch": "A branch of steady states along residence time or feed temperature, with turning points",
@@ -69,17 +49,21 @@ SUMMARIES = {
 }
 CSV_KINDS = ("map", "simulate")
 
-SCENARIO_SUMMARY = {
-    "type": "object",
-    "required": ["id", "title", "description", "demo", "name"],
-    "properties": {
-        "id": {"type": "string"},
-        "title": {"type": "string"},
-        "description": {"type": "string"},
-        "demo": {"type": "boolean"},
-        "name": {"type": ["string", "null"]},
-    },
-}
+
+def answer_responses(
+    model: type[BaseModel], *errors: int, status: int = 200, description: str = "The answer.", csv: bool = False
+) -> dict[int | str, dict[str, Any]]:
+    """``responses=`` of a route: its answer model at ``status`` (and CSV text when ``csv``) and the shared
+    error shape at each status of ``errors``. The routes send bytes (no validation per request); the tests
+    hold every answer to its model."""
+    out: dict[str, Any] = {"model": model, "description": description}
+    if csv:
+        # JSON first: a generated client reads the first content type as the typed answer
+        out["content"] = {
+            "application/json": {},
+            "text/csv": {"schema": {"type": "string", "description": "One row per point (SI), with format=csv."}},
+        }
+    return {status: out, **error_responses(*errors)}
 
 
 # Dependencies are coroutines: FastAPI runs a plain ``def`` dependency in a worker thread, one hop per request.
@@ -119,14 +103,19 @@ def _answer_response(
     return Response(out.body, media_type=media, headers=headers)
 
 
-def _answer_responses(kind: str, post: bool = False) -> dict[int | str, dict[str, Any]]:
-    content: dict[str, Any] = {"application/json": {"schema": ANSWER_SCHEMAS[kind]}}
-    if kind in CSV_KINDS:
-        content["text/csv"] = {"schema": {"type": "string"}}
-    return {
-        200: {"description": f"The {kind} answer (DESIGN.md §4).", "content": content},
-        **error_responses(*((400,) if post else ()), 404, 413, 422, 503),
-    }
+def _compute_responses(kind: str, post: bool = False) -> dict[int | str, dict[str, Any]]:
+    """A computation's answer and errors: 400 (unreadable body) and 404 (no such scenario) for a POST, 404 for a
+    GET on a stored scenario; 413 over a limit, 422 invalid input, 503 past the time budget."""
+    return answer_responses(
+        ANSWER_MODELS[kind],
+        *((400,) if post else ()),
+        404,
+        413,
+        422,
+        503,
+        description=f"The {kind} answer (DESIGN.md §4).",
+        csv=kind in CSV_KINDS and not post,  # format=csv is a query parameter of the GET twins
+    )
 
 
 def _number_or_text(value: str | None) -> float | str | None:
@@ -161,63 +150,53 @@ def _validated(model: type, data: dict[str, Any]) -> Any:
 
 def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
     """The ``/api/v1`` router. ``example_scenario`` is the OpenAPI example of a scenario body."""
+    from exomap.schema.document import ScenarioDoc  # the answer model of GET /scenarios/{id}
+
     # every route refuses query parameters it does not declare (a misspelt one would be silently ignored)
     router = APIRouter(prefix="/api/v1", dependencies=[Depends(refuse_unknown_query)])
 
     @router.get(
         "/health",
+        operation_id="getHealth",
+        tags=["service"],
         summary="Liveness: answers at once, even while maps compute",
-        responses={
-            200: {
-                "content": {
-                    "application/json": {
-                        "schema": {"type": "object", "required": ["status"], "properties": {"status": {"const": "ok"}}}
-                    }
-                }
-            }
-        },
+        response_class=JSONResponse,
+        responses=answer_responses(HealthAnswer, 422),  # 422: an undeclared query parameter
     )
     async def health() -> JSONResponse:
         return JSONResponse({"status": "ok"})
 
     @router.get(
         "/version",
+        operation_id="getVersion",
+        tags=["service"],
         summary="Version of exomap and of the scenario format it reads",
-        responses={
-            200: {
-                "content": {
-                    "application/json": {"schema": {"type": "object", "required": ["version", "scenario_format"]}}
-                }
-            }
-        },
+        response_class=JSONResponse,
+        responses=answer_responses(VersionAnswer, 422),  # 422: an undeclared query parameter
     )
     async def version() -> JSONResponse:
         return JSONResponse({"version": exomap.__version__, "scenario_format": SCENARIO_FORMAT})
 
     @router.get(
         "/scenarios",
+        operation_id="listScenarios",
+        tags=["scenarios"],
         summary="Demo and saved scenarios",
-        responses={
-            200: {
-                "content": {
-                    "application/json": {
-                        "schema": {
-                            "type": "object",
-                            "required": ["scenarios"],
-                            "properties": {"scenarios": {"type": "array", "items": SCENARIO_SUMMARY}},
-                        }
-                    }
-                }
-            }
-        },
+        response_class=JSONResponse,
+        responses=answer_responses(ScenarioList, 422),  # 422: an undeclared query parameter
     )
     async def list_scenarios(service: ServiceDep) -> JSONResponse:
         return JSONResponse({"scenarios": [s.summary() for s in service.store.list()]})
 
     @router.get(
         "/scenarios/{scenario_id}",
+        operation_id="getScenario",
+        tags=["scenarios"],
         summary="The canonical document of one scenario (SI numbers)",
-        responses={200: {"content": {"application/json": {"schema": _OBJECT}}}, **error_responses(404)},
+        response_class=Response,
+        responses=answer_responses(
+            ScenarioDoc, 404, 422, description="The canonical document: every default filled in, every quantity SI."
+        ),
     )
     async def get_scenario(
         service: ServiceDep,
@@ -233,13 +212,15 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
     @router.post(
         "/scenarios",
         status_code=201,
+        operation_id="saveScenario",
+        tags=["scenarios"],
+        response_class=JSONResponse,
         summary="Save a scenario (idempotent: the same content always gets the same id)",
         description="201 when the scenario is new, 200 when it is already stored (demo or saved). Nothing is "
         "ever overwritten. When the server has a save token, send `Authorization: Bearer <token>`.",
         responses={
-            201: {"description": "Saved.", "content": {"application/json": {"schema": SCENARIO_SUMMARY}}},
-            200: {"description": "Already stored.", "content": {"application/json": {"schema": SCENARIO_SUMMARY}}},
-            **error_responses(400, 401, 413, 422),
+            **answer_responses(ScenarioSummary, 400, 401, 413, 422, status=201, description="Saved."),
+            200: {"model": ScenarioSummary, "description": "Already stored (nothing written)."},
         },
     )
     async def save_scenario(
@@ -283,9 +264,10 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
             compute,
             methods=["POST"],
             summary=SUMMARIES[kind],
-            responses=_answer_responses(kind, post=True),
+            responses=_compute_responses(kind, post=True),
             response_class=Response,
-            name=f"post_{kind}",
+            operation_id=f"compute{kind.capitalize()}",
+            tags=[kind],
         )
 
     for kind, model in REQUEST_MODELS.items():
@@ -311,8 +293,10 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
 
     @router.get(
         "/scenarios/{scenario_id}/steady",
+        operation_id="getSteady",
+        tags=["steady"],
         summary=SUMMARIES["steady"] + " (stored scenario)",
-        responses=_answer_responses("steady"),
+        responses=_compute_responses("steady"),
         response_class=Response,
     )
     async def get_steady(
@@ -339,8 +323,10 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
 
     @router.get(
         "/scenarios/{scenario_id}/branch",
+        operation_id="getBranch",
+        tags=["branch"],
         summary=SUMMARIES["branch"] + " (stored scenario)",
-        responses=_answer_responses("branch"),
+        responses=_compute_responses("branch"),
         response_class=Response,
     )
     async def get_branch(
@@ -371,8 +357,10 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
 
     @router.get(
         "/scenarios/{scenario_id}/map",
+        operation_id="getMap",
+        tags=["map"],
         summary=SUMMARIES["map"] + " (stored scenario)",
-        responses=_answer_responses("map"),
+        responses=_compute_responses("map"),
         response_class=Response,
     )
     async def get_map(
@@ -404,8 +392,10 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
 
     @router.get(
         "/scenarios/{scenario_id}/check",
+        operation_id="getCheck",
+        tags=["check"],
         summary=SUMMARIES["check"] + " (stored scenario)",
-        responses=_answer_responses("check"),
+        responses=_compute_responses("check"),
         response_class=Response,
     )
     async def get_check(
@@ -430,8 +420,10 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
 
     @router.get(
         "/scenarios/{scenario_id}/simulate",
+        operation_id="getSimulate",
+        tags=["simulate"],
         summary=SUMMARIES["simulate"] + " (stored scenario)",
-        responses=_answer_responses("simulate"),
+        responses=_compute_responses("simulate"),
         response_class=Response,
     )
     async def get_simulate(

@@ -5,11 +5,21 @@ FastAPI's built-in docs pages load their scripts from a CDN, so they are switche
 HTML shell plus one ES module that reads the app's own OpenAPI document (``/api/v1/openapi.json``) and lists
 every operation with its parameters, its request-body example and a form to send it to this server. It is
 written for this API rather than a general OpenAPI browser, and has no third-party code.
+
+The OpenAPI document itself is FastAPI's, less the framework's default 422 body (``HTTPValidationError``),
+which this API never sends: every failure has the shape of ``exomap.web.errors.ErrorBody``. The document is the
+API's contract and is committed as ``docs/openapi.json``; ``make openapi`` (``python -m exomap.web.apidocs
+docs/openapi.json``) refreshes it, and ``tests/web/test_contract.py`` fails with a diff when they differ.
 """
 
 from __future__ import annotations
 
 import html
+import json
+import sys
+import tempfile
+from pathlib import Path
+from typing import Any
 
 from fastapi import FastAPI
 from fastapi.responses import HTMLResponse, Response
@@ -170,8 +180,39 @@ main();
 """
 
 
+#: The framework's default validation-error schemas (never sent by this API).
+FRAMEWORK_SCHEMAS = ("HTTPValidationError", "ValidationError")
+
+
+def _without_framework_errors(doc: dict[str, Any]) -> dict[str, Any]:
+    """Drop FastAPI's default 422 answer from every operation, and its schemas.
+
+    FastAPI adds it to an operation with parameters that does not list a 422 of its own. Where a route can
+    answer 422, it lists the shared error shape (``error_responses(422)``), which FastAPI keeps.
+    """
+    ref = "#/components/schemas/HTTPValidationError"
+    for item in doc.get("paths", {}).values():
+        for op in item.values():
+            answer = op.get("responses", {}).get("422")
+            if answer is not None and ref in json.dumps(answer):
+                del op["responses"]["422"]
+    schemas = doc.get("components", {}).get("schemas", {})
+    for name in FRAMEWORK_SCHEMAS:
+        schemas.pop(name, None)
+    return doc
+
+
 def install(app: FastAPI) -> None:
-    """Add ``/api/docs`` and its two files to ``app``."""
+    """Add ``/api/docs`` and its two files to ``app``, and clean its OpenAPI document."""
+
+    generate = app.openapi
+
+    def openapi() -> dict[str, Any]:
+        if app.openapi_schema is None:
+            app.openapi_schema = _without_framework_errors(generate())
+        return app.openapi_schema
+
+    app.openapi = openapi  # type: ignore[method-assign]
 
     from exomap.core.cautions import CAUTIONS  # the one place of the cautions (DESIGN.md §9)
 
@@ -188,3 +229,26 @@ def install(app: FastAPI) -> None:
     @app.get(DOCS_PATH + "/docs.css", include_in_schema=False)
     async def api_docs_style() -> Response:
         return Response(CSS, media_type="text/css; charset=utf-8")
+
+
+def document() -> dict[str, Any]:
+    """The OpenAPI document of an app with default settings (on a throw-away data folder)."""
+    from exomap.web.app import create_app
+    from exomap.web.settings import Settings
+
+    with tempfile.TemporaryDirectory() as tmp:
+        app = create_app(Settings(data_dir=Path(tmp), executor="thread"))
+        doc = app.openapi()
+        app.state.store.close()
+        return doc
+
+
+def document_text() -> str:
+    """The committed form of the document: indented, keys in the framework's order, a final newline."""
+    return json.dumps(document(), indent=2, ensure_ascii=False) + "\n"
+
+
+if __name__ == "__main__":  # python -m exomap.web.apidocs docs/openapi.json  (make openapi)
+    if len(sys.argv) != 2:
+        sys.exit("usage: python -m exomap.web.apidocs PATH  (writes the OpenAPI document to PATH)")
+    Path(sys.argv[1]).write_text(document_text(), encoding="utf-8")

@@ -23,9 +23,8 @@ from fastapi import FastAPI
 from starlette.middleware.cors import CORSMiddleware
 from starlette.middleware.gzip import GZipMiddleware
 
-import exomap
 from exomap.web import apidocs, pages
-from exomap.web.api import build_router
+from exomap.web.api import API_VERSION, build_router
 from exomap.web.compare import build_compare_router
 from exomap.web.errors import install_error_handlers
 from exomap.web.middleware import BodyLimit, HeadAsGet, SecurityHeaders
@@ -82,10 +81,11 @@ def create_app(settings: Settings | None = None, *, warm_up: bool = False) -> Fa
 
     app = FastAPI(
         title="exomap",
-        version=exomap.__version__,
+        version=API_VERSION,
         summary="Steady states, operating maps, setpoint checks and dynamics of exothermic stirred tanks.",
         description="Screening aid, not a design or safety basis. Quantities are SI numbers or strings with "
-        'units. Every error has the shape {"error": {status, code, message, fields}}.',
+        'units. Every error has the shape {"error": {status, code, message, fields}}. The version above is the '
+        "API's (README, JSON API); exomap's own is answered by /api/v1/version.",
         openapi_url=apidocs.OPENAPI_PATH,
         docs_url=None,  # the built-in pages load scripts from a CDN; /api/docs is served offline instead
         redoc_url=None,

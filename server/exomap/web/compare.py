@@ -225,21 +225,22 @@ def api_query_of_view(state: dict[str, str]) -> dict[str, str]:
 
 def build_compare_router() -> APIRouter:
     """``POST /api/v1/compare`` and ``GET /api/v1/compare``."""
-    from exomap.web.api import _answer_response, get_service
-    from exomap.web.errors import error_responses
+    from exomap.web.answers import CompareAnswer
+    from exomap.web.api import _answer_response, answer_responses, get_service
     from exomap.web.query import refuse_unknown_query
 
     router = APIRouter(prefix="/api/v1", dependencies=[Depends(refuse_unknown_query)])
-    content = {"application/json": {"schema": {"type": "object"}}}
-    responses: dict[int | str, dict[str, Any]] = {
-        200: {"description": "The compare answer (DESIGN.md §13).", "content": content},
-        **error_responses(400, 404, 413, 422, 503),
-    }
+
+    def responses(post: bool) -> dict[int | str, dict[str, Any]]:
+        errors = (400, 404, 413, 422, 503) if post else (404, 413, 422, 503)
+        return answer_responses(CompareAnswer, *errors, description="The compare answer (DESIGN.md §13).")
 
     @router.post(
         "/compare",
         summary="Compare two scenarios or two setpoints: changed fields, changed map cells, both checks",
-        responses=responses,
+        operation_id="computeCompare",
+        tags=["compare"],
+        responses=responses(post=True),
         response_class=Response,
     )
     async def post_compare(request: Request, req: CompareRequest) -> Response:
@@ -250,7 +251,9 @@ def build_compare_router() -> APIRouter:
     @router.get(
         "/compare",
         summary="Compare (GET twin of the compare page): a=ID&b=ID, setpoints residence_time_a ...",
-        responses=responses,
+        operation_id="getCompare",
+        tags=["compare"],
+        responses=responses(post=False),
         response_class=Response,
     )
     async def get_compare(

@@ -20,7 +20,7 @@ from typing import Any
 from fastapi import FastAPI, Request
 from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
-from pydantic import BaseModel, Field
+from pydantic import BaseModel, ConfigDict, Field
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from exomap.web.store import StoreUnavailableError
@@ -47,11 +47,15 @@ RETRY_AFTER_S = 5
 
 
 class FieldError(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+
     field: str = Field(description="Dotted path of the offending input, e.g. 'scenario.vessel.diameter'.")
     message: str = Field(description="What is wrong and what is expected (the unit, for a quantity).")
 
 
 class ErrorDetail(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+
     status: int = Field(description="The HTTP status code, repeated.")
     code: str = Field(description="A stable machine-readable key, e.g. 'invalid_scenario', 'not_found'.")
     message: str = Field(description="One sentence for a person.")
@@ -60,6 +64,8 @@ class ErrorDetail(BaseModel):
 
 class ErrorBody(BaseModel):
     """The body of every error answer."""
+
+    model_config = ConfigDict(extra="forbid")
 
     error: ErrorDetail
 
