@@ -380,8 +380,14 @@ class Manifold:
         return np.broadcast_to(np.where(c > 0, np.log(np.maximum(c, 1e-300)), low), shape + (self.S.size,)).copy()
 
     def isothermal(
-        self, tau: np.ndarray, T: np.ndarray, C0: np.ndarray | None = None, max_iter: int = 100
+        self, tau: np.ndarray, T: np.ndarray, C0: np.ndarray | None = None
     ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """(y = ln C of the solved species, ln r, converged) of the isothermal balances (see :meth:`_isothermal`)."""
+        return self._isothermal(tau, T, C0)[:3]
+
+    def _isothermal(
+        self, tau: np.ndarray, T: np.ndarray, C0: np.ndarray | None = None, max_iter: int = 100
+    ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
         """Solve the isothermal species balances C = C_in + nu tau r(C, T) at each (tau, T), vectorised.
 
         Newton's method on the logarithmic form of ``_iso_system`` in y = ln C of the solved species, with
@@ -390,7 +396,8 @@ class Manifold:
         logarithm of inflow over outflow, so this is relative; the last step takes it to the rounding level);
         anything else is reported as not converged, never as an answer.
 
-        Returns (y (..., p), ln r (..., m), converged (...)).
+        Returns (y (..., p), ln r (..., m), converged (...), dG/dy (pts, p, p) and dG/dT (pts, p) of the
+        converged evaluation, NaN where it did not converge).
         """
         tau, T = np.broadcast_arrays(np.asarray(tau, float), np.asarray(T, float))
         shape = tau.shape
@@ -400,7 +407,13 @@ class Manifold:
         lnk_all = np.log(self.k0)[None, :] - self.E[None, :] / flat_T[:, None]
         ln_tau = np.log(flat_tau)
         if p == 0:
-            return np.zeros(shape + (0,)), np.full(shape + (self.m,), -np.inf), np.ones(shape, dtype=bool)
+            return (
+                np.zeros(shape + (0,)),
+                np.full(shape + (self.m,), -np.inf),
+                np.ones(shape, dtype=bool),
+                np.zeros((pts, 0, 0)),
+                np.zeros((pts, 0)),
+            )
         if C0 is None:
             y = self._cold_guess((pts,))
         else:
@@ -409,25 +422,55 @@ class Manifold:
             y = np.where(np.isfinite(y), y, self._cold_guess((pts,)))
         y = np.clip(y, self._y_lo, self._y_hi)
         ok = np.zeros(pts, dtype=bool)
-        active = np.arange(pts)
+        dT = self.E[None, :] / (flat_T * flat_T)[:, None]
+        Jac_out = np.empty((pts, p, p))  # filled where ok
+        GT_out = np.empty((pts, p))
+        active = None  # index of the points still iterating; None: all of them (no copies)
+        prev = np.full(pts, np.inf)  # each point's balance error at the previous evaluation
+
+        def rowmax(a: np.ndarray) -> np.ndarray:
+            out = np.abs(a[:, 0])
+            for j in range(1, p):
+                out = np.maximum(out, np.abs(a[:, j]))
+            return out
+
         with np.errstate(over="ignore", invalid="ignore", divide="ignore", under="ignore"):
             for _ in range(max_iter):
-                if active.size == 0:
-                    break
-                ya = y[active]
-                G, Jac, _, _ = self._iso_system(lnk_all[active], ya, ln_tau[active])
-                err = np.max(np.abs(G), axis=1)
+                if active is None:
+                    ya, lk, lt, dTa, pa = y, lnk_all, ln_tau, dT, prev
+                else:
+                    if active.size == 0:
+                        break
+                    ya, lk, lt, dTa, pa = y[active], lnk_all[active], ln_tau[active], dT[active], prev[active]
+                G, Jac, _, GT = self._iso_system(lk, ya, lt, dTa)
+                err = rowmax(G)
                 step = -_solve_small(Jac, G)
-                big = np.max(np.abs(step), axis=1)
-                bad = ~np.isfinite(big)
-                step[bad] = 0.0
+                big = rowmax(step)
+                # converged: closed to 1e-12 (G is ln of inflow over outflow, so relative), or closed to 1e-9
+                # one Newton step after being closed to 1e-9 (quadratic convergence: the rounding level);
+                # the Jacobian of this evaluation, at the answer itself, gives the derivatives
+                done = (err <= 1e-12) | ((err <= 1e-9) & (pa <= 1e-9))
+                go = ~done & np.isfinite(big) & np.isfinite(err)
+                if active is None:
+                    prev = err
+                else:
+                    prev[active] = err
+                if done.all():
+                    sel = slice(None) if active is None else active
+                    ok[sel] = True
+                    Jac_out[sel], GT_out[sel] = Jac, GT
+                    break
+                if done.any():
+                    idx = np.nonzero(done)[0] if active is None else active[done]
+                    ok[idx] = True
+                    Jac_out[idx], GT_out[idx] = Jac[done], GT[done]
                 step *= np.minimum(1.0, 4.0 / np.maximum(big, 1e-300))[:, None]
-                y[active] = np.clip(ya + step, self._y_lo, self._y_hi)
-                # Newton converges quadratically: from a balance closed to 1e-9 the step just taken closes it
-                # to the rounding level (the derivatives are evaluated afresh at the final point anyway)
-                done = err <= 1e-9
-                ok[active[done]] = True
-                active = active[~done & ~bad]
+                if active is None and go.all():
+                    np.clip(y + step, self._y_lo, self._y_hi, out=y)
+                    continue
+                moving = np.nonzero(go)[0] if active is None else active[go]
+                y[moving] = np.clip(ya[go] + step[go], self._y_lo, self._y_hi)
+                active = moving
             lr_out = lnk_all.copy()
             for k in range(self.m):
                 if not self.live[k]:
@@ -435,7 +478,7 @@ class Manifold:
             for k, terms in self._iso_orders:
                 for a, nk in terms:
                     lr_out[:, k] += nk * y[:, a]
-        return y.reshape(shape + (p,)), lr_out.reshape(shape + (self.m,)), ok.reshape(shape)
+        return y.reshape(shape + (p,)), lr_out.reshape(shape + (self.m,)), ok.reshape(shape), Jac_out, GT_out
 
     def _full_concentrations(self, y: np.ndarray, xi: np.ndarray) -> np.ndarray:
         """C (..., n): the solved species from y = ln C, the others from C_in + nu xi."""
@@ -459,7 +502,7 @@ class Manifold:
         """
         tau, T = np.broadcast_arrays(np.asarray(tau, float), np.asarray(T, float))
         shape = tau.shape
-        y, lr, ok = self.isothermal(tau, T, C0)
+        y, lr, ok, Jac, GT = self._isothermal(tau, T, C0)
         flat_T = T.reshape(-1)
         dT = self.E[None, :] / (flat_T * flat_T)[:, None]
         p = self.S.size
@@ -467,11 +510,8 @@ class Manifold:
             xi = np.exp(lr + np.log(tau)[..., None])
             dxi = xi.reshape(-1, self.m) * dT
             if p:
-                lnk = np.log(self.k0)[None, :] - self.E[None, :] / flat_T[:, None]
-                G, Jac, _, GT = self._iso_system(lnk, y.reshape(-1, p), np.log(tau.reshape(-1)), dT)
-                # the balances at the answer itself: a point that did not close is not a point
-                ok = ok & (np.max(np.abs(G), axis=1) <= 1e-10).reshape(shape)
-                dy = -_solve_small(Jac, GT)
+                # dG/dy and dG/dT of the evaluation that converged, at the answer itself
+                dy = -_solve_small(np.where(ok.reshape(-1)[:, None, None], Jac, np.eye(p)), np.nan_to_num(GT))
                 for k, terms in self._iso_orders:
                     for a, nk in terms:
                         dxi[:, k] += xi.reshape(-1, self.m)[:, k] * nk * dy[:, a]
