@@ -11,6 +11,11 @@ every 0.5 s.
 Printed: throughput, median and p95 latency of maps and checks, errors (any non-200 answer or failed
 request), health latency median/p99/max under load against health on the idle server (the baseline), and
 the peak server RSS. Targets (project goals): zero errors, health p99 < 50 ms, RSS < 400 MB.
+
+Then a burst (issue 12): ``BURST`` different maps of ``BURST_POINTS`` sent at once, more than the workers plus
+the queue (``EXOMAP_MAX_QUEUED``) hold. Printed: how the burst was answered (200, 503 ``busy`` and how fast
+those came, 503 past the budget), and the latency of the home page and of saves made while the queue is full,
+against the same on the idle server. Targets: the excess refused within 1 s, pages and saves within 1 s.
 """
 
 from __future__ import annotations
@@ -33,6 +38,8 @@ DURATION_S = 20.0
 VARIANTS = 12
 MAP_POINTS = [60, 60]
 HEALTH_PERIOD_S = 0.05
+BURST = 50
+BURST_POINTS = [300, 300]
 
 
 def health_prober(url: str, duration_s: float, conn) -> None:  # noqa: ANN001 - a multiprocessing connection
@@ -153,6 +160,60 @@ async def run(url: str, pid: int) -> dict:
     return {"lat": lat, "errors": errors, "rss": rss, "elapsed": elapsed, "idle": idle, "check": check_ok}
 
 
+async def burst(url: str) -> dict:
+    """BURST different heavy maps at once; pages and saves timed while they queue."""
+    import httpx
+
+    limits = httpx.Limits(max_connections=BURST + 10, max_keepalive_connections=BURST + 10)
+    async with httpx.AsyncClient(base_url=url, timeout=120, limits=limits) as client:
+        listing = (await client.get("/api/v1/scenarios")).json()["scenarios"]
+        demo = next(s for s in listing if s["name"] == DEMO)
+        document = (await client.get(f"/api/v1/scenarios/{demo['id']}")).json()
+        lo_T, hi_T = document["map"]["feed_temperature"]
+
+        async def timed(method: str, path: str, **kw: object) -> tuple[float, httpx.Response]:
+            t0 = time.perf_counter()
+            response = await client.request(method, path, **kw)
+            return time.perf_counter() - t0, response
+
+        def save_body(tag: str) -> dict:
+            return {**document, "title": f"burst save {tag} (invented)"}
+
+        idle_page = [(await timed("GET", "/"))[0] for _ in range(5)]
+        idle_save = [(await timed("POST", "/api/v1/scenarios", json=save_body(f"idle {k}")))[0] for k in range(5)]
+
+        heavy = [
+            asyncio.create_task(
+                timed(
+                    "POST",
+                    "/api/v1/map",
+                    json={
+                        "scenario_id": demo["id"],
+                        "points": BURST_POINTS,
+                        "feed_temperature": [lo_T, hi_T + 0.01 * (k + 1)],  # all different: none can share
+                    },
+                )
+            )
+            for k in range(BURST)
+        ]
+        await asyncio.sleep(0.3)  # the burst has arrived: workers busy, queue full
+        page, save = [], []
+        for k in range(5):
+            page.append((await timed("GET", "/"))[0])
+            elapsed, response = await timed("POST", "/api/v1/scenarios", json=save_body(f"during {k}"))
+            if response.status_code in (200, 201):
+                save.append(elapsed)
+            await asyncio.sleep(0.1)
+        answers = await asyncio.gather(*heavy)
+    outcome: dict[str, list[float]] = {}
+    for elapsed, response in answers:
+        key = str(response.status_code)
+        if response.status_code == 503:
+            key += " " + response.json()["error"]["code"]
+        outcome.setdefault(key, []).append(elapsed)
+    return {"outcome": outcome, "page": page, "save": save, "idle_page": idle_page, "idle_save": idle_save}
+
+
 def main() -> int:
     import httpx
 
@@ -161,6 +222,7 @@ def main() -> int:
         # one computation first, so the run measures the service and not the workers' first imports
         httpx.post(url + "/api/v1/steady", json={"scenario_id": DEMO}, timeout=60).raise_for_status()
         out = asyncio.run(run(url, server.pid))
+        burst_out = asyncio.run(burst(url))
     lat, errors, rss = out["lat"], out["errors"], out["rss"]
     done = len(lat["map"]) + len(lat["check"])
     print(
@@ -187,6 +249,35 @@ def main() -> int:
     print(f"  target zero errors:       {'met' if not errors else 'NOT met'} ({len(errors)})")
     print(f"  target health p99 < 50 ms: {'met' if p99 < 0.050 else 'NOT met'} ({p99 * 1e3:.1f} ms)")
     print(f"  target RSS < 400 MB:      {'met' if peak < 400 else 'NOT met'} ({peak:.0f} MB)")
+
+    b = burst_out
+    print(f"burst: {BURST} different {BURST_POINTS[0]} x {BURST_POINTS[1]} maps at once")
+    for key, values in sorted(b["outcome"].items()):
+        print(summary(f"answered {key}", values))
+    print(summary("home page, idle server", b["idle_page"]))
+    print(summary("home page, during the burst", b["page"]))
+    print(summary("save, idle server", b["idle_save"]))
+    print(summary("save, during the burst", b["save"]))
+    busy = b["outcome"].get("503 busy", [])
+    with open("/proc/loadavg") as f:
+        load = f.read().split()[0]
+    print(f"  machine load average at the end: {load}")
+    if b["page"] and b["idle_page"]:
+        print(
+            "  ratio page during burst / idle (medians): "
+            f"{statistics.median(b['page']) / statistics.median(b['idle_page']):.1f}"
+        )
+    if b["save"] and b["idle_save"]:
+        print(
+            "  ratio save during burst / idle (medians): "
+            f"{statistics.median(b['save']) / statistics.median(b['idle_save']):.1f}"
+        )
+    print(
+        f"  target excess refused within 1 s: {'met' if busy and max(busy) < 1.0 else 'NOT met'}"
+        f" ({len(busy)} refused" + (f", slowest {max(busy) * 1e3:.0f} ms)" if busy else ")")
+    )
+    slow = max(b["page"] + b["save"], default=float("inf"))
+    print(f"  target page and save within 1 s:  {'met' if slow < 1.0 else 'NOT met'} (slowest {slow * 1e3:.0f} ms)")
     return 0
 
 

@@ -31,6 +31,22 @@ def load_demo():
     return load
 
 
+@pytest.fixture(scope="session", autouse=True)
+def _test_client_host():
+    """Apps built in tests answer the Host name of Starlette's TestClient ('testserver') besides the loopback
+    names (the Host check against DNS rebinding; EXOMAP_ALLOWED_HOSTS). An explicit ``allowed_hosts=`` in a
+    test's Settings still wins over this environment value."""
+    import os
+
+    before = os.environ.get("EXOMAP_ALLOWED_HOSTS")
+    os.environ["EXOMAP_ALLOWED_HOSTS"] = "testserver,localhost,127.0.0.1,::1"
+    yield
+    if before is None:
+        os.environ.pop("EXOMAP_ALLOWED_HOSTS", None)
+    else:
+        os.environ["EXOMAP_ALLOWED_HOSTS"] = before
+
+
 # -- PostgreSQL (the shared store of DESIGN.md §14) ----------------------------------------------------------
 @pytest.fixture(scope="session")
 def postgres_server():

@@ -76,7 +76,9 @@ class PostgresServer:
             tail = log.read_text(errors="replace")[-2000:] if log.exists() else ""
             raise RuntimeError(f"{' '.join(command)} failed ({done.returncode}):\n{done.stdout}{done.stderr}{tail}")
 
-    def start(self) -> None:
+    def start(self, *, fsync: bool = False) -> None:
+        """initdb and start; ``fsync=True`` for a durable server as in production (the benchmarks)."""
+        self._fsync = fsync
         self._run(
             self.bindir / "initdb",
             "-D",
@@ -89,7 +91,13 @@ class PostgresServer:
             "--locale=C",
             "--no-sync",
         )
-        options = f"-p {self.port} -k {self.root} -c listen_addresses=127.0.0.1 -c fsync=off -c max_connections=200"
+        self._pg_ctl_start()
+
+    def _pg_ctl_start(self) -> None:
+        options = (
+            f"-p {self.port} -k {self.root} -c listen_addresses=127.0.0.1 -c fsync={'on' if self._fsync else 'off'} "
+            "-c max_connections=200"
+        )
         self._run(
             self.bindir / "pg_ctl",
             "-D",
@@ -103,6 +111,10 @@ class PostgresServer:
             "60",
             "start",
         )
+
+    def restart(self) -> None:
+        """Start the server again on the same port and data (after a crash: it recovers from its log)."""
+        self._pg_ctl_start()
 
     def url(self, dbname: str = "postgres") -> str:
         return f"{self.url_base}/{dbname}"

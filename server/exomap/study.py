@@ -631,7 +631,7 @@ class _DaskPool:
         except ImportError:
             raise StudyError("--scheduler", "dask.distributed is not installed: pip install 'exomap[dask]'") from None
         try:
-            self._client = Client(address, timeout=30, set_as_default=False)
+            self._client = Client(address, timeout=10, set_as_default=False)
         except (OSError, TimeoutError, ValueError) as exc:
             raise StudyError("--scheduler", f"cannot reach the Dask scheduler at {address}: {exc}") from None
         from dask.distributed import as_completed
@@ -695,51 +695,55 @@ def run_study(
     ]
     unreadable = [r for r in plan.unreadable if r["key"] not in written]
     state = Progress(total=len(plan.cases) + len(plan.unreadable), skipped=len(plan.keys) - len(todo) - len(unreadable))
+    pool: _LocalPool | _DaskPool | None = None
+    if todo:  # first, so that an unreachable scheduler is said before anything is drawn or written
+        pool = _DaskPool(scheduler, workers) if scheduler else _LocalPool(workers or os.cpu_count() or 1)
     started = time.perf_counter()
-    with _open_for_append(out) as f:
+    try:
+        with _open_for_append(out) as f:
 
-        def write(record: dict[str, Any]) -> None:
-            f.write(dumps_line(record) + "\n")
-            f.flush()
-            os.fsync(f.fileno())  # the line is on disk before the case counts as done
-            state.done += 1
-            state.failed += record["status"] != "ok"
-            state.elapsed = time.perf_counter() - started
+            def write(record: dict[str, Any]) -> None:
+                f.write(dumps_line(record) + "\n")
+                f.flush()
+                os.fsync(f.fileno())  # the line is on disk before the case counts as done
+                state.done += 1
+                state.failed += record["status"] != "ok"
+                state.elapsed = time.perf_counter() - started
+                if progress is not None:
+                    progress(state)
+
+            for record in unreadable:
+                write(record)
             if progress is not None:
                 progress(state)
-
-        for record in unreadable:
-            write(record)
-        if progress is not None:
-            progress(state)
-        if not todo:
-            return state
-        if scheduler:
-            pool: _LocalPool | _DaskPool = _DaskPool(scheduler, workers)
-        else:
-            pool = _LocalPool(workers or os.cpu_count() or 1)
-        try:
-            pending = iter(todo)
-            in_flight: dict[Any, Case] = {}
-            window = 2 * pool.workers
-            while True:
-                while len(in_flight) < window:
-                    case = next(pending, None)
-                    if case is None:
-                        break
-                    in_flight[pool.submit(case)] = case
-                if not in_flight:
-                    break
-                for future in pool.wait(set(in_flight)):
-                    case = in_flight.pop(future)
-                    try:
-                        record = future.result()
-                    except Exception as exc:  # noqa: BLE001 - a worker that died: this case failed, go on
-                        record = run_case_failed(case, exc)
-                    write(record)
-        finally:
+            if pool is not None:
+                _drain(pool, todo, write)
+    finally:
+        if pool is not None:
             pool.close()
     return state
+
+
+def _drain(pool: _LocalPool | _DaskPool, todo: list[Case], write: Callable[[dict[str, Any]], None]) -> None:
+    """Keep a few cases per worker in flight and write each result as it arrives."""
+    pending = iter(todo)
+    in_flight: dict[Any, Case] = {}
+    window = 2 * pool.workers
+    while True:
+        while len(in_flight) < window:
+            case = next(pending, None)
+            if case is None:
+                break
+            in_flight[pool.submit(case)] = case
+        if not in_flight:
+            return
+        for future in pool.wait(set(in_flight)):
+            case = in_flight.pop(future)
+            try:
+                record = future.result()
+            except Exception as exc:  # noqa: BLE001 - a worker that died: this case failed, go on
+                record = run_case_failed(case, exc)
+            write(record)
 
 
 def run_case_failed(case: Case, exc: BaseException) -> dict[str, Any]:

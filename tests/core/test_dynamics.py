@@ -212,6 +212,7 @@ def test_gravity_drain_follows_the_analytic_solution(cstr, method):
     h_e = EMPTY_FRACTION * h0
     t_empty = 2 * A * (math.sqrt(h0 + z) - math.sqrt(h_e + z)) / k
     assert r.t[-1] == pytest.approx(t_empty, rel=1e-7)
+    assert r.alarms[-1]["kind"] == "empty" and r.alarms[-1]["time_s"] == pytest.approx(t_empty, rel=1e-7)
 
 
 def test_blocked_outlet_overflows_when_the_analytic_fill_time_is_up(cstr):
@@ -222,6 +223,8 @@ def test_blocked_outlet_overflows_when_the_analytic_fill_time_is_up(cstr):
     t_fill = 100.0 + sc.vessel.area * (sc.vessel.H - sc.vessel.h_set) / sc.q_in
     assert r.stop_reason == "overflow"
     assert r.t[-1] == pytest.approx(t_fill, rel=1e-7)
+    # the stop is the last of the alarms, at the rim (the alarms list says everything that happened)
+    assert r.alarms[-1] == {"kind": "overflow", "time_s": pytest.approx(t_fill, rel=1e-7), "value": sc.vessel.H}
 
 
 def test_pi_control_brings_the_level_back_to_its_setpoint(cstr):
@@ -421,3 +424,25 @@ def test_a_run_over_its_evaluation_budget_is_a_convergence_error(cstr, monkeypat
     monkeypatch.setattr(dynamics, "MAX_RHS_EVALUATIONS", 20)
     with pytest.raises(ConvergenceError, match="evaluations"):
         simulate(cstr(GAMMA, 2.0).sc, start="cold", duration=3600.0)
+
+
+def test_halving_the_jacket_ua_settles_where_a_tank_with_half_the_ua_sits(cstr):
+    from dataclasses import replace
+
+    from exomap.core.steady import steady_states
+
+    c = cstr(GAMMA, 2.0, kappa=1e-3)
+    r = simulate(
+        c.sc,
+        start="low",
+        events=[{"at": 0.0, "scale": "jacket_ua", "by": 0.5}],
+        duration=86400.0,
+        until_settled=True,
+    )
+    assert r.stop_reason == "settled"
+    assert r.applied[0]["description"] == "jacket_ua multiplied by 0.5".replace("_", " ")
+    # the same tank built with half the UA, its steady state found by the steady-state solver (another method)
+    half = steady_states(replace(c.sc, UA_jacket=0.5 * c.sc.UA_jacket), c.sc.tau_nominal, c.sc.T_in).states
+    assert len(half) == 1
+    # settled: T moves under 0.1 K/h, so it sits within (0.1 K/h) x (relaxation time) of the state
+    assert r.T[-1] == pytest.approx(half[0].T, abs=0.02)

@@ -91,3 +91,25 @@ def test_above_semenov_criticality_the_tank_runs_away(psi_over_critical):
     # Semenov [1]: no steady state above psi_c = 1/e; the rise passes far beyond R T_a^2 / E (here 100 K
     # above T_a is about 10 R T_a^2 / E)
     assert res.peak_T > T_A + 100.0
+
+
+def _closed_run(psi: float, until_settled: bool):
+    sc = closed_tank(psi)
+    events = [{"at": 0.0, "do": "feed_stop"}, {"at": 0.0, "do": "outlet_block"}]
+    initial = {"level": sc.vessel.h_set, "concentrations": {"A": C0}, "temperature": T_A}
+    return simulate(sc, initial=initial, events=events, duration=86400.0, until_settled=until_settled)
+
+
+@pytest.mark.parametrize("psi_over_critical", [0.5, 0.9, 1.03, 1.1])
+def test_stopping_when_settled_never_cuts_off_the_peak(psi_over_critical):
+    # below, near (the slow passage of 1.03/e, where consumption finally stops the runaway) and above Semenov's
+    # criticality: a run that stops once settled has the peak of the run that goes the whole day (invariant)
+    psi = psi_over_critical / math.e
+    short, full = _closed_run(psi, True), _closed_run(psi, False)
+    assert short.peak_T == pytest.approx(full.peak_T, rel=1e-4)
+    assert short.peak_t == pytest.approx(full.peak_t, rel=1e-2)
+    if short.stop_reason == "settled":
+        # where it stopped, the whole-day run has moved less than the settle thresholds allow since
+        later = full.T[full.t >= short.t_end]
+        assert abs(float(later[0]) - float(short.T[-1])) < 0.05
+        assert float(later.max()) <= short.T[-1] + 0.1 * (full.t_end - short.t_end) / 3600.0 + 0.05

@@ -23,6 +23,7 @@ def make_client(tmp_path: Path) -> Iterator[Callable[..., TestClient]]:
 
     def make(data_dir: Path | None = None, raise_server_exceptions: bool = True, **overrides: Any) -> TestClient:
         overrides.setdefault("executor", "thread")
+        overrides.setdefault("allowed_hosts", ["testserver"])  # the TestClient's Host
         settings = Settings(data_dir=data_dir or tmp_path / "data", **overrides)
         client = TestClient(create_app(settings), raise_server_exceptions=raise_server_exceptions)
         client.__enter__()  # runs the lifespan (pool shutdown and store close on exit)

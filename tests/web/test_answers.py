@@ -34,6 +34,15 @@ ALL_EVENT_FORMS = [
     {"at": "20 min", "ramp": "feed_concentration.A", "to": "2.6 mol/L", "over": "10 min"},
     {"at": "40 min", "do": "cooling_loss"},
 ]
+#: With an uncertainty block (DESIGN.md §11): the rate constant and activation energy known to a few per cent.
+UNCERTAIN = variant(
+    uncertainty={
+        "parameters": [
+            {"target": "reactions[0].rate_constant", "distribution": "lognormal", "factor": 1.3},
+            {"target": "reactions[0].activation_energy", "distribution": "normal", "sd": "2 kJ/mol"},
+        ]
+    }
+)
 #: The outlet cannot pass any flow: the downstream pressure is above the vessel's bottom pressure.
 NO_DRIVING_PRESSURE = variant(
     outlet_valve={"kv": "40 m^3/h", "characteristic": "linear", "opening": 0.5, "downstream_pressure": "5 bar"}
@@ -154,6 +163,30 @@ CASES: list[Case] = [
     ),
     Case("map-csv", "getMap", "GET", f"/api/v1/scenarios/{SAVED}/map", params={"points": "8,8", "format": "csv"}),
     Case("map-inline", "computeMap", "POST", "/api/v1/map", json={"scenario": ADIABATIC, "points": [12, 10]}),
+    Case(
+        "map-uncertain",
+        "computeMap",
+        "POST",
+        "/api/v1/map",
+        json={"scenario": UNCERTAIN, "points": [12, 10], "samples": 8, "seed": 1},
+        expect=lambda a: a["samples"] == 8 and len(a["probability"]["unsafe"]) == 10,
+    ),
+    Case(
+        "check-uncertain",
+        "computeCheck",
+        "POST",
+        "/api/v1/check",
+        json={"scenario": UNCERTAIN, "samples": 8},
+        expect=lambda a: a["uncertainty"]["samples"] == 8,
+    ),
+    Case(
+        "error-map-samples-no-block",
+        "getMap",
+        "GET",
+        f"/api/v1/scenarios/{SAVED}/map",
+        422,
+        params={"samples": "16"},
+    ),  # fmt: skip
     # -- checks: several states, the high branch, an oscillating tank, decomposition, valve out of range
     _check_of(
         "check-multiple-low",
@@ -345,21 +378,25 @@ def _operation(app: Any, operation: str) -> tuple[str, str, dict[str, Any]]:
     raise AssertionError(f"no operation {operation!r} in the OpenAPI document")
 
 
-def declared(app: Any, operation: str, status: int, media: str = "application/json") -> type[BaseModel] | None:
-    """The model the OpenAPI document declares for ``operation`` answering ``status`` in ``media`` (None for
-    a CSV answer); fails when the status or the media type is not documented."""
+def declared(app: Any, operation: str, status: int, media: str = "application/json") -> list[type[BaseModel]]:
+    """The models the OpenAPI document declares for ``operation`` answering ``status`` in ``media`` (one, or the
+    members of an ``anyOf``; none for a CSV answer); fails when the status or the media type is undocumented."""
     _, _, op = _operation(app, operation)
     documented = op["responses"]
     assert str(status) in documented, f"{operation} answered {status}, which it does not document: {list(documented)}"
     content = documented[str(status)].get("content", {})
     assert media in content, f"{operation} answered {status} as {media}, documented: {list(content)}"
     if media == "text/csv":
-        return None
-    ref = content[media]["schema"]["$ref"]
-    name = ref.rsplit("/", 1)[1]
+        return []
+    schema = content[media]["schema"]
+    refs = [schema["$ref"]] if "$ref" in schema else [member["$ref"] for member in schema["anyOf"]]
     models = _models()
-    assert name in models, f"{name} is not an answer model (subclass exomap.web.answers.Answer)"
-    return models[name]
+    out = []
+    for ref in refs:
+        name = ref.rsplit("/", 1)[1]
+        assert name in models, f"{name} is not an answer model (subclass exomap.web.answers.Answer)"
+        out.append(models[name])
+    return out
 
 
 def _fill(value: Any, saved: str) -> Any:
@@ -373,12 +410,19 @@ def _fill(value: Any, saved: str) -> Any:
 
 
 def conform(app: Any, operation: str, response: Any) -> dict[str, Any] | None:
-    """Validate one answer against its declared model (strict, no extra key); None for a CSV answer."""
+    """Validate one answer against its declared model (strict, no extra key); None for a CSV answer. With
+    several declared models (``anyOf``), exactly one must accept it."""
     media = response.headers["content-type"].split(";")[0].strip()
-    model = declared(app, operation, response.status_code, media)
-    if model is None:
+    models = declared(app, operation, response.status_code, media)
+    if not models:
         return None
-    model.model_validate_json(response.content, strict=True)
+    problems: list[str] = []
+    for model in models:
+        try:
+            model.model_validate_json(response.content, strict=True)
+        except ValueError as exc:
+            problems.append(f"{model.__name__}: {exc}")
+    assert len(problems) == len(models) - 1, "\n".join(problems) or f"{operation}: several models accept it"
     return response.json()
 
 
@@ -395,7 +439,7 @@ def test_every_answer_fits_its_declared_model(api: Any, case: Case) -> None:
     assert response.status_code == case.status, response.text[:500]
     body = conform(client.app, case.operation, response)
     if case.status >= 400:
-        assert declared(client.app, case.operation, case.status) is ErrorBody
+        assert declared(client.app, case.operation, case.status) == [ErrorBody]
     if case.expect is not None:
         assert body is not None and case.expect(body), f"{case.name}: the answer does not show the edge case"
 

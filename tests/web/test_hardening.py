@@ -133,3 +133,31 @@ def test_a_worker_killed_mid_job_is_a_retryable_503(make_client) -> None:
         time.sleep(0.1)
     after = client.post("/api/v1/steady", json={"scenario_id": sid})
     assert after.status_code == 200, after.text
+
+
+# -- 9: Host check (DNS rebinding) ------------------------------------------------------------------------------
+def test_default_hosts_are_the_loopback_names_and_the_bound_address(make_client) -> None:
+    client = make_client(allowed_hosts=[], host="127.0.0.2")
+    for host in ("localhost", "localhost:8000", "127.0.0.1:8000", "[::1]:8000", "LOCALHOST", "127.0.0.2:80"):
+        assert client.get("/api/v1/health", headers={"host": host}).status_code == 200, host
+    for host in ("attacker.example", "attacker.example:8000", "127.0.0.1.attacker.example", "", "localhost.:8000"):
+        response = client.get("/api/v1/health", headers={"host": host})
+        err = assert_error(response, 400, "host_not_allowed")
+        assert "EXOMAP_ALLOWED_HOSTS" in err["message"]
+    # pages and saves too, not only the API
+    assert_error(client.get("/", headers={"host": "attacker.example"}), 400, "host_not_allowed")
+
+
+def test_configured_hosts_replace_the_defaults(make_client) -> None:
+    client = make_client(allowed_hosts=["exomap.plant.example"])
+    assert client.get("/api/v1/health", headers={"host": "exomap.plant.example:8443"}).status_code == 200
+    assert_error(client.get("/api/v1/health", headers={"host": "localhost"}), 400, "host_not_allowed")
+    anyone = make_client(allowed_hosts=["*"])
+    assert anyone.get("/api/v1/health", headers={"host": "whatever.example"}).status_code == 200
+
+
+def test_allowed_hosts_from_the_environment(monkeypatch) -> None:
+    from exomap.web.settings import Settings
+
+    monkeypatch.setenv("EXOMAP_ALLOWED_HOSTS", "exomap.plant.example, 10.0.0.5")
+    assert Settings().allowed_hosts == ["exomap.plant.example", "10.0.0.5"]

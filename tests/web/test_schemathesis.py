@@ -32,6 +32,7 @@ def api_schema(tmp_path):
             max_events=5,
             max_duration_s=3600.0,
             request_time_budget_s=3.0,
+            allowed_hosts=["testserver", "localhost"],
         )
     )
     from fastapi.testclient import TestClient

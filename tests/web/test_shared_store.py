@@ -263,3 +263,58 @@ def test_kill_9_during_saves_loses_nothing_acknowledged(tmp_path: Path, database
     assert {line.split()[1] for line in acknowledged} <= listed
     assert store.save(docs[-1])[0].id == schema.scenario_id(docs[-1])
     store.close()
+
+
+def test_postgres_killed_during_saves_keeps_every_acknowledged_save(tmp_path: Path) -> None:
+    """kill -9 of the PostgreSQL server itself while four threads save; restart it; the same instance (its pool
+    reconnects by itself) finds every save it acknowledged, and saves again."""
+    from pgserver import PostgresServer, find_bindir
+
+    bindir = find_bindir()
+    assert bindir is not None, "PostgreSQL server binaries not found (apt-get install postgresql-15)"
+    server = PostgresServer(bindir)  # its own server: the session's one must not be killed
+    try:
+        server.start()
+        url = server.new_database()
+        store = ScenarioStore(open_database(url, tmp_path, timeout_s=1.0))
+        docs = _docs(400)
+        acknowledged: list[tuple[int, str, str]] = []
+        lock = threading.Lock()
+        stop = threading.Event()
+
+        def saver(start: int) -> None:
+            for k in range(start, len(docs), 4):
+                if stop.is_set():
+                    return
+                try:
+                    stored, _ = store.save(docs[k])
+                except StoreUnavailableError:
+                    continue  # not acknowledged: the server is gone
+                with lock:
+                    acknowledged.append((k, stored.id, stored.document))
+
+        threads = [threading.Thread(target=saver, args=(i,)) for i in range(4)]
+        for t in threads:
+            t.start()
+        deadline = time.monotonic() + 120
+        while len(acknowledged) < 40 and time.monotonic() < deadline:
+            time.sleep(0.01)
+        postmaster = int((server.data / "postmaster.pid").read_text().split()[0])
+        os.kill(postmaster, signal.SIGKILL)
+        time.sleep(0.5)
+        stop.set()
+        for t in threads:
+            t.join(timeout=120)
+        assert 40 <= len(acknowledged) < len(docs), len(acknowledged)
+        with pytest.raises(StoreUnavailableError, match="127.0.0.1"):
+            store.save(docs[-1])  # nothing listens: a clear failure, not a hang
+
+        server.restart()  # crash recovery from the write-ahead log
+        for k, sid, document in acknowledged:
+            stored = store.get(sid)
+            assert stored is not None, f"acknowledged save {k} ({sid}) was lost"
+            assert stored.document == document == schema.canonical_json(docs[k])
+        assert store.save(docs[-1])[0].id == schema.scenario_id(docs[-1])
+        store.close()
+    finally:
+        server.stop()

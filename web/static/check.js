@@ -1,13 +1,52 @@
 // Rendering of the setpoint check (verdict, reasons, margins, safety figures, states, upsets) and of
 // simulated responses. Shared by the scenario page and the print view.
 
-import { fmtByKey, plainKey, fmtTemp, fmtTime, fmtPct, toC } from "./units.js";
+import { fmtByKey, plainKey, fmtTemp, fmtTime, fmtPct, fmtDeltaK, toC } from "./units.js";
 
 export const VERDICT_WORDS = {
   inside: "Inside the safe window",
   marginal: "Marginal: review before running here",
   outside: "Outside the safe window",
+  undetermined: "Undetermined: a computation the verdict rests on failed",
 };
+const VERDICT_MARKS = { inside: "✓", marginal: "!", outside: "✕", undetermined: "?" };
+
+// Alarm kinds and the ways an upset ends, in the words of the page.
+export const ALARM_WORDS = {
+  alarm_temperature: "temperature alarm",
+  max_temperature: "maximum temperature",
+  level_high: "level high",
+  level_low: "level low",
+  overflow: "overflow",
+  empty: "tank empty",
+};
+const ENDINGS = {
+  settled: "settled",
+  overflow: "stopped: overflow",
+  empty: "stopped: tank empty",
+  rising: "still heating at its cap",
+  falling: "still cooling at its cap",
+  oscillating: "still oscillating at its cap",
+  moving: "level still moving at its cap",
+};
+
+// "settled at 90 min", "stopped: overflow at 17.1 min", "still heating at its cap (24 h)", "could not be simulated"
+export function upsetEnding(u) {
+  if (u.stop_reason === "solver_failed") return "could not be simulated";
+  const words = ENDINGS[u.ending] || u.ending || u.stop_reason || "—";
+  if (!["rising", "falling", "oscillating", "moving"].includes(u.ending)) return `${words} at ${fmtTime(u.end_time_s)}`;
+  const bound = u.ending === "rising" && Number.isFinite(u.adiabatic_ceiling_K)
+    ? `, can reach at most ${fmtTemp(u.adiabatic_ceiling_K)}` : "";
+  return `${words} (${fmtTime(u.duration_s)})${bound}`;
+}
+
+// Every alarm of an upset with its time: "temperature alarm 7.6 min · maximum temperature 12.6 min".
+export function upsetAlarms(u) {
+  if (u.stop_reason === "solver_failed") return "unknown";
+  const alarms = u.alarms || [];
+  return alarms.length ? alarms.map((a) => `${ALARM_WORDS[a.kind] || String(a.kind).replace(/_/g, " ")} ${fmtTime(a.time_s)}`)
+    .join(" · ") : "none";
+}
 
 export function el(tag, attrs = {}, ...children) {
   const e = document.createElement(tag);
@@ -27,8 +66,36 @@ export function renderVerdict(box, check) {
   box.className = `verdict verdict-${v}`;
   box.dataset.verdict = v;
   box.textContent = "";
-  box.append(el("span", { class: "verdict-mark", "aria-hidden": "true", text: v === "inside" ? "✓" : v === "marginal"
-    ? "!" : "✕" }), el("span", { text: VERDICT_WORDS[v] || v }));
+  box.append(el("span", { class: "verdict-mark", "aria-hidden": "true", text: VERDICT_MARKS[v] || "?" }),
+    el("span", { text: VERDICT_WORDS[v] || v }));
+}
+
+// With an undetermined verdict nothing computed is shown, only what failed (DESIGN.md §6).
+export const showsDetails = (check) => check.verdict !== "undetermined";
+
+// Thermal-safety figures in plain words, MTSR with what it assumes and the interlocked upset's peak beside it.
+export function renderSafety(table, note, check) {
+  table.textContent = "";
+  const s = check.safety || {};
+  const m = check.mtsr || {};
+  const rows = [
+    ["Adiabatic temperature rise ΔT_ad", fmtDeltaK(s.adiabatic_temperature_rise_K)],
+    ["MTSR", fmtTemp(s.mtsr_K)],
+    ["Interlocked cooling loss (feed and outlet stopped), peak", Number.isFinite(m.interlocked_upset_peak_temperature_K)
+      ? `${fmtTemp(m.interlocked_upset_peak_temperature_K)} after ${fmtTime(m.interlocked_upset_peak_time_s)}`
+      : "no jacket: not simulated"],
+    ["TMRad from the operating state", Number.isFinite(s.tmr_ad_s) ? fmtTime(s.tmr_ad_s) : "no heat release"],
+  ];
+  if (s.decomposition) rows.push(["Decomposition", s.decomposition]);
+  else {
+    rows.push(["Decomposition temperature rise", fmtDeltaK(s.decomposition_temperature_rise_K)]);
+    rows.push(["TD24", Number.isFinite(s.td24_K) ? fmtTemp(s.td24_K) : "not found between 250 K and 1500 K"]);
+  }
+  if (Number.isFinite(s.mtt_K)) rows.push(["Technical limit MTT", fmtTemp(s.mtt_K)]);
+  rows.push(["Criticality class", s.criticality_class ? `${s.criticality_class} (${s.criticality_reason})`
+    : `not given: ${s.criticality_reason || "—"}`]);
+  for (const [k, v] of rows) table.append(el("tr", {}, el("th", { scope: "row", text: k }), el("td", { text: v })));
+  if (note) note.textContent = m.assumes ? `${m.assumes}.${m.note ? " " + m.note.charAt(0).toUpperCase() + m.note.slice(1) + "." : ""}` : "";
 }
 
 export function renderList(ul, items) {
@@ -90,29 +157,21 @@ export const upsetName = (u, i) => u.label || u.title || (u.name ? plainKey(u.na
 
 const pick = (u, ...keys) => { for (const k of keys) if (u[k] !== undefined) return [k, u[k]]; return [keys[0], undefined]; };
 
-// Upset battery table; onOpen(i) opens a response (omitted in print).
+// Upset battery table: peak, every alarm with its time, level range, how the run ended; onOpen(i) opens a
+// response (omitted in print).
 export function renderUpsets(table, upsets, onOpen) {
   table.textContent = "";
-  const head = ["Upset", "Peak temperature", "at", "Time to alarm", "Time to maximum temperature", "Level range",
-    "Settles at"];
+  const head = ["Upset", "Peak temperature", "at", "Alarms (time after the upset)", "Level range", "How it ended"];
   if (onOpen) head.push("");
   table.append(el("tr", {}, ...head.map((h) => el("th", { scope: "col", text: h }))));
   (upsets || []).forEach((u, i) => {
-    const [, peak] = pick(u, "peak_temperature_K");
-    const [, peakAt] = pick(u, "peak_time_s", "time_of_peak_s", "peak_at_s");
-    const [, alarm] = pick(u, "time_to_alarm_s", "alarm_time_s");
-    const [, tmax] = pick(u, "time_to_max_temperature_s", "max_temperature_time_s");
-    const lmin = u.level_min_m ?? (u.level_range_m ? u.level_range_m[0] : undefined);
-    const lmax = u.level_max_m ?? (u.level_range_m ? u.level_range_m[1] : undefined);
-    const settle = u.final_temperature_K;
-    const crosses = u.crosses_max_temperature ?? (tmax !== null && tmax !== undefined);
+    const kinds = new Set((u.alarms || []).map((a) => a.kind));
+    const lmin = u.level_min_m, lmax = u.level_max_m;
     const cells = [
-      el("th", { scope: "row", text: upsetName(u, i) }), el("td", { text: fmtTemp(peak) }),
-      el("td", { text: fmtTime(peakAt) }), el("td", { text: alarm === null || alarm === undefined ? "none" : fmtTime(alarm) }),
-      el("td", { text: tmax === null || tmax === undefined ? "none" : fmtTime(tmax) }),
+      el("th", { scope: "row", text: upsetName(u, i) }), el("td", { text: fmtTemp(u.peak_temperature_K) }),
+      el("td", { text: fmtTime(u.peak_time_s) }), el("td", { class: "alarms", text: upsetAlarms(u) }),
       el("td", { text: Number.isFinite(lmin) && Number.isFinite(lmax) ? `${lmin.toFixed(2)}–${lmax.toFixed(2)} m` : "—" }),
-      el("td", { text: typeof settle === "number" ? `${fmtTemp(settle)}${u.settled === false ? " (still moving)" : ""}`
-        : "—" }),
+      el("td", { text: upsetEnding(u) }),
     ];
     if (onOpen) {
       const b = el("button", { type: "button", "data-upset": String(i), text: "Show response",
@@ -120,12 +179,15 @@ export function renderUpsets(table, upsets, onOpen) {
       b.addEventListener("click", () => onOpen(i));
       cells.push(el("td", {}, b));
     }
-    table.append(el("tr", { class: crosses ? "crosses" : null }, ...cells));
+    const bad = kinds.has("max_temperature") || kinds.has("overflow") || u.stop_reason === "solver_failed";
+    table.append(el("tr", { class: bad ? "crosses" : null, "data-ending": u.ending || u.stop_reason }, ...cells));
   });
 }
 
-// Temperature and level against time, with alarms and the temperature limits.
-export async function drawResponse(Plotly, node, sim, { maxK, alarmK, title, heightM } = {}) {
+// Temperature and level against time, with the temperature limits, the level limits (high, low, the vessel's
+// rim where it overflows), every alarm where it happened, and where and why the run stopped (`endNote`).
+export async function drawResponse(Plotly, node, sim, { maxK, alarmK, title, heightM, levelHigh, levelLow,
+  endNote } = {}) {
   const t = sim.time_s.map((s) => s / 60);
   const tr = [
     { type: "scatter", mode: "lines", name: "tank temperature", x: t, y: sim.temperature_K.map(toC),
@@ -134,25 +196,43 @@ export async function drawResponse(Plotly, node, sim, { maxK, alarmK, title, hei
   if (sim.level_m) tr.push({ type: "scatter", mode: "lines", name: "level", x: t, y: sim.level_m, yaxis: "y2",
     line: { color: "#1d3f6e", width: 2, dash: "dash" } });
   const x0 = t[0], x1 = t[t.length - 1];
-  if (maxK) tr.push({ type: "scatter", mode: "lines", name: "maximum temperature", x: [x0, x1], y: [toC(maxK), toC(maxK)],
-    line: { color: "#b00020", width: 1.5, dash: "dashdot" }, hoverinfo: "skip" });
-  if (alarmK) tr.push({ type: "scatter", mode: "lines", name: "alarm temperature", x: [x0, x1],
-    y: [toC(alarmK), toC(alarmK)], line: { color: "#7a5a00", width: 1, dash: "dot" }, hoverinfo: "skip" });
+  const hline = (name, y, yaxis, line) => tr.push({ type: "scatter", mode: "lines", name, x: [x0, x1], y: [y, y],
+    yaxis, line, hoverinfo: "skip" });
+  if (maxK) hline("maximum temperature", toC(maxK), "y", { color: "#b00020", width: 1.5, dash: "dashdot" });
+  if (alarmK) hline("alarm temperature", toC(alarmK), "y", { color: "#7a5a00", width: 1, dash: "dot" });
+  if (sim.level_m) {
+    if (heightM) hline("vessel rim (overflow)", heightM, "y2", { color: "#1d3f6e", width: 1.5, dash: "dashdot" });
+    if (levelHigh) hline("level high", levelHigh, "y2", { color: "#4a6fa5", width: 1, dash: "dot" });
+    if (levelLow) hline("level low", levelLow, "y2", { color: "#4a6fa5", width: 1, dash: "longdash" });
+  }
   const alarms = (sim.alarms || []).filter((a) => typeof (a.time_s ?? a.at_s) === "number");
-  if (alarms.length) tr.push({ type: "scatter", mode: "markers", name: "alarms",
-    x: alarms.map((a) => (a.time_s ?? a.at_s) / 60),
-    y: alarms.map((a) => toC(a.temperature_K ?? interp(sim.time_s, sim.temperature_K, a.time_s ?? a.at_s))),
-    text: alarms.map((a) => String(a.kind || "alarm").replace(/_/g, " ")), hovertemplate: "%{text} at %{x:.1f} min<extra></extra>",
-    marker: { symbol: "triangle-up", size: 11, color: "#111" } });
+  const onLevel = (a) => /^(level_|overflow|empty)/.test(a.kind || "");
+  const marks = (list, yaxis, ys, name) => {
+    if (!list.length) return;
+    tr.push({ type: "scatter", mode: "markers", name, x: list.map((a) => (a.time_s ?? a.at_s) / 60), y: list.map(ys),
+      yaxis, text: list.map((a) => ALARM_WORDS[a.kind] || String(a.kind || "alarm").replace(/_/g, " ")),
+      hovertemplate: "%{text} at %{x:.1f} min<extra></extra>", marker: { symbol: "triangle-up", size: 11, color: "#111" } });
+  };
+  const tAlarms = alarms.filter((a) => !onLevel(a)), lAlarms = alarms.filter(onLevel);
+  marks(tAlarms, "y", (a) => toC(a.temperature_K ?? interp(sim.time_s, sim.temperature_K, a.time_s ?? a.at_s)), "temperature alarms");
+  if (sim.level_m) marks(lAlarms, "y2", (a) => a.value ?? interp(sim.time_s, sim.level_m, a.time_s ?? a.at_s), "level alarms");
+  const why = endNote || (sim.stop_reason && sim.stop_reason !== "completed" ? `stopped: ${ALARM_WORDS[sim.stop_reason]
+    || sim.stop_reason}` : "");
+  const shapes = why ? [{ type: "line", xref: "x", yref: "paper", x0: x1, x1, y0: 0, y1: 1,
+    line: { color: "#444", width: 1.5, dash: "dot" } }] : [];
+  const annotations = why ? [{ x: x1, xref: "x", y: 1, yref: "paper", text: why, showarrow: false, xanchor: "right",
+    yanchor: "bottom", font: { size: 11 } }] : [];
   const lay = {
-    height: 300, margin: { l: 58, r: 52, t: title ? 28 : 10, b: 90 },
+    height: 300, margin: { l: 58, r: 52, t: title || why ? 28 : 10, b: 90 },
     title: title ? { text: title, font: { size: 13 } } : undefined,
     xaxis: { title: { text: "Time [min]" }, ticks: "outside" },
     yaxis: { title: { text: "Tank temperature [°C]" }, ticks: "outside" },
     yaxis2: { title: { text: "Level [m]" }, overlaying: "y", side: "right", showgrid: false,
-      range: heightM ? [0, heightM] : undefined },
+      range: heightM ? [0, heightM * 1.05] : undefined },
+    shapes, annotations,
     legend: { orientation: "h", y: -0.25, yanchor: "top", font: { size: 11 } }, font: { family: "system-ui, sans-serif", size: 12 },
   };
+  node.dataset.endNote = why;
   await Plotly.react(node, tr, lay, { displayModeBar: false, responsive: true });
 }
 

@@ -3,8 +3,8 @@
 import * as urls from "./urls.js";
 import { getJSON, showProblem, wireProblemBox, boot, plotlyReady } from "./api.js";
 import { drawMap, legendEntries } from "./map.js";
-import { renderVerdict, renderList, renderKV, renderStates, renderUpsets, el } from "./check.js";
-import { fmtMin, fmtTemp, fmtNum } from "./units.js";
+import { renderVerdict, renderList, renderKV, renderStates, renderUpsets, el, renderSafety, showsDetails } from "./check.js";
+import { fmtMin, fmtTemp, fmtNum, fmtTime } from "./units.js";
 
 const $ = (id) => document.getElementById(id);
 const ID = boot().scenario_id;
@@ -69,12 +69,18 @@ async function main() {
       ["Operating state", state.branch === "high" ? "hot state (high)" : "cold start (low)"]]);
     renderVerdict($("p-verdict"), chk);
     renderList($("p-reasons"), chk.reasons);
+    // undetermined: only what failed is printed (DESIGN.md §6)
+    for (const node of document.querySelectorAll(".check-detail")) node.hidden = !showsDetails(chk);
     renderKV($("p-margins"), chk.margins);
-    renderKV($("p-safety"), chk.safety);
+    renderSafety($("p-safety"), $("p-mtsr"), chk);
     renderStates($("p-states"), chk.states, chk.state_index);
     const entry = (map.legend || []).find((e) => e.key === chk.region);
     $("p-assumption").textContent = `Region at the setpoint: ${entry ? entry.label : chk.region}. Operating state: ${chk.assumption}.`;
     renderUpsets($("p-upsets"), chk.upsets, null);
+    const pol = chk.policy || {};
+    $("p-upsets-intro").textContent = "Each upset starts at the operating state and runs until it settles, stops "
+      + `(overflow, tank empty) or reaches its cap of ${fmtTime(pol.upset_duration_s)}; every alarm is listed with its time `
+      + `after the upset. An overflow sooner than ${fmtTime(pol.min_time_to_act_s)} (the time to act) is a reason.`;
     await drawMap(Plotly, $("p-map"), map, sp, { staticPlot: true });
     const ul = $("p-legend");
     for (const e of legendEntries(map)) ul.append(el("li", {}, el("span", { class: "swatch", style: `background:${e.colour}` }), el("span", { text: e.label })));

@@ -6,8 +6,8 @@ import { drawMap, drawPreview, cellAt, legendEntries, nearest } from "./map.js";
 import { LINES, VALVE_DOT } from "./palette.js";
 import { drawBranch, drawHeatBalance } from "./curves.js";
 import { renderVerdict, renderList, renderKV, renderStates, renderUpsets, drawResponse, simulationSummary, upsetName,
-  el } from "./check.js";
-import { parseTime, parseTemperature, fmtMin, fmtTemp, fmtPct, toC } from "./units.js";
+  el, renderSafety, showsDetails, upsetEnding } from "./check.js";
+import { parseTime, parseTemperature, fmtMin, fmtTemp, fmtPct, fmtTime, toC } from "./units.js";
 import { Editor } from "./editor.js";
 import { parseEventLines, helpHTML } from "./events.js";
 
@@ -296,11 +296,20 @@ function renderCheck(chk) {
   const region = entry ? `Region at the setpoint: ${entry.label}. ` : chk.region ? `Region at the setpoint: ${chk.region}. ` : "";
   $("assumption").textContent = `${region}Operating state: ${chk.assumption || "—"}.`;
   renderList($("reasons"), chk.reasons);
-  renderKV($("margins"), chk.margins);
-  renderKV($("safety"), chk.safety);
-  renderStates($("states"), chk.states, chk.state_index);
-  renderUpsets($("upsets"), chk.upsets, (i) => openUpset(i, true));
   renderList($("check-cautions"), chk.cautions);
+  // an undetermined verdict shows only what failed: nothing computed from it is put in front of a reviewer
+  const details = showsDetails(chk);
+  $("check-details").hidden = !details;
+  $("reasons-title").textContent = details ? "Reasons" : "What failed";
+  if (!details) return;
+  renderKV($("margins"), chk.margins);
+  renderSafety($("safety"), $("mtsr-explained"), chk);
+  renderStates($("states"), chk.states, chk.state_index);
+  const policy = chk.policy || {};
+  $("upsets-intro").textContent = "Each upset starts at the operating state and is simulated on its own until it "
+    + `settles, stops (overflow, tank empty) or reaches its cap of ${fmtTime(policy.upset_duration_s)}; an overflow `
+    + `sooner than ${fmtTime(policy.min_time_to_act_s)} (the time to act) is a reason. Open one to see its response.`;
+  renderUpsets($("upsets"), chk.upsets, (i) => openUpset(i, true));
 }
 
 async function openUpset(i, push) {
@@ -315,11 +324,13 @@ async function openUpset(i, push) {
   try {
     // the upset's own events, from the same operating state, for the same time: the response the check summarised
     const body = { scenario_id: ID, ...setpoint(), start: state.branch || "low", events: u.events || [] };
-    if (u.duration_s) body.duration = u.duration_s;
+    // as far as the check followed it: to where it settled, or its cap (an overflow or empty tank stops by itself)
+    const until = u.ending === "settled" && u.end_time_s > 0 ? u.end_time_s : u.duration_s;
+    if (until) body.duration = until;
     const sim = await postJSON(urls.apiPost("simulate"), body, "Simulating the upset");
     if (state.upset !== i) return;
     await drawResponse(Plotly, $("upset-plot"), sim, { maxK: lim.max_temperature, alarmK: lim.alarm_temperature,
-      heightM: view.scenario.vessel.height });
+      heightM: view.scenario.vessel.height, levelHigh: lim.level_high, levelLow: lim.level_low, endNote: upsetEnding(u) });
   } catch (e) {
     $("upset-plot").textContent = e.message;
   }

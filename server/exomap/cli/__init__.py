@@ -27,6 +27,8 @@ COMMANDS: dict[str, str] = {
     "map": "operating map of residence time against feed temperature",
     "check": "check a setpoint: margins, upsets, verdict",
     "simulate": "dynamic response to events",
+    "replay": "drive the scenario with recorded plant data, beside the recorded outputs",
+    "calibrate": "fit scenario parameters to plant data, with uncertainty",
     "compare": "before and after a change: fields, map cells that changed region, both checks",
     "study": "run a batch study: scenarios x setpoints x analyses, one JSON line each",
 }
@@ -140,17 +142,35 @@ def quantity(value: str | None, dimension: str, option: str) -> float | None:
 
 
 def _plain(value: Any) -> Any:
-    # numpy scalars (np.bool_, np.float64 from a reduction) that slipped into an answer document
-    item = getattr(value, "item", None)
-    if callable(item):
-        return item()
+    # numpy scalars and arrays orjson does not take natively (e.g. a non-contiguous slice)
+    for name in ("tolist", "item"):
+        convert = getattr(value, name, None)
+        if callable(convert):
+            return convert()
     raise TypeError(f"{type(value).__name__} is not JSON serializable")
 
 
 def print_json(document: Any) -> None:
-    """Write an answer document as JSON to stdout."""
-    json.dump(document, sys.stdout, indent=2, default=_plain)
+    """Write an answer document as JSON to stdout: indented for a person at a terminal, compact when piped
+    or redirected (a program reads it; indenting a 200 x 200 map would cost more than computing it).
+
+    orjson encodes (NaN and infinities become null, so the output is strict JSON), the same encoder as the API.
+    """
+    import orjson
+
+    option = orjson.OPT_SERIALIZE_NUMPY | orjson.OPT_NON_STR_KEYS
+    if _is_terminal(sys.stdout):
+        option |= orjson.OPT_INDENT_2
+    sys.stdout.write(orjson.dumps(document, default=_plain, option=option).decode("utf-8"))
     sys.stdout.write("\n")
+
+
+def _is_terminal(stream: Any) -> bool:
+    isatty = getattr(stream, "isatty", None)
+    try:
+        return bool(isatty()) if callable(isatty) else False
+    except (OSError, ValueError):  # a closed or detached stream
+        return False
 
 
 # -- parser and dispatch ----------------------------------------------------------------------------------

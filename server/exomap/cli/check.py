@@ -1,6 +1,7 @@
-"""``exomap check SCENARIO [--residence-time V] [--feed-temperature V] [--branch low|high] [--json]``: the
-setpoint check (``exomap.core.check.check_setpoint``) as a short report a shift engineer can paste into a
-log, or the SI answer document with ``--json``."""
+"""``exomap check SCENARIO [--residence-time V] [--feed-temperature V] [--branch low|high] [--samples [N]
+[--seed S]] [--json]``: the setpoint check (``exomap.core.check.check_setpoint``) as a short report a shift
+engineer can paste into a log, or the SI answer document with ``--json``; with ``--samples`` also the check
+under the scenario's uncertainty block (``exomap.core.uncertain_check``)."""
 
 from __future__ import annotations
 
@@ -45,6 +46,16 @@ def add_parser(subparsers: argparse._SubParsersAction) -> argparse.ArgumentParse
         choices=("low", "high"),
         help="which stable state the tank is on where there are several (default: low)",
     )
+    parser.add_argument(
+        "--samples",
+        nargs="?",
+        const=0,
+        type=int,
+        metavar="N",
+        help="also sample the scenario's uncertainty block: probability that the verdict would be outside or "
+        "marginal, quantiles of the steady temperature, MTSR and TMRad (N a power of two; alone: the block's count)",
+    )
+    parser.add_argument("--seed", type=int, metavar="S", help="seed of the samples (default: the block's, 0)")
     parser.add_argument("--json", action="store_true", help="print the answer document (SI) as JSON")
     return parser
 
@@ -161,7 +172,9 @@ def render(sc: Any, r: Any) -> str:
                 _when(None if u.failed else u.peak_t),
                 f"{u.level_min:.2f}..{u.level_max:.2f} m" if u.level_min == u.level_min else "-",
                 fmt.celsius(u.final_T),
-                _ENDINGS.get(u.ending, u.ending) + ("" if u.failed else f" at {fmt.minutes(u.end_time)}"),
+                _ENDINGS.get(u.ending, u.ending)
+                + ("" if u.failed else f" at {fmt.minutes(u.end_time)}")
+                + (f", at most {fmt.celsius(u.ceiling_T)}" if u.rising and u.ceiling_T == u.ceiling_T else ""),
                 _alarms(u),
             ]
         )
@@ -176,12 +189,61 @@ def render(sc: Any, r: Any) -> str:
     return "\n".join(lines)
 
 
+def render_uncertainty(block: dict) -> str:
+    """The uncertainty part of a check answer in words."""
+    n = block["samples"]
+    c = block["counts"]
+    up = block["upper_bound_95"]
+    q = block["quantiles"]
+
+    def trio(d: dict, show: Any) -> str:
+        return " / ".join("-" if d[k] is None else show(d[k]) for k in ("q05", "q50", "q95"))
+
+    lines = [
+        f"Under the stated uncertainty ({n} samples, seed {block['seed']}; upsets on the nominal parameters only):",
+        f"  verdict outside in {c['outside']} samples: probability {block['probability_outside']:.3f}, "
+        f"95 % upper bound {up['outside']:.3f} (acceptable: {block['max_unsafe_probability']:g})",
+        f"  marginal or worse in {c['marginal_or_worse']} samples: probability "
+        f"{block['probability_marginal_or_worse']:.3f}, 95 % upper bound {up['marginal_or_worse']:.3f}",
+        f"  steady temperature 5/50/95 %: {trio(q['temperature_K'], fmt.celsius)}",
+        f"  MTSR 5/50/95 %: {trio(q['mtsr_K'], fmt.celsius)}",
+        f"  TMRad 5/50/95 %: {trio(q['tmr_ad_s'], fmt.minutes)}",
+    ]
+    if c["undetermined"]:
+        lines.append(f"  {c['undetermined']} samples could not be computed (counted as outside)")
+    if block["drivers"]:
+        lines.append(
+            "  drivers (K per standard deviation, steady temperature / MTSR): "
+            + "; ".join(
+                f"{d['target']} {fmt.number(d['temperature_K_per_sd'])} / {fmt.number(d['mtsr_K_per_sd'])}"
+                for d in block["drivers"]
+            )
+        )
+    return "\n".join(lines)
+
+
 def run(args: argparse.Namespace) -> int:
     """Run the check and print it; 0 on success (whatever the verdict)."""
+    from dataclasses import replace
+
+    from exomap.cli import CliInputError
     from exomap.core.check import check_setpoint
 
     sc = load_scenario(args.scenario)
     tau, T_in = operating_point(args)
+    if args.seed is not None and args.samples is None:
+        raise CliInputError("--seed", "--seed applies to sampling: give --samples as well")
+    if args.samples is not None:
+        from exomap.core.uncertain_check import uncertain_check
+
+        u = uncertain_check(sc, tau=tau, T_in=T_in, branch=args.branch, samples=args.samples or None, seed=args.seed)
+        if args.json:
+            print_json(u.to_dict())
+            return 0
+        text = render(sc, replace(u.nominal, verdict=u.verdict, reasons=u.reasons))
+        head, sep, tail = text.rpartition(fmt.cautions_block())
+        print(head + render_uncertainty(u.block()) + "\n\n" + sep + tail)
+        return 0
     result = check_setpoint(sc, tau=tau, T_in=T_in, branch=args.branch)
     if args.json:
         print_json(result.to_dict())

@@ -72,6 +72,7 @@ def run(args: argparse.Namespace) -> int:
     from pydantic_settings import SettingsError
 
     from exomap.web.app import create_app
+    from exomap.web.protocol import uvicorn_options
     from exomap.web.store import StoreUnavailableError
 
     try:
@@ -89,5 +90,6 @@ def run(args: argparse.Namespace) -> int:
         f"exomap: serving on http://{settings.host}:{settings.port}/ (API docs at /api/docs); "
         f"scenario store {app.state.store.database.where}"
     )
-    uvicorn.run(app, host=settings.host, port=settings.port, log_level=args.log_level, proxy_headers=False)
+    # exomap's own h11 protocol: header timeout, 414 for long URLs, 431 for large heads (exomap.web.protocol)
+    uvicorn.run(app, log_level=args.log_level, **uvicorn_options(settings))
     return 0

@@ -93,6 +93,8 @@ def describe(event: dict[str, Any]) -> str:
             return fmt.percent(v)
         if base == "level_setpoint":
             return f"{v:+.3f} m" if difference else f"{v:.3f} m"
+        if base == "jacket_ua":
+            return f"{v / 1000:+.4g} kW/K" if difference else f"{v / 1000:.4g} kW/K"
         return f"{v:+.4g} mol/m^3" if difference else f"{v:.4g} mol/m^3"
 
     if kind == "set":
@@ -105,7 +107,9 @@ def describe(event: dict[str, Any]) -> str:
 
 
 def _alarm_value(kind: str, value: float) -> str:
-    return f"{value:.2f} m" if kind.startswith("level") else fmt.celsius(value)
+    """The threshold crossed: a level (level alarms, the vessel's rim for overflow, the empty level) or a
+    temperature."""
+    return f"{value:.2f} m" if kind.startswith("level") or kind in ("overflow", "empty") else fmt.celsius(value)
 
 
 def render(sc: Any, r: Any) -> str:

@@ -326,16 +326,20 @@ class CheckResult:
             "note": "",
         }
         notes = []
+        mtsr = self.safety.mtsr
         if inter is not None and not inter.failed:
             out["interlocked_upset_peak_temperature_K"] = inter.peak_T
             out["interlocked_upset_peak_time_s"] = inter.peak_t
+            d = inter.peak_T - mtsr
             notes.append(
-                f"the upset '{inter.label}' is its dynamic counterpart and peaks at {_abs(inter.peak_T)}; the two "
-                "agree without heat loss to ambient, agitator power and decomposition, which MTSR leaves out"
+                f"the upset '{inter.label}' is its dynamic counterpart and peaks at {_abs(inter.peak_T)}, "
+                f"{abs(d):.1f} K {'above' if d >= 0 else 'below'} MTSR; the two agree when there is no heat loss to "
+                "ambient, agitator power or decomposition, which MTSR leaves out"
             )
         elif inter is None:
             notes.append("no jacket: the interlocked cooling-loss upset does not apply")
-        if lost is not None and not lost.failed and lost.peak_T > self.safety.mtsr + 0.5:
+        closed = mtsr if inter is None or inter.failed else max(mtsr, inter.peak_T)
+        if lost is not None and not lost.failed and lost.peak_T > closed + 0.5:
             notes.append(
                 f"the upset '{lost.label}' peaks higher, at {_abs(lost.peak_T)}, because the feed keeps running and "
                 "brings fresh reactant, which MTSR assumes stopped"
@@ -475,8 +479,8 @@ def _operating_point(
     cap = sc.policy.upset_duration
     if not cap <= max_duration:
         raise LimitExceededError(
-            f"check_policy.upset_duration {cap:g} s is longer than the limit of one simulation, {max_duration:g} s "
-            f"({max_duration / 86400:g} d); give a time [s] of at most that, e.g. '24 h'",
+            f"the upsets' cap of {cap:g} s ({cap / 86400:g} d) is longer than the limit of one simulation, "
+            f"{max_duration:g} s ({max_duration / 86400:g} d); give a time of at most that, e.g. '24 h'",
             field="check_policy.upset_duration",
         )
     return float(sc.tau_nominal if tau is None else tau), float(sc.T_in if T_in is None else T_in)

@@ -552,8 +552,10 @@ def _positive(value: Any, name: str, unit: str) -> float:
 # ---------------------------------------------------------------------------------------------------------
 
 
-#: Length of the windows over which a run ``until_settled`` is tested for having settled [s].
+#: Length of the first window over which a run ``until_settled`` is tested for having settled [s]; each
+#: further window is ``SETTLE_GROWTH`` times longer (fewer integrator restarts on long runs).
 SETTLE_WINDOW = 1800.0
+SETTLE_GROWTH = 2.0
 #: A run has settled when, at the end of a window, T moves less than this [K/h] ...
 SETTLED_DT_PER_H = 0.1
 #: ... and the level less than this [m/h], ...
@@ -847,6 +849,7 @@ def _integrate(
     t, y, k_ev = 0.0, y0.copy(), 0
     budget = [MAX_RHS_EVALUATIONS]
     dT_before = math.inf
+    window = SETTLE_WINDOW
     while True:
         while k_ev < len(evs) and evs[k_ev].t <= t:
             e = evs[k_ev]
@@ -857,9 +860,10 @@ def _integrate(
             return t, y, "completed", "completed"
         t_next = min(evs[k_ev].t if k_ev < len(evs) else math.inf, plant.next_ramp_end(t), run.duration)
         quiet = k_ev == len(evs) and not plant.ramps  # nothing more will change outside the tank
-        windowed = run.until_settled and quiet and t + SETTLE_WINDOW < t_next
+        windowed = run.until_settled and quiet and t + window < t_next
         if windowed:
-            t_next = t + SETTLE_WINDOW
+            t_next = t + window
+            window *= SETTLE_GROWTH
         retries = 0
         while True:
             t0 = t
@@ -949,7 +953,8 @@ def simulate(
         runs).
     until_settled : bool
         End the run early, with ``stop_reason`` ``settled``, once nothing changes outside the tank any more and
-        it has settled over a window of ``SETTLE_WINDOW`` (see ``_has_settled``).
+        it has settled over a window (the first ``SETTLE_WINDOW`` long, each next ``SETTLE_GROWTH`` times
+        longer; see ``_has_settled``).
 
     Returns
     -------

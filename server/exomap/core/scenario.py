@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field, replace
+from typing import Any
 
 import numpy as np
 
@@ -165,6 +166,11 @@ class CheckPolicy:
         An upset that overflows the vessel sooner than this is marginal [s]. Default 30 min (common practice:
         an operator's response to an alarm is usually credited only when some 10 to 30 minutes are available
         to notice, diagnose and act; the upper end is taken).
+    max_unsafe_probability : float
+        Under uncertain data (DESIGN.md §11): the highest acceptable one-sided 95 % bound on the probability
+        that a cell is unsafe (runaway or unstable) or that the check's verdict is ``outside`` [-]. Default
+        0.05 (a project default, not a standard: 1 in 20 under the stated uncertainty; with the default 256
+        samples a cell qualifies with up to 7 unsafe samples, and below 59 samples none can).
     """
 
     min_feed_temperature_margin: float = 10.0
@@ -177,6 +183,7 @@ class CheckPolicy:
     valve_max: float = 0.8
     upset_duration: float = 24 * 3600.0
     min_time_to_act: float = 30 * 60.0
+    max_unsafe_probability: float = 0.05
 
 
 @dataclass(frozen=True)
@@ -238,6 +245,8 @@ class Scenario:
     map: MapSpec | None = None
     title: str = ""
     description: str = ""
+    #: How well the data are known (``exomap.core.uncertainty.UncertaintySpec``) or None.
+    uncertainty: Any = None
 
     # -- derived arrays (cheap; computed on demand, never stored) -------------------------------------
     @property

@@ -10,7 +10,10 @@ from typing import TYPE_CHECKING
 
 from exomap.core.errors import ModelInputError
 from exomap.core.scenario import CheckPolicy, Limits, MapSpec, Reaction, Scenario, Valve, Vessel, validate
+from exomap.core.uncertainty import validate_spec
 from exomap.schema.errors import ScenarioError
+from exomap.schema.uncertainty import errors as uncertainty_errors
+from exomap.schema.uncertainty import to_spec as uncertainty_spec
 
 if TYPE_CHECKING:
     from exomap.schema.document import ScenarioDoc
@@ -69,6 +72,8 @@ def cross_check(doc: ScenarioDoc) -> list[dict[str, str]]:
         lo, hi = doc.map.feed_temperature
         if not lo < hi:
             add("map.feed_temperature", f"expected [lo, hi] with lo < hi, got [{lo:.2f} K, {hi:.2f} K]")
+    for e in uncertainty_errors(doc):
+        add(e["field"], e["message"])
     return errors
 
 
@@ -177,9 +182,12 @@ def to_core(doc: ScenarioDoc) -> Scenario:
         ),
         title=doc.title,
         description=doc.description,
+        uncertainty=uncertainty_spec(doc),
     )
     try:
         validate(sc)
+        if sc.uncertainty is not None:
+            validate_spec(sc, sc.uncertainty)
     except ModelInputError as exc:
         raise ScenarioError.single(exc.field or "scenario", str(exc)) from None
     return sc

@@ -16,6 +16,7 @@ Decisions written down here (the format is silent on them)
 * Species missing from ``stoichiometry``, ``orders`` or ``feed.concentrations`` have 0 there.
 * ``check_policy`` fields default to ``exomap.core.scenario.CheckPolicy`` (project defaults); margins in K are
   temperature differences ("10 K"; "10 degC" is read as an interval of 10 K).
+* ``uncertainty`` (DESIGN.md §11) is described in ``exomap.schema.uncertainty``.
 * ``agitator_power`` (W, default 0) is dissipated in the liquid; ``reactions[].decomposition`` (default false)
   marks a decomposition reaction, used for TD24 and the criticality class.
 """
@@ -38,6 +39,7 @@ from exomap.schema.quantity import (
     to_si,
 )
 from exomap.schema.text import Description, Label, Text, Title
+from exomap.schema.uncertainty import UncertaintyDoc
 
 FORMAT = "exomap-scenario/1"
 _POLICY = CheckPolicy()
@@ -228,6 +230,8 @@ class CheckPolicyDoc(_Model):
     upset_duration: Q("time", sign="positive") = _POLICY.upset_duration
     # None (left out of the canonical JSON, so adding the field kept every scenario id) means the default
     min_time_to_act: Q("time", sign="positive") | None = None
+    # null when not given, so the canonical form (and the id) of a scenario that does not set it is unchanged
+    max_unsafe_probability: Q("fraction", sign="nonnegative", upper=1.0) | None = None
 
 
 class MapDoc(_Model):
@@ -260,6 +264,14 @@ class ScenarioDoc(_Model):
     limits: LimitsDoc
     check_policy: Annotated[CheckPolicyDoc, BeforeValidator(_none_to_default)] = Field(default_factory=CheckPolicyDoc)
     map: MapDoc | None = None
+    uncertainty: UncertaintyDoc | None = None
+
+    @model_validator(mode="after")
+    def _uncertainty_si(self) -> ScenarioDoc:
+        from exomap.schema.uncertainty import to_si_in_place
+
+        to_si_in_place(self)  # the canonical form holds SI floats (like a cv stored as kv)
+        return self
 
     def to_core(self) -> Any:
         """The plain SI ``exomap.core.scenario.Scenario``, checked by ``exomap.core.scenario.validate``.

@@ -84,15 +84,22 @@ class ScenarioSummary(Answer):
 
     id: str = Field(description="Content id: 16 hex digits of the SHA-256 of the canonical document.")
     title: str = Field(description="The scenario's title ('' when it has none).")
-    description: str = Field(description="The scenario's description ('' when it has none).")
+    description: str = Field(
+        description="The scenario's description ('' when it has none), cut to 300 characters (ending in an "
+        "ellipsis) in the listing; the whole text is in the document."
+    )
     demo: bool = Field(description="True for a demo shipped with exomap.")
     name: str | None = Field(description="A demo's file name (usable as its id); null for a saved scenario.")
 
 
 class ScenarioList(Answer):
-    """The demos first, then the saved scenarios."""
+    """One page of the listing: the demos first, then the saved scenarios, oldest first."""
 
-    scenarios: list[ScenarioSummary] = Field(description="Every scenario the server holds.")
+    scenarios: list[ScenarioSummary] = Field(description="The scenarios of this page.")
+    total: int = Field(description="How many scenarios the server holds (demos and saved).")
+    limit: int = Field(description="Most scenarios per page, as asked (default 100).")
+    offset: int = Field(description="How many scenarios come before this page.")
+    next: str | None = Field(description="URL of the next page; null on the last one.")
 
 
 # -- steady states -------------------------------------------------------------------------------------------
@@ -202,8 +209,42 @@ class BoundariesAnswer(Answer):
     cusp: list[CurvePoint] = Field(description="Cusp points [τ [s], T_in [K], T [K]] where ignition meets extinction.")
 
 
+class ProbabilityGridsAnswer(Answer):
+    """One grid per unsafe region, indexed [feed temperature][residence time], each value in 0..1."""
+
+    runaway: list[list[float]]
+    unstable: list[list[float]]
+    multiple: list[list[float]]
+    unsafe: list[list[float]] = Field(description="runaway or unstable.")
+
+
+class BandAnswer(Answer):
+    """A boundary at three quantiles over the samples that have it; points [τ [s], T_in [K] or null]."""
+
+    fraction: list[float] = Field(description="Share of the samples that have this boundary, per residence time.")
+    q05: list[CurvePoint] = Field(description="5 % quantile of its feed temperature; null outside the window.")
+    q50: list[CurvePoint]
+    q95: list[CurvePoint]
+
+
+class BoundaryBandsAnswer(Answer):
+    ignition: BandAnswer
+    extinction: BandAnswer
+
+
+class MapDriverAnswer(Answer):
+    """How far one standard deviation of a parameter moves the boundaries (least squares over the samples)."""
+
+    target: str = Field(description="The uncertain parameter's scenario path, e.g. 'reactions[0].activation_energy'.")
+    ignition_K_per_sd: float | None = Field(description="RMS over residence times [K]; null: no ignition to fit.")
+    extinction_K_per_sd: float | None = Field(description="RMS over residence times [K]; null: none to fit.")
+    boundary_shift_K_per_sd: float | None = Field(description="The larger of the two [K]; null when neither.")
+    unsafe_share_per_sd: float = Field(description="Change of the map's unsafe share per standard deviation [-].")
+
+
 class MapAnswer(Answer):
-    """The operating map; grids are indexed [feed temperature][residence time]."""
+    """The operating map; grids are indexed [feed temperature][residence time]. Asked with ``samples``, it is
+    the nominal map plus the probability keys of DESIGN.md §11 (absent otherwise)."""
 
     residence_time_s: list[float] = Field(description="Residence-time axis [s].")
     feed_temperature_K: list[float] = Field(description="Feed-temperature axis [K].")
@@ -223,6 +264,17 @@ class MapAnswer(Answer):
     boundaries: BoundariesAnswer
     success: bool
     message: str
+    samples: int = MaybeAbsent()
+    seed: int = MaybeAbsent()
+    reference_temperature_K: float = MaybeAbsent()
+    parameters: list[str] = MaybeAbsent()
+    probability: ProbabilityGridsAnswer = MaybeAbsent()
+    upper_bound_95: ProbabilityGridsAnswer = MaybeAbsent()
+    max_unsafe_probability: float = MaybeAbsent()
+    robust_window: list[list[bool]] = MaybeAbsent()
+    boundary_bands: BoundaryBandsAnswer = MaybeAbsent()
+    drivers: list[MapDriverAnswer] = MaybeAbsent()
+    method: str = MaybeAbsent()
 
 
 # -- check ---------------------------------------------------------------------------------------------------
@@ -359,6 +411,52 @@ class MtsrAnswer(Answer):
     note: str
 
 
+class QuantilesAnswer(Answer):
+    q05: float | None = Field(description="null when no sample has a finite value.")
+    q50: float | None
+    q95: float | None
+
+
+class CheckQuantilesAnswer(Answer):
+    temperature_K: QuantilesAnswer
+    mtsr_K: QuantilesAnswer
+    tmr_ad_s: QuantilesAnswer
+
+
+class CheckCountsAnswer(Answer):
+    outside: int = Field(description="Samples judged outside (undetermined ones included).")
+    marginal_or_worse: int
+    undetermined: int = Field(description="Samples whose computation failed.")
+
+
+class CheckBoundsAnswer(Answer):
+    outside: float = Field(description="Exact one-sided 95 % binomial bound on the probability of outside.")
+    marginal_or_worse: float
+
+
+class CheckDriverAnswer(Answer):
+    target: str
+    temperature_K_per_sd: float | None = Field(description="Steady temperature change per standard deviation [K].")
+    mtsr_K_per_sd: float | None
+
+
+class CheckUncertaintyAnswer(Answer):
+    """The check under the scenario's uncertainty block (DESIGN.md §11); upsets on the nominal parameters only."""
+
+    samples: int
+    seed: int
+    reference_temperature_K: float = Field(description="Where the rate constants' uncertainty is stated [K].")
+    parameters: list[str]
+    probability_outside: float
+    probability_marginal_or_worse: float
+    counts: CheckCountsAnswer
+    upper_bound_95: CheckBoundsAnswer
+    max_unsafe_probability: float = Field(description="check_policy.max_unsafe_probability [-].")
+    quantiles: CheckQuantilesAnswer
+    drivers: list[CheckDriverAnswer]
+    upsets: str
+
+
 class CheckAnswer(Answer):
     """The setpoint check (DESIGN.md §6)."""
 
@@ -378,6 +476,7 @@ class CheckAnswer(Answer):
     cautions: list[str]
     success: bool
     message: str
+    uncertainty: CheckUncertaintyAnswer = MaybeAbsent()
 
 
 # -- simulate ------------------------------------------------------------------------------------------------

@@ -38,7 +38,7 @@ SCENARIO_FORMAT = "exomap-scenario/1"
 #: enumeration value); MAJOR for anything that breaks a client generated from the previous document (a key,
 #: route or operation id removed or renamed, a type or unit changed, a request field made required) -- a
 #: MAJOR bump also moves the routes to the next prefix (/api/v2) and keeps /api/v1 serving until retired.
-API_VERSION = "1.0.0"
+API_VERSION = "1.1.0"
 
 SUMMARIES = {
     "steady": "Every steady state at an operating point, with its stability",
@@ -49,13 +49,16 @@ SUMMARIES = {
 }
 CSV_KINDS = ("map", "simulate")
 
+#: Most scenarios one page of the listing may hold.
+MAX_PAGE = 500
+
 
 def answer_responses(
-    model: type[BaseModel], *errors: int, status: int = 200, description: str = "The answer.", csv: bool = False
+    model: type[BaseModel] | Any, *errors: int, status: int = 200, description: str = "The answer.", csv: bool = False
 ) -> dict[int | str, dict[str, Any]]:
-    """``responses=`` of a route: its answer model at ``status`` (and CSV text when ``csv``) and the shared
-    error shape at each status of ``errors``. The routes send bytes (no validation per request); the tests
-    hold every answer to its model."""
+    """``responses=`` of a route: its answer model at ``status`` (a union ``A | B`` when the answer depends on
+    the request), CSV text too when ``csv``, and the shared error shape at each status of ``errors``. The routes
+    send bytes (no validation per request); the tests hold every answer to its model."""
     out: dict[str, Any] = {"model": model, "description": description}
     if csv:
         # JSON first: a generated client reads the first content type as the typed answer
@@ -138,6 +141,14 @@ def _pair(value: str | None) -> list[float | str] | str | None:
     return [_number_or_text(p) for p in parts]  # type: ignore[misc]
 
 
+def _whole(value: str | None) -> int | str | None:
+    """A whole-number query value as an int (left as text otherwise, so validation names the field)."""
+    if value is None:
+        return None
+    text = value.strip()
+    return int(text) if text.lstrip("-").isdigit() else text
+
+
 def _validated(model: type, data: dict[str, Any]) -> Any:
     """Build a request model from query values; errors become the usual 422 with ``query`` locations."""
     try:
@@ -181,12 +192,26 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         "/scenarios",
         operation_id="listScenarios",
         tags=["scenarios"],
-        summary="Demo and saved scenarios",
+        summary="Demo and saved scenarios, one page at a time (summaries; the documents are one GET each)",
         response_class=JSONResponse,
-        responses=answer_responses(ScenarioList, 422),  # 422: an undeclared query parameter
+        responses=answer_responses(ScenarioList, 422, 503),  # 422: an undeclared or out-of-range parameter
     )
-    async def list_scenarios(service: ServiceDep) -> JSONResponse:
-        return JSONResponse({"scenarios": [s.summary() for s in service.store.list()]})
+    async def list_scenarios(
+        service: ServiceDep,
+        limit: Annotated[int, Query(ge=1, le=MAX_PAGE, description=f"Scenarios per page (1-{MAX_PAGE}).")] = 100,
+        offset: Annotated[int, Query(ge=0, description="How many to skip (demos first, then oldest saved).")] = 0,
+    ) -> JSONResponse:
+        page = await anyio.to_thread.run_sync(service.store.page, limit, offset)
+        following = page.next_offset
+        return JSONResponse(
+            {
+                "scenarios": [s.summary() for s in page.items],
+                "total": page.total,
+                "limit": page.limit,
+                "offset": page.offset,
+                "next": None if following is None else f"/api/v1/scenarios?limit={limit}&offset={following}",
+            }
+        )
 
     @router.get(
         "/scenarios/{scenario_id}",
@@ -195,14 +220,18 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         summary="The canonical document of one scenario (SI numbers)",
         response_class=Response,
         responses=answer_responses(
-            ScenarioDoc, 404, 422, description="The canonical document: every default filled in, every quantity SI."
+            ScenarioDoc,
+            404,
+            422,
+            503,
+            description="The canonical document: every default filled in, every quantity SI.",
         ),
     )
     async def get_scenario(
         service: ServiceDep,
         scenario_id: Annotated[str, Path(description="Scenario id (16 hex digits) or a demo's name.")],
     ) -> Response:
-        stored = service.store.get(scenario_id)
+        stored = await anyio.to_thread.run_sync(service.store.get, scenario_id)
         if stored is None:
             raise ApiError(404, "not_found", f"no scenario with id {scenario_id!r}")
         return Response(stored.document, media_type="application/json")
@@ -371,6 +400,10 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         feed_temperature: Annotated[str | None, Query(description="Window 'lo,hi', e.g. '0 degC,120 degC'.")] = None,
         points: Annotated[str | None, Query(description="Grid 'n_tau,n_tin', e.g. '200,200'.")] = None,
         spacing: Annotated[str | None, Query(description="'log' or 'linear' residence-time axis.")] = None,
+        samples: Annotated[
+            str | None, Query(description="Probability map with this many samples (a power of two, e.g. 256).")
+        ] = None,
+        seed: Annotated[str | None, Query(description="Seed of the samples (with samples).")] = None,
         format: Annotated[str, Query(description="'json' or 'csv'.", pattern="^(json|csv)$")] = "json",
     ) -> Response:
         pts: Any = None
@@ -385,6 +418,8 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
                 "feed_temperature": _pair(feed_temperature),
                 "points": pts,
                 "spacing": spacing,
+                "samples": _whole(samples),
+                "seed": _whole(seed),
             },
         )
         out, hit = await service.answer("map", req, format)
@@ -405,6 +440,10 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         residence_time: Tau = None,
         feed_temperature: Tin = None,
         branch: Annotated[str | None, Query(description="'low' or 'high': which stable state is assumed.")] = None,
+        samples: Annotated[
+            str | None, Query(description="Also check under the uncertainty block with this many samples (e.g. 256).")
+        ] = None,
+        seed: Annotated[str | None, Query(description="Seed of the samples (with samples).")] = None,
     ) -> Response:
         req = _validated(
             CheckRequest,
@@ -413,6 +452,8 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
                 "residence_time": _number_or_text(residence_time),
                 "feed_temperature": _number_or_text(feed_temperature),
                 "branch": branch,
+                "samples": _whole(samples),
+                "seed": _whole(seed),
             },
         )
         out, hit = await service.answer("check", req)

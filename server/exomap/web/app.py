@@ -5,8 +5,9 @@ the SQLite file in ``settings.data_dir``), applying its migrations, and reads th
 demo scenarios; the pool of workers starts on the first computation (or at startup under uvicorn, through the
 lifespan) and stops with the app.
 
-Middleware, outermost first: security headers, HEAD answered as GET without a body, gzip (answers over 1 kB),
-CORS (only when ``cors_origins`` is set), the request-body limit. Every failure goes through ``exomap.web.errors``.
+Middleware, outermost first: security headers, the Host check, HEAD answered as GET without a body, gzip
+(answers over 1 kB), CORS (only when ``cors_origins`` is set), the request-body limit. Every failure goes through
+``exomap.web.errors``.
 """
 
 from __future__ import annotations
@@ -27,7 +28,7 @@ from exomap.web import apidocs, pages
 from exomap.web.api import API_VERSION, build_router
 from exomap.web.compare import build_compare_router
 from exomap.web.errors import install_error_handlers
-from exomap.web.middleware import BodyLimit, HeadAsGet, SecurityHeaders
+from exomap.web.middleware import BodyLimit, HeadAsGet, HostCheck, SecurityHeaders, allowed_hosts
 from exomap.web.service import Service
 from exomap.web.settings import Settings
 from exomap.web.store import open_store
@@ -102,7 +103,7 @@ def create_app(settings: Settings | None = None, *, warm_up: bool = False) -> Fa
     pages.install(app, settings)
 
     # add_middleware wraps the app, so the last added is the outermost.
-    app.add_middleware(BodyLimit, max_bytes=settings.max_body_bytes)
+    app.add_middleware(BodyLimit, max_bytes=settings.max_body_bytes, timeout_s=settings.body_timeout_s)
     if settings.cors_origins:
         app.add_middleware(
             CORSMiddleware,
@@ -112,5 +113,6 @@ def create_app(settings: Settings | None = None, *, warm_up: bool = False) -> Fa
         )
     app.add_middleware(GZipMiddleware, minimum_size=1000)
     app.add_middleware(HeadAsGet)
+    app.add_middleware(HostCheck, hosts=allowed_hosts(settings.allowed_hosts, settings.host))
     app.add_middleware(SecurityHeaders)
     return app

@@ -35,6 +35,7 @@ STATUS_CODES = {
     404: "not_found",
     405: "method_not_allowed",
     406: "not_acceptable",
+    408: "request_timeout",
     413: "too_large",
     415: "unsupported_media_type",
     422: "invalid_request",

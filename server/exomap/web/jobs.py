@@ -5,17 +5,17 @@ process pool. It serialises the answer in the worker (JSON bytes, or CSV text), 
 back to the server, and it returns the core's domain errors as data (``JobError``) rather than raising them:
 an exception pickled across a process boundary loses attributes set in ``__init__`` (``ModelInputError.field``).
 
-This module imports only the standard library at import time; the core is imported inside the job, so a
-worker process does not load FastAPI or pydantic.
+This module imports only the standard library and orjson at import time; the core is imported inside the
+job, so a worker process does not load FastAPI or pydantic.
 """
 
 from __future__ import annotations
 
 import gzip
-import json
-import math
 from dataclasses import dataclass
 from typing import Any
+
+import orjson
 
 KINDS = ("steady", "branch", "map", "check", "simulate")
 
@@ -55,34 +55,21 @@ class JobError:
 
 
 def _plain(obj: Any) -> Any:
-    """json.dumps fallback for numpy scalars and arrays."""
+    """Encoder fallback for what orjson does not take natively (non-contiguous numpy arrays, odd scalars)."""
     tolist = getattr(obj, "tolist", None)
     if callable(tolist):
         return tolist()
     raise TypeError(f"{type(obj).__name__} is not JSON serialisable")
 
 
-def _finite(obj: Any) -> Any:
-    """NaN and infinities are not JSON: they become null ("no value")."""
-    if isinstance(obj, float):
-        return obj if math.isfinite(obj) else None
-    if isinstance(obj, dict):
-        return {k: _finite(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [_finite(v) for v in obj]
-    tolist = getattr(obj, "tolist", None)
-    if callable(tolist):
-        return _finite(tolist())
-    return obj
-
-
 def dumps(doc: Any) -> bytes:
-    """Compact JSON bytes of an answer document (strict JSON: non-finite numbers become null)."""
-    try:
-        text = json.dumps(doc, allow_nan=False, default=_plain, separators=(",", ":"))
-    except ValueError:
-        text = json.dumps(_finite(doc), allow_nan=False, separators=(",", ":"))
-    return text.encode("utf-8")
+    """Compact JSON bytes of an answer document (strict JSON: non-finite numbers become null).
+
+    orjson (a compiled encoder): for a 200 x 200 map it encodes the answer in about a tenth of the time of the
+    standard library's ``json.dumps`` (benchmarks/bench_http_map.py prints both), and it writes NaN and
+    infinities as null itself, which is what the answers mean by them ("no value").
+    """
+    return orjson.dumps(doc, default=_plain, option=orjson.OPT_SERIALIZE_NUMPY | orjson.OPT_NON_STR_KEYS)
 
 
 def compute(kind: str, sc: Any, params: dict[str, Any]) -> Any:
@@ -104,6 +91,18 @@ def compute(kind: str, sc: Any, params: dict[str, Any]) -> Any:
             c_in=params.get("c_in"),
             T_c=params.get("T_c"),
         )
+    if kind == "map" and params.get("samples") is not None:
+        from exomap.core.uncertainty import uncertainty_map
+
+        return uncertainty_map(
+            sc,
+            tau_range=params.get("tau_range"),
+            T_in_range=params.get("T_in_range"),
+            points=params.get("points"),
+            spacing=params.get("spacing", "log"),
+            samples=params["samples"],
+            seed=params.get("seed"),
+        )
     if kind == "map":
         from exomap.core.opmap import operating_map
 
@@ -113,6 +112,17 @@ def compute(kind: str, sc: Any, params: dict[str, Any]) -> Any:
             T_in_range=params.get("T_in_range"),
             points=params.get("points"),
             spacing=params.get("spacing", "log"),
+        )
+    if kind == "check" and params.get("samples") is not None:
+        from exomap.core.uncertain_check import uncertain_check
+
+        return uncertain_check(
+            sc,
+            tau=params["tau"],
+            T_in=params["T_in"],
+            branch=params.get("branch"),
+            samples=params["samples"],
+            seed=params.get("seed"),
         )
     if kind == "check":
         from exomap.core.check import check_setpoint

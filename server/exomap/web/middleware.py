@@ -5,6 +5,7 @@ Both are plain ASGI (no BaseHTTPMiddleware), so they add no task per request and
 
 from __future__ import annotations
 
+import asyncio
 import json
 from collections.abc import Awaitable, Callable, MutableMapping
 from typing import Any
@@ -70,15 +71,17 @@ async def _send_error(send: Send, status: int, code: str, message: str) -> None:
 
 
 class BodyLimit:
-    """Refuse request bodies over ``max_bytes`` with 413, whether or not they declare a Content-Length.
+    """Refuse request bodies over ``max_bytes`` with 413, whether or not they declare a Content-Length, and
+    bodies that take longer than ``timeout_s`` to arrive with 408.
 
     A declared length over the limit is refused before reading; otherwise the body is read up to the limit
     and replayed to the app (bodies are small: the limit is about a megabyte).
     """
 
-    def __init__(self, app: ASGIApp, max_bytes: int) -> None:
+    def __init__(self, app: ASGIApp, max_bytes: int, timeout_s: float = 30.0) -> None:
         self.app = app
         self.max_bytes = max_bytes
+        self.timeout_s = timeout_s
 
     async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
         if scope["type"] != "http" or scope.get("method") in ("GET", "HEAD", "OPTIONS"):
@@ -98,17 +101,25 @@ class BodyLimit:
         chunks: list[bytes] = []
         size = 0
         more = True
-        while more:
-            message = await receive()
-            if message["type"] == "http.disconnect":
-                return
-            chunk = message.get("body", b"")
-            size += len(chunk)
-            if size > self.max_bytes:
-                await _send_error(send, 413, "body_too_large", too_big)
-                return
-            chunks.append(chunk)
-            more = message.get("more_body", False)
+        try:
+            # one deadline for the whole body: a client trickling a few bytes now and then is dropped
+            async with asyncio.timeout(self.timeout_s):
+                while more:
+                    message = await receive()
+                    if message["type"] == "http.disconnect":
+                        return
+                    chunk = message.get("body", b"")
+                    size += len(chunk)
+                    if size > self.max_bytes:
+                        await _send_error(send, 413, "body_too_large", too_big)
+                        return
+                    chunks.append(chunk)
+                    more = message.get("more_body", False)
+        except TimeoutError:
+            await _send_error(
+                send, 408, "request_timeout", f"the request body did not arrive within {self.timeout_s:g} s"
+            )
+            return
         body = b"".join(chunks)
         replayed = False
 
@@ -147,3 +158,58 @@ class HeadAsGet:
             await send(message)
 
         await self.app(scope, receive, send_headers_only)
+
+
+#: Host names a loopback server answers to by default (with the address it is bound to).
+LOOPBACK_NAMES = ("localhost", "127.0.0.1", "::1")
+
+
+def allowed_hosts(configured: list[str], bound: str) -> frozenset[str] | None:
+    """The host names to accept (lower case, no port); None means any (``*`` configured)."""
+    if "*" in configured:
+        return None
+    names = configured or [*LOOPBACK_NAMES, bound]
+    return frozenset(n.strip().lower().strip("[]") for n in names if n.strip() and n not in ("0.0.0.0", "::"))
+
+
+def host_name(value: str) -> str:
+    """The name of a Host header, without its port: ``[::1]:8000`` -> ``::1``, ``Plant.example:80`` ->
+    ``plant.example``."""
+    value = value.strip().lower()
+    if value.startswith("["):
+        return value[1 : value.find("]")] if "]" in value else value
+    return value.rsplit(":", 1)[0] if value.count(":") == 1 else value
+
+
+class HostCheck:
+    """Refuse requests whose ``Host`` is not one of this server's names (400 ``host_not_allowed``).
+
+    A page on another site can point a name it controls at 127.0.0.1 (DNS rebinding) and then call a
+    loopback server as if it were the same origin; the browser still sends that foreign name as ``Host``,
+    so answering only our own names closes the hole. Default: the loopback names and the bound address.
+    """
+
+    def __init__(self, app: ASGIApp, hosts: frozenset[str] | None) -> None:
+        self.app = app
+        self.hosts = hosts
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if self.hosts is None or scope["type"] not in ("http", "websocket"):
+            await self.app(scope, receive, send)
+            return
+        host = ""
+        for key, value in scope.get("headers", []):
+            if key == b"host":
+                host = value.decode("latin-1")
+                break
+        if host_name(host) not in self.hosts:
+            shown = host[:100] or "(none)"
+            await _send_error(
+                send,
+                400,
+                "host_not_allowed",
+                f"this server does not answer to the host name {shown!r}; allowed: "
+                f"{', '.join(sorted(self.hosts))} (setting EXOMAP_ALLOWED_HOSTS)",
+            )
+            return
+        await self.app(scope, receive, send)

@@ -121,6 +121,14 @@ class MapRequest(ScenarioRef):
     feed_temperature: Range | None = Field(default=None, description="[lo, hi]; default: the scenario's window.")
     points: GridPoints | None = Field(default=None, description="Grid size; default: the scenario's (or 200 x 200).")
     spacing: Literal["log", "linear"] = Field(default="log", description="Spacing of the residence-time axis.")
+    samples: Annotated[StrictInt, Field(ge=8, le=16384)] | None = Field(
+        default=None,
+        description="Ask for the probability map under the scenario's uncertainty block (DESIGN.md §11) with this "
+        "many samples, a power of two (e.g. 256); absent: the deterministic map.",
+    )
+    seed: Annotated[StrictInt, Field(ge=0, le=2**32 - 1)] | None = Field(
+        default=None, description="Seed of the samples (with samples); default: the uncertainty block's (0)."
+    )
 
 
 class CheckRequest(OperatingPoint):
@@ -135,6 +143,14 @@ class CheckRequest(OperatingPoint):
 
     branch: Literal["low", "high"] | None = Field(
         default=None, description="Which stable state the tank is on where there are several; default: low."
+    )
+    samples: Annotated[StrictInt, Field(ge=8, le=16384)] | None = Field(
+        default=None,
+        description="Also check under the scenario's uncertainty block (DESIGN.md §11) with this many samples, a "
+        "power of two (e.g. 256): adds the 'uncertainty' block; absent: the nominal check only.",
+    )
+    seed: Annotated[StrictInt, Field(ge=0, le=2**32 - 1)] | None = Field(
+        default=None, description="Seed of the samples (with samples); default: the uncertainty block's (0)."
     )
 
 

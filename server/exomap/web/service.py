@@ -173,6 +173,20 @@ class Service:
             raise invalid(field, f"expected [lo, hi] with lo < hi, got [{lo:g}, {hi:g}] in SI units")
         return lo, hi
 
+    @staticmethod
+    def _samples(req: Any, sc: Any) -> dict[str, Any]:
+        """``samples``/``seed`` of a request asking for an answer under uncertain data (DESIGN.md §11)."""
+        samples, seed = getattr(req, "samples", None), getattr(req, "seed", None)
+        if samples is None:
+            if seed is not None:
+                raise invalid("seed", "a seed applies to sampling: give samples as well")
+            return {}
+        if getattr(sc, "uncertainty", None) is None:
+            raise invalid("samples", "the scenario has no uncertainty block to sample (DESIGN.md §11)")
+        if samples & (samples - 1):
+            raise invalid("samples", f"expected a power of two (the Sobol sequence is balanced there), got {samples}")
+        return {"samples": samples, "seed": seed}
+
     def params(self, kind: str, req: Any, sc: Any) -> dict[str, Any]:
         """SI keyword arguments of the core call for ``kind``; limits checked (413)."""
         s = self.settings
@@ -207,7 +221,8 @@ class Service:
                     f"a {n[0]} x {n[1]} map has {cells} cells; the limit is {s.max_map_cells}",
                     [{"field": "points", "message": f"at most {s.max_map_cells} cells (n_tau x n_tin)"}],
                 )
-            return {"tau_range": tau_range, "T_in_range": T_in_range, "points": points, "spacing": req.spacing}
+            out = {"tau_range": tau_range, "T_in_range": T_in_range, "points": points, "spacing": req.spacing}
+            return out | self._samples(req, sc)
         if kind == "check":
             tau, T_in = self._point(req, sc)
             cap = float(sc.policy.upset_duration)
@@ -219,7 +234,7 @@ class Service:
                     f"{s.max_duration_s:g} s",
                     [{"field": "check_policy.upset_duration", "message": f"at most {s.max_duration_s:g} s"}],
                 )
-            return {"tau": tau, "T_in": T_in, "branch": req.branch}
+            return {"tau": tau, "T_in": T_in, "branch": req.branch} | self._samples(req, sc)
         if kind == "simulate":
             from exomap.core.events import parse_events
 

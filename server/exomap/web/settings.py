@@ -55,6 +55,25 @@ class Settings(BaseSettings):
     max_body_bytes: int = Field(
         default=1_000_000, gt=0, description="Largest request body accepted [bytes]; larger bodies get 413."
     )
+    header_timeout_s: float = Field(
+        default=10.0,
+        gt=0,
+        description="Longest time a client may take to send a request's line and headers [s]; past it 408 and the "
+        "connection is closed (a connection that sends nothing is closed too).",
+    )
+    body_timeout_s: float = Field(
+        default=30.0,
+        gt=0,
+        description="Longest time a client may take to send a request body [s]; past it 408.",
+    )
+    max_url_bytes: int = Field(
+        default=32_768, ge=1024, description="Longest request line (method, URL, version) [bytes]; longer gets 414."
+    )
+    max_header_bytes: int = Field(
+        default=65_536,
+        ge=4096,
+        description="Largest request head (request line and headers) [bytes]; larger gets 431.",
+    )
     request_time_budget_s: float = Field(
         default=30.0,
         gt=0,
@@ -71,6 +90,11 @@ class Settings(BaseSettings):
         description="Origins allowed to call the API from a browser (CORS), comma-separated "
         "('http://a.example,http://b.example') or a JSON list; empty keeps cross-origin calls closed.",
     )
+    allowed_hosts: Annotated[list[str], NoDecode] = Field(
+        default_factory=list,
+        description="Host names the server answers to, comma-separated (e.g. 'exomap.plant.example'); others get "
+        "400, which stops DNS rebinding. Empty: localhost, 127.0.0.1, ::1 and the listening address. '*' = any.",
+    )
     cache_entries: int = Field(
         default=256, ge=0, description="Answers kept in the in-memory LRU cache of repeated requests; 0 disables it."
     )
@@ -81,7 +105,7 @@ class Settings(BaseSettings):
         default=2, ge=1, le=64, description="Computations run at once, off the event loop (pool size)."
     )
     max_queued: int = Field(
-        default=16,
+        default=32,
         ge=0,
         description="Computations that may wait for a free worker; past it a request is answered 503 'busy' at "
         "once, with Retry-After (pages, saves and cached answers never wait behind computations).",
@@ -109,9 +133,9 @@ class Settings(BaseSettings):
             )
         return value
 
-    @field_validator("cors_origins", mode="before")
+    @field_validator("cors_origins", "allowed_hosts", mode="before")
     @classmethod
-    def _origins(cls, value: Any) -> Any:
+    def _comma_list(cls, value: Any) -> Any:
         if isinstance(value, str):
             text = value.strip()
             if text.startswith("["):
@@ -121,7 +145,7 @@ class Settings(BaseSettings):
                     return json.loads(text)
                 except ValueError:
                     raise ValueError(
-                        "expected origins separated by commas, e.g. 'http://a.example,http://b.example', "
+                        "expected items separated by commas, e.g. 'http://a.example,http://b.example', "
                         "or a JSON list of strings"
                     ) from None
             return [item.strip() for item in text.split(",") if item.strip()]

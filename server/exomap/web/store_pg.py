@@ -5,17 +5,18 @@ id. Content ids make that simple: a row is written once and never changed, ``INS
 NOTHING`` makes saving idempotent, and when two instances save one document at the same moment the primary key
 lets exactly one insert through (the other sees ``rowcount == 0`` and answers 200 with the same id).
 
-Connections come from a ``psycopg_pool.ConnectionPool`` (psycopg 3): at most ``pool_size`` per instance, each
-checked before it is handed out, so connections broken by a server restart are replaced instead of failing a
-request. Statements run in autocommit mode: each insert is its own transaction, committed (and, with the
-server's default ``synchronous_commit=on``, flushed to its write-ahead log) before ``insert_if_absent``
-returns, so an acknowledged save survives a crash of the instance or of the server.
+Connections come from a ``psycopg_pool.ConnectionPool`` (psycopg 3): at most ``pool_size`` per instance. They
+are not checked before each use (that costs a round trip per request, measured by benchmarks/bench_store.py);
+instead a statement that fails on a broken connection (a server restart) makes the pool check its connections
+and runs once more, which is safe because every statement here is idempotent. Statements run in autocommit
+mode: each insert is its own transaction, committed (and, with the server's default ``synchronous_commit=on``,
+flushed to its write-ahead log) before ``insert_if_absent`` returns, so an acknowledged save survives a crash
+of the instance or of the server.
 
 Faults: a server that cannot be reached at start is one line naming ``host:port/dbname`` (never the password)
 and the fix; while serving, a request that cannot get a connection within ``timeout_s`` (setting
-``EXOMAP_DATABASE_TIMEOUT_S``) or whose statement
-fails raises ``StoreUnavailableError`` (the API answers 503 ``store_unavailable``), and the pool reconnects by
-itself when the server is back.
+``EXOMAP_DATABASE_TIMEOUT_S``) or whose statement fails raises ``StoreUnavailableError`` (the API answers 503
+``store_unavailable``), and the pool reconnects by itself when the server is back.
 """
 
 from __future__ import annotations
@@ -24,7 +25,7 @@ import logging
 from typing import Any
 
 from exomap.web import migrations
-from exomap.web.store import Row, StoreUnavailableError
+from exomap.web.store import SUMMARY_CHARS, Row, StoreUnavailableError
 
 log = logging.getLogger("exomap.web")
 
@@ -78,7 +79,6 @@ class PostgresDatabase:
             min_size=1,
             max_size=max(1, pool_size),
             kwargs={"autocommit": True, "connect_timeout": CONNECT_TIMEOUT_S},
-            check=ConnectionPool.check_connection,
             timeout=self.timeout_s,
             name="exomap-store",
             open=False,
@@ -96,22 +96,35 @@ class PostgresDatabase:
         import psycopg
         from psycopg_pool import PoolTimeout
 
-        try:
-            with self._pool.connection() as conn:
-                cur = conn.execute(sql, params)
-                if fetch == "one":
-                    return cur.fetchone()
-                if fetch == "all":
-                    return cur.fetchall()
-                return cur.rowcount
-        except PoolTimeout:
-            raise StoreUnavailableError(
-                f"the PostgreSQL store at {self.where} gave no connection within {self.timeout_s:g} s "
-                "(server down or overloaded)"
-            ) from None
-        except psycopg.Error as exc:
-            reason = " ".join(str(exc).split()) or type(exc).__name__
-            raise StoreUnavailableError(f"the PostgreSQL store at {self.where} failed: {reason}") from None
+        for attempt in (1, 2):
+            try:
+                with self._pool.connection() as conn:
+                    cur = conn.execute(sql, params)
+                    if fetch == "one":
+                        return cur.fetchone()
+                    if fetch == "all":
+                        return cur.fetchall()
+                    return cur.rowcount
+            except PoolTimeout:
+                raise StoreUnavailableError(
+                    f"the PostgreSQL store at {self.where} gave no connection within {self.timeout_s:g} s "
+                    "(server down or overloaded)"
+                ) from None
+            except psycopg.OperationalError as exc:
+                if attempt == 1:
+                    # Connections broken by a server restart: the pool drops the bad ones and opens new ones,
+                    # then the statement runs once more. Safe because every statement here is idempotent
+                    # (reads, and an insert that does nothing when the row is there).
+                    self._pool.check()
+                    continue
+                raise self._fault(exc) from None
+            except psycopg.Error as exc:
+                raise self._fault(exc) from None
+        raise AssertionError("unreachable")  # pragma: no cover
+
+    def _fault(self, exc: BaseException) -> StoreUnavailableError:
+        reason = " ".join(str(exc).split()) or type(exc).__name__
+        return StoreUnavailableError(f"the PostgreSQL store at {self.where} failed: {reason}")
 
     def insert_if_absent(self, row: Row) -> bool:
         # PostgreSQL text cannot hold NUL; the canonical document escapes it (\u0000), the listing fields
@@ -131,6 +144,18 @@ class PostgresDatabase:
     def fetch_all(self) -> list[Row]:
         rows = self._run(f"SELECT {_COLUMNS} FROM scenarios ORDER BY saved_at, id", (), "all")
         return [Row(*r) for r in rows]
+
+    def fetch_page(self, limit: int, offset: int) -> list[Row]:
+        rows = self._run(
+            "SELECT id, title, left(description, %s), '', saved_at FROM scenarios ORDER BY saved_at, id "
+            "LIMIT %s OFFSET %s",
+            (SUMMARY_CHARS + 1, int(limit), int(offset)),
+            "all",
+        )
+        return [Row(*r) for r in rows]
+
+    def count(self) -> int:
+        return int(self._run("SELECT COUNT(*) FROM scenarios", (), "one")[0])
 
     def close(self) -> None:
         self._pool.close()

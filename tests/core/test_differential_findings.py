@@ -1,0 +1,145 @@
+"""Regression tests for the disagreements the differential check found (issue 9; /work/notes/diff-findings.md).
+
+Each finding keeps its scenario document in ``tests/reference/findings/<name>.json`` (bare SI numbers, as
+the generator wrote it) and the point where exomap went wrong. What is true comes from the independent
+reference solver (``tests/reference/solver.py``), and each finding was confirmed by a third way (integrating
+the dynamic balances to steady state with scipy's Radau, or a dense scan), as the findings file says. A test
+is marked ``xfail(strict=True)`` while its finding is open, so it fails as soon as the fix lands: then remove
+the mark.
+"""
+
+from __future__ import annotations
+
+import json
+import sys
+import warnings
+from pathlib import Path
+
+import numpy as np
+import pytest
+from exomap.core.opmap import operating_map
+from exomap.core.regions import REGIONS
+from exomap.core.steady import steady_states
+from exomap.schema import parse_scenario
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+
+from reference.scenarios import problem_from_doc  # noqa: E402
+from reference.solver import Reference  # noqa: E402
+
+FINDINGS = Path(__file__).resolve().parents[1] / "reference" / "findings"
+KEYS = {code: key for code, key, _ in REGIONS}
+
+
+def load(name: str):
+    rec = json.loads((FINDINGS / f"{name}.json").read_text(encoding="utf-8"))
+    doc = rec["scenario"]
+    return parse_scenario(doc).to_core(), Reference(problem_from_doc(doc)), rec["point"]
+
+
+def assert_same_states(sc, ref, tau, T_in):
+    want = ref.states(tau, T_in)
+    got = steady_states(sc, tau, T_in)
+    # the reference's states: count, temperatures to 1e-6 K, stability; no negative concentration
+    assert [round(s.T, 6) for s in got.states] == [round(s.T, 6) for s in want]
+    assert [s.stability for s in got.states] == [s.stability for s in want]
+    assert all(min(s.C) >= 0 for s in got.states)
+    assert got.success
+
+
+@pytest.mark.xfail(strict=True, reason="finding bracket-crash-series: steady_states raises ValueError (Brent bracket)")
+def test_bracket_crash_series():
+    sc, ref, p = load("bracket-crash-series")
+    assert_same_states(sc, ref, p["tau"], p["T_in"])
+
+
+@pytest.mark.xfail(
+    strict=True, reason="finding bracket-crash-parallel: steady_states raises ValueError (Brent bracket)"
+)
+def test_bracket_crash_parallel():
+    sc, ref, p = load("bracket-crash-parallel")
+    assert_same_states(sc, ref, p["tau"], p["T_in"])
+
+
+@pytest.mark.xfail(strict=True, reason="finding singular-isothermal-jacobian: LinAlgError from manifold.sample")
+def test_singular_isothermal_jacobian():
+    sc, ref, p = load("singular-isothermal-jacobian")
+    assert_same_states(sc, ref, p["tau"], p["T_in"])
+
+
+@pytest.mark.xfail(strict=True, reason="finding spurious-negative-states: extra states with negative concentrations")
+def test_spurious_negative_states():
+    sc, ref, p = load("spurious-negative-states")
+    assert_same_states(sc, ref, p["tau"], p["T_in"])
+
+
+@pytest.mark.xfail(strict=True, reason="finding map-ignores-reaction-heat: map states at the feed temperature")
+def test_map_ignores_reaction_heat():
+    sc, ref, p = load("map-ignores-reaction-heat")
+    doc_map = json.loads((FINDINGS / "map-ignores-reaction-heat.json").read_text())["scenario"]["map"]
+    mp = operating_map(
+        sc,
+        tau_range=tuple(doc_map["residence_time"]),
+        T_in_range=tuple(doc_map["feed_temperature"]),
+        points=tuple(p["points"]),
+    )
+    i, j = p["cell"]
+    assert mp.tau[j] == pytest.approx(p["tau"], rel=1e-12) and mp.T_in[i] == pytest.approx(p["T_in"], rel=1e-12)
+    want = ref.states(p["tau"], p["T_in"])
+    # reference: one stable state about 3.8 K above the feed, above the maximum temperature -> runaway
+    assert len(want) == 1 and want[0].T > sc.limits.T_max
+    assert mp.max_temperature[i, j] == pytest.approx(want[0].T, abs=1e-4)
+    assert KEYS[int(mp.region[i, j])] == ref.region(want) == "runaway"
+
+
+@pytest.mark.xfail(strict=True, reason="finding unpolished-state: a state 0.014 K off, success false")
+def test_unpolished_state():
+    sc, ref, p = load("unpolished-state")
+    assert_same_states(sc, ref, p["tau"], p["T_in"])
+
+
+@pytest.mark.xfail(strict=True, reason="finding overflow-warning-in-stability: RuntimeWarning escapes exomap")
+def test_overflow_warning_in_stability():
+    sc, ref, p = load("overflow-warning-in-stability")
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", RuntimeWarning)
+        mp = operating_map(sc, tau_range=tuple(p["tau_range"]), T_in_range=tuple(p["T_in_range"]), points=(16, 12))
+    assert mp.success
+    assert np.all(mp.state_count >= 1)
+
+
+def assert_map_cell(name: str, ignore_warnings: bool = True):
+    sc, ref, p = load(name)
+    doc_map = json.loads((FINDINGS / f"{name}.json").read_text())["scenario"]["map"]
+    with warnings.catch_warnings():
+        if ignore_warnings:  # the answer is what is tested here, not the warning
+            warnings.simplefilter("ignore", RuntimeWarning)
+        mp = operating_map(
+            sc,
+            tau_range=tuple(doc_map["residence_time"]),
+            T_in_range=tuple(doc_map["feed_temperature"]),
+            points=tuple(p["points"]),
+        )
+    i, j = p["cell"]
+    assert mp.tau[j] == pytest.approx(p["tau"], rel=1e-12) and mp.T_in[i] == pytest.approx(p["T_in"], rel=1e-12)
+    want = ref.states(p["tau"], p["T_in"])
+    assert int(mp.state_count[i, j]) == len(want)
+    assert KEYS[int(mp.region[i, j])] == ref.region(want)
+
+
+@pytest.mark.xfail(strict=True, reason="finding missed-states-series: 1 state reported (success) where there are 5")
+def test_missed_states_series():
+    sc, ref, p = load("missed-states-series")
+    assert_same_states(sc, ref, p["tau"], p["T_in"])
+
+
+@pytest.mark.xfail(strict=True, reason="finding map-false-unstable: map cells 'unstable' where one stable state")
+def test_map_false_unstable():
+    assert_map_cell("map-false-unstable")
+
+
+def test_map_nan_unstable():
+    # finding map-nan-unstable, fixed on main (issue 9 defect 3's fix): no NaN, no warning, region right
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", RuntimeWarning)
+        assert_map_cell("map-nan-unstable", ignore_warnings=False)
