@@ -47,33 +47,26 @@ def assert_same_states(sc, ref, tau, T_in):
     assert got.success
 
 
-@pytest.mark.xfail(strict=True, reason="finding bracket-crash-series: steady_states raises ValueError (Brent bracket)")
 def test_bracket_crash_series():
     sc, ref, p = load("bracket-crash-series")
     assert_same_states(sc, ref, p["tau"], p["T_in"])
 
 
-@pytest.mark.xfail(
-    strict=True, reason="finding bracket-crash-parallel: steady_states raises ValueError (Brent bracket)"
-)
 def test_bracket_crash_parallel():
     sc, ref, p = load("bracket-crash-parallel")
     assert_same_states(sc, ref, p["tau"], p["T_in"])
 
 
-@pytest.mark.xfail(strict=True, reason="finding singular-isothermal-jacobian: LinAlgError from manifold.sample")
 def test_singular_isothermal_jacobian():
     sc, ref, p = load("singular-isothermal-jacobian")
     assert_same_states(sc, ref, p["tau"], p["T_in"])
 
 
-@pytest.mark.xfail(strict=True, reason="finding spurious-negative-states: extra states with negative concentrations")
 def test_spurious_negative_states():
     sc, ref, p = load("spurious-negative-states")
     assert_same_states(sc, ref, p["tau"], p["T_in"])
 
 
-@pytest.mark.xfail(strict=True, reason="finding map-ignores-reaction-heat: map states at the feed temperature")
 def test_map_ignores_reaction_heat():
     sc, ref, p = load("map-ignores-reaction-heat")
     doc_map = json.loads((FINDINGS / "map-ignores-reaction-heat.json").read_text())["scenario"]["map"]
@@ -92,13 +85,11 @@ def test_map_ignores_reaction_heat():
     assert KEYS[int(mp.region[i, j])] == ref.region(want) == "runaway"
 
 
-@pytest.mark.xfail(strict=True, reason="finding unpolished-state: a state 0.014 K off, success false")
 def test_unpolished_state():
     sc, ref, p = load("unpolished-state")
     assert_same_states(sc, ref, p["tau"], p["T_in"])
 
 
-@pytest.mark.xfail(strict=True, reason="finding overflow-warning-in-stability: RuntimeWarning escapes exomap")
 def test_overflow_warning_in_stability():
     sc, ref, p = load("overflow-warning-in-stability")
     with warnings.catch_warnings():
@@ -127,13 +118,11 @@ def assert_map_cell(name: str, ignore_warnings: bool = True):
     assert KEYS[int(mp.region[i, j])] == ref.region(want)
 
 
-@pytest.mark.xfail(strict=True, reason="finding missed-states-series: 1 state reported (success) where there are 5")
 def test_missed_states_series():
     sc, ref, p = load("missed-states-series")
     assert_same_states(sc, ref, p["tau"], p["T_in"])
 
 
-@pytest.mark.xfail(strict=True, reason="finding map-false-unstable: map cells 'unstable' where one stable state")
 def test_map_false_unstable():
     assert_map_cell("map-false-unstable")
 
