@@ -11,12 +11,16 @@ from dataclasses import replace
 
 import numpy as np
 import pytest
+from exomap.core import branch as branch_mod
+from exomap.core import steady as steady_mod
 from exomap.core import valve as valve_mod
 from exomap.core.branch import branch
 from exomap.core.check import check_setpoint
+from exomap.core.errors import ModelInputError
+from exomap.core.manifold import Manifold
 from exomap.core.opmap import operating_map
 from exomap.core.regions import CODE
-from exomap.core.scenario import EQUAL_PERCENTAGE, R_GAS, Limits, Reaction, Scenario, Valve, Vessel
+from exomap.core.scenario import EQUAL_PERCENTAGE, R_GAS, Limits, Reaction, Scenario, Valve, Vessel, validate
 from exomap.core.steady import steady_states
 from scipy.optimize import brentq, fsolve
 
@@ -308,3 +312,161 @@ def test_hot_map_has_a_state_in_every_cell_and_calls_them_runaway():
             hot = max(T for T, _ in states)
             if hot > 600.0 and len(states) in (1, 3):  # the hottest state of an S-curve is stable
                 assert m.region[i, j] == CODE["runaway"]
+
+
+# -- defect 7: order 0 in a reactant that can run out ---------------------------------------------------------
+def _zero_order_in_B(c_B: float) -> Scenario:
+    """A + B -> P, first order in A and order 0 in B, adiabatic (invented data)."""
+    V = math.pi * 1.2**2 / 4 * 1.5
+    return Scenario(
+        species=("A", "B", "P"),
+        rho=1000.0,
+        cp=4000.0,
+        vessel=Vessel(D=1.2, H=2.0, h_set=1.5),
+        valve=Valve(Kv=40.0, opening=0.5),
+        reactions=(Reaction("A + B -> P", (-1.0, -1.0, 1.0), (1.0, 0.0, 0.0), 1e10, 80e3, -150e3),),
+        q_in=V / 3600.0,
+        T_in=320.0,
+        c_in=(1000.0, c_B, 0.0),
+        limits=Limits(T_max=500.0),
+        title="zero order in B (test)",
+        description="Invented test data.",
+    )
+
+
+def test_order_zero_in_a_reactant_that_can_run_out_is_refused_naming_the_field():
+    """Defect 7: order 0 in B with less B than A in the feed gave negative concentrations, a conversion of
+    -27 %, duplicated states and a simulation settling where steady_states never looked. B can run out, so the
+    scenario is refused, naming reactions[0].orders.B."""
+    sc = _zero_order_in_B(600.0)
+    with pytest.raises(ModelInputError, match="order 0 in B") as info:
+        validate(sc)
+    assert info.value.field == "reactions[0].orders.B"
+    with pytest.raises(ModelInputError, match="order 0 in B"):
+        steady_states(sc, 3600.0, 320.0)
+
+
+def test_order_zero_in_a_reactant_in_excess_is_accepted_and_never_negative():
+    """Defect 7, the accepted case: B fed in excess of A cannot run out (pseudo-first-order kinetics)."""
+    sc = _zero_order_in_B(1500.0)
+    validate(sc)
+    for tau, T_in in ((3600.0, 320.0), (600.0, 300.0), (20000.0, 340.0)):
+        res = steady_states(sc, tau, T_in)
+        assert res.success, res.message
+        # independent: the first-order adiabatic tank in the log-odds form (conversion of A), solved here
+        expected = _hot_states(_first_order_twin(sc), tau, T_in)
+        np.testing.assert_allclose([s.T for s in res.states], [T for T, _ in expected], rtol=1e-10)
+        for s in res.states:
+            assert min(s.C) >= 0.0
+            # analytic: B falls by what A falls
+            assert s.C[1] == pytest.approx(1500.0 - (1000.0 - s.C[0]), rel=1e-9)
+    # a feed override that makes B the limiting reactant is refused the same way
+    with pytest.raises(ModelInputError, match="order 0 in B"):
+        steady_states(sc, 3600.0, 320.0, c_in=(1000.0, 500.0, 0.0))
+
+
+def _first_order_twin(sc: Scenario) -> Scenario:
+    """The same tank with B left out (its order is 0 and it never runs out): A -> P, first order."""
+    rx = sc.reactions[0]
+    return replace(
+        sc,
+        species=("A", "P"),
+        reactions=(Reaction("A -> P", (-1.0, 1.0), (1.0, 0.0), rx.k0, rx.Ea, rx.dH),),
+        c_in=(sc.c_in[0], 0.0),
+    )
+
+
+# -- defect 4: two folds inside one sample, next to a cusp ----------------------------------------------------
+class _GeneralOnly(Manifold):
+    """The manifold forced onto its general path (T as the coordinate), as two reactions would be."""
+
+    def __init__(self, *args, **kwargs):
+        super().__init__(*args, **kwargs)
+        self.explicit = False
+
+
+@pytest.mark.parametrize("general", [False, True])
+def test_fold_pair_within_one_sample_is_not_missed(cstr, ref, monkeypatch, general):
+    """Defect 4: 1 state reported as success where there are 3, and no turning point on the feed-temperature
+    branch, when both folds lie inside one sample (B only 1e-7 above the cusp: the folds are 0.02 K apart)."""
+    if general:
+        monkeypatch.setattr(steady_mod, "Manifold", _GeneralOnly)
+        monkeypatch.setattr(branch_mod, "Manifold", _GeneralOnly)
+    gamma = 20.0
+    # analytic: the adiabatic first-order tank has its cusp at B = 4 gamma/(gamma - 4) (conftest.Reference)
+    B = ref.B_cusp(gamma) * (1 + 1e-7)
+    Da_lo, Da_hi = sorted(ref.G(ref.fold_x(B, gamma), B, gamma))
+    Da = math.sqrt(Da_lo * Da_hi)
+    c = cstr(gamma, B)
+    # independent (dense scan + brentq on the dimensionless balance): three states between the folds
+    expected = ref.roots_x(Da, B, gamma)
+    assert len(expected) == 3
+    res = steady_states(c.sc, c.tau(Da), c.T_in)
+    assert res.success
+    assert len(res.states) == 3
+    np.testing.assert_allclose([s.conversion for s in res.states], expected, rtol=1e-7)
+    b = branch(c.sc, "feed_temperature", c.tau(Da), c.T_in, lo=c.T_in - 5.0, hi=c.T_in + 5.0)
+    kinds = sorted(t.kind for t in b.turning_points)
+    assert kinds == ["extinction", "ignition"]
+    ext = next(t.T_in for t in b.turning_points if t.kind == "extinction")
+    ign = next(t.T_in for t in b.turning_points if t.kind == "ignition")
+    # the point itself has three states, so it lies between the extinction and the ignition feed temperature
+    assert ext < c.T_in < ign
+
+
+# -- defect 5: Hopf points where the pair is complex at one end of a step only ------------------------------
+def _series_jacobian_eigenvalues(sc: Scenario, tau: float, T_in: float, T_guess: float) -> np.ndarray:
+    """Eigenvalues of the species+energy Jacobian of A -> P -> D at its steady state near ``T_guess``, from
+    the dimensional balances written here: the steady state by fsolve, the Jacobian by central differences."""
+    r1, r2 = sc.reactions
+    V = sc.vessel.V_set
+    kappa = sc.UA_jacket / (sc.rho * sc.cp * V)
+    J1, J2 = (-r.dH / (sc.rho * sc.cp) for r in (r1, r2))
+    cA0 = sc.c_in[0]
+
+    def rhs(z):
+        CA, CP, T = z
+        k1 = r1.k0 * math.exp(-r1.Ea / (R_GAS * T))
+        k2 = r2.k0 * math.exp(-r2.Ea / (R_GAS * T))
+        q1, q2 = k1 * CA, k2 * CP
+        return np.array(
+            [
+                (cA0 - CA) / tau - q1,
+                -CP / tau + q1 - q2,
+                (T_in - T) / tau + J1 * q1 + J2 * q2 - kappa * (T - sc.T_c),
+            ]
+        )
+
+    def state_at(T):
+        k1 = r1.k0 * math.exp(-r1.Ea / (R_GAS * T))
+        k2 = r2.k0 * math.exp(-r2.Ea / (R_GAS * T))
+        CA = cA0 / (1 + tau * k1)
+        return [CA, tau * k1 * CA / (1 + tau * k2), T]
+
+    z = fsolve(rhs, state_at(T_guess), xtol=1e-12)
+    # the balances close at the state found (relative to the feed and tau)
+    assert np.max(np.abs(rhs(z)) * tau / np.array([cA0, cA0, z[2]])) < 1e-9
+    h = np.array([1e-6 * max(abs(z[0]), 1.0), 1e-6 * max(abs(z[1]), 1.0), 1e-6 * z[2]])
+    Jm = np.column_stack([(rhs(z + h[i] * np.eye(3)[i]) - rhs(z - h[i] * np.eye(3)[i])) / (2 * h[i]) for i in range(3)])
+    return np.linalg.eigvals(Jm)
+
+
+def test_hopf_point_next_to_a_fold_is_found_on_the_residence_time_branch(series):
+    """Defect 5: along the residence time a Hopf point where the leading pair is complex at one end of the
+    continuation step only (next to a fold) was missed: 2 of the 3 Hopf points were reported here."""
+    sc = series(UA=5000.0, T_c=300.0, T_in=300.0)
+    b = branch(sc, "residence_time", 1000.0, 300.0, lo=50.0, hi=5e4)
+    assert b.success
+    assert len(b.hopf_points) == 3
+    for hp in b.hopf_points:
+        ev = _series_jacobian_eigenvalues(sc, hp.tau, 300.0, hp.T)
+        lead = ev[np.argmax(ev.real)]
+        # independent (fsolve + finite-difference Jacobian of the balances above): a complex pair on the axis
+        assert abs(lead.imag) > 0
+        assert abs(lead.real) <= 1e-5 * abs(lead.imag)
+        # and the pair crosses: the real part has opposite signs 1 % to either side in residence time
+        sides = []
+        for f in (0.99, 1.01):
+            e2 = _series_jacobian_eigenvalues(sc, hp.tau * f, 300.0, hp.T)
+            sides.append(float(np.max(e2.real)))
+        assert sides[0] * sides[1] < 0

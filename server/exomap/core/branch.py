@@ -30,7 +30,7 @@ from scipy.optimize import brentq, fsolve
 
 from exomap.core.errors import ModelInputError
 from exomap.core.manifold import Manifold
-from exomap.core.opmap import FoldColumns, chains, cusps, fold_columns
+from exomap.core.opmap import FoldColumns, chains, cusps, fold_columns, unhide_fold_pairs
 from exomap.core.scenario import Scenario, validate
 from exomap.core.steady import check_point, roots_in_samples
 
@@ -144,6 +144,22 @@ def _lead(mf: Manifold, tau: float, s: float) -> tuple[float, bool, float]:
     return float(ev[k].real), bool(abs(ev[k].imag) > 1e-12 * max(abs(ev[k].real), 1e-30)), float(abs(ev[k].imag))
 
 
+def _hopf_fn(mf: Manifold, tau: float, s: float) -> tuple[float, bool]:
+    """(h, meaningful) of ``Manifold.stability``: a smooth function of the point that changes sign where a
+    complex pair crosses the imaginary axis (the trace for one reaction, minus the Hurwitz determinant for
+    two), meaningful where a complex pair can exist there (det > 0, or a negative discriminant). Unlike the
+    leading real part it does not jump where the leading eigenvalue turns real (next to a fold)."""
+    smp = _one(mf, tau, s)
+    _, h, ok = mf.stability(np.array([tau]), smp.T, smp.xi, mf.state_C(smp))
+    return float(h[0]), bool(ok[0])
+
+
+def _is_hopf(mf: Manifold, tau: float, s: float) -> bool:
+    """A zero of the Hopf function is a Hopf point when the leading pair there is complex and on the axis."""
+    re, cplx, im = _lead(mf, tau, s)
+    return cplx and abs(re) <= 1e-6 * max(im, 1e-300)
+
+
 def _conversion(mf: Manifold, C: np.ndarray) -> float:
     return float(mf.conversion(np.array(C[mf.key])))
 
@@ -163,12 +179,15 @@ def default_range(sc: Scenario, along: str, tau: float, T_in: float) -> tuple[fl
 # -- along the feed temperature ---------------------------------------------------------------------------
 def _along_feed_temperature(mf: Manifold, tau: float, lo: float, hi: float, n: int):
     T_lo, T_hi = mf.temperature_window(lo, hi, tau)
-    smp = mf.sample(np.array([tau]), T_lo, T_hi, n)
+    # a fold pair closer together than one sample (next to a cusp) is brought out first, as on the map
+    smp = unhide_fold_pairs(mf, mf.sample(np.array([tau]), T_lo, T_hi, n))
     s, T_in, d = smp.s[0], smp.T_in[0], smp.dTin_ds[0]
     ok = smp.valid[0] & np.isfinite(T_in)
     C = mf.state_C(smp)
     lead, cplx = mf.leading_real_part(smp.tau, smp.T, smp.xi, C)
     lead, cplx = lead[0], cplx[0]
+    _, hf, hok = mf.stability(smp.tau, smp.T, smp.xi, C)
+    hf, hok = hf[0], hok[0]
     points: list[BranchPoint] = []
     turns: list[TurningPoint] = []
     hopfs: list[HopfPoint] = []
@@ -198,10 +217,12 @@ def _along_feed_temperature(mf: Manifold, tau: float, lo: float, hi: float, n: i
             e = _one(mf, tau, sf)
             if lo <= e.T_in[0] <= hi:
                 turns.append(TurningPoint(_fold_kind(mf, tau, sf), tau, float(e.T_in[0]), float(e.T[0])))
-        if cplx[k] and cplx[k + 1] and lead[k] * lead[k + 1] < 0:
-            sh = brentq(lambda x: _lead(mf, tau, x)[0], s[k], s[k + 1], xtol=1e-300, rtol=1e-15)
+        # a Hopf point: the smooth Hopf function changes sign with a complex pair possible at either end (the
+        # pair may be complex at one end only: next to a fold, or where a real eigenvalue leads)
+        if (hok[k] or hok[k + 1]) and hf[k] * hf[k + 1] < 0:
+            sh = brentq(lambda x: _hopf_fn(mf, tau, x)[0], s[k], s[k + 1], xtol=1e-300, rtol=1e-15)
             e = _one(mf, tau, sh)
-            if lo <= e.T_in[0] <= hi:
+            if lo <= e.T_in[0] <= hi and _is_hopf(mf, tau, sh):
                 hopfs.append(HopfPoint(tau, float(e.T_in[0]), float(e.T[0]), _lead(mf, tau, sh)[2]))
     return points, turns, hopfs
 
@@ -379,17 +400,18 @@ def _along_residence_time(mf: Manifold, T_in: float, lo: float, hi: float, max_s
                 continue
             e = _one(mf, tau, s)
             re, cplx, _ = _lead(mf, tau, s)
+            hf, hok = _hopf_fn(mf, tau, s)
             if i < len(path):
                 points.append(
                     BranchPoint(tau, tau, T_in, float(e.T[0]), _conversion(mf, mf.state_C(e)[0]), re < 0, cplx, k)
                 )
-            cur = (X, Y, tx, re, cplx)
+            cur = (X, Y, tx, hf, hok)
             if prev is not None:
                 if prev[2] * tx < 0:
                     tp = _refine_fold(plane, 0.5 * (prev[0] + X), 0.5 * (prev[1] + Y))
                     if tp is not None:
                         turns.append(tp)
-                if prev[4] and cplx and prev[3] * re < 0:
+                if (prev[4] or hok) and prev[3] * hf < 0:
                     hp = _refine_hopf(plane, prev, cur)
                     if hp is not None:
                         hopfs.append(hp)
@@ -483,7 +505,7 @@ def _refine_hopf(plane: _Plane, a: tuple, b: tuple) -> HopfPoint | None:
         Y = a[1] + t * (b[1] - a[1])
         X, Y, _ = plane.correct(X, Y)
         tau, s = plane.tau_s(X, Y)
-        return _lead(mf, tau, s)[0]
+        return _hopf_fn(mf, tau, s)[0]
 
     try:
         t = brentq(lead_on_curve, 0.0, 1.0, xtol=1e-14)
@@ -491,6 +513,8 @@ def _refine_hopf(plane: _Plane, a: tuple, b: tuple) -> HopfPoint | None:
         return None
     X, Y, _ = plane.correct(a[0] + t * (b[0] - a[0]), a[1] + t * (b[1] - a[1]))
     tau, s = plane.tau_s(X, Y)
+    if not _is_hopf(mf, tau, s):  # the Hopf function's zero with real eigenvalues: not a Hopf point
+        return None
     e = _one(mf, tau, s)
     return HopfPoint(tau, plane.T_in, float(e.T[0]), _lead(mf, tau, s)[2])
 

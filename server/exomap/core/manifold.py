@@ -34,7 +34,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from exomap.core.errors import ModelInputError
-from exomap.core.scenario import R_GAS, Scenario
+from exomap.core.scenario import R_GAS, Scenario, check_zero_orders
 
 #: Largest |log-odds| of the one-reaction coordinate: conversions from e^-700 to 1 - e^-700.
 W_BOUND = 700.0
@@ -105,6 +105,8 @@ class Manifold:
             raise ModelInputError(
                 "feed concentrations must be one finite value >= 0 per species", field="feed.concentrations"
             )
+        if c_in is not None:  # a feed other than the scenario's (validated with its own) may make one run out
+            check_zero_orders(sc.species, sc.nu, sc.orders, self.c_in)
         self.T_c = sc.T_c if T_c is None else float(T_c)
         rhocpV = sc.rho * sc.cp * sc.vessel.V_set
         self.kappa = sc.UA_jacket / rhocpV

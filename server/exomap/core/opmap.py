@@ -308,7 +308,7 @@ class FoldColumns:
     cplx: np.ndarray  # where it is meaningful
 
 
-def _unhide_fold_pairs(mf: Manifold, smp: Samples) -> Samples:
+def unhide_fold_pairs(mf: Manifold, smp: Samples) -> Samples:
     """A fold pair closer together than one sample (next to a cusp) shows no sign change of dT_in/ds. Look
     inside every local minimum of |dT_in/ds| for an extremum of the other sign, and move that sample onto the
     extremum, so that the sign-change search below sees both folds."""
@@ -349,7 +349,7 @@ def _unhide_fold_pairs(mf: Manifold, smp: Samples) -> Samples:
 
 def fold_columns(mf: Manifold, smp: Samples) -> FoldColumns:
     """Folds of every sampled column, refined to machine precision, and the Hopf indicator on the samples."""
-    smp = _unhide_fold_pairs(mf, smp)
+    smp = unhide_fold_pairs(mf, smp)
     d = smp.dTin_ds
     c, k = np.nonzero((d[:, :-1] * d[:, 1:]) < 0)
     xi0 = None if mf.explicit else smp.C[c, k]
@@ -660,13 +660,17 @@ def _solve_cusp(
 def _hopf(mf: Manifold, tau: np.ndarray, cols: FoldColumns) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Hopf points of every column: (column, coordinate s, feed temperature)."""
     lead, cplx, smp = cols.lead, cols.cplx, cols.smp
-    ch = cplx[:, :-1] & cplx[:, 1:] & ((lead[:, :-1] * lead[:, 1:]) < 0)
+    # the smooth Hopf function changes sign with a complex pair possible at either end of the step (it may be
+    # complex at one end only: next to a fold, or where a real eigenvalue leads); the zero is then kept only
+    # where a complex pair exists there
+    ch = (cplx[:, :-1] | cplx[:, 1:]) & ((lead[:, :-1] * lead[:, 1:]) < 0)
     c, k = np.nonzero(ch)
     if c.size == 0:
         return c, np.zeros(0), np.zeros(0)
     xi0 = None if mf.explicit else smp.C[c, k]
     _, e = _refine(mf, tau[c], smp.s[c, k], smp.s[c, k + 1], lead[c, k], lambda e: _hopf_function(mf, e), xi0)
-    return c, e.s, e.T_in
+    keep = mf.stability(e.tau, e.T, e.xi, mf.state_C(e))[2] & np.isfinite(e.T_in)
+    return c[keep], e.s[keep], e.T_in[keep]
 
 
 def _max_temperature_curve(sc: Scenario, mf: Manifold, tau: np.ndarray, tin_lo: float, tin_hi: float) -> np.ndarray:

@@ -142,8 +142,12 @@ def check_point(tau: float, T_in: float) -> None:
 
 
 def roots_along(mf: Manifold, tau: float, T_in: float, T_lo: float, T_hi: float, n: int = POINT_SAMPLES) -> list[float]:
-    """Coordinates s of every root of T_in(tau, s) = T_in, for one tau."""
-    smp = mf.sample(np.array([tau]), T_lo, T_hi, n)
+    """Coordinates s of every root of T_in(tau, s) = T_in, for one tau. A fold pair closer together than one
+    sample (next to a cusp) is brought out first (``opmap.unhide_fold_pairs``, as the map does), so the three
+    states between its two folds are not reported as one."""
+    from exomap.core.opmap import unhide_fold_pairs
+
+    smp = unhide_fold_pairs(mf, mf.sample(np.array([tau]), T_lo, T_hi, n))
     return roots_in_samples(mf, tau, T_in, smp.s[0], smp.T_in[0] - T_in, smp.dTin_ds[0], smp.valid[0])
 
 
