@@ -9,7 +9,8 @@ beforehand, so the numbers are the database's):
 - insert: ``Database.insert_if_absent`` of a new row (one transaction, committed on return);
 - save again: ``ScenarioStore.save`` of a scenario already stored (validation + insert that does nothing + read);
 - get: ``ScenarioStore.get`` by id;
-- list: ``ScenarioStore.list`` of all rows.
+- page: ``ScenarioStore.page`` of 100 summaries (what ``GET /api/v1/scenarios`` reads);
+- list all: ``ScenarioStore.list``, every row with its document (what a study's "all saved" reads).
 
 Printed: median and 95th percentile per operation and backend [ms] and the ratio PostgreSQL / SQLite of the
 medians, with the load average first and last (another job on the 2 cores changes the numbers).
@@ -54,7 +55,7 @@ def stats(samples: list[float]) -> tuple[float, float]:
 
 def measure(store: ScenarioStore, docs: list[dict], table: list[Row]) -> dict[str, tuple[float, float]]:
     db = store.database
-    timings: dict[str, list[float]] = {"insert": [], "save again": [], "get": [], "list": []}
+    timings: dict[str, list[float]] = {"insert": [], "save again": [], "get": [], "page": [], "list all": []}
     for row in table:
         t0 = time.perf_counter()
         assert db.insert_if_absent(row)
@@ -70,8 +71,12 @@ def measure(store: ScenarioStore, docs: list[dict], table: list[Row]) -> dict[st
         timings["get"].append(time.perf_counter() - t0)
     for _ in range(20):
         t0 = time.perf_counter()
+        store.page(limit=100, offset=0)
+        timings["page"].append(time.perf_counter() - t0)
+    for _ in range(20):
+        t0 = time.perf_counter()
         listed = store.list()
-        timings["list"].append(time.perf_counter() - t0)
+        timings["list all"].append(time.perf_counter() - t0)
     assert len([s for s in listed if not s.demo]) == len(table)
     return {k: stats(v) for k, v in timings.items()}
 

@@ -217,3 +217,42 @@ def test_all_saved_scenarios_of_a_store(tmp_path: Path, database_url: str, load_
     assert main(["study", str(missing), "--out", str(tmp_path / "m.jsonl"), "--store", database_url]) == 3
     (record,) = read_results(tmp_path / "m.jsonl").values()
     assert record["status"] == "failed" and "0123456789abcdef" in record["error"]["message"]
+
+
+def test_samples_run_the_analysis_under_uncertain_kinetics_when_installed(tmp_path: Path, load_demo, capsys) -> None:
+    """``samples`` makes a map the probability map of DESIGN.md §11 (exactly the core's answer), or is refused
+    naming the field where this installation has no uncertain-kinetics work."""
+    from importlib.util import find_spec
+
+    doc = load_demo("adiabatic-second-order")
+    doc["uncertainty"] = {
+        "parameters": [{"target": "reactions[0].rate_constant", "distribution": "lognormal", "factor": 1.5}]
+    }
+    study = {
+        "format": FORMAT,
+        "scenarios": ["tank.json"],
+        "analyses": [{"name": "map", "points": [12, 8], "samples": 8}],
+    }
+    if find_spec("exomap.core.uncertainty") is None:
+        with pytest.raises(StudyError, match="no uncertain-kinetics") as info:
+            plan_study(study, base_dir=tmp_path)
+        assert info.value.errors[0]["field"] == "analyses[0].samples"
+        return
+    from exomap.core.uncertainty import uncertainty_map
+    from exomap.study import dumps_line, run_case
+
+    (tmp_path / "tank.json").write_text(json.dumps(doc))
+    (case,) = plan_study(study, base_dir=tmp_path).cases
+    record = run_case(case)
+    assert record["status"] == "ok", record["error"]
+    sc = schema.parse_scenario(doc).to_core()
+    want = uncertainty_map(sc, samples=8, points=(12, 8)).to_dict()
+    assert json.loads(dumps_line(record))["answer"] == json.loads(dumps_line({"a": want}))["a"]
+    # a check with samples is the answer of exomap check --samples N --seed S --json
+    check = {"format": FORMAT, "scenarios": ["tank.json"], "analyses": [{"name": "check", "samples": 8, "seed": 3}]}
+    (case,) = plan_study(check, base_dir=tmp_path).cases
+    record = json.loads(dumps_line(run_case(case)))
+    assert record["status"] == "ok", record["error"]
+    assert record["answer"]["uncertainty"]["samples"] == 8
+    expected = _cli_json(capsys, "check", str(tmp_path / "tank.json"), "--samples", "8", "--seed", "3", "--json")
+    assert record["answer"] == expected

@@ -18,8 +18,9 @@ last line cut off by a crash, so a study interrupted at any moment resumes where
 
 This module orchestrates; the numbers come from the core, scenarios from the schema layer and, for stored ids and
 "all saved", from the scenario store (``exomap.web.store``: standard library and psycopg only, no web framework).
-Analyses live in a registry (``ANALYSES``): ``check``, ``steady`` and ``map``, and ``uncertainty_map`` when the
-installed core has ``exomap.core.uncertainty``.
+Analyses live in a registry (``ANALYSES``): ``check``, ``steady`` and ``map``; with a ``samples`` option a check
+or a map runs under the scenario's uncertain kinetics (DESIGN.md §11, as ``--samples`` of the CLI) when the
+installed core has that work (``exomap.core.uncertain_check``, ``exomap.core.uncertainty``).
 """
 
 from __future__ import annotations
@@ -72,6 +73,32 @@ def _no_options(raw: dict[str, Any], where: str) -> dict[str, Any]:
     return {}
 
 
+def _sampling_options(raw: dict[str, Any], where: str, module: str) -> dict[str, Any]:
+    """``samples`` (a whole number; 0 = the count of the scenario's uncertainty block) and ``seed``: the
+    analysis under uncertain kinetics (DESIGN.md §11), as ``--samples``/``--seed`` of the CLI."""
+    out: dict[str, Any] = {}
+    if "samples" not in raw and "seed" not in raw:
+        return out
+    if import_util.find_spec(module) is None:
+        raise StudyError(f"{where}.samples", "this installation has no uncertain-kinetics analyses")
+    if "seed" in raw and "samples" not in raw:
+        raise StudyError(f"{where}.seed", "seed applies to sampling: give samples as well")
+    for key in ("samples", "seed"):
+        if key in raw:
+            value = raw[key]
+            if not isinstance(value, int) or isinstance(value, bool) or value < 0:
+                raise StudyError(f"{where}.{key}", "expected a whole number >= 0")
+            out[key] = value
+    return out
+
+
+def _check_options(raw: dict[str, Any], where: str) -> dict[str, Any]:
+    for key in raw:
+        if key not in ("samples", "seed"):
+            raise StudyError(f"{where}.{key}", "unknown option; a check takes samples and seed")
+    return _sampling_options(raw, where, "exomap.core.uncertain_check")
+
+
 def _quantity(value: Any, dimension: str, where: str) -> float:
     from exomap.schema import parse_quantity
     from exomap.schema.errors import ScenarioError
@@ -82,9 +109,10 @@ def _quantity(value: Any, dimension: str, where: str) -> float:
         raise StudyError(where, exc.errors[0]["message"]) from None
 
 
-def _window_options(raw: dict[str, Any], where: str, extra: tuple[str, ...] = ()) -> dict[str, Any]:
-    """Options of a map: ``residence_time`` and ``feed_temperature`` ranges, ``points``, ``spacing``."""
-    known = {"residence_time", "feed_temperature", "points", "spacing", *extra}
+def _window_options(raw: dict[str, Any], where: str) -> dict[str, Any]:
+    """Options of a map: ``residence_time`` and ``feed_temperature`` ranges, ``points``, ``spacing``, and
+    ``samples``/``seed`` for the probability map under uncertain kinetics."""
+    known = {"residence_time", "feed_temperature", "points", "spacing", "samples", "seed"}
     for key in raw:
         if key not in known:
             raise StudyError(f"{where}.{key}", f"unknown option; expected one of {', '.join(sorted(known))}")
@@ -104,10 +132,12 @@ def _window_options(raw: dict[str, Any], where: str, extra: tuple[str, ...] = ()
         if raw["spacing"] not in ("log", "linear"):
             raise StudyError(f"{where}.spacing", "expected 'log' or 'linear'")
         out["spacing"] = raw["spacing"]
+    out.update(_sampling_options(raw, where, "exomap.core.uncertainty"))
     return out
 
 
 def _window_arguments(options: dict[str, Any]) -> dict[str, Any]:
+    """The keyword arguments of ``operating_map`` (and ``uncertainty_map``) from a map's options."""
     return {
         "tau_range": tuple(options["residence_time"]) if "residence_time" in options else None,
         "T_in_range": tuple(options["feed_temperature"]) if "feed_temperature" in options else None,
@@ -117,12 +147,15 @@ def _window_arguments(options: dict[str, Any]) -> dict[str, Any]:
 
 
 def _run_check(sc: Any, setpoint: dict[str, Any] | None, options: dict[str, Any]) -> dict[str, Any]:
+    assert setpoint is not None
+    point = {"tau": setpoint["residence_time_s"], "T_in": setpoint["feed_temperature_K"], "branch": setpoint["branch"]}
+    if "samples" in options:  # as exomap check --samples N [--seed S]
+        from exomap.core.uncertain_check import uncertain_check  # type: ignore[import-not-found,unused-ignore]
+
+        return uncertain_check(sc, samples=options["samples"] or None, seed=options.get("seed"), **point).to_dict()
     from exomap.core.check import check_setpoint
 
-    assert setpoint is not None
-    return check_setpoint(
-        sc, tau=setpoint["residence_time_s"], T_in=setpoint["feed_temperature_K"], branch=setpoint["branch"]
-    ).to_dict()
+    return check_setpoint(sc, **point).to_dict()
 
 
 def _run_steady(sc: Any, setpoint: dict[str, Any] | None, options: dict[str, Any]) -> dict[str, Any]:
@@ -133,27 +166,15 @@ def _run_steady(sc: Any, setpoint: dict[str, Any] | None, options: dict[str, Any
 
 
 def _run_map(sc: Any, setpoint: dict[str, Any] | None, options: dict[str, Any]) -> dict[str, Any]:
+    if "samples" in options:  # as exomap map --samples N [--seed S]: the probability map
+        from exomap.core.uncertainty import uncertainty_map  # type: ignore[import-not-found,unused-ignore]
+
+        return uncertainty_map(
+            sc, samples=options["samples"] or None, seed=options.get("seed"), **_window_arguments(options)
+        ).to_dict()
     from exomap.core.opmap import operating_map
 
     return operating_map(sc, **_window_arguments(options)).to_dict()
-
-
-def _uncertainty_options(raw: dict[str, Any], where: str) -> dict[str, Any]:
-    out = _window_options(raw, where, extra=("samples", "seed"))
-    for key in ("samples", "seed"):
-        if key in raw:
-            if not isinstance(raw[key], int) or isinstance(raw[key], bool) or raw[key] < 0:
-                raise StudyError(f"{where}.{key}", "expected a whole number >= 0")
-            out[key] = raw[key]
-    return out
-
-
-def _run_uncertainty_map(sc: Any, setpoint: dict[str, Any] | None, options: dict[str, Any]) -> dict[str, Any]:
-    from exomap.core.uncertainty import uncertainty_map  # type: ignore[import-not-found,unused-ignore]
-
-    return uncertainty_map(
-        sc, samples=options.get("samples"), seed=options.get("seed"), **_window_arguments(options)
-    ).to_dict()
 
 
 ANALYSES: dict[str, Analysis] = {}
@@ -164,11 +185,9 @@ def register(analysis: Analysis) -> None:
     ANALYSES[analysis.name] = analysis
 
 
-register(Analysis("check", True, _no_options, _run_check))
+register(Analysis("check", True, _check_options, _run_check))
 register(Analysis("steady", True, _no_options, _run_steady))
 register(Analysis("map", False, _window_options, _run_map))
-if import_util.find_spec("exomap.core.uncertainty") is not None:  # the uncertain-kinetics work (DESIGN.md §11)
-    register(Analysis("uncertainty_map", False, _uncertainty_options, _run_uncertainty_map))
 
 
 # -- the plan ---------------------------------------------------------------------------------------------------

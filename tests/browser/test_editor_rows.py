@@ -27,6 +27,10 @@ def demo_ids(api: httpx.Client) -> dict[str, str]:
     return {s["name"]: s["id"] for s in api.get("/api/v1/scenarios").json()["scenarios"] if s["demo"]}
 
 
+def describe(page: Any) -> None:
+    page.fill("#editor [data-field='description'] textarea", "Invented: edited in a browser test.")
+
+
 def field(path: str) -> str:
     return f"#editor [data-field='{path}'] input"
 
@@ -76,6 +80,7 @@ def test_add_a_species_and_a_decomposition_reaction(
     group.scroll_into_view_if_needed()
     screenshot(page, "editor-rows-new-reaction")
 
+    page.fill("#editor [data-field='description'] textarea", "Invented: the jacketed demo with a decomposition.")
     page.click("#editor-save")
     new_id = saved_id(page, old_id)
     page.wait_for_function(MAP_DRAWN, timeout=TIMEOUT)
@@ -117,6 +122,7 @@ def test_remove_a_species_from_reactions_and_feed(page: Any, server: str, api: h
     assert page.locator(field("feed.concentrations.B")).count() == 0
     assert "B removed" in page.inner_text("#editor-rows-status")
 
+    describe(page)  # a changed scenario gets its own description (the page asks for one)
     page.click("#editor-save")
     new_id = saved_id(page, test_tank)
     page.wait_for_function(MAP_DRAWN, timeout=TIMEOUT)
@@ -153,6 +159,7 @@ def test_remove_a_reaction_keeps_what_was_typed_in_the_others(
     assert "at least one reaction" in refusal.inner_text()
     assert page.locator("#editor [data-group='reactions[0]']").count() == 1
 
+    describe(page)  # a changed scenario gets its own description (the page asks for one)
     page.click("#editor-save")
     new_id = saved_id(page, old_id)
     after = api.get(f"/api/v1/scenarios/{new_id}").json()
@@ -173,6 +180,7 @@ def test_bad_value_in_a_new_reaction_is_shown_beside_its_field(
     page.fill(field("reactions[1].orders.A"), "1")
     page.fill(field("reactions[1].pre_exponential"), "5 m")
     page.fill(field("reactions[1].reaction_enthalpy"), "-50 kJ/mol")  # activation energy left blank
+    describe(page)  # a changed scenario gets its own description (the page asks for one)
     page.click("#editor-save")
 
     err = page.locator("#editor [data-field='reactions[1].pre_exponential'] .field-error")

@@ -448,3 +448,18 @@ def test_an_upset_cap_longer_than_a_simulation_may_be_is_refused(cstr):
     with pytest.raises(LimitExceededError, match="longer than the limit of one simulation") as info:
         check_setpoint(sc)
     assert info.value.field == "check_policy.upset_duration"
+
+
+def test_the_cli_report_of_an_undetermined_check_says_only_what_failed(cstr, monkeypatch):
+    from exomap.cli.check import render
+    from exomap.core import steady
+
+    real = steady.steady_states
+    monkeypatch.setattr(steady, "steady_states", lambda *a, **k: replace(real(*a, **k), success=False, message="x"))
+    sc = cstr(20.0, 2.0).sc
+    text = render(sc, check_setpoint(sc))
+    assert "VERDICT: UNDETERMINED" in text and "What failed:" in text
+    assert "did not converge (x)" in text
+    for word in ("Margins", "Upsets", "MTSR", "INSIDE", "MARGINAL", "OUTSIDE"):
+        assert word not in text
+    assert "Screening aid" in text  # the cautions stay (DESIGN.md §9)

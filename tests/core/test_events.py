@@ -106,3 +106,35 @@ def test_describe_is_plain_words():
     (e,) = parse_events([{"at": 0, "add": "feed_temperature", "value": 10}])
     assert isinstance(e, Event)
     assert e.describe() == "feed temperature changed by +10 K"
+
+
+@pytest.mark.parametrize(
+    ("line", "obj"),
+    [
+        ("at 10 min set feed_temperature to 45 degC", {"at": "10 min", "set": "feed_temperature", "to": "45 degC"}),
+        ("at 10 min add feed_temperature 10 K", {"at": "10 min", "add": "feed_temperature", "value": "10 K"}),
+        ("at 10 min add feed_temperature by 10 K", {"at": "10 min", "add": "feed_temperature", "value": "10 K"}),
+        ("at 1800 scale feed_flow by 1.5", {"at": 1800.0, "scale": "feed_flow", "by": 1.5}),
+        (
+            "AT 1 h  ramp coolant_temperature to 40 degC over 20 min",
+            {"at": "1 h", "ramp": "coolant_temperature", "to": "40 degC", "over": "20 min"},
+        ),
+        ("at 5 min do feed_stop", {"at": "5 min", "do": "feed_stop"}),
+    ],
+)
+def test_event_lines_read_as_the_objects_they_stand_for(line, obj):
+    from exomap.core.events import event_from_text, parse_events
+
+    assert event_from_text(line) == obj
+    # parsed with SI numbers, a line and its object give the same event
+    if all(not isinstance(v, str) or k in ("set", "add", "scale", "ramp", "do") for k, v in obj.items()):
+        assert parse_events([line]) == parse_events([obj])
+
+
+@pytest.mark.parametrize("line", ["", "bogus", "at 10 min jump feed_temperature", "at 10 min set feed_temperature 45"])
+def test_a_line_that_is_not_an_event_names_its_index(line):
+    from exomap.core.events import parse_events
+
+    with pytest.raises(ModelInputError, match=r"^events\[1\]: ") as info:
+        parse_events([{"at": 0, "do": "feed_stop"}, line])
+    assert info.value.field == "events[1]"

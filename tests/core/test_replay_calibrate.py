@@ -109,7 +109,7 @@ def test_calibration_recovers_known_parameters(jacketed):
 @pytest.mark.slow
 def test_interval_coverage_over_seeded_replicates(jacketed):
     # cheap case: one hour, one record a minute, the jacket UA fitted alone; 100 seeded noise draws
-    sim, t, T_in, q = _ramped_run(jacketed, step=120.0, hours=2.0)
+    sim, t, T_in, q = _ramped_run(jacketed, step=120.0, hours=1.5)
     covered = 0
     for seed in range(100):
         rng = np.random.default_rng(1000 + seed)

@@ -27,6 +27,8 @@ from exomap.core.uncertainty import (
     uncertainty_map,
     upper_bound,
 )
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from scipy import stats
 
 
@@ -291,3 +293,34 @@ def test_answer_document_keys_and_robust_window(adiabatic):
     q95 = np.array([np.nan if r[1] is None else r[1] for r in band["q95"]])
     both = np.isfinite(q05) & np.isfinite(q95)
     assert both.any() and np.all(q05[both] <= q95[both])
+
+
+@settings(max_examples=60, deadline=None)
+@given(n_exp=st.integers(3, 14), data=st.data())
+def test_upper_bound_invariants(n_exp, data):
+    # invariants of an exact one-sided bound: above the estimate k/n, rising with k, 1 only at k = n, and the
+    # analytic value 1 - 0.05**(1/n) at k = 0
+    n = 2**n_exp
+    k = data.draw(st.integers(0, n - 1))
+    u = upper_bound(np.array([k, k + 1]), n)
+    assert k / n < u[0] < u[1] <= 1.0
+    assert u[0] < 1.0
+    assert float(upper_bound(0, n)) == pytest.approx(1.0 - 0.05 ** (1.0 / n), rel=1e-12)
+
+
+@settings(max_examples=6, deadline=None)
+@given(sd=st.floats(0.0, 4000.0), factor=st.floats(1.0, 2.0), seed=st.integers(0, 1000))
+def test_probability_map_invariants(adiabatic, sd, factor, seed):
+    # invariants: probabilities in [0, 1]; unsafe is runaway or unstable, so it lies between the larger of the
+    # two and their sum; every bound is at least its estimate; the robust window is where the unsafe bound is
+    # below the policy
+    spec = _spec(
+        _ea(sd), UncertainParameter("reactions[0].rate_constant", "lognormal", factor=factor), samples=16, seed=seed
+    )
+    um = uncertainty_map(adiabatic.sc, spec, tau_range=(20.0, 2000.0), T_in_range=(300.0, 380.0), points=(8, 6))
+    p = um.probability
+    for key in p:
+        assert np.all((p[key] >= 0) & (p[key] <= 1)) and np.all(um.upper[key] >= p[key])
+    assert np.all(p["unsafe"] >= np.maximum(p["runaway"], p["unstable"]))
+    assert np.all(p["unsafe"] <= p["runaway"] + p["unstable"] + 1e-12)
+    np.testing.assert_array_equal(um.robust, um.upper["unsafe"] < adiabatic.sc.policy.max_unsafe_probability)

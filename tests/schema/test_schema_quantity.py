@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+import re
 import subprocess
 import sys
 
@@ -59,7 +60,7 @@ def test_conversion(value, dimension, si):
     [
         ("2 m", "time", r"^vessel\.thing: '2 m' is not a time; expected a time, e\.g\. '40 min'"),
         ("2", "length", r"vessel\.thing: '2' has no unit; expected a length"),
-        ("2 blorps", "length", r"vessel\.thing: unit .blorps. not understood .*; expected a length"),
+        ("2 blorps", "length", r"vessel\.thing: unit .blorps. not understood; expected a length"),
         ("2 furlongs per fortnight", "length", r"vessel\.thing: .* is not a length; expected a length"),
         (float("nan"), "length", r"vessel\.thing: nan is not a finite number"),
         (float("inf"), "flow", r"vessel\.thing: inf is not a finite number; expected a volumetric flow"),
@@ -158,3 +159,49 @@ def test_threads_racing_for_the_first_registry_share_one():
         "assert len(out) == 8 and len(set(out)) == 1, out"
     )
     subprocess.run([sys.executable, "-c", code], check=True)
+
+
+# Gauge pressures and US gallons per minute, against scipy.constants (CODATA/NIST values: atm = 101325 Pa
+# exactly, psi = 6894.757... Pa, gallon = 3.785411784e-3 m^3 exactly)
+@pytest.mark.parametrize(
+    ("text", "si"),
+    [
+        ("0 barg", lambda c: c.atm),
+        ("0.2 barg", lambda c: 0.2 * c.bar + c.atm),
+        ("1.5 bar(g)", lambda c: 1.5 * c.bar + c.atm),
+        ("30 psig", lambda c: 30 * c.psi + c.atm),
+        ("50 kPag", lambda c: 50e3 + c.atm),
+        # an absolute pressure is not moved
+        ("1.2 bar", lambda c: 1.2 * c.bar),
+        ("14.7 psi", lambda c: 14.7 * c.psi),
+    ],
+)
+def test_gauge_pressures_read_above_the_standard_atmosphere(text, si):
+    import scipy.constants as c
+
+    assert parse_quantity(text, "pressure", "vessel.headspace_pressure") == pytest.approx(si(c), rel=1e-13)
+
+
+def test_gallons_per_minute():
+    import scipy.constants as c
+
+    assert parse_quantity("25 gpm", "flow", "feed.flow") == pytest.approx(25 * c.gallon / 60, rel=1e-13)
+    assert parse_quantity("25 gal/min", "flow", "feed.flow") == pytest.approx(25 * c.gallon / 60, rel=1e-13)
+
+
+@pytest.mark.parametrize(
+    ("value", "dimension", "match"),
+    [
+        ("1 barg", "length", r"x: '1 barg' is a gauge pressure, not a length"),
+        ("-2 barg", "pressure", r"x: '-2 barg' is below vacuum .*101325 Pa"),
+        ("2 blorps", "length", r"^x: unit 'blorps' not understood; expected a length"),
+        ("2 m/)", "length", r"^x: unit 'm/\)' not understood; expected a length"),
+        ({"a": 1}, "length", r"^x: got an object; expected a length"),
+        ([1, 2], "flow", r"^x: got a list; expected a volumetric flow"),
+    ],
+)
+def test_unit_errors_are_plain_words(value, dimension, match):
+    with pytest.raises(ScenarioError, match=match) as info:
+        parse_quantity(value, dimension, "x")
+    # no internal exception name reaches the message (pint's UndefinedUnitError, TokenError, ...)
+    assert not re.search(r"[A-Z][a-z]+(Error|Exception)\b|\bdict\b|\blist\b(?!;)", str(info.value)), str(info.value)

@@ -49,6 +49,23 @@ NO_DRIVING_PRESSURE = variant(
 )
 
 
+#: Invented plant data for the jacketed demo: 30 records a minute apart, feed warming by 2 K (a wide export).
+PLANT_CSV = "time,FI-101 [m^3/h],TI-101 [degC],TI-201 [degC]\n" + "".join(
+    f"2026-11-30T06:{k:02d}:00Z,2.7,{50 + 2 * k / 29:.3f},{80.3 + 0.1 * k:.2f}\n" for k in range(30)
+)
+PLANT_MAP = "FI-101=feed_flow,TI-101=feed_temperature,TI-201=reactor_temperature"
+
+
+def _plant_id() -> str:
+    from exomap.schema.plantdata import read_plant_csv
+
+    mapping = dict(p.split("=") for p in PLANT_MAP.split(","))
+    return read_plant_csv(PLANT_CSV, mapping=mapping).dataset_id
+
+
+DATASET = _plant_id()
+
+
 @dataclass(frozen=True)
 class Case:
     """One request: the operation it calls, the expected status, and what the answer must show."""
@@ -244,6 +261,68 @@ CASES: list[Case] = [
         f"/api/v1/scenarios/{SAVED}/simulate",
         params={"duration": "10 min", "format": "csv"},
     ),
+    # -- plant data: upload (stored by the fixture already), summary, replay, overlay, calibrate
+    Case(
+        "dataset-again",
+        "saveDataset",
+        "POST",
+        "/api/v1/datasets",
+        200,
+        content=PLANT_CSV.encode(),
+        params={"map": PLANT_MAP},
+        expect=lambda a: a["created"] is False and a["records"] == 30,
+    ),  # fmt: skip
+    Case(
+        "error-dataset-mapping",
+        "saveDataset",
+        "POST",
+        "/api/v1/datasets",
+        422,
+        content=PLANT_CSV.encode(),
+        params={"map": "TI-201=reactor_temprature"},
+    ),  # fmt: skip
+    Case("dataset-get", "getDataset", "GET", f"/api/v1/datasets/{DATASET}"),
+    Case("error-dataset-get", "getDataset", "GET", "/api/v1/datasets/0000000000000000", 404),
+    Case(
+        "replay",
+        "computeReplay",
+        "POST",
+        "/api/v1/replay",
+        json={"scenario_id": "jacketed-first-order", "dataset_id": DATASET},
+        expect=lambda a: a["residual_statistics"]["reactor_temperature_K"]["count"] == 30,
+    ),  # fmt: skip
+    Case(
+        "error-replay",
+        "computeReplay",
+        "POST",
+        "/api/v1/replay",
+        404,
+        json={"scenario_id": "jacketed-first-order", "dataset_id": "0000000000000000"},
+    ),  # fmt: skip
+    Case(
+        "overlay",
+        "computeOverlay",
+        "POST",
+        "/api/v1/overlay",
+        json={"scenario_id": "jacketed-first-order", "dataset_id": DATASET},
+    ),  # fmt: skip
+    Case("error-overlay", "computeOverlay", "POST", "/api/v1/overlay", 422, json={"dataset_id": DATASET}),
+    Case(
+        "calibrate",
+        "computeCalibrate",
+        "POST",
+        "/api/v1/calibrate",
+        json={"scenario_id": "jacketed-first-order", "dataset_id": DATASET, "fit": ["jacket.ua"]},
+        expect=lambda a: a["estimates"][0]["target"] == "jacket.ua",
+    ),  # fmt: skip
+    Case(
+        "error-calibrate",
+        "computeCalibrate",
+        "POST",
+        "/api/v1/calibrate",
+        422,
+        json={"scenario_id": "jacketed-first-order", "dataset_id": DATASET, "fit": ["jacket.k0"]},
+    ),  # fmt: skip
     # -- compare: two scenarios without checks, one scenario at two setpoints with both checks
     Case(
         "compare-two-scenarios",
@@ -353,6 +432,8 @@ def api(tmp_path_factory: pytest.TempPathFactory) -> Any:
     with TestClient(create_app(settings)) as client:
         saved = client.post("/api/v1/scenarios", json=ADIABATIC)
         assert saved.status_code == 201, saved.text
+        stored = client.post("/api/v1/datasets", params={"map": PLANT_MAP}, content=PLANT_CSV.encode())
+        assert stored.status_code == 201 and stored.json()["dataset_id"] == DATASET, stored.text
         yield client, saved.json()["id"]
 
 

@@ -158,6 +158,28 @@ def test_a_generated_client_calls_every_operation_with_typed_answers(generated: 
     ).parsed
     assert compared.checks is None and compared.fields
 
+    # plant data: upload a historian export, its summary, replay, overlay, calibrate
+    import io
+
+    from test_answers import PLANT_CSV, PLANT_MAP
+
+    file_type = importlib.import_module(f"{PACKAGE}.types").File
+    upload = file_type(payload=io.BytesIO(PLANT_CSV.encode()), file_name="plant.csv", mime_type="text/csv")
+    stored = call("plant_data.save_dataset", "DatasetAnswer", body=upload, map_=PLANT_MAP)
+    assert stored.status_code in (200, 201) and stored.parsed.records == 30
+    did = stored.parsed.dataset_id
+    call("plant_data.get_dataset", "DatasetAnswer", did)
+    plant = {"scenario_id": "jacketed-first-order", "dataset_id": did}
+    replayed = call("plant_data.compute_replay", "ReplayAnswer", body=_model("PlantRequest").from_dict(plant)).parsed
+    assert replayed.residual_statistics.additional_properties["reactor_temperature_K"].count == 30
+    call("plant_data.compute_overlay", "OverlayAnswer", body=_model("PlantRequest").from_dict(plant))
+    fitted = call(
+        "plant_data.compute_calibrate",
+        "CalibrationAnswer",
+        body=_model("CalibrateRequest").from_dict({**plant, "fit": ["jacket.ua"]}),
+    ).parsed
+    assert fitted.estimates[0].target == "jacket.ua"
+
     # errors parse into the error model
     missing = call("scenarios.get_scenario", "ErrorBody", "0123456789abcdef")
     assert missing.status_code == 404 and missing.parsed.error.code == "not_found"

@@ -8,6 +8,7 @@ and the URL module round-trips view state.
 from __future__ import annotations
 
 import html
+import json
 import re
 from html.parser import HTMLParser
 from importlib import resources
@@ -174,6 +175,7 @@ def test_partials_start_with_underscore() -> None:
         "missing.html",
         "compare.html",
         "compare_print.html",
+        "uncertainty.html",
     }
     for path in (ASSETS / "templates").glob("*.html"):
         text = path.read_text(encoding="utf-8")
@@ -220,6 +222,17 @@ def test_view_state_round_trips_through_urls() -> None:
         urls.api_answer("x", "nonsense")
 
 
+def test_links_carry_no_float_noise_and_the_sheet_keeps_its_sign_off() -> None:
+    # 37.06 min in seconds is 2223.6000000000004 in binary floating point; a link says 2223.6
+    url = urls.scenario_page("x", {"residence_time": 37.06 * 60, "feed_temperature": 273.15 + 50.1})
+    assert url == "/scenarios/x?residence_time=2223.6&feed_temperature=323.25"
+    state = {"residence_time": 2223.6, "prepared_by": "A. Engineer", "sim_events": "at 10 min do feed_stop"}
+    sheet = urls.print_page("x", state)
+    assert "prepared_by=A.%20Engineer" in sheet and "sim_events=at%2010%20min%20do%20feed_stop" in sheet
+    # the scenario page's own link does not carry the sign-off (it belongs to the sheet)
+    assert "prepared_by" not in urls.scenario_page("x", state)
+
+
 def test_missing_scenario_is_a_404_page_in_words(client: Any) -> None:
     r = client.get("/scenarios/0000000000000000")
     assert r.status_code == 404 and r.headers["content-type"].startswith("text/html")
@@ -250,13 +263,90 @@ def _srgb_to_lab_l(hex_colour: str) -> float:
 
 
 def test_region_colours_differ_in_lightness() -> None:
-    """The region colours stay apart without hue (colour-blind readers, greyscale print): every pair differs
-    in CIE L* by at least 10 (our own threshold; a lightness step of about 10 is easy to see, common practice)."""
+    """The region colours stay apart without hue (colour-blind readers, greyscale print): lightness falls with
+    the hazard (stable, sensitive, multiple, unstable, runaway), each step at least 12 in CIE L* (our own
+    threshold; a step of about 10 is easy to see, common practice) and at least 40 of 255 in the grey value a
+    greyscale conversion makes (Rec. 709 luma of the sRGB values, as CSS grayscale() uses)."""
     text = (ASSETS / "static" / "palette.js").read_text(encoding="utf-8")
-    block = text[text.index("REGION_COLOURS") : text.index("};")]
+    block = text[text.index("REGION_COLOURS") : text.index("};", text.index("REGION_COLOURS"))]
     colours = dict(re.findall(r'(\w+): "(#[0-9a-fA-F]{6})"', block))
-    assert set(colours) == {"stable", "sensitive", "multiple", "unstable", "runaway"}
-    lightness = {k: _srgb_to_lab_l(v) for k, v in colours.items()}
-    keys = sorted(lightness, key=lightness.get)
-    for a, b in zip(keys, keys[1:], strict=False):
-        assert lightness[b] - lightness[a] >= 10, (a, b, lightness)
+    order = ["stable", "sensitive", "multiple", "unstable", "runaway"]
+    assert set(colours) == set(order)
+    lightness = [_srgb_to_lab_l(colours[k]) for k in order]
+    grey = [_luma709(colours[k]) for k in order]
+    for i in range(len(order) - 1):
+        assert lightness[i] - lightness[i + 1] >= 12, (order[i], order[i + 1], lightness)
+        assert grey[i] - grey[i + 1] >= 40, (order[i], order[i + 1], grey)
+
+
+def _luma709(hex_colour: str) -> float:
+    """Grey value 0..255 of an sRGB colour with the Rec. 709 weights on the encoded values (CSS grayscale())."""
+    r, g, b = (int(hex_colour[i : i + 2], 16) for i in (1, 3, 5))
+    return 0.2126 * r + 0.7152 * g + 0.0722 * b
+
+
+def test_simulate_takes_the_event_lines_the_page_teaches(client: Any) -> None:
+    """POST /simulate and its GET twin read event lines ("at 10 min add feed_temperature 10 K") exactly as the
+    objects they stand for."""
+    sid = next(s["id"] for s in client.get("/api/v1/scenarios").json()["scenarios"] if s["demo"])
+    base = {"scenario_id": sid, "residence_time": "40 min", "duration": "1 h"}
+    objects = [
+        {"at": "10 min", "add": "feed_temperature", "value": "10 K"},
+        {"at": "20 min", "scale": "feed_flow", "by": 1.2},
+        {"at": "30 min", "do": "feed_stop"},
+    ]
+    lines = ["at 10 min add feed_temperature 10 K", "at 20 min scale feed_flow by 1.2", "at 30 min do feed_stop"]
+    want = client.post("/api/v1/simulate", json={**base, "events": objects})
+    assert want.status_code == 200, want.text
+    got = client.post("/api/v1/simulate", json={**base, "events": lines})
+    assert got.status_code == 200, got.text
+    assert got.json() == want.json()
+    twin = client.get(
+        f"/api/v1/scenarios/{sid}/simulate",
+        params={"residence_time": "40 min", "duration": "1 h", "events": "\n".join(["# comment", *lines, ""])},
+    )
+    assert twin.status_code == 200, twin.text
+    assert twin.json() == want.json()
+    bad = client.post("/api/v1/simulate", json={**base, "events": [lines[0], "at noon open the valve"]})
+    assert bad.status_code == 422
+    fields = bad.json()["error"]["fields"]
+    assert fields[0]["field"] == "events[1]" and "not an event line" in fields[0]["message"]
+
+
+def test_coolant_temperature_is_a_setpoint_of_a_jacketed_tank(client: Any) -> None:
+    """check, simulate and map take the coolant temperature; each answer is the core's on the scenario with
+    that coolant (the API's own default when it is absent), and a tank without a jacket refuses it by name."""
+    import dataclasses
+
+    from exomap import schema
+    from exomap.core.check import check_setpoint
+    from exomap.web.jobs import dumps
+
+    listing = client.get("/api/v1/scenarios").json()["scenarios"]
+    jacketed = next(s for s in listing if s["name"] == "jacketed-first-order")
+    doc = client.get(f"/api/v1/scenarios/{jacketed['id']}").json()
+    core = schema.parse_scenario(doc).to_core()
+    # 15 degC = 288.15 K (SI Brochure §2.3.1)
+    warm = dataclasses.replace(core, T_c=288.15)
+    want = json.loads(dumps(check_setpoint(warm, tau=2400.0, T_in=core.T_in).to_dict()))
+    got = client.get(
+        f"/api/v1/scenarios/{jacketed['id']}/check", params={"residence_time": 2400, "coolant_temperature": "15 degC"}
+    )
+    assert got.status_code == 200, got.text
+    assert got.json() == want
+    plain = client.get(f"/api/v1/scenarios/{jacketed['id']}/check", params={"residence_time": 2400}).json()
+    assert plain != want  # the coolant moved the answer, so the test can tell
+    m = client.get(
+        f"/api/v1/scenarios/{jacketed['id']}/map", params={"points": "20,20", "coolant_temperature": 288.15}
+    ).json()
+    m0 = client.get(f"/api/v1/scenarios/{jacketed['id']}/map", params={"points": "20,20"}).json()
+    assert m["region"] != m0["region"] or m["boundaries"] != m0["boundaries"]
+    sim = client.post(
+        "/api/v1/simulate",
+        json={"scenario_id": jacketed["id"], "residence_time": 2400, "duration": 600, "coolant_temperature": "15 degC"},
+    )
+    assert sim.status_code == 200, sim.text
+    adiabatic = next(s for s in listing if s["name"] == "adiabatic-second-order")
+    bad = client.get(f"/api/v1/scenarios/{adiabatic['id']}/check", params={"coolant_temperature": "15 degC"})
+    assert bad.status_code == 422
+    assert bad.json()["error"]["fields"][0]["field"] == "coolant_temperature"

@@ -318,3 +318,73 @@ def test_postgres_killed_during_saves_keeps_every_acknowledged_save(tmp_path: Pa
         store.close()
     finally:
         server.stop()
+
+
+@pytest.mark.slow
+def test_kill_9_of_an_instance_on_postgres_loses_no_acknowledged_save(tmp_path: Path, postgres_url: str) -> None:
+    """A real ``exomap serve`` on a PostgreSQL store; eight HTTP clients save different scenarios; the instance
+    is killed with SIGKILL mid-stream. Every save it acknowledged is in the database, byte for byte. (The same
+    on SQLite over HTTP is tests/web/test_store_faults.py; both backends at the store level are above.)"""
+    import httpx
+    from pgserver import free_port
+
+    launch = "import sys; from exomap.cli import main; sys.exit(main())"
+    port = free_port()
+    url = f"http://127.0.0.1:{port}"
+    proc = subprocess.Popen(
+        [sys.executable, "-c", launch, "serve", "--port", str(port), "--data-dir", str(tmp_path / "unused")],
+        env={**os.environ, "EXOMAP_EXECUTOR": "thread", "EXOMAP_DATABASE_URL": postgres_url},
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.DEVNULL,
+    )
+    try:
+        deadline = time.monotonic() + 120
+        while True:
+            assert proc.poll() is None and time.monotonic() < deadline, "exomap serve did not start"
+            try:
+                if httpx.get(url + "/api/v1/health", timeout=1).status_code == 200:
+                    break
+            except httpx.HTTPError:
+                time.sleep(0.1)
+        docs = _docs(400)
+        acknowledged: list[tuple[str, int]] = []
+        lock = threading.Lock()
+        stop = threading.Event()
+
+        def client(start: int) -> None:
+            with httpx.Client(base_url=url, timeout=10) as http:
+                for k in range(start, len(docs), 8):
+                    if stop.is_set():
+                        return
+                    try:
+                        response = http.post("/api/v1/scenarios", json=docs[k])
+                    except httpx.HTTPError:
+                        return  # the instance is gone
+                    if response.status_code in (200, 201):
+                        with lock:
+                            acknowledged.append((response.json()["id"], k))
+
+        threads = [threading.Thread(target=client, args=(s,)) for s in range(8)]
+        for t in threads:
+            t.start()
+        deadline = time.monotonic() + 90
+        while len(acknowledged) < 40 and time.monotonic() < deadline:
+            time.sleep(0.01)
+        os.kill(proc.pid, signal.SIGKILL)  # in the middle of eight clients' saves
+        proc.wait(timeout=30)
+        stop.set()
+        for t in threads:
+            t.join(timeout=60)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait()
+    assert 40 <= len(acknowledged) < len(docs), len(acknowledged)
+    store = ScenarioStore(open_database(postgres_url, tmp_path))  # another instance on the same database
+    try:
+        for sid, k in acknowledged:
+            stored = store.get(sid)
+            assert stored is not None, f"acknowledged save of document {k} ({sid}) was lost"
+            assert stored.document == schema.canonical_json(docs[k])  # byte for byte
+    finally:
+        store.close()

@@ -127,7 +127,7 @@ def test_demos_are_listed_with_their_file_names(client) -> None:
     assert [d["name"] for d in demos] == files
     for d in demos:
         assert HEX16.match(d["id"])
-        assert set(d) == {"id", "title", "description", "demo", "name"}
+        assert set(d) == {"id", "title", "description", "demo", "name", "derived_from"}
         doc = client.get(f"/api/v1/scenarios/{d['id']}")
         assert doc.status_code == 200
         assert schema.scenario_id(doc.json()) == d["id"]
@@ -145,3 +145,43 @@ def test_saving_a_demo_returns_the_demo(client) -> None:
     assert response.status_code == 200
     assert response.json() == demos[0]
     assert len(client.get("/api/v1/scenarios").json()["scenarios"]) == len(listing)
+
+
+def test_lineage_is_store_metadata_not_content(make_client, tmp_path: Path) -> None:
+    """A scenario saved from an edit records the one it came from; the id stays the content's; the record
+    survives a restart, and an old database without the column gets it on open."""
+    import sqlite3
+
+    data = tmp_path / "lineage"
+    data.mkdir()
+    # a database as made before lineage was kept
+    old = sqlite3.connect(data / SQLiteDatabase.FILE_NAME)
+    old.execute(
+        "CREATE TABLE scenarios (id TEXT PRIMARY KEY, title TEXT NOT NULL, description TEXT NOT NULL, "
+        "document TEXT NOT NULL, saved_at REAL NOT NULL)"
+    )
+    old.commit()
+    old.close()
+    client = make_client(data_dir=data)
+    origin = client.post("/api/v1/scenarios", json=ADIABATIC).json()
+    assert origin["derived_from"] is None
+    edited = variant(title="edited copy")
+    r = client.post("/api/v1/scenarios", params={"derived_from": origin["id"]}, json=edited)
+    assert r.status_code == 201 and r.json()["derived_from"] == origin["id"]
+    # the content id does not depend on the lineage
+    assert r.json()["id"] == schema.scenario_id(schema.parse_scenario(edited))
+    # a second save of the same content, from elsewhere, changes nothing
+    again = client.post("/api/v1/scenarios", params={"derived_from": r.json()["id"]}, json=edited)
+    assert again.status_code == 200 and again.json()["derived_from"] == origin["id"]
+    # a demo named by its file name is recorded by its id
+    demo = next(s for s in client.get("/api/v1/scenarios").json()["scenarios"] if s["demo"])
+    other = client.post("/api/v1/scenarios", params={"derived_from": demo["name"]}, json=variant(title="from demo"))
+    assert other.json()["derived_from"] == demo["id"]
+    # an unknown origin is refused, naming the field, and nothing is stored
+    before = client.get("/api/v1/scenarios").json()
+    bad = client.post("/api/v1/scenarios", params={"derived_from": "0000000000000000"}, json=variant(title="x"))
+    assert bad.status_code == 422 and bad.json()["error"]["fields"][0]["field"] == "derived_from"
+    assert client.get("/api/v1/scenarios").json() == before
+    client.__exit__(None, None, None)
+    listed = {s["id"]: s for s in make_client(data_dir=data).get("/api/v1/scenarios").json()["scenarios"]}
+    assert listed[r.json()["id"]]["derived_from"] == origin["id"]

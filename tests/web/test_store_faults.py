@@ -205,8 +205,11 @@ def test_read_only_store_at_run_time_is_a_503(make_client, tmp_path: Path) -> No
         doc["title"] = "saved into a read-only store"
         response = client.post("/api/v1/scenarios", json=doc)
         assert_error(response, 503, "store_unavailable")
-        # a WAL database cannot even be read when its -shm file cannot be written: 503 as well, never a 500
-        assert_error(client.get("/api/v1/scenarios"), 503, "store_unavailable")
+        # reading: SQLite may or may not read a WAL database whose -shm file it cannot write (it depends on how
+        # the files were made read-only); either way the answer is the listing or a 503, never a 500
+        listing = client.get("/api/v1/scenarios")
+        if listing.status_code != 200:
+            assert_error(listing, 503, "store_unavailable")
     # writable again: the store serves and saves as before
     assert client.post("/api/v1/scenarios", json=doc).status_code == 201
 

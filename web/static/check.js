@@ -1,7 +1,7 @@
 // Rendering of the setpoint check (verdict, reasons, margins, safety figures, states, upsets) and of
 // simulated responses. Shared by the scenario page and the print view.
 
-import { fmtByKey, plainKey, fmtTemp, fmtTime, fmtPct, fmtDeltaK, toC } from "./units.js";
+import { fmtByKey, plainKey, fmtTemp, fmtTime, fmtPct, fmtDeltaK, toC, plainText } from "./units.js";
 
 export const VERDICT_WORDS = {
   inside: "Inside the safe window",
@@ -34,7 +34,7 @@ const ENDINGS = {
 export function upsetEnding(u) {
   if (u.stop_reason === "solver_failed") return "could not be simulated";
   const words = ENDINGS[u.ending] || u.ending || u.stop_reason || "—";
-  if (!["rising", "falling", "oscillating", "moving"].includes(u.ending)) return `${words} at ${fmtTime(u.end_time_s)}`;
+  if (!["rising", "falling", "oscillating", "moving"].includes(u.ending)) return `${words} at ${fmtTime(u.end_time_s, 3)}`;
   const bound = u.ending === "rising" && Number.isFinite(u.adiabatic_ceiling_K)
     ? `, can reach at most ${fmtTemp(u.adiabatic_ceiling_K)}` : "";
   return `${words} (${fmtTime(u.duration_s)})${bound}`;
@@ -44,8 +44,47 @@ export function upsetEnding(u) {
 export function upsetAlarms(u) {
   if (u.stop_reason === "solver_failed") return "unknown";
   const alarms = u.alarms || [];
-  return alarms.length ? alarms.map((a) => `${ALARM_WORDS[a.kind] || String(a.kind).replace(/_/g, " ")} ${fmtTime(a.time_s)}`)
+  return alarms.length ? alarms.map((a) => `${ALARM_WORDS[a.kind] || String(a.kind).replace(/_/g, " ")} ${fmtTime(a.time_s, 3)}`)
     .join(" · ") : "none";
+}
+
+// Which state the tank is on, in the same words on the selector, the check, the simulation and the print sheet.
+export const BRANCH_WORDS = { low: "low (cold-start)", high: "high (hot)" };
+
+// The branch of the operating state: with several states, where it sits among the stable ones; with one,
+// what the margins found around it (an extinction point below it: it is on the high branch; an ignition point
+// ahead of it: the low one); null when the curve has no turning point near it.
+export function operatingBranch(chk) {
+  const states = chk.states || [];
+  const idx = chk.state_index ?? 0;
+  if (states.length > 1) {
+    const stable = states.map((s, i) => (s.stability === "stable" ? i : -1)).filter((i) => i >= 0);
+    if (stable.length > 1) return idx === stable[stable.length - 1] ? "high" : idx === stable[0] ? "low" : null;
+    return idx === states.length - 1 ? "high" : idx === 0 ? "low" : null;
+  }
+  const m = chk.margins || {};
+  const entries = Array.isArray(m) ? m : Object.entries(m).map(([k, v]) => ({ name: k, ...(v || {}) }));
+  const notes = entries.map((e) => String(e.note || "")).join(" ");
+  const has = (re) => entries.some((e) => re.test(e.name || "") && typeof e.value === "number");
+  if (/hot branch|high branch/.test(notes) || has(/extinction/)) return "high";
+  if (/low branch|cold branch/.test(notes) || has(/ignition/)) return "low";
+  return null;
+}
+
+// {sentence, short} describing the operating state.
+export function stateWords(chk) {
+  const states = chk.states || [];
+  if (!states.length) return { sentence: "no steady state was found", short: "no steady state" };
+  const s = states[chk.state_index ?? 0] || states[0];
+  const b = operatingBranch(chk);
+  const stab = `${s.stability}${s.oscillatory ? ", oscillatory" : ""}`;
+  if (states.length === 1) {
+    const where = b ? `, on the ${BRANCH_WORDS[b]} branch` : "";
+    return { sentence: `the only steady state (${stab})${where}`, short: `only one steady state${where}` };
+  }
+  const which = b ? `the ${BRANCH_WORDS[b]} state` : "a middle state";
+  return { sentence: `${which} (${stab}), one of ${states.length} steady states`,
+    short: `${which}, one of ${states.length}` };
 }
 
 export function el(tag, attrs = {}, ...children) {
@@ -95,12 +134,16 @@ export function renderSafety(table, note, check) {
   rows.push(["Criticality class", s.criticality_class ? `${s.criticality_class} (${s.criticality_reason})`
     : `not given: ${s.criticality_reason || "—"}`]);
   for (const [k, v] of rows) table.append(el("tr", {}, el("th", { scope: "row", text: k }), el("td", { text: v })));
-  if (note) note.textContent = m.assumes ? `${m.assumes}.${m.note ? " " + m.note.charAt(0).toUpperCase() + m.note.slice(1) + "." : ""}` : "";
+  if (note) note.textContent = m.assumes ? plainText(`${m.assumes}.${m.note ? " " + m.note.charAt(0).toUpperCase() + m.note.slice(1) + "." : ""}`) : "";
 }
 
-export function renderList(ul, items) {
+// A list of sentences in plant units (the answer's own text, SI and all, on hover); `legend` names regions.
+export function renderList(ul, items, legend) {
   ul.textContent = "";
-  for (const it of items || []) ul.append(el("li", { text: textOf(it) }));
+  for (const it of items || []) {
+    const raw = textOf(it), shown = plainText(raw, legend);
+    ul.append(el("li", { text: shown, title: shown !== raw ? raw : null }));
+  }
   if (!items || !items.length) ul.append(el("li", { class: "muted", text: "none" }));
 }
 
@@ -123,12 +166,15 @@ export function renderKV(table, obj) {
 function fmtEntry(key, m) {
   const valueKey = Object.keys(m).find((k) => /^value/.test(k)) || Object.keys(m).find((k) => typeof m[k] === "number");
   const thrKey = Object.keys(m).find((k) => /^threshold|^limit/.test(k));
-  let s = valueKey ? fmtByKey(valueKey === "value" ? key : valueKey, m[valueKey]) : "";
-  if (thrKey && m[thrKey] !== null && m[thrKey] !== undefined) s += ` (threshold ${fmtByKey(thrKey === "threshold" ?
+  const note = m.note || m.message ? plainText(m.note || m.message) : "";
+  const value = valueKey ? m[valueKey] : null;
+  if (value === null || value === undefined) return note ? `not applicable: ${note}` : "none";
+  let s = fmtByKey(valueKey === "value" ? key : valueKey, value);
+  if (thrKey && m[thrKey] !== null && m[thrKey] !== undefined) s += ` (at least ${fmtByKey(thrKey === "threshold" ?
     key : thrKey, m[thrKey])})`;
-  if (m.ok === false || m.passed === false) s += " — below threshold";
-  if (m.note || m.message) s += ` — ${m.note || m.message}`;
-  return s || JSON.stringify(m);
+  if (m.ok === false || m.passed === false) s += " — below its threshold";
+  if (note) s += ` — ${note}`;
+  return s;
 }
 
 // the opening needed at the set level, or in words when no valve can take it (below or above its range)
@@ -169,7 +215,7 @@ export function renderUpsets(table, upsets, onOpen) {
     const lmin = u.level_min_m, lmax = u.level_max_m;
     const cells = [
       el("th", { scope: "row", text: upsetName(u, i) }), el("td", { text: fmtTemp(u.peak_temperature_K) }),
-      el("td", { text: fmtTime(u.peak_time_s) }), el("td", { class: "alarms", text: upsetAlarms(u) }),
+      el("td", { text: fmtTime(u.peak_time_s, 3) }), el("td", { class: "alarms", text: upsetAlarms(u) }),
       el("td", { text: Number.isFinite(lmin) && Number.isFinite(lmax) ? `${lmin.toFixed(2)}–${lmax.toFixed(2)} m` : "—" }),
       el("td", { text: upsetEnding(u) }),
     ];
@@ -223,14 +269,15 @@ export async function drawResponse(Plotly, node, sim, { maxK, alarmK, title, hei
   const annotations = why ? [{ x: x1, xref: "x", y: 1, yref: "paper", text: why, showarrow: false, xanchor: "right",
     yanchor: "bottom", font: { size: 11 } }] : [];
   const lay = {
-    height: 300, margin: { l: 58, r: 52, t: title || why ? 28 : 10, b: 90 },
+    height: 340, margin: { l: 58, r: 52, t: title || why ? 28 : 10, b: 120 },
     title: title ? { text: title, font: { size: 13 } } : undefined,
     xaxis: { title: { text: "Time [min]" }, ticks: "outside" },
     yaxis: { title: { text: "Tank temperature [°C]" }, ticks: "outside" },
-    yaxis2: { title: { text: "Level [m]" }, overlaying: "y", side: "right", showgrid: false,
+    // the level axis keeps its own round ticks (not those of the temperature grid)
+    yaxis2: { title: { text: "Level [m]" }, overlaying: "y", side: "right", showgrid: false, tickmode: "auto", nticks: 6,
       range: heightM ? [0, heightM * 1.05] : undefined },
     shapes, annotations,
-    legend: { orientation: "h", y: -0.25, yanchor: "top", font: { size: 11 } }, font: { family: "system-ui, sans-serif", size: 12 },
+    legend: { orientation: "h", y: -0.32, yanchor: "top", font: { size: 11 } }, font: { family: "system-ui, sans-serif", size: 12 },
   };
   node.dataset.endNote = why;
   await Plotly.react(node, tr, lay, { displayModeBar: false, responsive: true });

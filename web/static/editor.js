@@ -16,9 +16,24 @@ const UNITS = {
   specific_heat: ["kJ/(kg*K)", 1000, 0], flow: ["m^3/h", 1 / 3600, 0], concentration: ["mol/L", 1000, 0],
   molar_energy: ["kJ/mol", 1000, 0], time: ["s", 1, 0], minutes: ["min", 60, 0], conductance: ["kW/K", 1000, 0],
   power: ["kW", 1000, 0], inverse_length: ["1/m", 1, 0], fraction: ["", 1, 0], number: ["", 1, 0],
-  kv: ["", 1, 0],
+  kv: ["", 1, 0], temperature_difference: ["K", 1, 0], percent: ["%", 0.01, 0], hours: ["h", 3600, 0],
 };
-const UNIT_SHOWN = { kv: "m³/h at 1 bar", fraction: "0..1", temperature: "°C", number: "" };
+const UNIT_SHOWN = { kv: "m³/h at 1 bar", fraction: "0..1", temperature: "°C", number: "", sensitivity: "K per K" };
+
+// The thresholds of the setpoint check (check_policy), each in the unit an engineer reads it in. Defaults are
+// the project's (README); a policy key this list does not know yet is still shown, in SI.
+const POLICY_FIELDS = [
+  ["min_feed_temperature_margin", "Feed-temperature rise to ignition, at least", "temperature_difference"],
+  ["min_residence_time_margin", "Residence-time rise to ignition, at least", "percent"],
+  ["min_extinction_margin", "Feed-temperature drop to extinction (hot state), at least", "temperature_difference"],
+  ["min_temperature_margin", "Steady temperature below the maximum, at least", "temperature_difference"],
+  ["min_mtsr_margin", "MTSR below the maximum temperature, at least", "temperature_difference"],
+  ["sensitivity", "Sensitive above (steady-temperature rise per K of feed)", "number"],
+  ["valve_min", "Usable valve opening from", "percent"],
+  ["valve_max", "Usable valve opening to", "percent"],
+  ["upset_duration", "Simulated time of each upset", "hours"],
+  ["min_time_to_act", "Time to act before an overflow, at least", "minutes"],
+];
 
 const K0_UNIT = (n) => (n === 0 ? "mol/(m^3*s)" : n === 1 ? "1/s" : n === 2 ? "m^3/(mol*s)" : `m^${3 * (n - 1)}/(mol^${n - 1}*s)`);
 
@@ -72,7 +87,16 @@ function groups(doc) {
       ["limits.alarm_temperature", "Alarm temperature", "temperature"],
       ["limits.level_high", "High level", "length"], ["limits.level_low", "Low level", "length"],
       ["limits.technical_limit_temperature", "Maximum technical temperature (MTT)", "temperature"]] },
+    { title: "Check thresholds (blank: the project default)", key: "check_policy", fields: policyFields(doc) },
   ];
+}
+
+function policyFields(doc) {
+  const have = doc.check_policy || {};
+  const known = POLICY_FIELDS.filter(([k]) => k in have || k !== "min_time_to_act");
+  const extra = Object.keys(have).filter((k) => !POLICY_FIELDS.some(([p]) => p === k))
+    .map((k) => [k, k.replace(/_/g, " "), "number"]);
+  return [...known, ...extra].map(([k, label, kind]) => [`check_policy.${k}`, label, kind]);
 }
 
 // "reactions[0].orders.A" -> ["reactions", 0, "orders", "A"]

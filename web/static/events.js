@@ -1,8 +1,8 @@
 // The custom-events form: one event a line, in words, turned into the API's event objects.
-//   at 10 min set feed_temperature to 45 degC
+//   at 10 min set feed_temperature to 45 °C
 //   at 10 min add feed_temperature 10 K
 //   at 30 min scale feed_flow by 1.5
-//   at 1 h ramp coolant_temperature to 40 degC over 20 min
+//   at 1 h ramp coolant_temperature to 40 °C over 20 min
 //   at 5 min do feed_stop
 // A line may also be one JSON event object ({"at": 600, "do": "cooling_loss"}). Values keep their units as
 // typed; the server converts them.
@@ -58,12 +58,12 @@ export function eventLines(events) {
 }
 
 export function helpHTML() {
-  return `<p>One event a line. Times and values take units (s, min, h; degC, K; m^3/h; mol/L).</p>
+  return `<p>One event a line. Times and values take units (s, min, h; °C, K; m³/h, L/min, gpm; mol/L).</p>
 <ul>
-<li><code>at 10 min set feed_temperature to 45 degC</code> — jumps to a value</li>
+<li><code>at 10 min set feed_temperature to 45 °C</code> — jumps to a value</li>
 <li><code>at 10 min add feed_temperature 10 K</code> — jumps by an amount</li>
 <li><code>at 30 min scale feed_flow by 1.5</code> — multiplied by a factor</li>
-<li><code>at 1 h ramp coolant_temperature to 40 degC over 20 min</code> — moves linearly</li>
+<li><code>at 1 h ramp coolant_temperature to 40 °C over 20 min</code> — moves linearly</li>
 <li><code>at 5 min do feed_stop</code> — a plant action</li>
 </ul>
 <p>Quantities: ${QUANTITIES.map((q) => `<code>${q}</code>`).join(", ")}.</p>

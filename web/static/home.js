@@ -3,13 +3,14 @@
 import * as urls from "./urls.js";
 import { getJSON, postJSON, showProblem, wireProblemBox } from "./api.js";
 import { el } from "./check.js";
+import { plainText } from "./units.js";
 
 const $ = (id) => document.getElementById(id);
 
 function item(s) {
   const li = el("li", { class: "scenario-item", "data-id": s.id });
   li.append(el("a", { href: urls.scenarioPage(s.id), class: "scenario-link", text: s.title || s.name || s.id }));
-  if (s.description) li.append(el("p", { class: "muted small", text: s.description }));
+  if (s.description) li.append(el("p", { class: "muted small", text: plainText(s.description) }));
   const meta = el("p", { class: "small" }, el("code", { text: s.id }));
   if (s.demo) {
     meta.append(" · ", el("a", { href: urls.scenarioPage(s.id, { panel: "editor" }), class: "new-from-demo",

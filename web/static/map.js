@@ -1,8 +1,9 @@
 // The operating map: region heatmap, exact boundary curves, valve-limited dots and the setpoint marker.
 // The numbers are the map answer's own; only the display units change (residence time in min, °C).
 
-import { regionColour, LINES, VALVE_DOT, SETPOINT, steppedScale } from "./palette.js";
+import { regionColour, LINES, VALVE_DOT, VALVE_DOT_EDGE, SETPOINT, CASING, steppedScale } from "./palette.js";
 import { toMin, toC, fromMin, fromC } from "./units.js";
+import { el } from "./check.js";
 
 // Boundary curves arrive as [[tau, T_in], ...] (null entries break the line) or as a list of such segments.
 export function segments(b) {
@@ -120,7 +121,7 @@ export function traces(doc, setpoint) {
       for (let j = (i / step) % 2 ? Math.floor(step / 2) : 0; j < x.length; j += step)
         if (vl[i][j]) { px.push(x[j]); py.push(y[i]); }
     out.push({ type: "scatter", mode: "markers", name: "valve_limited", x: px, y: py, hoverinfo: "skip",
-      marker: { size: 3, color: VALVE_DOT, symbol: "circle" } });
+      marker: { size: 3.5, color: VALVE_DOT, symbol: "circle", line: { color: VALVE_DOT_EDGE, width: 0.6 } } });
   }
   const b = doc.boundaries || {};
   for (const [key, curve] of Object.entries(b)) {
@@ -129,6 +130,13 @@ export function traces(doc, setpoint) {
     segments(curve).flatMap((s) => (key === "cusp" ? [s] : chain(s, logx))).forEach((pts, k) => {
       if (!pts.length) return;
       const asPoint = key === "cusp" || pts.length === 1;
+      if (!asPoint) {
+        // the white casing under the line: visible on every region colour, the darkest included
+        out.push({
+          type: "scatter", name: `casing:${key}:${k}`, x: pts.map((p) => toMin(p[0])), y: pts.map((p) => toC(p[1])),
+          mode: "lines", hoverinfo: "skip", line: { color: CASING.color, width: style.width + CASING.extra },
+        });
+      }
       out.push({
         type: "scatter", name: `boundary:${key}:${k}`, x: pts.map((p) => toMin(p[0])), y: pts.map((p) => toC(p[1])),
         mode: asPoint ? "markers" : "lines", hoverinfo: "skip",
@@ -137,8 +145,17 @@ export function traces(doc, setpoint) {
       });
     });
   }
-  out.push(setpointTrace(setpoint));
+  out.push(setpointHalo(setpoint), setpointTrace(setpoint));
   return out;
+}
+
+// A white ring under the setpoint mark, so the mark shows on the dark regions.
+function setpointHalo(sp) {
+  return {
+    type: "scatter", mode: "markers", name: "setpoint-halo", hoverinfo: "skip", cliponaxis: false,
+    x: sp ? [toMin(sp.residence_time)] : [], y: sp ? [toC(sp.feed_temperature)] : [],
+    marker: { symbol: "circle-open", size: 20, color: SETPOINT.halo, line: { width: 4, color: SETPOINT.halo } },
+  };
 }
 
 function setpointTrace(sp) {
@@ -147,6 +164,24 @@ function setpointTrace(sp) {
     x: sp ? [toMin(sp.residence_time)] : [], y: sp ? [toC(sp.feed_temperature)] : [],
     marker: { symbol: "circle-x-open", size: 16, color: SETPOINT.color, line: { width: 3, color: SETPOINT.color } },
   };
+}
+
+// Readable ticks of a log axis over [lo, hi] (in the axis' own unit): 1, 2, 5, 10, 20, 50, ...; every whole
+// number of a decade when the window is narrower than that gives at least three ticks.
+export function logTicks(lo, hi) {
+  const pick = (mult) => {
+    const out = [];
+    for (let e = Math.floor(Math.log10(lo)) - 1; e <= Math.ceil(Math.log10(hi)); e++) {
+      for (const m of mult) {
+        const v = Number((m * 10 ** e).toPrecision(6));
+        if (v >= lo * (1 - 1e-9) && v <= hi * (1 + 1e-9)) out.push(v);
+      }
+    }
+    return out;
+  };
+  let vals = pick([1, 2, 5]);
+  if (vals.length < 3) vals = pick([1, 2, 3, 4, 5, 6, 7, 8, 9]);
+  return { tickvals: vals, ticktext: vals.map((v) => String(v)) };
 }
 
 export function layout(doc, { height = 430, title = "" } = {}) {
@@ -161,7 +196,7 @@ export function layout(doc, { height = 430, title = "" } = {}) {
     title: title ? { text: title, font: { size: 14 } } : undefined,
     height, margin: { l: 62, r: 14, t: title ? 34 : 10, b: 48 },
     xaxis: { title: { text: "Residence time [min]" }, type: logx ? "log" : "linear", range: xr, fixedrange: true,
-      dtick: logx ? "D2" : undefined,
+      ...(logx ? { tickmode: "array", ...logTicks(10 ** xr[0], 10 ** xr[1]) } : {}),
       showgrid: false, ticks: "outside" },
     yaxis: { title: { text: "Feed temperature [°C]" }, range: [ys[0] - half(ys, 0), ys[ys.length - 1] + half(ys, 1)],
       fixedrange: true, showgrid: false, ticks: "outside" },
@@ -191,14 +226,21 @@ export async function drawMap(Plotly, el, doc, setpoint, { onPick, onPreview, on
   for (const n of el.querySelectorAll(".map-placeholder, .map-preview")) n.remove();
   await Plotly.react(el, data, layout(doc, { height: height || el.clientHeight || 360 }), { displayModeBar: false, responsive: true, staticPlot });
   const spIndex = data.length - 1;
-  const setSetpoint = (sp) => Plotly.restyle(el, { x: [[toMin(sp.residence_time)]], y: [[toC(sp.feed_temperature)]] },
-    [spIndex]);
+  const setSetpoint = (sp) => {
+    const x = [toMin(sp.residence_time)], y = [toC(sp.feed_temperature)];
+    return Plotly.restyle(el, { x: [x, x], y: [y, y] }, [spIndex - 1, spIndex]);
+  };
   if (!staticPlot && !el.dataset.wired) {
     el.dataset.wired = "1";
     let dragging = false;
+    // a finger moves the setpoint only in the map's move mode; otherwise a touch scrolls the page, and a tap
+    // without movement reads the map there
+    const touchMoves = (ev) => ev.pointerType !== "touch" || el.classList.contains("move-mode");
+    let tap = null;
     el.addEventListener("pointerdown", (ev) => {
       const p = pointerToData(el, ev);
       if (!p || ev.button !== 0) return;
+      if (!touchMoves(ev)) { tap = { x: ev.clientX, y: ev.clientY, p }; return; }
       dragging = true;
       el.setPointerCapture?.(ev.pointerId);
       el._exomap.setSetpoint(p);
@@ -208,16 +250,20 @@ export async function drawMap(Plotly, el, doc, setpoint, { onPick, onPreview, on
     el.addEventListener("pointermove", (ev) => {
       const p = pointerToData(el, ev);
       if (dragging && p) { el._exomap.setSetpoint(p); el._exomap.onPreview?.(p); }
-      else if (p) el._exomap.onHover?.(p);
+      else if (p && ev.pointerType !== "touch") el._exomap.onHover?.(p);
     });
     const end = (ev) => {
+      if (tap) {
+        if (Math.hypot(ev.clientX - tap.x, ev.clientY - tap.y) < 10) el._exomap.onHover?.(tap.p);
+        tap = null;
+      }
       if (!dragging) return;
       dragging = false;
       const p = pointerToData(el, ev);
       if (p) el._exomap.onPick?.(p);
     };
     el.addEventListener("pointerup", end);
-    el.addEventListener("pointercancel", () => { dragging = false; });
+    el.addEventListener("pointercancel", () => { dragging = false; tap = null; });
   }
   el._exomap = { doc, setSetpoint, onPick, onPreview, onHover };
   return el._exomap;
@@ -256,13 +302,16 @@ export function drawPreview(el, doc, setpoint) {
   for (const [key, curve] of Object.entries(doc.boundaries || {})) {
     if (key === "cusp") continue;
     const style = LINES[key] || { color: "#333", width: 1.5, dash: "dot" };
-    g.strokeStyle = style.color;
-    g.lineWidth = style.width;
-    g.setLineDash({ solid: [], dash: [8, 4], dot: [2, 3], dashdot: [8, 3, 2, 3] }[style.dash] || []);
     for (const pts of segments(curve).flatMap((s) => chain(s, logx))) {
-      g.beginPath();
-      pts.forEach((p, k) => (k ? g.lineTo(px(p[0]), py(p[1])) : g.moveTo(px(p[0]), py(p[1]))));
-      g.stroke();
+      for (const [colour, width, dash] of [[CASING.color, style.width + CASING.extra, []],
+        [style.color, style.width, { solid: [], dash: [8, 4], dot: [2, 3], dashdot: [8, 3, 2, 3] }[style.dash] || []]]) {
+        g.strokeStyle = colour;
+        g.lineWidth = width;
+        g.setLineDash(dash);
+        g.beginPath();
+        pts.forEach((p, k) => (k ? g.lineTo(px(p[0]), py(p[1])) : g.moveTo(px(p[0]), py(p[1]))));
+        g.stroke();
+      }
     }
   }
   if (setpoint) {
@@ -279,4 +328,37 @@ export function drawPreview(el, doc, setpoint) {
   el.textContent = "";
   el.append(canvas);
   return true;
+}
+
+// The map's legend, the same on the page and the print sheet: each region in words, every boundary line drawn
+// (with its casing), the cusp, the valve dots when the map has any, and the setpoint mark.
+export function renderMapLegend(ul, doc) {
+  ul.textContent = "";
+  for (const e of legendEntries(doc)) {
+    ul.append(el("li", { "data-key": e.key }, el("span", { class: "swatch", style: `background:${e.colour}` }),
+      el("span", { text: e.label })));
+  }
+  const b = doc.boundaries || {};
+  const dashes = { solid: "", dash: "6 3", dot: "2 3", dashdot: "7 3 2 3" };
+  for (const [key, style] of Object.entries(LINES)) {
+    const curve = b[key];
+    if (!curve || (Array.isArray(curve) && !curve.length)) continue;
+    const sw = key === "cusp"
+      ? `<svg width="28" height="12" aria-hidden="true"><path d="M14 1 L20 6 L14 11 L8 6Z" fill="${style.color}" stroke="#fff" stroke-width="1"/></svg>`
+      : `<svg width="28" height="12" aria-hidden="true"><line x1="1" y1="6" x2="27" y2="6" stroke="${CASING.color}" stroke-width="${style.width + CASING.extra}"/><line x1="1" y1="6" x2="27" y2="6" stroke="${style.color}" stroke-width="${style.width}" stroke-dasharray="${dashes[style.dash]}"/></svg>`;
+    const li = el("li", { "data-key": `line:${key}` });
+    li.innerHTML = sw;
+    li.append(el("span", { text: style.label }));
+    ul.append(li);
+  }
+  if (Array.isArray(doc.valve_limited) && doc.valve_limited.some((r) => r.some(Boolean))) {
+    const li = el("li", { "data-key": "valve_limited" });
+    li.innerHTML = `<svg width="28" height="12" aria-hidden="true">${[6, 14, 22].map((x) => `<circle cx="${x}" cy="6" r="1.8" fill="${VALVE_DOT}" stroke="${VALVE_DOT_EDGE}" stroke-width="0.6"/>`).join("")}</svg>`;
+    li.append(el("span", { text: "dots: the outlet valve cannot pass this flow at the set level within its usable opening" }));
+    ul.append(li);
+  }
+  const li = el("li", { "data-key": "setpoint" });
+  li.innerHTML = `<svg width="28" height="14" aria-hidden="true"><circle cx="14" cy="7" r="5" fill="none" stroke="#000" stroke-width="2"/><path d="M10.5 3.5 L17.5 10.5 M17.5 3.5 L10.5 10.5" stroke="#000" stroke-width="1.6"/></svg>`;
+  li.append(el("span", { text: "setpoint" }));
+  ul.append(li);
 }

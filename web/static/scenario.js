@@ -2,21 +2,22 @@
 
 import * as urls from "./urls.js";
 import { getJSON, postJSON, showProblem, wireProblemBox, boot, plotlyReady, ApiError } from "./api.js";
-import { drawMap, drawPreview, cellAt, legendEntries, nearest } from "./map.js";
-import { LINES, VALVE_DOT } from "./palette.js";
+import { drawMap, drawPreview, cellAt, nearest, renderMapLegend } from "./map.js";
 import { drawBranch, drawHeatBalance } from "./curves.js";
 import { renderVerdict, renderList, renderKV, renderStates, renderUpsets, drawResponse, simulationSummary, upsetName,
-  el, renderSafety, showsDetails, upsetEnding } from "./check.js";
-import { parseTime, parseTemperature, fmtMin, fmtTemp, fmtPct, fmtTime, toC } from "./units.js";
+  el, stateWords, VERDICT_WORDS, renderSafety, showsDetails, upsetEnding } from "./check.js";
+import { parseTime, parseTemperature, parseFlow, fmtMin, fmtTime, fmtTemp, fmtPct, fmtFlow, inputMin, inputTemp, inputFlow,
+  clean } from "./units.js";
 import { Editor } from "./editor.js";
-import { parseEventLines, helpHTML } from "./events.js";
+import { helpHTML } from "./events.js";
 
 const $ = (id) => document.getElementById(id);
 const B = boot();
 const ID = B.scenario_id;
 let state = urls.readState();
 let Plotly = null;
-const view = { scenario: null, map: null, check: null, mapCtl: null, editor: null, seq: { check: 0, hover: 0, curves: 0 } };
+const view = { scenario: null, map: null, check: null, mapCtl: null, editor: null, simulation: null,
+  seq: { check: 0, hover: 0, curves: 0, sim: 0 } };
 window.exomap = { view, get state() { return state; } };
 
 // -- URL state ----------------------------------------------------------------------------------------
@@ -39,29 +40,45 @@ function syncURL(push = false) {
 window.addEventListener("popstate", () => {
   state = urls.readState();
   fillSetpointInputs();
+  fillSimulationInputs();
+  view.simulation = null;
   showPanel(state.panel || "check", false);
   refreshAll();
 });
 
 // -- defaults from the scenario ---------------------------------------------------------------------------
-function nominalTau(doc) {
-  const D = doc.vessel.diameter, h = doc.vessel.level_setpoint;
-  return (Math.PI * D * D / 4) * h / doc.feed.flow;
-}
-const roundTau = (s) => { const m = s / 60; const p = Number(m.toPrecision(3)); return Math.round(p * 60 * 1000) / 1000; };
-const roundTin = (K) => Math.round((Math.round((K - 273.15) * 10) / 10 + 273.15) * 100) / 100;
-const setpoint = () => ({ residence_time: state.residence_time, feed_temperature: state.feed_temperature });
+// Working volume at the level setpoint [m³]: residence time and feed flow are two faces of one setpoint.
+const volume = (doc) => (Math.PI * doc.vessel.diameter ** 2 / 4) * doc.vessel.level_setpoint;
+const nominalTau = (doc) => clean(volume(doc) / doc.feed.flow);
+const flowAt = (tau) => (view.scenario && Number.isFinite(tau) ? volume(view.scenario) / tau : NaN);
+const roundTau = (s) => { const m = s / 60; const p = Number(m.toPrecision(3)); return clean(p * 60); };
+const roundTin = (K) => clean(Math.round((K - 273.15) * 10) / 10 + 273.15);
+// The setpoint as the API takes it; the coolant temperature only when it is set away from the scenario's.
+const setpoint = () => ({ residence_time: state.residence_time, feed_temperature: state.feed_temperature,
+  ...(state.coolant_temperature ? { coolant_temperature: state.coolant_temperature } : {}) });
+// The scenario document as the setpoint has it (the heat balance is drawn from it).
+const scenarioAtSetpoint = () => (state.coolant_temperature && view.scenario.jacket
+  ? { ...view.scenario, jacket: { ...view.scenario.jacket, coolant_temperature: state.coolant_temperature } } : view.scenario);
+let spLast = "tau"; // which of residence time and feed flow was typed last: that one sets the setpoint
 
 function fillSetpointInputs() {
-  $("sp-tau").value = fmtMin(state.residence_time, 6);
-  $("sp-tin").value = `${Number(toC(state.feed_temperature).toFixed(3))} degC`;
-  $("sp-branch").value = state.branch === "high" ? "high" : "";
+  $("sp-tau").value = inputMin(state.residence_time);
+  $("sp-tin").value = inputTemp(state.feed_temperature);
+  const jacket = view.scenario && view.scenario.jacket;
+  $("sp-tc-field").hidden = !jacket;
+  if (jacket) $("sp-tc").value = inputTemp(state.coolant_temperature ?? jacket.coolant_temperature);
+  const q = flowAt(state.residence_time);
+  $("sp-flow").value = inputFlow(q);
+  const nominal = view.scenario ? view.scenario.feed.flow : NaN;
+  $("sp-flow-pct").textContent = Number.isFinite(q) && nominal ? `${Math.round(100 * q / nominal)} % of nominal` : "";
+  spLast = "tau";
+  $("sp-branch").value = state.branch === "high" ? "high" : "low";
   const m = view.map;
   const tr = state.map_residence_time || (m ? [m.residence_time_s[0], m.residence_time_s.at(-1)] : null);
   const tt = state.map_feed_temperature || (m ? [m.feed_temperature_K[0], m.feed_temperature_K.at(-1)] : null);
   const pts = state.points || (m ? [m.residence_time_s.length, m.feed_temperature_K.length] : null);
-  if (tr) { $("mw-tau-lo").value = fmtMin(tr[0], 5); $("mw-tau-hi").value = fmtMin(tr[1], 5); }
-  if (tt) { $("mw-tin-lo").value = `${Number(toC(tt[0]).toFixed(2))} degC`; $("mw-tin-hi").value = `${Number(toC(tt[1]).toFixed(2))} degC`; }
+  if (tr) { $("mw-tau-lo").value = inputMin(tr[0]); $("mw-tau-hi").value = inputMin(tr[1]); }
+  if (tt) { $("mw-tin-lo").value = inputTemp(tt[0]); $("mw-tin-hi").value = inputTemp(tt[1]); }
   if (pts) $("mw-points").value = `${pts[0]} × ${pts[1]}`;
 }
 
@@ -84,7 +101,10 @@ function showPanel(name, push = true) {
   if (changed) syncURL(push);
   if (name === "curves") loadCurves();
   if (name === "editor") openEditor();
-  if (name === "simulate") $("event-help").innerHTML = helpHTML();
+  if (name === "simulate") {
+    $("event-help").innerHTML = helpHTML();
+    if (hasSimulation() && !view.simulation && Plotly && view.scenario) runSimulation();
+  }
 }
 
 function wireTabs() {
@@ -92,9 +112,13 @@ function wireTabs() {
   tabs.forEach((b, i) => {
     b.addEventListener("click", () => showPanel(b.dataset.panel));
     b.addEventListener("keydown", (ev) => {
-      const k = ev.key === "ArrowRight" ? 1 : ev.key === "ArrowLeft" ? -1 : 0;
-      if (!k) return;
-      const next = tabs[(i + k + tabs.length) % tabs.length];
+      let next = null;
+      if (ev.key === "ArrowRight" || ev.key === "ArrowLeft") {
+        next = tabs[(i + (ev.key === "ArrowRight" ? 1 : -1) + tabs.length) % tabs.length];
+      } else if (ev.key === "Home") next = tabs[0];
+      else if (ev.key === "End") next = tabs[tabs.length - 1];
+      if (!next) return;
+      ev.preventDefault();
       next.focus();
       showPanel(next.dataset.panel);
     });
@@ -102,6 +126,7 @@ function wireTabs() {
 }
 
 // -- setpoint ---------------------------------------------------------------------------------------------
+let mapCoolant = null; // the coolant temperature the drawn map was computed for
 function moveSetpoint(sp, { push = true } = {}) {
   state.residence_time = sp.residence_time;
   state.feed_temperature = sp.feed_temperature;
@@ -110,23 +135,47 @@ function moveSetpoint(sp, { push = true } = {}) {
   if (view.mapCtl) view.mapCtl.setSetpoint(setpoint());
   syncURL(push);
   loadCheck();
+  if ((state.coolant_temperature || null) !== mapCoolant) loadMap();
   if (state.panel === "curves") loadCurves();
+  view.simulation = null;
+  if (state.panel === "simulate" && hasSimulation()) runSimulation();
 }
 
 function wireSetpoint() {
+  $("sp-tau").addEventListener("input", () => { spLast = "tau"; });
+  $("sp-flow").addEventListener("input", () => { spLast = "flow"; });
   $("setpoint-form").addEventListener("submit", (ev) => {
     ev.preventDefault();
     let tau, tin;
-    try { tau = parseTime($("sp-tau").value); fieldError("sp-tau-err", ""); }
-    catch (e) { fieldError("sp-tau-err", e.message); }
+    fieldError("sp-flow-err", "");
+    if (spLast === "flow") {
+      try {
+        const q = parseFlow($("sp-flow").value, view.scenario ? view.scenario.feed.flow : NaN);
+        tau = clean(volume(view.scenario) / q);
+        fieldError("sp-tau-err", "");
+      } catch (e) { fieldError("sp-flow-err", e.message); }
+    } else {
+      try { tau = parseTime($("sp-tau").value); fieldError("sp-tau-err", ""); }
+      catch (e) { fieldError("sp-tau-err", e.message); }
+    }
     try { tin = parseTemperature($("sp-tin").value); fieldError("sp-tin-err", ""); }
     catch (e) { fieldError("sp-tin-err", e.message); }
+    let tc = null;
+    const jacket = view.scenario && view.scenario.jacket;
+    if (jacket) {
+      try {
+        const K = parseTemperature($("sp-tc").value);
+        tc = Math.abs(K - jacket.coolant_temperature) < 1e-9 ? null : K;
+        fieldError("sp-tc-err", "");
+      } catch (e) { fieldError("sp-tc-err", e.message.replace("temperature such as", "coolant temperature such as")); return; }
+    }
     if (tau === undefined || tin === undefined) return;
-    state.branch = $("sp-branch").value || null;
+    state.coolant_temperature = tc;
+    state.branch = $("sp-branch").value === "high" ? "high" : null;
     moveSetpoint({ residence_time: tau, feed_temperature: tin });
   });
   $("sp-branch").addEventListener("change", () => {
-    state.branch = $("sp-branch").value || null;
+    state.branch = $("sp-branch").value === "high" ? "high" : null;
     syncURL(true);
     loadCheck();
   });
@@ -156,42 +205,14 @@ function wireSetpoint() {
 }
 
 // -- map --------------------------------------------------------------------------------------------------
-function renderLegend(doc) {
-  const ul = $("map-legend");
-  ul.textContent = "";
-  for (const e of legendEntries(doc)) {
-    ul.append(el("li", { "data-key": e.key }, el("span", { class: "swatch", style: `background:${e.colour}` }),
-      el("span", { text: e.label })));
-  }
-  const b = doc.boundaries || {};
-  for (const [key, style] of Object.entries(LINES)) {
-    const curve = b[key];
-    if (!curve || (Array.isArray(curve) && !curve.length)) continue;
-    const sw = key === "cusp" ? `<svg width="28" height="12" aria-hidden="true"><path d="M14 1 L20 6 L14 11 L8 6Z" fill="${style.color}"/></svg>`
-      : `<svg width="28" height="12" aria-hidden="true"><line x1="1" y1="6" x2="27" y2="6" stroke="${style.color}" stroke-width="${style.width}" stroke-dasharray="${{ solid: "", dash: "6 3", dot: "2 3", dashdot: "7 3 2 3" }[style.dash]}"/></svg>`;
-    const li = el("li", { "data-key": `line:${key}` });
-    li.innerHTML = sw;
-    li.append(el("span", { text: style.label }));
-    ul.append(li);
-  }
-  if (Array.isArray(doc.valve_limited) && doc.valve_limited.some((r) => r.some(Boolean))) {
-    const li = el("li", { "data-key": "valve_limited" });
-    li.innerHTML = `<svg width="28" height="12" aria-hidden="true"><circle cx="6" cy="6" r="1.6" fill="${VALVE_DOT}"/><circle cx="14" cy="6" r="1.6" fill="${VALVE_DOT}"/><circle cx="22" cy="6" r="1.6" fill="${VALVE_DOT}"/></svg>`;
-    li.append(el("span", { text: "dots: the outlet valve cannot pass this flow at the set level within its usable opening" }));
-    ul.append(li);
-  }
-  const li = el("li", { "data-key": "setpoint" });
-  li.innerHTML = `<svg width="28" height="14" aria-hidden="true"><circle cx="14" cy="7" r="5" fill="none" stroke="#000" stroke-width="2"/><path d="M10.5 3.5 L17.5 10.5 M17.5 3.5 L10.5 10.5" stroke="#000" stroke-width="1.6"/></svg>`;
-  li.append(el("span", { text: "setpoint" }));
-  ul.append(li);
-}
+function renderLegend(doc) { renderMapLegend($("map-legend"), doc); }
 
 function readoutGrid(sp, extra) {
   if (!view.map) return;
   const c = cellAt(view.map, sp.residence_time, sp.feed_temperature);
   const box = $("readout");
   box.textContent = "";
-  box.append(el("div", { class: "readout-head", text: `${fmtMin(sp.residence_time, 4)}, ${fmtTemp(sp.feed_temperature)}` }),
+  box.append(el("div", { class: "readout-head", text: `${fmtMin(sp.residence_time, 4)} (${fmtFlow(flowAt(sp.residence_time), 3)}), ${fmtTemp(sp.feed_temperature)}` }),
     el("div", {}, el("strong", { text: c.region_label })));
   if (c.state_count !== null) box.append(el("div", { text: `${c.state_count} steady state${c.state_count === 1 ? "" : "s"}` }));
   if (c.max_temperature_K !== null) box.append(el("div", { text: `hottest steady state ${fmtTemp(c.max_temperature_K)}` }));
@@ -206,7 +227,7 @@ function hoverAt(sp) {
   hoverTimer = setTimeout(async () => {
     const seq = ++view.seq.hover;
     try {
-      const ans = await getJSON(urls.apiAnswer(ID, "steady", sp), "Reading the steady states");
+      const ans = await getJSON(urls.apiAnswer(ID, "steady", { ...sp, coolant_temperature: state.coolant_temperature }), "Reading the steady states");
       if (seq !== view.seq.hover) return;
       view.hovered = { point: sp, answer: ans };
       const list = el("ul", { class: "readout-states" });
@@ -222,6 +243,7 @@ async function loadMap(prefetched) {
     const doc = await (prefetched || getJSON(url, "Computing the operating map"));
     performance.mark("exomap:map-answer");
     view.map = doc;
+    mapCoolant = state.coolant_temperature || null;
     if (!state.map_residence_time || !state.map_feed_temperature || !state.points) {
       // write the window the server chose into the URL, so a copied link keeps it
       state.map_residence_time = [doc.residence_time_s[0], doc.residence_time_s.at(-1)];
@@ -247,15 +269,28 @@ async function loadMap(prefetched) {
   }
 }
 
+// On a touch screen the map scrolls the page like any picture; the setpoint moves under a finger only while this
+// mode is on (a mouse or pen moves it as before).
+function wireMoveMode() {
+  const b = $("map-move-mode");
+  b.addEventListener("click", () => {
+    const on = b.getAttribute("aria-pressed") !== "true";
+    b.setAttribute("aria-pressed", String(on));
+    b.textContent = `Move the setpoint on the map: ${on ? "on" : "off"}`;
+    $("map").classList.toggle("move-mode", on);
+  });
+}
+
 function wireMapKeys() {
   const m = $("map");
   m.tabIndex = 0;
   m.setAttribute("role", "application");
-  m.setAttribute("aria-label", "Operating map. Arrow keys move the setpoint by one grid step.");
+  m.setAttribute("aria-label", "Operating map. Arrow keys move the setpoint by one grid step, Shift+arrow by ten.");
   let commit = null;
   m.addEventListener("keydown", (ev) => {
-    const d = { ArrowLeft: [-1, 0], ArrowRight: [1, 0], ArrowUp: [0, 1], ArrowDown: [0, -1] }[ev.key];
-    if (!d || !view.map) return;
+    const d0 = { ArrowLeft: [-1, 0], ArrowRight: [1, 0], ArrowUp: [0, 1], ArrowDown: [0, -1] }[ev.key];
+    if (!d0 || !view.map) return;
+    const d = ev.shiftKey ? d0.map((x) => 10 * x) : d0;
     ev.preventDefault();
     const xs = view.map.residence_time_s, ys = view.map.feed_temperature_K;
     const j = Math.min(xs.length - 1, Math.max(0, nearest(xs, state.residence_time) + d[0]));
@@ -277,6 +312,7 @@ async function loadCheck() {
   const box = $("verdict");
   box.className = "verdict verdict-pending";
   box.textContent = "Checking the setpoint…";
+  setBrief("pending", "Checking the setpoint…");
   try {
     const chk = await getJSON(urls.twinOfPage(ID, state), "Checking the setpoint (steady states, margins, upsets)");
     if (seq !== view.seq.check) return;
@@ -287,15 +323,33 @@ async function loadCheck() {
     if (seq !== view.seq.check) return;
     box.className = "verdict verdict-error";
     box.textContent = `The check could not be made: ${e.message}`;
+    setBrief("error", "The check could not be made");
   }
+}
+
+// The verdict in brief beside the setpoint, in view on every screen (the full check is in its panel).
+function setBrief(verdict, text) {
+  const b = $("verdict-brief");
+  b.className = `verdict-brief verdict-${verdict}`;
+  b.dataset.verdict = verdict;
+  b.firstElementChild.textContent = text;
 }
 
 function renderCheck(chk) {
   renderVerdict($("verdict"), chk);
-  const entry = view.map && (view.map.legend || []).find((e) => e.key === chk.region);
-  const region = entry ? `Region at the setpoint: ${entry.label}. ` : chk.region ? `Region at the setpoint: ${chk.region}. ` : "";
-  $("assumption").textContent = `${region}Operating state: ${chk.assumption || "—"}.`;
-  renderList($("reasons"), chk.reasons);
+  setBrief(chk.verdict, VERDICT_WORDS[chk.verdict] || chk.verdict);
+  const legend = view.map ? view.map.legend || [] : [];
+  const entry = legend.find((e) => e.key === chk.region);
+  const region = entry ? `Region at the setpoint: ${entry.label}. ` : chk.region ? `Region at the setpoint: ${String(chk.region).replace(/_/g, " ")}. ` : "";
+  const words = stateWords(chk);
+  $("assumption").textContent = `${region}Operating state: ${words.sentence}.`;
+  $("assumption").title = chk.assumption || "";
+  // the state selector speaks the same words: with one steady state there is nothing to choose
+  const one = (chk.states || []).length <= 1;
+  $("sp-branch").hidden = one;
+  $("sp-state-one").hidden = !one;
+  $("sp-state-one").textContent = one ? words.short : "";
+  renderList($("reasons"), chk.reasons, legend);
   renderList($("check-cautions"), chk.cautions);
   // an undetermined verdict shows only what failed: nothing computed from it is put in front of a reviewer
   const details = showsDetails(chk);
@@ -353,35 +407,75 @@ async function loadCurves() {
   };
   const heat = async () => {
     try {
-      await drawHeatBalance(Plotly, $("heat-balance"), view.scenario, sp, maxK);
+      await drawHeatBalance(Plotly, $("heat-balance"), scenarioAtSetpoint(), sp, maxK);
     } catch (e) { $("heat-balance").textContent = `The heat balance could not be drawn: ${e.message}`; }
   };
   await Promise.all([one("residence_time", $("curve-tau")), one("feed_temperature", $("curve-tin")), heat()]);
 }
 
 // -- simulation ---------------------------------------------------------------------------------------------
-function wireSimulation() {
-  $("sim-form").addEventListener("submit", async (ev) => {
-    ev.preventDefault();
-    fieldError("sim-events-err", "");
-    fieldError("sim-duration-err", "");
-    let events;
-    try { events = parseEventLines($("sim-events").value); } catch (e) { fieldError("sim-events-err", e.message); return; }
-    const body = { scenario_id: ID, ...setpoint(), start: $("sim-start").value, events, duration: $("sim-duration").value };
-    try {
-      const sim = await postJSON(urls.apiPost("simulate"), body, "Simulating");
-      $("sim-summary").textContent = simulationSummary(sim);
-      const lim = view.scenario.limits || {};
-      await drawResponse(Plotly, $("sim-plot"), sim, { maxK: lim.max_temperature, alarmK: lim.alarm_temperature,
+// The run lives in the URL (sim_start, sim_duration [s], sim_events: the lines as typed), so a shared link
+// re-runs it; the lines go to the API as they are (POST /simulate reads the same text).
+function eventLinesOf(text) {
+  const out = [];
+  String(text || "").split("\n").forEach((raw, i) => {
+    const line = raw.trim();
+    if (line && !line.startsWith("#")) out.push({ line, number: i + 1 });
+  });
+  return out;
+}
+
+function fillSimulationInputs() {
+  if (state.sim_start) $("sim-start").value = state.sim_start;
+  if (state.sim_duration !== null && state.sim_duration !== undefined) $("sim-duration").value = fmtTime(state.sim_duration, 6);
+  if (state.sim_events !== null && state.sim_events !== undefined) $("sim-events").value = state.sim_events;
+}
+
+const hasSimulation = () => state.sim_duration !== null && state.sim_duration !== undefined;
+
+async function runSimulation() {
+  fieldError("sim-events-err", "");
+  fieldError("sim-duration-err", "");
+  const lines = eventLinesOf(state.sim_events);
+  const body = { scenario_id: ID, ...setpoint(), start: state.sim_start || "low", events: lines.map((l) => l.line),
+    duration: state.sim_duration };
+  if (state.coolant_temperature) body.coolant_temperature = state.coolant_temperature;
+  const seq = ++view.seq.sim;
+  try {
+    const sim = await postJSON(urls.apiPost("simulate"), body, "Simulating");
+    if (seq !== view.seq.sim) return;
+    view.simulation = sim;
+    $("sim-summary").textContent = simulationSummary(sim);
+    const lim = view.scenario.limits || {};
+    await drawResponse(Plotly, $("sim-plot"), sim, { maxK: lim.max_temperature, alarmK: lim.alarm_temperature,
       heightM: view.scenario.vessel.height });
-    } catch (e) {
-      const f = (e.fields || []);
-      const ev2 = f.filter((x) => String(x.field).startsWith("events")).map((x) => `${x.field}: ${x.message}`);
-      const du = f.filter((x) => String(x.field).startsWith("duration")).map((x) => x.message);
-      if (ev2.length) fieldError("sim-events-err", ev2.join("; "));
-      if (du.length) fieldError("sim-duration-err", du.join("; "));
-      if (!ev2.length && !du.length) showProblem(e);
-    }
+    $("sim-plot").dataset.drawn = String(Date.now());
+  } catch (e) {
+    if (seq !== view.seq.sim) return;
+    const f = (e.fields || []);
+    // the API names events[i] of the lines sent; the page names the line of the box
+    const ev2 = f.filter((x) => String(x.field).startsWith("events")).map((x) => {
+      const m = String(x.field).match(/^events\[(\d+)\]/);
+      const l = m ? lines[Number(m[1])] : null;
+      return l ? `Line ${l.number}: ${String(x.message).replace(/^events\[\d+\][^:]*:\s*/, "")}` : `${x.field}: ${x.message}`;
+    });
+    const du = f.filter((x) => String(x.field).startsWith("duration")).map((x) => x.message);
+    if (ev2.length) fieldError("sim-events-err", ev2.join("; "));
+    if (du.length) fieldError("sim-duration-err", du.join("; "));
+    if (!ev2.length && !du.length) showProblem(e);
+  }
+}
+
+function wireSimulation() {
+  $("sim-form").addEventListener("submit", (ev) => {
+    ev.preventDefault();
+    let duration;
+    try { duration = parseTime($("sim-duration").value, "min"); } catch (e) { fieldError("sim-duration-err", e.message.replace("residence time", "duration")); return; }
+    state.sim_start = $("sim-start").value === "high" ? "high" : "low";
+    state.sim_duration = duration;
+    state.sim_events = $("sim-events").value.replace(/\r/g, "").trim() || null;
+    syncURL(true);
+    runSimulation();
   });
 }
 
@@ -400,11 +494,22 @@ async function saveEdits() {
   const doc = view.editor.collect();
   view.editor.clearErrors();
   fieldError("editor-error", "");
+  // a changed scenario keeps its origin's description only if the engineer says so: ask for a new one
+  const original = (view.scenario.description || "").trim();
+  if (original && String(doc.description || "").trim() === original) {
+    const msg = "Describe the new scenario: the description of the one it was made from may no longer hold " +
+      "(edit it, or type the same text again with a change).";
+    const left = view.editor.showErrors([{ field: "description", message: msg }]);
+    if (left.length) fieldError("editor-error", msg);
+    const box = document.querySelector("#editor [data-field='description'] textarea, #editor [data-field='description'] input");
+    if (box) box.focus();
+    return;
+  }
   const headers = {};
   const token = sessionStorage.getItem("exomap-token");
   if (token) headers.Authorization = `Bearer ${token}`;
   try {
-    const saved = await postJSON(urls.apiScenarios(), doc, "Checking and saving the scenario", headers);
+    const saved = await postJSON(urls.apiSaveScenario(ID), doc, "Checking and saving the scenario", headers);
     const next = { ...state, panel: "check", upset: null };
     window.location.assign(urls.scenarioPage(saved.id, next));
   } catch (e) {
@@ -452,6 +557,12 @@ async function main() {
   wireCopy();
   wireSimulation();
   wireMapKeys();
+  wireMoveMode();
+  $("verdict-brief-link").addEventListener("click", () => {
+    showPanel("check");
+    $("verdict").scrollIntoView({ block: "nearest" });
+    $("tab-check").focus();
+  });
   $("upset-close").addEventListener("click", () => { state.upset = null; $("upset-view").hidden = true; syncURL(true); });
   // the map does not depend on the scenario document: ask for it at once, while plotly's bundle compiles
   const mapAnswer = getJSON(urls.mapOfPage(ID, state), "Computing the operating map");
@@ -470,6 +581,7 @@ async function main() {
   if (state.residence_time === null) state.residence_time = nominalTau(sc);
   if (state.feed_temperature === null) state.feed_temperature = sc.feed.temperature;
   fillSetpointInputs();
+  fillSimulationInputs();
   syncURL(false);
   const checked = loadCheck();
   // Running plotly's bundle holds the main thread for a second or more on a slow plant PC, so the map is first
@@ -493,8 +605,16 @@ async function main() {
 async function listDemoFlag() {
   try {
     const list = await getJSON(urls.apiScenarios(), "Listing scenarios");
-    const me = (list.scenarios || []).find((s) => s.id === ID);
+    const all = list.scenarios || [];
+    const me = all.find((s) => s.id === ID);
     if (me && me.demo) $("scenario-demo").hidden = false;
+    const origin = me && me.derived_from ? all.find((s) => s.id === me.derived_from) : null;
+    if (me && me.derived_from) {
+      const box = $("scenario-derived");
+      box.textContent = "· derived from ";
+      box.append(el("a", { href: urls.scenarioPage(me.derived_from), text: origin ? origin.title || origin.id : me.derived_from }));
+      box.hidden = false;
+    }
   } catch { /* the demo note is a nicety */ }
 }
 

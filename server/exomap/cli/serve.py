@@ -72,6 +72,7 @@ def run(args: argparse.Namespace) -> int:
     from pydantic_settings import SettingsError
 
     from exomap.web.app import create_app
+    from exomap.web.middleware import allowed_hosts
     from exomap.web.protocol import uvicorn_options
     from exomap.web.store import StoreUnavailableError
 
@@ -90,6 +91,9 @@ def run(args: argparse.Namespace) -> int:
         f"exomap: serving on http://{settings.host}:{settings.port}/ (API docs at /api/docs); "
         f"scenario store {app.state.store.database.where}"
     )
+    hosts = allowed_hosts(settings.allowed_hosts, settings.host)
+    names = "any" if hosts is None else ", ".join(sorted(hosts))
+    print(f"exomap: answering the host names {names} (EXOMAP_ALLOWED_HOSTS sets them)")
     # exomap's own h11 protocol: header timeout, 414 for long URLs, 431 for large heads (exomap.web.protocol)
     uvicorn.run(app, log_level=args.log_level, **uvicorn_options(settings))
     return 0

@@ -31,12 +31,23 @@ field)`` must return the SI number (``exomap.schema.quantity.parse_quantity`` ha
 dimension names it is called with are those of ``DIMENSIONS`` (and ``"temperature_difference"`` for an
 ``add`` to a temperature, so ``"10 K"`` or ``"10 delta_degC"`` is a rise of 10 K).
 
+An event may also be one line of text, the form the pages teach (``event_from_text``)::
+
+    at 10 min set feed_temperature to 45 degC
+    at 10 min add feed_temperature 10 K
+    at 30 min scale feed_flow by 1.5
+    at 1 h ramp coolant_temperature to 40 degC over 20 min
+    at 5 min do feed_stop
+
+Values keep their units as typed (the ``unit_parser`` converts them); a bare number is SI.
+
 Errors are ``ModelInputError`` whose ``field`` names the event and key, e.g. ``"events[2].set"``.
 """
 
 from __future__ import annotations
 
 import math
+import re
 from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
@@ -199,8 +210,72 @@ def _check_range(quantity: str, value: float, where: str, kind: str) -> None:
         raise ModelInputError(f"{where} must be >= 0 [{_UNITS[DIMENSIONS[base]]}], got {value:g}", field=where)
 
 
+_NUMBER_RE = re.compile(r"^[-+]?(\d+\.?\d*|\.\d+)([eE][-+]?\d+)?$")
+_LINE_RE = re.compile(r"^at\s+(.+?)\s+(set|add|scale|ramp|do)\s+(.+)$", re.IGNORECASE)
+_LINE_FORMS = {
+    "set": re.compile(r"^(\S+)\s+to\s+(.+)$", re.IGNORECASE),
+    "add": re.compile(r"^(\S+)\s+(?:by\s+)?(.+)$", re.IGNORECASE),
+    "scale": re.compile(r"^(\S+)\s+by\s+(.+)$", re.IGNORECASE),
+    "ramp": re.compile(r"^(\S+)\s+to\s+(.+?)\s+over\s+(.+)$", re.IGNORECASE),
+}
+
+
+def _value_text(text: str) -> float | str:
+    text = text.strip()
+    return float(text) if _NUMBER_RE.match(text) else text
+
+
+def event_from_text(line: str, index: int = 0) -> dict[str, Any]:
+    """One event written as a line of text -> its event object (values keep their units as typed).
+
+    The grammar is the one the pages teach (``web/static/events.js`` writes the same objects):
+    ``at <time> set <Q> to <value>``, ``at <time> add <Q> [by] <amount>``, ``at <time> scale <Q> by <factor>``,
+    ``at <time> ramp <Q> to <value> over <time>``, ``at <time> do <action>``.
+
+    Raises
+    ------
+    ModelInputError
+        With ``field`` ``"events[index]"`` when the line does not follow the grammar.
+
+    Examples
+    --------
+    >>> event_from_text("at 10 min set feed_temperature to 45 degC")
+    {'at': '10 min', 'set': 'feed_temperature', 'to': '45 degC'}
+    >>> event_from_text("at 600 do feed_stop")
+    {'at': 600.0, 'do': 'feed_stop'}
+    """
+    where = f"events[{index}]"
+    text = " ".join(str(line).split())
+    m = _LINE_RE.match(text)
+    if m is None:
+        raise ModelInputError(
+            f'{where}: "{text}" is not an event line (nor an event object); write "at <time>" then set, add, '
+            'scale, ramp or do, e.g. "at 10 min set feed_temperature to 45 degC"',
+            field=where,
+        )
+    at, verb, rest = _value_text(m.group(1)), m.group(2).lower(), m.group(3).strip()
+    if verb == "do":
+        return {"at": at, "do": rest}
+    r = _LINE_FORMS[verb].match(rest)
+    if r is None:
+        example = {
+            "set": "set feed_temperature to 45 degC",
+            "add": "add feed_temperature 10 K",
+            "scale": "scale feed_flow by 1.5",
+            "ramp": "ramp coolant_temperature to 40 degC over 20 min",
+        }[verb]
+        raise ModelInputError(f'{where}: could not read "{text}"; write e.g. "at 10 min {example}"', field=where)
+    if verb == "set":
+        return {"at": at, "set": r.group(1), "to": _value_text(r.group(2))}
+    if verb == "add":
+        return {"at": at, "add": r.group(1), "value": _value_text(r.group(2))}
+    if verb == "scale":
+        return {"at": at, "scale": r.group(1), "by": _value_text(r.group(2))}
+    return {"at": at, "ramp": r.group(1), "to": _value_text(r.group(2)), "over": _value_text(r.group(3))}
+
+
 def parse_event(
-    raw: Mapping[str, Any] | Event,
+    raw: Mapping[str, Any] | Event | str,
     index: int,
     unit_parser: UnitParser | None = None,
     *,
@@ -211,6 +286,8 @@ def parse_event(
     where = f"events[{index}]"
     if isinstance(raw, Event):
         raw = raw.to_dict()
+    if isinstance(raw, str):
+        raw = event_from_text(raw, index)
     if not isinstance(raw, Mapping):
         raise ModelInputError(f'{where} must be an object such as {{"at": 0, "do": "feed_stop"}}', field=where)
     if "at" not in raw:
@@ -290,8 +367,8 @@ def parse_events(
 
     Parameters
     ----------
-    events : list of dict (or Event)
-        Events in the syntax of this module. Numbers are SI.
+    events : list of dict, str (or Event)
+        Events in the syntax of this module: objects, or lines of text (``event_from_text``). Numbers are SI.
     unit_parser : callable, optional
         ``unit_parser(value, dimension, field) -> float`` used for string values with units.
     species : sequence of str, optional

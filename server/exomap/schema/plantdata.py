@@ -52,6 +52,8 @@ ROLES_HELP = ", ".join([*ROLE_DIMENSIONS, "feed_concentration.X"])
 BAD_WORDS = frozenset(
     {"", "bad", "nan", "null", "none", "n/a", "#n/a", "na", "---", "error", "i/o timeout", "no data", "shutdown"}
 )
+#: The same words as pandas reads them (its missing-value match is case-sensitive): lower, upper, title case.
+BAD_VALUES = frozenset(v for w in BAD_WORDS for v in (w, w.upper(), w.title()))
 GOOD_QUALITY = frozenset({"", "good", "ok", "192", "1", "true", "g"})
 #: An interval longer than this many median spacings is a gap.
 GAP_FACTOR = 3.0
@@ -148,6 +150,7 @@ class Dataset:
             },  # fmt: skip
             "dropped_bad": dict(self.dropped_bad),
             "gaps": [{"start": iso(a), "end": iso(b), "length_s": b - a} for a, b in self.gaps],
+            "gap_times": [{"start_s": a, "end_s": b} for a, b in self.gaps],
             "median_step_s": self.median_step_s,
             "irregular_sampling": self.irregular,
             "notes": list(self.notes),
@@ -179,9 +182,16 @@ def _times(values: Any, where: str, first_line: int) -> tuple[np.ndarray, list[s
 
     notes: list[str] = []
     s = pd.Series(values)
-    numeric = pd.to_numeric(s, errors="coerce")
-    if numeric.notna().all():
-        return numeric.to_numpy(dtype=float), ["times are epoch seconds"]
+    first = str(s.iloc[0]).strip()
+    try:
+        float(first)
+        looks_numeric = True
+    except ValueError:
+        looks_numeric = False
+    if looks_numeric:
+        numeric = pd.to_numeric(s, errors="coerce")
+        if numeric.notna().all():
+            return numeric.to_numpy(dtype=float), ["times are epoch seconds"]
     text = s.astype(str).str.strip()
     parsed = pd.to_datetime(text, format="ISO8601", errors="coerce", utc=True)
     bad = parsed.isna().to_numpy()
@@ -189,7 +199,9 @@ def _times(values: Any, where: str, first_line: int) -> tuple[np.ndarray, list[s
         k = int(np.argmax(bad))
         raise _fail(where, f"line {first_line + k}: {text.iloc[k]!r} is not a time; expected ISO 8601 "
                            "(2026-12-02T08:00:00Z) or epoch seconds")  # fmt: skip
-    zoned = text.str.contains(r"(?:Z|[+-]\d\d:?\d\d)$", regex=True)
+    # the zone is looked for on the first and last thousand records (an export writes every time alike)
+    sample = pd.concat([text.iloc[:1000], text.iloc[-1000:]])
+    zoned = sample.str.contains(r"(?:Z|[+-]\d\d:?\d\d)$", regex=True)
     if not zoned.all():
         notes.append("times without a time zone were read as UTC")
     # seconds since the epoch whatever resolution pandas chose for the parsed times
@@ -202,6 +214,10 @@ def _numbers(col: Any, tag: str, line0: int, column: int) -> tuple[np.ndarray, i
     import pandas as pd
 
     s = pd.Series(col)
+    if s.dtype.kind == "f":
+        # read as numbers already (bad-value words became NaN): the fast path of a clean column
+        values = s.to_numpy(dtype=float)
+        return values, int(np.isnan(values).sum())
     num = pd.to_numeric(s, errors="coerce")
     missing = num.isna().to_numpy()
     if missing.any():
@@ -272,8 +288,35 @@ def read_plant_csv(
     if not mapping:
         raise _fail("mapping", "map at least one tag to a role, e.g. TI101=reactor_temperature")
     units = dict(units or {})
+    # the header first, so the text columns (time, tag, quality) are read as text and every other column by
+    # pandas' C float parser, with the historians' bad-value words as missing values
     try:
-        df = pd.read_csv(io.StringIO(data), dtype=str, keep_default_na=False, skipinitialspace=True)
+        head = pd.read_csv(io.StringIO(data), nrows=0, skipinitialspace=True)
+    except pd.errors.EmptyDataError:
+        raise _fail("file", "the file is empty") from None
+    except pd.errors.ParserError as exc:
+        raise _fail("file", f"the CSV cannot be read: {exc}") from None
+    header = [str(c).strip() for c in head.columns]
+    lower = [c.lower() for c in header]
+    long = {"tag", "time", "value"} <= set(lower)
+    text_cols = {"tag", "time", "quality"} if long else {"time", "timestamp", "date_time", "datetime"}
+    dtypes = {c: str for c, lc in zip(head.columns, lower, strict=True) if lc in text_cols}
+    if not long:
+        names = [(_HEADER_UNIT.match(h).group("name") if _HEADER_UNIT.match(h) else h) for h in header]  # type: ignore[union-attr]
+        t_name = time_column if time_column in names else None
+        if t_name is not None:
+            dtypes[head.columns[names.index(t_name)]] = str
+        elif not dtypes and len(head.columns):
+            dtypes[head.columns[0]] = str
+    try:
+        df = pd.read_csv(
+            io.StringIO(data),
+            dtype=dtypes,
+            na_values=sorted(BAD_VALUES),
+            keep_default_na=False,
+            skipinitialspace=True,
+            low_memory=False,
+        )
     except pd.errors.ParserError as exc:
         m = re.search(r"line (\d+)", str(exc))
         raise _fail(f"line {m.group(1)}" if m else "file", f"the CSV cannot be read: {exc}") from None
@@ -283,9 +326,7 @@ def read_plant_csv(
         raise _fail("file", "the file has a header but no data rows")
     if len(df) > max_rows:
         raise _fail("file", f"{len(df)} rows; the limit is {max_rows}")
-    header = [str(c).strip() for c in df.columns]
-    lower = [c.lower() for c in header]
-    if {"tag", "time", "value"} <= set(lower):
+    if long:
         return _long(df, header, lower, mapping, units)
     return _wide(df, header, mapping, units, time_column)
 
@@ -393,3 +434,27 @@ def _long(df: Any, header: list[str], lower: list[str], mapping: Mapping[str, st
         out[np.searchsorted(epoch, t)] = v
         series[role] = out
     return _finish(epoch, series, tags, unit_of, len(df), dropped, "long", notes)
+
+
+def dataset_from_canonical(summary: Mapping[str, Any], content: str) -> Dataset:
+    """A stored dataset back from its summary and canonical CSV (``Dataset.canonical_csv``); the id is the same."""
+    import pandas as pd
+
+    df = pd.read_csv(io.StringIO(content), dtype=float)
+    epoch = df["time_s"].to_numpy(dtype=float)
+    series = {c: df[c].to_numpy(dtype=float) for c in df.columns if c != "time_s"}
+    roles = summary.get("roles", {})
+    gaps = [(float(g["start_s"]), float(g["end_s"])) for g in summary.get("gap_times", [])]
+    return Dataset(
+        epoch,
+        series,
+        {r: str(v.get("tag", r)) for r, v in roles.items()},
+        {r: str(v.get("unit", "")) for r, v in roles.items()},
+        int(summary.get("rows", epoch.size)),
+        dict(summary.get("dropped_bad", {})),
+        gaps,
+        float(summary.get("median_step_s", 0.0)),
+        bool(summary.get("irregular_sampling", False)),
+        str(summary.get("layout", "wide")),
+        list(summary.get("notes", [])),
+    )

@@ -14,8 +14,14 @@ Rules
   temperature interval (1 degC = 1 K, 1 degF = 5/9 K), which is what an engineer means there.
 * Values converted from a unit are rounded to 15 significant digits, so ``"2.5 mol/L"`` gives 2500.0 rather
   than the binary artefact 2499.9999999999995; bare SI numbers are kept exactly.
+* Gauge pressures: ``barg``, ``psig`` and ``kPag`` (a lone unit on an absolute-pressure field) are read above
+  the standard atmosphere, 101325 Pa exactly (ISO 2533; the value that defines 1 atm), so ``"0.2 barg"`` is
+  121325 Pa. A site whose gauges read against its local barometer types an absolute pressure instead.
+* Superscripts and the middle dot are read as typed on a page: ``m³/h`` = ``m^3/h``, ``kJ/(kg·K)``.
+* ``gpm`` is the US gallon (231 in^3 exactly, NIST SP 811 B.8) per minute.
 * NaN and infinity are rejected, and so are unit strings containing arithmetic (pint evaluates them) beyond
-  exponents, to keep parsing cheap and predictable.
+  exponents, to keep parsing cheap and predictable. A unit that is not understood is named in the message,
+  never the parser's internal exception.
 """
 
 from __future__ import annotations
@@ -47,12 +53,12 @@ DIMENSIONS: dict[str, Dimension] = {
     d.key: d
     for d in (
         Dimension("length", "a length", "m", "'2 m' or '1800 mm'"),
-        Dimension("pressure", "an absolute pressure", "Pa", "'1.2 bar' or '101325 Pa'"),
+        Dimension("pressure", "an absolute pressure", "Pa", "'1.2 bar', '0.2 barg' or '30 psig'"),
         Dimension("temperature", "a temperature", "K", "'35 degC' or '308.15 K'"),
         Dimension("temperature_difference", "a temperature difference", "K", "'10 K'"),
         Dimension("density", "a density", "kg/m^3", "'950 kg/m^3'"),
         Dimension("specific_heat", "a specific heat capacity", "J/(kg*K)", "'2.1 kJ/(kg K)'"),
-        Dimension("flow", "a volumetric flow", "m^3/s", "'6 m^3/h' or '100 L/min'"),
+        Dimension("flow", "a volumetric flow", "m^3/s", "'6 m^3/h', '100 L/min' or '25 gpm'"),
         Dimension("concentration", "a concentration", "mol/m^3", "'2.5 mol/L'"),
         Dimension("molar_energy", "an energy per mole", "J/mol", "'80 kJ/mol'"),
         Dimension("time", "a time", "s", "'40 min' or '2 h'"),
@@ -76,6 +82,11 @@ _FAHRENHEIT = r"(?<![A-Za-z_])(degF|°F|fahrenheit|degree_Fahrenheit|degreeF)(?!
 _LONE_OFFSET_RE = re.compile(rf"^(?:{_CELSIUS}|{_FAHRENHEIT})$")
 _MAX_LEN = 80
 
+#: The standard atmosphere [Pa], exact by definition (ISO 2533; 1 atm = 101325 Pa): the zero of gauge pressures.
+STANDARD_ATMOSPHERE_PA = 101325.0
+#: Gauge-pressure units (a lone unit on an absolute-pressure field) -> their absolute unit.
+_GAUGE_UNITS = {"barg": "bar", "psig": "psi", "kpag": "kPa", "bar(g)": "bar", "psi(g)": "psi"}
+
 
 _REGISTRY_LOCK = threading.Lock()
 
@@ -92,7 +103,10 @@ def registry() -> Any:
 def _build_registry() -> Any:
     import pint
 
-    return pint.UnitRegistry()
+    ureg = pint.UnitRegistry()
+    # US gallons per minute, as pump and valve data sheets write it (pint's gallon is the US liquid gallon)
+    ureg.define("gpm = gallon / minute")
+    return ureg
 
 
 @functools.lru_cache(maxsize=64)
@@ -110,6 +124,12 @@ def expected(dimension: str) -> str:
     d = DIMENSIONS[dimension]
     si = f" (a bare number is in {d.si_unit})" if d.si_unit else ""
     return f"expected {d.noun}, e.g. {d.example}{si}"
+
+
+def _kind(value: object) -> str:
+    """The JSON word for a value's type ("an object", "a list"), never a Python class name."""
+    words = {dict: "an object", list: "a list", tuple: "a list", str: "a text"}
+    return words.get(type(value), "a value that is not a number")
 
 
 def _finite(x: float, dimension_text: str) -> float:
@@ -130,7 +150,8 @@ def split_value(value: str, hint: str) -> tuple[float, str]:
     if m is None:
         raise QuantityProblem(f"{value!r} does not start with a number; {hint}")
     magnitude = _finite(float(m.group(1)), hint)
-    unit = m.group(2)
+    # the spellings of a page or a data sheet: m³ -> m^3, kJ/(kg·K) -> kJ/(kg*K)
+    unit = m.group(2).replace("³", "^3").replace("²", "^2").replace("·", "*")
     if not _UNIT_CHARS_RE.match(unit):
         raise QuantityProblem(f"unit {unit!r} not understood; {hint}")
     if _STACKED_RE.search(unit):
@@ -145,8 +166,8 @@ def _parse_units(unit: str, hint: str) -> Any:
     ureg = registry()
     try:
         return ureg.parse_units(unit)
-    except Exception as exc:  # pint's parser raises many kinds (UndefinedUnitError, TokenError, ...)
-        raise QuantityProblem(f"unit {unit!r} not understood ({type(exc).__name__}); {hint}") from None
+    except Exception:  # pint's parser raises many kinds (UndefinedUnitError, TokenError, ...)
+        raise QuantityProblem(f"unit {unit!r} not understood; {hint}") from None
 
 
 def _as_interval(unit: str) -> str:
@@ -170,13 +191,21 @@ def to_si(value: object, dimension: str) -> float:
             raise QuantityProblem(f"{x!r} K is at or below absolute zero; {hint}")
         return x
     if not isinstance(value, str):
-        raise QuantityProblem(f"got {type(value).__name__}; {hint}")
+        raise QuantityProblem(f"got {_kind(value)}; {hint}")
     magnitude, unit = split_value(value, hint)
     if not unit:
         if dimension == "fraction":
             return magnitude
         raise QuantityProblem(f"{value!r} has no unit; {hint}")
     ureg = registry()
+    gauge = _GAUGE_UNITS.get(unit.replace(" ", "").lower())
+    if gauge is not None:
+        if dimension != "pressure":
+            raise QuantityProblem(f"{value!r} is a gauge pressure, not {d.noun}; {hint}")
+        x = float(ureg.Quantity(magnitude, gauge).to_base_units().magnitude) + STANDARD_ATMOSPHERE_PA
+        if x < 0.0:
+            raise QuantityProblem(f"{value!r} is below vacuum (gauge pressures are read above 101325 Pa); {hint}")
+        return _finite(_round15(x), hint)
     lone_offset = bool(_LONE_OFFSET_RE.match(unit))
     if not (dimension == "temperature" and lone_offset):
         unit = _as_interval(unit)
@@ -251,7 +280,7 @@ def pre_exponential_to_si(value: object, total_order: float) -> float:
     if isinstance(value, (int, float)):
         return _finite(float(value), hint)
     if not isinstance(value, str):
-        raise QuantityProblem(f"got {type(value).__name__}; {hint}")
+        raise QuantityProblem(f"got {_kind(value)}; {hint}")
     magnitude, unit = split_value(value, hint)
     ureg = registry()
     units = _parse_units(unit, hint) if unit else ureg.parse_units("")

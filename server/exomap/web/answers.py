@@ -90,6 +90,10 @@ class ScenarioSummary(Answer):
     )
     demo: bool = Field(description="True for a demo shipped with exomap.")
     name: str | None = Field(description="A demo's file name (usable as its id); null for a saved scenario.")
+    derived_from: str | None = Field(
+        description="Id of the scenario this one was saved from (an edit; store metadata, not part of the content "
+        "id); null when it was not saved from another."
+    )
 
 
 class ScenarioList(Answer):
@@ -601,6 +605,137 @@ class CompareAnswer(Answer):
     cautions: list[str]
     success: bool
     message: str
+
+
+# -- plant data (DESIGN.md §12) ------------------------------------------------------------------------------
+class DatasetRoleAnswer(Answer):
+    tag: str = Field(description="The tag (column) the role was read from.")
+    unit: str = Field(description="The unit the tag was written in (converted to SI).")
+    values: int = Field(description="Good values of the role (bad-flagged and empty ones left out).")
+
+
+class GapAnswer(Answer):
+    start: str = Field(description="Last record before the gap (ISO 8601, UTC).")
+    end: str = Field(description="First record after the gap (ISO 8601, UTC).")
+    length_s: float = Field(description="Length of the gap [s].")
+
+
+class GapTimesAnswer(Answer):
+    start_s: float = Field(description="Last record before the gap, seconds since 1970-01-01 UTC.")
+    end_s: float = Field(description="First record after the gap, seconds since 1970-01-01 UTC.")
+
+
+class DatasetSummaryAnswer(Answer):
+    """What was read from a historian export."""
+
+    dataset_id: str = Field(description="Content id: 16 hex digits of the SHA-256 of the SI content.")
+    layout: Literal["wide", "long"] = Field(description="The layout the file was read as.")
+    rows: int = Field(description="Data rows in the file.")
+    records: int = Field(description="Distinct record times kept.")
+    start: str = Field(description="First record (ISO 8601, UTC).")
+    end: str = Field(description="Last record (ISO 8601, UTC).")
+    duration_s: float = Field(description="Time covered [s].")
+    roles: dict[str, DatasetRoleAnswer] = Field(description="Each mapped role: its tag, unit and good values.")
+    dropped_bad: dict[str, int] = Field(description="Values dropped as flagged bad, per tag.")
+    gaps: list[GapAnswer] = Field(description="Intervals longer than three median spacings.")
+    gap_times: list[GapTimesAnswer] = Field(description="The same gaps in epoch seconds.")
+    median_step_s: float = Field(description="Median spacing of the records [s].")
+    irregular_sampling: bool = Field(description="The spacing varies by more than 10 % around its median.")
+    notes: list[str] = Field(description="What the reader assumed, e.g. times without a zone read as UTC.")
+
+
+class DatasetAnswer(DatasetSummaryAnswer):
+    """A stored dataset's summary."""
+
+    created: bool = Field(description="True when this upload stored it; false when it was there already.")
+
+
+class SimulatedSeriesAnswer(Answer):
+    temperature_K: list[float | None]
+    level_m: list[float | None]
+    outlet_flow_m3_per_s: list[float | None]
+    valve_opening: list[float | None]
+    concentrations_mol_per_m3: dict[str, list[float | None]]
+
+
+class PlantPathAnswer(Answer):
+    residence_time_s: list[float | None] = Field(description="V_set / recorded feed flow at each record [s].")
+    feed_temperature_K: list[float | None] = Field(description="Feed temperature at each record [K].")
+
+
+class ResidualStatisticsAnswer(Answer):
+    count: int
+    mean: float = Field(description="Mean residual (simulated - recorded), SI unit of the output.")
+    sd: float | None = Field(description="Standard deviation; null with one residual.")
+    rms: float
+    max_abs: float
+
+
+class ReplayAnswer(Answer):
+    """The scenario driven by recorded inputs, beside the recorded outputs (SI; null where missing)."""
+
+    dataset: DatasetSummaryAnswer
+    time_s: list[float] = Field(description="Record times from the first record [s].")
+    simulated: SimulatedSeriesAnswer
+    recorded: dict[str, list[float | None]] = Field(
+        description="Recorded outputs: reactor_temperature_K, level_m, valve_opening, outlet_flow_m3_per_s."
+    )
+    path: PlantPathAnswer
+    residuals: dict[str, list[float | None]] = Field(description="Simulated minus recorded, same keys.")
+    residual_statistics: dict[str, ResidualStatisticsAnswer]
+    start_temperature_K: float = Field(description="Temperature of the starting steady state [K].")
+    success: bool
+    message: str
+
+
+class OverlayAnswer(Answer):
+    """Where the plant ran: its (residence time, feed temperature) path in time, for the operating map."""
+
+    dataset_id: str
+    start: str = Field(description="Time of the first record (ISO 8601, UTC).")
+    time_s: list[float] = Field(description="Record times from the first record [s].")
+    residence_time_s: list[float | None] = Field(description="V_set / recorded feed flow [s]; null where missing.")
+    feed_temperature_K: list[float | None] = Field(description="Recorded feed temperature [K]; null where missing.")
+    reactor_temperature_K: list[float | None] = Field(description="Recorded reactor temperature [K], or nulls.")
+    recorded: list[str] = Field(description="The roles the dataset holds.")
+
+
+class EstimateAnswer(Answer):
+    target: str = Field(description="Scenario path of the fitted parameter (DESIGN.md §11).")
+    value: float = Field(description="Estimate, SI (k at the reference temperature for a rate constant).")
+    initial: float = Field(description="The scenario's value before the fit, SI.")
+    standard_error: float = Field(description="Linearised standard error, SI.")
+    interval_95: list[float | None] = Field(
+        min_length=2,
+        max_length=2,
+        description="95 % interval by profile likelihood; null on a side the data leave open.",
+    )
+    unit: str = Field(description="The SI unit of the value.")
+
+
+class ProvenanceAnswer(Answer):
+    scenario_id: str = Field(description="The scenario the calibration started from.")
+    dataset_id: str = Field(description="The dataset it was fitted to.")
+
+
+class CalibrationAnswer(Answer):
+    """Fitted parameters with their uncertainty, and the calibrated scenario."""
+
+    reference_temperature_K: float
+    outputs: list[str] = Field(description="Recorded outputs fitted.")
+    estimates: list[EstimateAnswer]
+    correlations: list[list[float | None]] = Field(description="Correlation matrix of the estimates.")
+    residual_sd: dict[str, float] = Field(description="Residual standard deviation per output, SI.")
+    observations: int
+    degrees_of_freedom: int
+    warnings: list[str] = Field(description="Parameters the data cannot determine, and why.")
+    success: bool
+    message: str
+    dataset: DatasetSummaryAnswer
+    scenario: dict[str, JsonValue] = Field(
+        description="The calibrated scenario document (canonical, SI) with the fit's uncertainty block."
+    )
+    derived_from: ProvenanceAnswer
 
 
 #: The model of each computation's answer, by kind (the route names and the service's kinds).

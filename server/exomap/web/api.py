@@ -38,7 +38,7 @@ SCENARIO_FORMAT = "exomap-scenario/1"
 #: enumeration value); MAJOR for anything that breaks a client generated from the previous document (a key,
 #: route or operation id removed or renamed, a type or unit changed, a request field made required) -- a
 #: MAJOR bump also moves the routes to the next prefix (/api/v2) and keeps /api/v1 serving until retired.
-API_VERSION = "1.1.0"
+API_VERSION = "1.3.0"
 
 SUMMARIES = {
     "steady": "Every steady state at an operating point, with its stability",
@@ -259,6 +259,14 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         document: Annotated[
             dict[str, Any], Body(description="A scenario document (DESIGN.md §3).", examples=[body_example])
         ],
+        derived_from: Annotated[
+            str | None,
+            Query(
+                description="Id of the stored scenario this one was edited from (kept as store metadata, not part "
+                "of the content id).",
+                max_length=200,
+            ),
+        ] = None,
     ) -> JSONResponse:
         if settings.save_token:
             auth = request.headers.get("authorization", "")
@@ -274,8 +282,18 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
                 )
         from exomap import schema
 
+        if derived_from is not None:
+            origin = service.store.get(derived_from)
+            if origin is None:
+                raise ApiError(
+                    422,
+                    "invalid_input",
+                    f"derived_from: no stored scenario has the id {derived_from!r}",
+                    [{"field": "derived_from", "message": "no stored scenario has this id"}],
+                )
+            derived_from = origin.id  # a demo named by its file name is recorded by its content id
         try:
-            stored, created = await anyio.to_thread.run_sync(service.store.save, document)
+            stored, created = await anyio.to_thread.run_sync(service.store.save, document, derived_from)
         except schema.ScenarioError as exc:
             raise ApiError(422, "invalid_scenario", "the scenario is not valid; see fields", exc.errors) from None
         headers = {"Location": f"/api/v1/scenarios/{stored.id}"}
@@ -400,6 +418,7 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         feed_temperature: Annotated[str | None, Query(description="Window 'lo,hi', e.g. '0 degC,120 degC'.")] = None,
         points: Annotated[str | None, Query(description="Grid 'n_tau,n_tin', e.g. '200,200'.")] = None,
         spacing: Annotated[str | None, Query(description="'log' or 'linear' residence-time axis.")] = None,
+        coolant_temperature: Tc = None,
         samples: Annotated[
             str | None, Query(description="Probability map with this many samples (a power of two, e.g. 256).")
         ] = None,
@@ -418,6 +437,7 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
                 "feed_temperature": _pair(feed_temperature),
                 "points": pts,
                 "spacing": spacing,
+                "coolant_temperature": _number_or_text(coolant_temperature),
                 "samples": _whole(samples),
                 "seed": _whole(seed),
             },
@@ -440,6 +460,7 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         residence_time: Tau = None,
         feed_temperature: Tin = None,
         branch: Annotated[str | None, Query(description="'low' or 'high': which stable state is assumed.")] = None,
+        coolant_temperature: Tc = None,
         samples: Annotated[
             str | None, Query(description="Also check under the uncertainty block with this many samples (e.g. 256).")
         ] = None,
@@ -452,6 +473,7 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
                 "residence_time": _number_or_text(residence_time),
                 "feed_temperature": _number_or_text(feed_temperature),
                 "branch": branch,
+                "coolant_temperature": _number_or_text(coolant_temperature),
                 "samples": _whole(samples),
                 "seed": _whole(seed),
             },
@@ -475,11 +497,21 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         feed_temperature: Tin = None,
         start: Annotated[str | None, Query(description="'low' or 'high' starting state.")] = None,
         duration: Annotated[str | None, Query(description="Simulated time: '2 h' or seconds.")] = None,
-        events: Annotated[str | None, Query(description="The events as a JSON list (URL-encoded).")] = None,
+        events: Annotated[
+            str | None,
+            Query(
+                description="The events: a JSON list (URL-encoded), or event lines as the pages write them, one a "
+                "line ('at 10 min do feed_stop')."
+            ),
+        ] = None,
+        coolant_temperature: Tc = None,
         format: Annotated[str, Query(description="'json' or 'csv'.", pattern="^(json|csv)$")] = "json",
     ) -> Response:
         parsed_events: Any = None
-        if events is not None:
+        if events is not None and not events.lstrip().startswith("["):
+            # event lines, as a page link carries them (exomap.core.events.event_from_text reads each)
+            parsed_events = [line for line in events.splitlines() if line.strip() and not line.lstrip().startswith("#")]
+        elif events is not None:
             try:
                 parsed_events = json.loads(events)
             except (ValueError, RecursionError):  # RecursionError: lists nested thousands deep
@@ -498,6 +530,7 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
                 "start": start,
                 "duration": _number_or_text(duration),
                 "events": parsed_events,
+                "coolant_temperature": _number_or_text(coolant_temperature),
             },
         )
         out, hit = await service.answer("simulate", req, format)

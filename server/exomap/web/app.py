@@ -29,6 +29,7 @@ from exomap.web.api import API_VERSION, build_router
 from exomap.web.compare import build_compare_router
 from exomap.web.errors import install_error_handlers
 from exomap.web.middleware import BodyLimit, HeadAsGet, HostCheck, SecurityHeaders, allowed_hosts
+from exomap.web.plant import build_plant_router
 from exomap.web.service import Service
 from exomap.web.settings import Settings
 from exomap.web.store import open_store
@@ -99,11 +100,17 @@ def create_app(settings: Settings | None = None, *, warm_up: bool = False) -> Fa
     install_error_handlers(app)
     app.include_router(build_router(_example_document([d.name for d in store.demos if d.name])))
     app.include_router(build_compare_router())
+    app.include_router(build_plant_router())
     apidocs.install(app)
     pages.install(app, settings)
 
     # add_middleware wraps the app, so the last added is the outermost.
-    app.add_middleware(BodyLimit, max_bytes=settings.max_body_bytes, timeout_s=settings.body_timeout_s)
+    app.add_middleware(
+        BodyLimit,
+        max_bytes=settings.max_body_bytes,
+        timeout_s=settings.body_timeout_s,
+        path_limits={"/api/v1/datasets": settings.max_dataset_bytes},
+    )
     if settings.cors_origins:
         app.add_middleware(
             CORSMiddleware,

@@ -11,6 +11,7 @@ job, so a worker process does not load FastAPI or pydantic.
 
 from __future__ import annotations
 
+import dataclasses
 import gzip
 from dataclasses import dataclass
 from typing import Any
@@ -74,6 +75,9 @@ def dumps(doc: Any) -> bytes:
 
 def compute(kind: str, sc: Any, params: dict[str, Any]) -> Any:
     """Call the core for one kind of answer and return its result object."""
+    if params.get("T_c") is not None:
+        # a coolant-temperature setpoint: every answer (the uncertain ones too) is of the scenario with that coolant
+        sc = dataclasses.replace(sc, T_c=params["T_c"])
     if kind == "steady":
         from exomap.core.steady import steady_states
 
@@ -112,6 +116,7 @@ def compute(kind: str, sc: Any, params: dict[str, Any]) -> Any:
             T_in_range=params.get("T_in_range"),
             points=params.get("points"),
             spacing=params.get("spacing", "log"),
+            T_c=params.get("T_c"),
         )
     if kind == "check" and params.get("samples") is not None:
         from exomap.core.uncertain_check import uncertain_check

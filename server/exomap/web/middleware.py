@@ -78,16 +78,21 @@ class BodyLimit:
     and replayed to the app (bodies are small: the limit is about a megabyte).
     """
 
-    def __init__(self, app: ASGIApp, max_bytes: int, timeout_s: float = 30.0) -> None:
+    def __init__(
+        self, app: ASGIApp, max_bytes: int, timeout_s: float = 30.0, path_limits: dict[str, int] | None = None
+    ) -> None:
         self.app = app
         self.max_bytes = max_bytes
         self.timeout_s = timeout_s
+        #: exact paths with a limit of their own (the plant-data upload takes a whole historian export)
+        self.path_limits = dict(path_limits or {})
 
     async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
         if scope["type"] != "http" or scope.get("method") in ("GET", "HEAD", "OPTIONS"):
             await self.app(scope, receive, send)
             return
-        too_big = f"the request body is larger than the limit of {self.max_bytes} bytes"
+        limit = self.path_limits.get(scope.get("path", ""), self.max_bytes)
+        too_big = f"the request body is larger than the limit of {limit} bytes"
         for key, value in scope.get("headers", []):
             if key == b"content-length":
                 try:
@@ -95,7 +100,7 @@ class BodyLimit:
                 except ValueError:
                     await _send_error(send, 400, "bad_request", "the Content-Length header is not a number")
                     return
-                if declared > self.max_bytes:
+                if declared > limit:
                     await _send_error(send, 413, "body_too_large", too_big)
                     return
         chunks: list[bytes] = []
@@ -110,7 +115,7 @@ class BodyLimit:
                         return
                     chunk = message.get("body", b"")
                     size += len(chunk)
-                    if size > self.max_bytes:
+                    if size > limit:
                         await _send_error(send, 413, "body_too_large", too_big)
                         return
                     chunks.append(chunk)

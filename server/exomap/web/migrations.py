@@ -63,6 +63,32 @@ MIGRATIONS: tuple[Migration, ...] = (
             "CREATE INDEX IF NOT EXISTS scenarios_saved_at ON scenarios (saved_at, id)",
         ),
     ),
+    Migration(
+        2,
+        "scenarios: derived_from, the id of the scenario an edit was saved from (lineage; not part of the content)",
+        sqlite=("ALTER TABLE scenarios ADD COLUMN derived_from TEXT",),
+        postgresql=("ALTER TABLE scenarios ADD COLUMN IF NOT EXISTS derived_from TEXT",),
+    ),
+    Migration(
+        3,
+        "datasets: content id, summary (JSON), canonical SI content (CSV), time saved",
+        sqlite=(
+            """CREATE TABLE IF NOT EXISTS datasets (
+                id       TEXT PRIMARY KEY,
+                summary  TEXT NOT NULL,
+                content  TEXT NOT NULL,
+                saved_at REAL NOT NULL
+            )""",
+        ),
+        postgresql=(
+            """CREATE TABLE IF NOT EXISTS datasets (
+                id       TEXT PRIMARY KEY,
+                summary  TEXT NOT NULL,
+                content  TEXT NOT NULL,
+                saved_at DOUBLE PRECISION NOT NULL
+            )""",
+        ),
+    ),
 )
 
 LATEST = MIGRATIONS[-1].version

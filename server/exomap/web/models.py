@@ -121,6 +121,9 @@ class MapRequest(ScenarioRef):
     feed_temperature: Range | None = Field(default=None, description="[lo, hi]; default: the scenario's window.")
     points: GridPoints | None = Field(default=None, description="Grid size; default: the scenario's (or 200 x 200).")
     spacing: Literal["log", "linear"] = Field(default="log", description="Spacing of the residence-time axis.")
+    coolant_temperature: Quantity | None = Field(
+        default=None, description="Coolant temperature of the jacket, e.g. '20 degC'; default: the scenario's."
+    )
     samples: Annotated[StrictInt, Field(ge=8, le=16384)] | None = Field(
         default=None,
         description="Ask for the probability map under the scenario's uncertainty block (DESIGN.md §11) with this "
@@ -143,6 +146,9 @@ class CheckRequest(OperatingPoint):
 
     branch: Literal["low", "high"] | None = Field(
         default=None, description="Which stable state the tank is on where there are several; default: low."
+    )
+    coolant_temperature: Quantity | None = Field(
+        default=None, description="Coolant temperature of the jacket, e.g. '20 degC'; default: the scenario's."
     )
     samples: Annotated[StrictInt, Field(ge=8, le=16384)] | None = Field(
         default=None,
@@ -176,8 +182,12 @@ class SimulateRequest(OperatingPoint):
     start: Literal["low", "high"] = Field(default="low", description="Steady state the simulation starts from.")
     events: list[Any] = Field(
         default_factory=list,
-        description="Events applied during the run, e.g. {'at': '10 min', 'do': 'feed_stop'} (exomap.core.events).",
+        description="Events applied during the run, each an object, e.g. {'at': '10 min', 'do': 'feed_stop'}, or a "
+        "line of text as the pages teach, e.g. 'at 10 min set feed_temperature to 45 degC' (exomap.core.events).",
     )
     duration: Quantity | None = Field(
         default=None, description="Simulated time, e.g. '2 h' or seconds; default: the check policy's upset duration."
+    )
+    coolant_temperature: Quantity | None = Field(
+        default=None, description="Coolant temperature of the jacket, e.g. '20 degC'; default: the scenario's."
     )

@@ -113,7 +113,8 @@ def install(app: FastAPI, settings: Any) -> None:
 
     def scenario_view(template: str, page: Any, request: Request, scenario_id: str) -> Response:
         stored = lookup(request, scenario_id)
-        state = urls.view_state(request.query_params)
+        keys = urls.VIEW_KEYS + (urls.SIGNOFF_KEYS if template == "print.html" else ())
+        state = urls.view_state(request.query_params, keys)
         if stored is None:
             return missing(scenario_id)
         if stored.id != scenario_id:
@@ -166,8 +167,9 @@ def install(app: FastAPI, settings: Any) -> None:
             return Response(gz, media_type="text/javascript; charset=utf-8", headers=headers)
         return Response(raw, media_type="text/javascript; charset=utf-8", headers=headers)
 
-    from exomap.web import compare
+    from exomap.web import compare, uncertainty_page
 
     compare.install_pages(app, render)
+    uncertainty_page.install_pages(app, render)
 
     app.mount("/static", StaticFiles(directory=str(assets / "static")), name="static")

@@ -164,6 +164,17 @@ class Service:
         return c_in, T_c
 
     @staticmethod
+    def _coolant(req: Any, sc: Any) -> dict[str, float]:
+        """``{"T_c": ...}`` when the request sets the jacket's coolant temperature (a setpoint input of a
+        jacketed tank), else ``{}`` (so an answer without it keeps its cache key)."""
+        value = getattr(req, "coolant_temperature", None)
+        if value is None:
+            return {}
+        if not sc.UA_jacket > 0:
+            raise invalid("coolant_temperature", "this scenario has no cooling jacket, so no coolant temperature")
+        return {"T_c": quantity(value, "temperature", "coolant_temperature")}
+
+    @staticmethod
     def _range(values: list[Any] | None, dimension: str, field: str) -> tuple[float, float] | None:
         if values is None:
             return None
@@ -221,7 +232,13 @@ class Service:
                     f"a {n[0]} x {n[1]} map has {cells} cells; the limit is {s.max_map_cells}",
                     [{"field": "points", "message": f"at most {s.max_map_cells} cells (n_tau x n_tin)"}],
                 )
-            out = {"tau_range": tau_range, "T_in_range": T_in_range, "points": points, "spacing": req.spacing}
+            out = {
+                "tau_range": tau_range,
+                "T_in_range": T_in_range,
+                "points": points,
+                "spacing": req.spacing,
+                **self._coolant(req, sc),
+            }
             return out | self._samples(req, sc)
         if kind == "check":
             tau, T_in = self._point(req, sc)
@@ -234,7 +251,7 @@ class Service:
                     f"{s.max_duration_s:g} s",
                     [{"field": "check_policy.upset_duration", "message": f"at most {s.max_duration_s:g} s"}],
                 )
-            return {"tau": tau, "T_in": T_in, "branch": req.branch} | self._samples(req, sc)
+            return {"tau": tau, "T_in": T_in, "branch": req.branch, **self._coolant(req, sc)} | self._samples(req, sc)
         if kind == "simulate":
             from exomap.core.events import parse_events
 
@@ -260,7 +277,14 @@ class Service:
                     [{"field": "events", "message": f"at most {s.max_events} events"}],
                 )
             events = parse_events(req.events, event_unit_parser, species=sc.species, duration=duration)
-            return {"tau": tau, "T_in": T_in, "start": req.start, "events": events, "duration": duration}
+            return {
+                "tau": tau,
+                "T_in": T_in,
+                "start": req.start,
+                "events": events,
+                "duration": duration,
+                **self._coolant(req, sc),
+            }
         raise ValueError(f"unknown kind {kind!r}")
 
     # -- answers ------------------------------------------------------------------------------------------------

@@ -55,6 +55,14 @@ class Settings(BaseSettings):
     max_body_bytes: int = Field(
         default=1_000_000, gt=0, description="Largest request body accepted [bytes]; larger bodies get 413."
     )
+    max_dataset_bytes: int = Field(
+        default=50_000_000,
+        gt=0,
+        description="Largest plant-data upload (CSV body of POST /api/v1/datasets) [bytes]; larger gets 413.",
+    )
+    max_dataset_rows: int = Field(
+        default=2_000_000, gt=0, description="Most data rows one plant-data upload may have; more gets 413."
+    )
     header_timeout_s: float = Field(
         default=10.0,
         gt=0,

@@ -17,6 +17,10 @@ they open, and raise ``StoreUnavailableError`` (one line naming the file or serv
 of the database, at start or later; the API answers that with 503 ``store_unavailable``. The store keeps
 nothing in memory but the demos, so any instance answers for any id.
 
+Lineage: a scenario saved from an edit may name the scenario it was derived from (``save(doc,
+derived_from=id)``, column ``derived_from``, migration 2). That is store metadata, not part of the document, so
+it never changes the content id; the first save of a content keeps its lineage.
+
 Demo scenarios (the JSON files of the package ``exomap.demos``) are read once when the store opens and listed
 first, marked ``demo``, with their file name (without ``.json``) as ``name``; they are looked up by id or by
 that name. They are never written to the database.
@@ -64,6 +68,8 @@ class Row:
     description: str
     document: str
     saved_at: float
+    #: id of the scenario this one was saved from (store metadata), or None
+    derived_from: str | None = None
 
 
 class Database(Protocol):
@@ -95,6 +101,14 @@ class Database(Protocol):
         """How many rows there are."""
         ...
 
+    def insert_dataset(self, did: str, summary: str, content: str, saved_at: float) -> bool:
+        """Insert a plant dataset unless its id is there already; True when it was inserted. Durable on return."""
+        ...
+
+    def fetch_dataset(self, did: str) -> tuple[str, str] | None:
+        """(summary JSON, canonical CSV) of one dataset, or None."""
+        ...
+
     def close(self) -> None: ...
 
 
@@ -108,6 +122,8 @@ class StoredScenario:
     document: str
     demo: bool = False
     name: str | None = None
+    #: id of the scenario this one was saved from (store metadata, not part of the content id)
+    derived_from: str | None = None
 
     def summary(self) -> dict[str, Any]:
         """The listing's fields; the description cut to ``SUMMARY_CHARS`` (the whole text is in the document)."""
@@ -117,6 +133,7 @@ class StoredScenario:
             "description": _cut(self.description),
             "demo": self.demo,
             "name": self.name,
+            "derived_from": self.derived_from,
         }
 
 
@@ -280,8 +297,9 @@ class SQLiteDatabase:
             conn = self._conn()
             with conn:
                 cur = conn.execute(
-                    "INSERT OR IGNORE INTO scenarios (id, title, description, document, saved_at) VALUES (?,?,?,?,?)",
-                    (row.id, row.title, row.description, row.document, row.saved_at),
+                    "INSERT OR IGNORE INTO scenarios (id, title, description, document, saved_at, derived_from) "
+                    "VALUES (?,?,?,?,?,?)",
+                    (row.id, row.title, row.description, row.document, row.saved_at, row.derived_from),
                 )
             created = cur.rowcount == 1
         except sqlite3.Error as exc:
@@ -308,8 +326,8 @@ class SQLiteDatabase:
             found = (
                 self._conn()
                 .execute(
-                    "SELECT id, CAST(title AS BLOB), CAST(description AS BLOB), CAST(document AS BLOB), saved_at "
-                    "FROM scenarios WHERE id = ?",
+                    "SELECT id, CAST(title AS BLOB), CAST(description AS BLOB), CAST(document AS BLOB), saved_at, "
+                    "CAST(derived_from AS BLOB) FROM scenarios WHERE id = ?",
                     (sid,),
                 )
                 .fetchone()
@@ -325,7 +343,7 @@ class SQLiteDatabase:
                 f"scenario {sid} is damaged in the scenario store {self.where} (its document is not UTF-8 text); "
                 "restore the file from a backup"
             ) from None
-        return Row(str(found[0]), _text(found[1]), _text(found[2]), document, _number(found[4]))
+        return Row(str(found[0]), _text(found[1]), _text(found[2]), document, _number(found[4]), _lineage(found[5]))
 
     def fetch_all(self) -> list[Row]:
         try:
@@ -333,13 +351,13 @@ class SQLiteDatabase:
                 self._conn()
                 .execute(
                     "SELECT CAST(id AS BLOB), CAST(title AS BLOB), CAST(description AS BLOB), "
-                    "CAST(document AS BLOB), saved_at FROM scenarios ORDER BY saved_at, id"
+                    "CAST(document AS BLOB), saved_at, CAST(derived_from AS BLOB) FROM scenarios ORDER BY saved_at, id"
                 )
                 .fetchall()
             )
         except sqlite3.Error as exc:
             raise self._fault(exc) from None
-        return [Row(_text(r[0]), _text(r[1]), _text(r[2]), _text(r[3]), _number(r[4])) for r in rows]
+        return [Row(_text(r[0]), _text(r[1]), _text(r[2]), _text(r[3]), _number(r[4]), _lineage(r[5])) for r in rows]
 
     def fetch_page(self, limit: int, offset: int) -> list[Row]:
         # CAST AS BLOB: the bytes as stored, decoded here with replacement, so one row with bytes that are not
@@ -349,20 +367,42 @@ class SQLiteDatabase:
                 self._conn()
                 .execute(
                     "SELECT CAST(id AS BLOB), CAST(title AS BLOB), CAST(substr(description, 1, ?) AS BLOB), "
-                    "saved_at FROM scenarios ORDER BY saved_at, id LIMIT ? OFFSET ?",
+                    "saved_at, CAST(derived_from AS BLOB) FROM scenarios ORDER BY saved_at, id LIMIT ? OFFSET ?",
                     (SUMMARY_CHARS + 1, int(limit), int(offset)),
                 )
                 .fetchall()
             )
         except sqlite3.Error as exc:
             raise self._fault(exc) from None
-        return [Row(_text(r[0]), _text(r[1]), _text(r[2]), "", _number(r[3])) for r in rows]
+        return [Row(_text(r[0]), _text(r[1]), _text(r[2]), "", _number(r[3]), _lineage(r[4])) for r in rows]
 
     def count(self) -> int:
         try:
             return int(self._conn().execute("SELECT COUNT(*) FROM scenarios").fetchone()[0])
         except sqlite3.Error as exc:
             raise self._fault(exc) from None
+
+    def insert_dataset(self, did: str, summary: str, content: str, saved_at: float) -> bool:
+        problem = header_problem(self.path)
+        if problem is not None:
+            raise StoreUnavailableError(self._damaged(problem))
+        try:
+            conn = self._conn()
+            with conn:
+                cur = conn.execute(
+                    "INSERT OR IGNORE INTO datasets (id, summary, content, saved_at) VALUES (?,?,?,?)",
+                    (did, summary, content, saved_at),
+                )
+            return cur.rowcount == 1
+        except sqlite3.Error as exc:
+            raise self._fault(exc) from None
+
+    def fetch_dataset(self, did: str) -> tuple[str, str] | None:
+        try:
+            found = self._conn().execute("SELECT summary, content FROM datasets WHERE id = ?", (did,)).fetchone()
+        except sqlite3.Error as exc:
+            raise self._fault(exc) from None
+        return None if found is None else (str(found[0]), str(found[1]))
 
     def close(self) -> None:
         with self._lock:
@@ -414,6 +454,11 @@ def _text(value: Any) -> str:
     if isinstance(value, (bytes, bytearray, memoryview)):
         return bytes(value).decode("utf-8", errors="replace")
     return str(value)
+
+
+def _lineage(value: Any) -> str | None:
+    """The ``derived_from`` column as text (None when empty)."""
+    return None if value is None else _text(value)
 
 
 def _number(value: Any) -> float:
@@ -498,12 +543,12 @@ class ScenarioStore:
         row = self.database.fetch(key)
         if row is None:
             return None
-        return StoredScenario(row.id, row.title, row.description, row.document)
+        return StoredScenario(row.id, row.title, row.description, row.document, derived_from=row.derived_from)
 
     def list(self) -> list[StoredScenario]:
         """Every scenario with its document, demos first: for batch work (the API lists with ``page``)."""
         saved = [
-            StoredScenario(r.id, r.title, r.description, r.document)
+            StoredScenario(r.id, r.title, r.description, r.document, derived_from=r.derived_from)
             for r in self.database.fetch_all()
             if r.id not in self._demo_by_id
         ]
@@ -517,12 +562,16 @@ class ScenarioStore:
         room = limit - len(demos)
         if room > 0:
             rows = self.database.fetch_page(room, max(offset - len(self.demos), 0))
-        saved = [StoredScenario(r.id, r.title, _cut(r.description), "") for r in rows if r.id not in self._demo_by_id]
+        saved = [
+            StoredScenario(r.id, r.title, _cut(r.description), "", derived_from=r.derived_from)
+            for r in rows
+            if r.id not in self._demo_by_id
+        ]
         items = [StoredScenario(d.id, d.title, _cut(d.description), "", True, d.name) for d in demos] + saved
         return ScenarioPage(items, len(self.demos) + self.database.count(), limit, offset)
 
     # -- writing -------------------------------------------------------------------------------------------------
-    def save(self, doc: dict[str, Any]) -> tuple[StoredScenario, bool]:
+    def save(self, doc: dict[str, Any], derived_from: str | None = None) -> tuple[StoredScenario, bool]:
         """Validate and save a scenario; return it and whether it is new (False: already there).
 
         Two saves of one document, in two threads or on two instances sharing a database, give one id and
@@ -531,11 +580,48 @@ class ScenarioStore:
         sid, text, title, description = canonicalize(doc)
         if sid in self._demo_by_id:
             return self._demo_by_id[sid], False
-        created = self.database.insert_if_absent(Row(sid, title, description, text, time.time()))
+        if derived_from == sid:
+            derived_from = None  # saved unchanged: not derived from itself
+        created = self.database.insert_if_absent(Row(sid, title, description, text, time.time(), derived_from))
         stored = self.get(sid)
         if stored is None:  # pragma: no cover - the row was just inserted or was already there
             raise StoreUnavailableError(f"scenario {sid} vanished from the store {self.database.where}")
         return stored, created
+
+
+class DatasetStore:
+    """Plant datasets (DESIGN.md §12) in the same database as the scenarios, content-addressed: the id is the
+    hash of the canonical content (``exomap.schema.plantdata.Dataset.dataset_id``), so a second upload of the
+    same data is the same id and nothing is overwritten."""
+
+    def __init__(self, database: Database) -> None:
+        self.database = database
+
+    def save(self, dataset: Any) -> tuple[str, bool]:
+        """Save a parsed ``Dataset``; return its id and whether it is new."""
+        import json
+
+        did = dataset.dataset_id
+        summary = json.dumps(dataset.summary(), sort_keys=True)
+        created = self.database.insert_dataset(did, summary, dataset.canonical_csv(), time.time())
+        return did, created
+
+    def summary(self, did: str) -> dict[str, Any] | None:
+        import json
+
+        found = self.database.fetch_dataset(did)
+        return None if found is None else json.loads(found[0])
+
+    def get(self, did: str) -> Any:
+        """The stored dataset as a ``Dataset`` (SI), or None."""
+        import json
+
+        from exomap.schema.plantdata import dataset_from_canonical
+
+        found = self.database.fetch_dataset(did)
+        if found is None:
+            return None
+        return dataset_from_canonical(json.loads(found[0]), found[1])
 
 
 def open_store(settings: Settings) -> ScenarioStore:

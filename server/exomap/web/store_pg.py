@@ -32,7 +32,7 @@ log = logging.getLogger("exomap.web")
 #: Seconds to wait for a TCP connection to the server (libpq ``connect_timeout``).
 CONNECT_TIMEOUT_S = 5
 
-_COLUMNS = "id, title, description, document, saved_at"
+_COLUMNS = "id, title, description, document, saved_at, derived_from"
 
 
 def describe(url: str) -> str:
@@ -131,8 +131,8 @@ class PostgresDatabase:
         # show the replacement character instead.
         title, description = (t.replace("\x00", "\ufffd") for t in (row.title, row.description))
         count = self._run(
-            f"INSERT INTO scenarios ({_COLUMNS}) VALUES (%s, %s, %s, %s, %s) ON CONFLICT (id) DO NOTHING",
-            (row.id, title, description, row.document, row.saved_at),
+            f"INSERT INTO scenarios ({_COLUMNS}) VALUES (%s, %s, %s, %s, %s, %s) ON CONFLICT (id) DO NOTHING",
+            (row.id, title, description, row.document, row.saved_at, row.derived_from),
             "count",
         )
         return bool(count == 1)
@@ -147,7 +147,7 @@ class PostgresDatabase:
 
     def fetch_page(self, limit: int, offset: int) -> list[Row]:
         rows = self._run(
-            "SELECT id, title, left(description, %s), '', saved_at FROM scenarios ORDER BY saved_at, id "
+            "SELECT id, title, left(description, %s), '', saved_at, derived_from FROM scenarios ORDER BY saved_at, id "
             "LIMIT %s OFFSET %s",
             (SUMMARY_CHARS + 1, int(limit), int(offset)),
             "all",
@@ -156,6 +156,18 @@ class PostgresDatabase:
 
     def count(self) -> int:
         return int(self._run("SELECT COUNT(*) FROM scenarios", (), "one")[0])
+
+    def insert_dataset(self, did: str, summary: str, content: str, saved_at: float) -> bool:
+        count = self._run(
+            "INSERT INTO datasets (id, summary, content, saved_at) VALUES (%s, %s, %s, %s) ON CONFLICT (id) DO NOTHING",
+            (did, summary, content, saved_at),
+            "count",
+        )
+        return bool(count == 1)
+
+    def fetch_dataset(self, did: str) -> tuple[str, str] | None:
+        found = self._run("SELECT summary, content FROM datasets WHERE id = %s", (did,), "one")
+        return None if found is None else (str(found[0]), str(found[1]))
 
     def close(self) -> None:
         self._pool.close()

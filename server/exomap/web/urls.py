@@ -5,13 +5,21 @@ View state lives in the query string of a page URL, in SI numbers so a link is e
 ==========================  =============================================================
 ``residence_time``          setpoint residence time [s]
 ``feed_temperature``        setpoint feed temperature [K]
+``coolant_temperature``     setpoint coolant temperature [K] (jacketed tanks; default the scenario's)
 ``map_residence_time``      map window ``lo,hi`` [s]
 ``map_feed_temperature``    map window ``lo,hi`` [K]
 ``points``                  map grid ``n_tau,n_tin``
 ``branch``                  ``low`` | ``high``: which stable state the check assumes
 ``panel``                   open panel: ``check`` | ``curves`` | ``simulate`` | ``editor``
 ``upset``                   index of the upset whose response is open
+``sim_start``               ``low`` | ``high``: the steady state a simulation starts from
+``sim_duration``            simulated time [s]
+``sim_events``              the simulation's events as typed, one a line (the text of ``exomap.core.events``)
 ==========================  =============================================================
+
+The print sheet adds its sign-off fields (``SIGNOFF_KEYS``: prepared by, reviewed by, change reference, date),
+typed on the sheet and carried in its link only, never stored. Numbers are written with 12 significant
+digits, so a link never carries binary noise such as ``2223.6000000000004``.
 
 The same names (without the ``map_`` prefix for the map window) are the query parameters of the API's GET
 twins, so a page URL maps onto its JSON twin by renaming at most two keys.
@@ -28,13 +36,19 @@ API = "/api/v1"
 VIEW_KEYS = (
     "residence_time",
     "feed_temperature",
+    "coolant_temperature",
     "map_residence_time",
     "map_feed_temperature",
     "points",
     "branch",
     "panel",
     "upset",
+    "sim_start",
+    "sim_duration",
+    "sim_events",
 )
+#: Sign-off fields of the print sheet: in its link only, never stored.
+SIGNOFF_KEYS = ("prepared_by", "reviewed_by", "change_reference", "review_date")
 PANELS = ("check", "curves", "simulate", "editor")
 BRANCHES = ("low", "high")
 
@@ -43,14 +57,16 @@ def _query(params: Mapping[str, object] | None) -> str:
     if not params:
         return ""
     items = [(k, _text(v)) for k, v in params.items() if v is not None and v != ""]
-    return "?" + urlencode(items, safe=",") if items else ""
+    return "?" + urlencode(items, safe=",", quote_via=quote) if items else ""
 
 
 def _text(value: object) -> str:
     if isinstance(value, (list, tuple)):
         return ",".join(_text(v) for v in value)
     if isinstance(value, float):
-        # the shortest text that reads back to the same number, as the browser's String(x) writes it
+        # 12 significant digits, then the shortest text that reads back to that number (as the browser's
+        # String(Number(x.toPrecision(12))) writes it): no binary noise in a link
+        value = float(f"{value:.12g}")
         return str(int(value)) if value.is_integer() and abs(value) < 1e21 else repr(value)
     return str(value)
 
@@ -59,9 +75,9 @@ def _seg(value: str) -> str:
     return quote(str(value), safe="")
 
 
-def view_state(query: Mapping[str, str]) -> dict[str, str]:
+def view_state(query: Mapping[str, str], keys: tuple[str, ...] = VIEW_KEYS) -> dict[str, str]:
     """The view-state keys of a request's query string (unknown keys dropped, order fixed)."""
-    return {k: query[k] for k in VIEW_KEYS if k in query and query[k] != ""}
+    return {k: query[k] for k in keys if k in query and query[k] != ""}
 
 
 # -- pages ------------------------------------------------------------------------------------------------
@@ -74,12 +90,12 @@ def scenario_page(scenario_id: str, state: Mapping[str, object] | None = None) -
 
 
 def print_page(scenario_id: str, state: Mapping[str, object] | None = None) -> str:
-    return f"/scenarios/{_seg(scenario_id)}/print" + _query(_ordered(state))
+    return f"/scenarios/{_seg(scenario_id)}/print" + _query(_ordered(state, VIEW_KEYS + SIGNOFF_KEYS))
 
 
-def _ordered(state: Mapping[str, object] | None) -> dict[str, object]:
+def _ordered(state: Mapping[str, object] | None, keys: tuple[str, ...] = VIEW_KEYS) -> dict[str, object]:
     state = state or {}
-    return {k: state[k] for k in VIEW_KEYS if k in state}
+    return {k: state[k] for k in keys if k in state}
 
 
 # -- static files -----------------------------------------------------------------------------------------
@@ -123,7 +139,8 @@ def api_answer(scenario_id: str, kind: str, params: Mapping[str, object] | None 
 def api_twin_of_page(scenario_id: str, state: Mapping[str, object] | None = None) -> str:
     """The JSON twin of a scenario page: the check at the page's setpoint (and branch)."""
     state = state or {}
-    params = {k: state[k] for k in ("residence_time", "feed_temperature", "branch") if k in state}
+    keys = ("residence_time", "feed_temperature", "coolant_temperature", "branch")
+    params = {k: state[k] for k in keys if k in state}
     return api_answer(scenario_id, "check", params)
 
 
@@ -137,6 +154,8 @@ def api_map_of_page(scenario_id: str, state: Mapping[str, object] | None = None,
         params["feed_temperature"] = state["map_feed_temperature"]
     if "points" in state:
         params["points"] = state["points"]
+    if "coolant_temperature" in state:
+        params["coolant_temperature"] = state["coolant_temperature"]
     if fmt:
         params["format"] = fmt
     return api_answer(scenario_id, "map", params)
@@ -175,3 +194,38 @@ def compare_print_page(state: Mapping[str, object]) -> str:
 def api_compare(params: Mapping[str, object]) -> str:
     """GET twin of a comparison (``a``, ``b``, ``residence_time_a`` ..., window ``residence_time=lo,hi``)."""
     return f"{API}/compare" + _query(params)
+
+
+# -- probability map (DESIGN.md §11) ----------------------------------------------------------------------
+#: Query keys of the probability-map page, in link order.
+UNCERTAINTY_KEYS = ("samples", "seed", "show", "map_residence_time", "map_feed_temperature", "points")
+#: Probabilities the page can shade.
+SHOWN = ("unsafe", "runaway", "unstable", "multiple")
+
+
+def uncertainty_state(query: Mapping[str, str]) -> dict[str, str]:
+    """The view-state keys of the probability-map page (unknown keys dropped, order fixed)."""
+    return {k: query[k] for k in UNCERTAINTY_KEYS if k in query and query[k] != ""}
+
+
+def uncertainty_page(scenario_id: str, state: Mapping[str, object] | None = None) -> str:
+    state = state or {}
+    return f"/scenarios/{_seg(scenario_id)}/uncertainty" + _query({k: state[k] for k in UNCERTAINTY_KEYS if k in state})
+
+
+def api_uncertainty_map(scenario_id: str, state: Mapping[str, object] | None = None, fmt: str | None = None) -> str:
+    """The probability map of the page's view (``samples`` default 256, as the uncertainty block's)."""
+    state = state or {}
+    params: dict[str, object] = {"samples": state.get("samples", 256)}
+    if "seed" in state:
+        params["seed"] = state["seed"]
+    for page_key, api_key in (
+        ("map_residence_time", "residence_time"),
+        ("map_feed_temperature", "feed_temperature"),
+        ("points", "points"),
+    ):
+        if page_key in state:
+            params[api_key] = state[page_key]
+    if fmt:
+        params["format"] = fmt
+    return api_answer(scenario_id, "map", params)

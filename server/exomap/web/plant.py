@@ -1,0 +1,278 @@
+"""Plant data over the API (DESIGN.md §12): upload a historian export, replay it, overlay it, calibrate on it.
+
+``POST /api/v1/datasets`` takes the CSV as the request body (``text/csv``) and the tag mapping in the query
+(``map=TI101=reactor_temperature,FI100=feed_flow``, ``unit=TI101=degC``, ``time_column=``); the dataset is
+parsed off the event loop, stored content-addressed under the same save token as scenarios, and answered with
+its summary (201 new, 200 already stored). ``GET /api/v1/datasets/{id}`` gives the summary again. Replay,
+overlay and calibrate name a scenario (inline or by id) and a stored ``dataset_id``; replay and calibrate run
+in the worker pool like every computation (cached, merged when identical, within the time budget).
+"""
+
+from __future__ import annotations
+
+import hmac
+import json
+from typing import Annotated, Any
+
+import anyio.to_thread
+from fastapi import APIRouter, Depends, Query, Request
+from fastapi.responses import JSONResponse, Response
+from pydantic import BaseModel, ConfigDict, Field, model_validator
+
+from exomap.web.errors import ApiError
+from exomap.web.models import Quantity
+
+DatasetId = Annotated[str, Field(min_length=1, max_length=64, description="Id of a stored plant dataset.")]
+
+
+class PlantRequest(BaseModel):
+    """A scenario (inline or by id) and a stored dataset."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    scenario: dict[str, Any] | None = Field(default=None, description="A whole scenario document; or scenario_id.")
+    scenario_id: str | None = Field(default=None, min_length=1, max_length=200, description="Stored id or demo name.")
+    dataset_id: DatasetId
+
+    @model_validator(mode="after")
+    def _one_scenario(self) -> PlantRequest:
+        if (self.scenario is None) == (self.scenario_id is None):
+            raise ValueError("give exactly one of 'scenario' (a document) or 'scenario_id'")
+        return self
+
+
+class CalibrateRequest(PlantRequest):
+    """Fit scenario parameters to a stored dataset."""
+
+    model_config = ConfigDict(
+        extra="forbid",
+        json_schema_extra={
+            "examples": [
+                {
+                    "scenario_id": "jacketed-first-order",
+                    "dataset_id": "0123456789abcdef",
+                    "fit": ["reactions[0].rate_constant", "jacket.ua"],
+                    "reference_temperature": "80 degC",
+                }
+            ]
+        },
+    )
+
+    fit: list[str] = Field(min_length=1, max_length=6, description="Targets to fit (DESIGN.md §11 paths).")
+    reference_temperature: Quantity | None = Field(
+        default=None, description="Where rate constants are stated; default: the mean recorded reactor temperature."
+    )
+    outputs: list[str] = Field(
+        default_factory=lambda: ["reactor_temperature"], description="Recorded outputs fitted (roles)."
+    )
+
+
+def _pairs(text: str | None, field: str) -> dict[str, str]:
+    out: dict[str, str] = {}
+    if not text:
+        return out
+    for item in text.split(","):
+        tag, sep, value = item.partition("=")
+        if not sep or not tag.strip() or not value.strip():
+            raise ApiError(
+                422, "invalid_request", f"{field}: expected TAG=VALUE[,TAG=VALUE...], got {item!r}",
+                [{"field": field, "message": f"expected TAG=VALUE[,TAG=VALUE...], got {item!r}"}],
+            )  # fmt: skip
+        if tag.strip() in out:
+            raise ApiError(422, "invalid_request", f"{field}: tag {tag.strip()!r} given twice",
+                           [{"field": field, "message": f"tag {tag.strip()!r} is given twice"}])  # fmt: skip
+        out[tag.strip()] = value.strip()
+    return out
+
+
+def _check_token(request: Request, settings: Any) -> None:
+    if settings.save_token:
+        scheme, _, token = request.headers.get("authorization", "").partition(" ")
+        if scheme.lower() != "bearer" or not hmac.compare_digest(token.strip().encode(), settings.save_token.encode()):
+            raise ApiError(
+                401, "unauthorized", "saving needs the header 'Authorization: Bearer <token>'",
+                headers={"WWW-Authenticate": "Bearer"},
+            )  # fmt: skip
+
+
+def _datasets(request: Request) -> Any:
+    from exomap.web.store import DatasetStore
+
+    return DatasetStore(request.app.state.store.database)
+
+
+def _dataset(request: Request, did: str) -> Any:
+    ds = _datasets(request).get(did)
+    if ds is None:
+        raise ApiError(404, "not_found", f"no dataset with id {did!r}",
+                       [{"field": "dataset_id", "message": "no stored dataset has this id"}])  # fmt: skip
+    return ds
+
+
+def _document(service: Any, req: PlantRequest) -> tuple[dict[str, Any], str]:
+    from exomap import schema
+
+    if req.scenario is not None:
+        return req.scenario, schema.scenario_id(schema.parse_scenario(req.scenario))
+    stored = service.store.get(req.scenario_id)
+    if stored is None:
+        raise ApiError(404, "not_found", f"no scenario with id {req.scenario_id!r}",
+                       [{"field": "scenario_id", "message": "no stored scenario has this id"}])  # fmt: skip
+    return json.loads(stored.document), stored.id
+
+
+def build_plant_router() -> APIRouter:
+    """The plant-data routes of ``/api/v1``."""
+    from exomap.web import plant_job
+    from exomap.web.answers import CalibrationAnswer, DatasetAnswer, OverlayAnswer, ReplayAnswer
+    from exomap.web.api import _answer_response, answer_responses, get_service
+    from exomap.web.query import refuse_unknown_query
+
+    router = APIRouter(prefix="/api/v1", dependencies=[Depends(refuse_unknown_query)])
+
+    @router.post(
+        "/datasets",
+        status_code=201,
+        operation_id="saveDataset",
+        tags=["plant data"],
+        response_class=JSONResponse,
+        summary="Store a historian export (CSV body) with its tag mapping; answers its summary",
+        description="The body is the CSV file itself (wide: a time column and one column per tag, units as "
+        "'name [unit]'; or long: tag, time, value[, quality]). 201 when new, 200 when already stored. When the "
+        "server has a save token, send `Authorization: Bearer <token>`.",
+        responses={
+            **answer_responses(DatasetAnswer, 400, 401, 413, 422, 503, status=201, description="Stored."),
+            200: {"model": DatasetAnswer, "description": "Already stored (nothing written)."},
+        },
+        openapi_extra={
+            "requestBody": {
+                "required": True,
+                "description": "The historian export itself: the bytes of the UTF-8 CSV file.",
+                "content": {"application/octet-stream": {"schema": {"type": "string", "format": "binary"}}},
+            }
+        },
+    )
+    async def save_dataset(
+        request: Request,
+        map: Annotated[str, Query(description="Tag roles: 'TI101=reactor_temperature,FI100=feed_flow'.")],
+        unit: Annotated[str | None, Query(description="Units of tags whose header has none: 'TI101=degC'.")] = None,
+        time_column: Annotated[str | None, Query(description="Time column of a wide file.")] = None,
+    ) -> JSONResponse:
+        from exomap.schema.errors import ScenarioError
+        from exomap.schema.plantdata import read_plant_csv
+
+        settings = request.app.state.settings
+        _check_token(request, settings)
+        mapping, units = _pairs(map, "map"), _pairs(unit, "unit")
+        body = await request.body()
+
+        def parse_and_save() -> tuple[Any, bool]:
+            ds = read_plant_csv(
+                body, mapping=mapping, time_column=time_column, units=units, max_rows=settings.max_dataset_rows
+            )
+            did, created = _datasets(request).save(ds)
+            return ds, created
+
+        try:
+            ds, created = await anyio.to_thread.run_sync(parse_and_save)
+        except ScenarioError as exc:
+            status = 413 if "the limit is" in str(exc) else 422
+            raise ApiError(status, "invalid_dataset", str(exc), exc.errors) from None
+        answer = {**ds.summary(), "created": created}
+        return JSONResponse(answer, status_code=201 if created else 200,
+                            headers={"Location": f"/api/v1/datasets/{ds.dataset_id}"})  # fmt: skip
+
+    @router.get(
+        "/datasets/{dataset_id}",
+        operation_id="getDataset",
+        tags=["plant data"],
+        response_class=JSONResponse,
+        summary="A stored dataset's summary",
+        responses=answer_responses(DatasetAnswer, 404, 422, 503),
+    )
+    async def get_dataset(request: Request, dataset_id: str) -> JSONResponse:
+        summary = await anyio.to_thread.run_sync(_datasets(request).summary, dataset_id)
+        if summary is None:
+            raise ApiError(404, "not_found", f"no dataset with id {dataset_id!r}",
+                           [{"field": "dataset_id", "message": "no stored dataset has this id"}])  # fmt: skip
+        return JSONResponse({**summary, "created": False})
+
+    @router.post(
+        "/replay",
+        operation_id="computeReplay",
+        tags=["plant data"],
+        response_class=Response,
+        summary="Replay: the scenario driven by the recorded inputs, beside the recorded outputs",
+        responses=answer_responses(ReplayAnswer, 400, 404, 413, 422, 503),
+    )
+    async def replay_route(request: Request, req: PlantRequest) -> Response:
+        service = await get_service(request)
+        resolved = await anyio.to_thread.run_sync(service.resolve, req)
+        ds = await anyio.to_thread.run_sync(_dataset, request, req.dataset_id)
+        key = ("replay", resolved.id, ds.dataset_id)
+        out, hit = await service.computed(key, plant_job.run_replay, resolved.scenario, ds)
+        return _answer_response(request, out, hit, "json", "replay")
+
+    @router.post(
+        "/overlay",
+        operation_id="computeOverlay",
+        tags=["plant data"],
+        response_class=JSONResponse,
+        summary="Overlay: where the plant ran on the operating map (residence time and feed temperature in time)",
+        responses=answer_responses(OverlayAnswer, 400, 404, 422, 503),
+    )
+    async def overlay_route(request: Request, req: PlantRequest) -> JSONResponse:
+        service = await get_service(request)
+        resolved = await anyio.to_thread.run_sync(service.resolve, req)
+        ds = await anyio.to_thread.run_sync(_dataset, request, req.dataset_id)
+        return JSONResponse(overlay(resolved.scenario, ds))
+
+    @router.post(
+        "/calibrate",
+        operation_id="computeCalibrate",
+        tags=["plant data"],
+        response_class=Response,
+        summary="Calibrate: fit scenario parameters to a stored dataset, with standard errors and 95 % intervals",
+        responses=answer_responses(CalibrationAnswer, 400, 404, 413, 422, 503),
+    )
+    async def calibrate_route(request: Request, req: CalibrateRequest) -> Response:
+        from exomap.web.service import quantity
+
+        service = await get_service(request)
+        resolved = await anyio.to_thread.run_sync(service.resolve, req)
+        doc, source = await anyio.to_thread.run_sync(_document, service, req)
+        ds = await anyio.to_thread.run_sync(_dataset, request, req.dataset_id)
+        T_ref = None
+        if req.reference_temperature is not None:
+            T_ref = quantity(req.reference_temperature, "temperature", "reference_temperature")
+        key = ("calibrate", resolved.id, ds.dataset_id, tuple(req.fit), T_ref, tuple(req.outputs))
+        out, hit = await service.computed(
+            key, plant_job.run_calibrate, resolved.scenario, doc, source, ds, list(req.fit), T_ref, list(req.outputs)
+        )
+        return _answer_response(request, out, hit, "json", "calibrate")
+
+    return router
+
+
+def overlay(sc: Any, ds: Any) -> dict[str, Any]:
+    """The plant's path on the map: residence time V_set/q_in(t) and feed temperature at each record (SI; null
+    where not recorded), with the recorded reactor temperature and the record times."""
+    import math
+
+    def clean(values: Any) -> list[float | None]:
+        return [None if not math.isfinite(v) else v for v in values.tolist()]
+
+    t = ds.epoch_s - ds.epoch_s[0]
+    q = ds.series.get("feed_flow")
+    tin = ds.series.get("feed_temperature")
+    T = ds.series.get("reactor_temperature")
+    nan = [None] * t.size
+    return {
+        "dataset_id": ds.dataset_id,
+        "start": ds.summary()["start"],
+        "time_s": t.tolist(),
+        "residence_time_s": clean(sc.vessel.V_set / q) if q is not None else [sc.tau_nominal] * t.size,
+        "feed_temperature_K": clean(tin) if tin is not None else [sc.T_in] * t.size,
+        "reactor_temperature_K": clean(T) if T is not None else nan,
+        "recorded": sorted(ds.series),
+    }

@@ -1,0 +1,58 @@
+"""The probability-map page ``/scenarios/{id}/uncertainty`` (DESIGN.md §11): a thin shell, ``uncertainty.js`` draws.
+
+Its view state is its query string (``exomap.web.urls.UNCERTAINTY_KEYS``): ``samples``, ``seed``, ``show``
+(which probability is shaded), and the map window ``map_residence_time``, ``map_feed_temperature``,
+``points``, so a link reproduces the view. Its JSON twin is the map answer with the same samples and seed.
+"""
+
+from __future__ import annotations
+
+import json
+from typing import Any
+
+from fastapi import FastAPI, Request
+from fastapi.responses import HTMLResponse, RedirectResponse, Response
+
+from exomap.web import urls
+
+
+def _block(document: str) -> tuple[str, str]:
+    """(samples, seed) of a stored document's uncertainty block, as text; the defaults without one."""
+    try:
+        block = json.loads(document).get("uncertainty") or {}
+    except (ValueError, AttributeError):
+        block = {}
+    return str(block.get("samples", 256)), str(block.get("seed", 0))
+
+
+def _in_order(state: dict[str, Any]) -> dict[str, Any]:
+    return {k: state[k] for k in urls.UNCERTAINTY_KEYS if k in state}
+
+
+def install_pages(app: FastAPI, render: Any) -> None:
+    """Add the page route."""
+
+    @app.get("/scenarios/{scenario_id}/uncertainty", response_class=HTMLResponse, include_in_schema=False)
+    def uncertainty_page(scenario_id: str, request: Request) -> Response:
+        state = urls.uncertainty_state(request.query_params)
+        stored = request.app.state.store.get(scenario_id)
+        if stored is None:
+            response = render(
+                "missing.html", scenario_id=scenario_id, twin=urls.api_scenarios(), boot={"page": "missing"}
+            )
+            response.status_code = 404
+            return response
+        if stored.id != scenario_id or "samples" not in state or "seed" not in state:
+            # the link always names its samples and seed: missing ones are the scenario's block's (256 and 0
+            # by default), and a demo named by its file name goes to its content id, so the link is exact
+            block = _block(stored.document)
+            state = {**state, "samples": state.get("samples", block[0]), "seed": state.get("seed", block[1])}
+            return RedirectResponse(urls.uncertainty_page(stored.id, _in_order(state)), status_code=307)
+        return render(
+            "uncertainty.html",
+            scenario_id=scenario_id,
+            title=stored.title,
+            state=state,
+            twin=urls.api_uncertainty_map(scenario_id, state),
+            boot={"page": "uncertainty", "scenario_id": scenario_id},
+        )

@@ -1,0 +1,80 @@
+"""The probability-map page (/scenarios/{id}/uncertainty): a thin shell with its JSON twin (the probability map
+with the link's samples and seed), the cautions, and a palette of our own that reads in greyscale."""
+
+from __future__ import annotations
+
+import copy
+import re
+from importlib import resources
+from pathlib import Path
+from typing import Any
+
+from exomap.web import urls
+from test_pages import _srgb_to_lab_l, parse, twin_of
+from web_scenarios import ADIABATIC
+
+ASSETS = Path(str(resources.files("exomap.assets")))
+UNCERTAIN = copy.deepcopy(ADIABATIC)
+UNCERTAIN["uncertainty"] = {
+    "parameters": [{"target": "reactions[0].activation_energy", "distribution": "normal", "sd": "2 kJ/mol"}]
+}
+
+
+def test_page_twin_is_the_probability_map_of_its_link(client: Any) -> None:
+    sid = client.post("/api/v1/scenarios", json=UNCERTAIN).json()["id"]
+    state = {"samples": "64", "seed": "3", "show": "runaway", "points": "20,16", "panel": "ignored"}
+    r = client.get(urls.uncertainty_page(sid, state))
+    assert r.status_code == 200
+    twin = twin_of(r.text)
+    assert twin == urls.api_uncertainty_map(sid, {"samples": "64", "seed": "3", "points": "20,16"})
+    assert "samples=64" in twin and "seed=3" in twin and "points=20,16" in twin
+    for caution in ("Screening aid", "calorimetric testing"):
+        assert caution in r.text
+    links = parse(r.text)
+    assert any(s.startswith("/static/uncertainty.js") for s in links.scripts)
+    assert links.anchors["unc-csv"].endswith("format=csv")
+    # the twin answers: the nominal map with the probability keys
+    doc = client.get(twin).json()
+    assert doc["samples"] == 64 and doc["seed"] == 3 and "region" in doc and "robust_window" in doc
+
+
+def test_page_of_a_demo_name_redirects_and_unknown_is_404(client: Any) -> None:
+    r = client.get("/scenarios/adiabatic-second-order/uncertainty?samples=64&seed=2", follow_redirects=False)
+    assert r.status_code == 307
+    assert r.headers["location"].endswith("/uncertainty?samples=64&seed=2")
+    assert client.get("/scenarios/0123456789abcdef/uncertainty").status_code == 404
+
+
+def test_the_link_always_names_samples_and_seed(client: Any) -> None:
+    # missing ones are filled from the scenario's uncertainty block (here 128 and 7), then the defaults 256, 0
+    doc = copy.deepcopy(UNCERTAIN)
+    doc["uncertainty"] = {**doc["uncertainty"], "samples": 128, "seed": 7}
+    sid = client.post("/api/v1/scenarios", json=doc).json()["id"]
+    r = client.get(f"/scenarios/{sid}/uncertainty?show=runaway", follow_redirects=False)
+    assert r.status_code == 307
+    assert r.headers["location"] == urls.uncertainty_page(sid, {"samples": "128", "seed": "7", "show": "runaway"})
+    r = client.get(f"/scenarios/{sid}/uncertainty?seed=1", follow_redirects=False)
+    assert r.headers["location"].endswith("?samples=128&seed=1")
+    plain = client.post("/api/v1/scenarios", json=ADIABATIC).json()["id"]
+    r = client.get(f"/scenarios/{plain}/uncertainty", follow_redirects=False)
+    assert r.headers["location"].endswith("?samples=256&seed=0")
+
+
+def test_probability_palette_darkens_steadily() -> None:
+    """Sequential palette of our own: CIE L* falls by at least 8 from each stop to the next (our own threshold,
+    so neighbouring shades stay apart in greyscale), over at least 75 in all."""
+    text = (ASSETS / "static" / "uncertainty.js").read_text(encoding="utf-8")
+    block = text[text.index("PROBABILITY_STOPS") : text.index("];")]
+    stops = re.findall(r'\[([\d.]+), "(#[0-9a-fA-F]{6})"\]', block)
+    assert [float(p) for p, _ in stops] == sorted(float(p) for p, _ in stops)
+    assert float(stops[0][0]) == 0.0 and float(stops[-1][0]) == 1.0
+    L = [_srgb_to_lab_l(c) for _, c in stops]
+    for a, b in zip(L, L[1:], strict=False):
+        assert a - b >= 8.0, L
+    assert L[0] - L[-1] >= 75.0, L
+
+
+def test_browser_and_server_build_the_same_page_urls() -> None:
+    js = (ASSETS / "static" / "urls.js").read_text(encoding="utf-8")
+    keys = re.search(r"UNCERTAINTY_KEYS = \[([^\]]*)\]", js).group(1)
+    assert tuple(re.findall(r'"(\w+)"', keys)) == urls.UNCERTAINTY_KEYS
