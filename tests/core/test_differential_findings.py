@@ -132,3 +132,39 @@ def test_map_nan_unstable():
     with warnings.catch_warnings():
         warnings.simplefilter("error", RuntimeWarning)
         assert_map_cell("map-nan-unstable", ignore_warnings=False)
+
+
+def test_branch_missed_ignition():
+    from exomap.core.branch import branch
+    from reference.solver import Column
+
+    sc, ref, p = load("branch-missed-ignition")
+    col = Column(ref, p["tau"], *ref.temperature_window(p["lo"], p["hi"], p["tau"]))
+    want = [f for f in col.folds if p["lo"] < f.T_in < p["hi"]]
+    # reference: one ignition at T_in = 265.9526 K (T = 273.69 K) inside the range
+    assert [f.kind for f in want] == ["ignition"]
+    got = branch(sc, "feed_temperature", tau=p["tau"], lo=p["lo"], hi=p["hi"])
+    assert [t.kind for t in got.turning_points] == ["ignition"]
+    assert got.turning_points[0].T_in == pytest.approx(want[0].T_in, abs=1e-6)
+
+
+def test_hopf_missed_near_fold():
+    from exomap.core.branch import branch
+
+    sc, ref, p = load("hopf-missed-near-fold")
+    # exomap's own steady states change stability there: a complex pair crosses between 1859.3 s and 1859.9 s
+    before, after = steady_states(sc, 1859.3, p["T_in"]).states[0], steady_states(sc, 1859.9, p["T_in"]).states[0]
+    assert before.stability == "unstable" and after.stability == "stable" and after.oscillatory
+    got = branch(sc, "residence_time", T_in=p["T_in"], lo=p["lo"], hi=p["hi"])
+    # reference (bialternate test on a (ln tau, T) grid, fsolve): Hopf at tau = 1859.6048 s, T = 315.5763 K
+    assert any(
+        h.tau == pytest.approx(p["hopf_tau"], rel=1e-5) and h.T == pytest.approx(p["hopf_T"], abs=1e-3)
+        for h in got.hopf_points
+    )
+
+
+def test_hot_state_lost_2A():
+    sc, ref, p = load("hot-state-lost-2A")
+    # reference: one stable state at 587.946167 K with 1 - X ~ 1e-37 (confirmed by the closed form of 2A -> D at
+    # order 0.5: sqrt(C_A) solves C_A0 - C_A = 2 tau k sqrt(C_A), then a scan of the energy balance in T)
+    assert_same_states(sc, ref, p["tau"], p["T_in"])

@@ -478,21 +478,38 @@ class Reference:
         return np.concatenate((dC, [dT]))
 
     def integrate(self, tau: float, T_in: float, C0, T0: float, t_end: float | None = None) -> tuple:
-        """Integrate the dynamic balances from (C0, T0) (Radau, tight tolerances); returns (C, T, settled)."""
+        """Integrate the dynamic balances from (C0, T0) (Radau, tight tolerances) in log concentrations of the
+        species present, so that a reactant at 1e-34 mol/m^3 with a fractional order stays positive and
+        smooth; returns (C, T, settled)."""
         t_end = t_end or 400.0 * tau
-        z0 = np.concatenate((np.asarray(C0, float), [T0]))
-        sol = solve_ivp(
-            lambda t, z: self.rhs(tau, T_in, z[:-1], z[-1]),
-            (0.0, t_end),
-            z0,
-            method="Radau",
-            rtol=1e-10,
-            atol=np.concatenate((np.full(self.n, 1e-12 * self.c_scale), [1e-9])),
-        )
-        z = sol.y[:, -1]
-        d = self.rhs(tau, T_in, z[:-1], z[-1])
-        settled = bool(np.max(np.abs(d[:-1])) * tau < 1e-6 * self.c_scale and abs(d[-1]) * tau < 1e-5)
-        return z[:-1], float(z[-1]), settled
+        C0 = np.asarray(C0, float)
+        logv = self.present & (np.maximum(C0, 0.0) > 0)
+        z0 = np.concatenate((np.where(logv, np.log(np.where(logv, C0, 1.0)), C0), [T0]))
+
+        def unpack(z):
+            C = np.where(logv, np.exp(np.minimum(z[:-1], 700.0)), z[:-1])
+            lnC = np.where(logv, z[:-1], np.log(np.maximum(z[:-1], 1e-300)))
+            return C, lnC, z[-1]
+
+        def f(t, z):
+            C, lnC, T = unpack(z)
+            lnr = self.lnk0 - self.Ea / (R * T) + np.where(self.orders > 0, self.orders * lnC, 0.0).sum(axis=1)
+            r = np.exp(lnr)
+            dC = (self.c_in - C) / tau + self.nu @ r
+            # d ln C/dt = dC/dt / C, with the reaction terms r/C taken in logarithms
+            dlog = (
+                self.c_in * np.exp(-lnC) / tau - 1.0 / tau + (self.nu * np.exp(lnr[None, :] - lnC[:, None])).sum(axis=1)
+            )
+            dT = (
+                (T_in - T) / tau + self.J @ r - self.kappa * (T - self.pb.T_c) - self.lam * (T - self.pb.T_amb) + self.p
+            )
+            return np.concatenate((np.where(logv, dlog, dC), [dT]))
+
+        sol = solve_ivp(f, (0.0, t_end), z0, method="Radau", rtol=1e-10, atol=1e-10)
+        C, _, T = unpack(sol.y[:, -1])
+        d = self.rhs(tau, T_in, C, T)
+        settled = bool(sol.success and np.max(np.abs(d[:-1])) * tau < 1e-6 * self.c_scale and abs(d[-1]) * tau < 1e-5)
+        return C, float(T), settled
 
 
 def _pair_at_zero(ev: np.ndarray) -> tuple[complex, complex] | None:

@@ -200,7 +200,7 @@ def test_states_are_where_the_dynamics_settle(seed):
 
 
 def test_generator_spans_the_space():
-    cases = [random_case(seed) for seed in range(300)]
+    cases = [random_case(seed) for seed in range(150)]
     assert {c.network for c in cases} == {n for n, _, _ in NETWORKS}
     assert any(c.problem.UA_jacket > 0 for c in cases) and any(c.problem.UA_jacket == 0 for c in cases)
     assert any(c.problem.UA_loss > 0 for c in cases) and any(c.problem.P_agitator > 0 for c in cases)
@@ -222,3 +222,20 @@ def test_solver_module_imports_nothing_of_exomap():
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == "False"
+
+
+def test_folds_are_where_the_jacobian_is_singular():
+    # a turning point found as an extremum of T_in(T) must be a zero eigenvalue of the full species + energy
+    # Jacobian (det J = 0; analytic: the implicit-function theorem fails exactly there)
+    case = random_case(53)  # series of three with agitator power: four folds on this column
+    ref = Reference(case.problem)
+    tau = 9798.548302774714
+    col = Column(ref, tau, *ref.temperature_window(250.0, 345.0, tau))
+    assert len(col.folds) == 4
+    for f in col.folds:
+        e = ref.evaluate(tau, np.array([f.T]))
+        ev = ref.eig(tau, e["u"], e["C"], np.array([f.T]), e["lnr"])[0]
+        assert np.min(np.abs(ev)) < 1e-7 * np.max(np.abs(ev))
+        # and the states on either side of it in T_in: two on one side, none on the other (locally)
+        n_at = [len([s for s in col.states(f.T_in + d) if abs(s.T - f.T) < 5.0]) for d in (-1e-3, 1e-3)]
+        assert sorted(n_at) == [0, 2]

@@ -7,7 +7,7 @@ import { drawBranch, drawHeatBalance } from "./curves.js";
 import { renderVerdict, renderList, renderKV, renderStates, renderUpsets, drawResponse, simulationSummary, upsetName,
   el, stateWords, VERDICT_WORDS, renderSafety, showsDetails, upsetEnding } from "./check.js";
 import { parseTime, parseTemperature, parseFlow, fmtMin, fmtTime, fmtTemp, fmtPct, fmtFlow, inputMin, inputTemp, inputFlow,
-  clean } from "./units.js";
+  clean, plainText } from "./units.js";
 import { Editor } from "./editor.js";
 import { helpHTML } from "./events.js";
 
@@ -457,7 +457,7 @@ async function runSimulation() {
     const ev2 = f.filter((x) => String(x.field).startsWith("events")).map((x) => {
       const m = String(x.field).match(/^events\[(\d+)\]/);
       const l = m ? lines[Number(m[1])] : null;
-      return l ? `Line ${l.number}: ${String(x.message).replace(/^events\[\d+\][^:]*:\s*/, "")}` : `${x.field}: ${x.message}`;
+      return plainText(l ? `Line ${l.number}: ${String(x.message).replace(/^events\[\d+\][^:]*:\s*/, "")}` : `${x.field}: ${x.message}`);
     });
     const du = f.filter((x) => String(x.field).startsWith("duration")).map((x) => x.message);
     if (ev2.length) fieldError("sim-events-err", ev2.join("; "));
