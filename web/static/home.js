@@ -7,9 +7,16 @@ import { plainText } from "./units.js";
 
 const $ = (id) => document.getElementById(id);
 
-function item(s) {
+function item(s, all = []) {
   const li = el("li", { class: "scenario-item", "data-id": s.id });
   li.append(el("a", { href: urls.scenarioPage(s.id), class: "scenario-link", text: s.title || s.name || s.id }));
+  if (s.derived_from) {
+    // lineage: the scenario this one was saved from, and a side-by-side of the change
+    const origin = all.find((o) => o.id === s.derived_from);
+    li.append(el("p", { class: "small derived-from" }, "derived from ",
+      el("a", { href: urls.scenarioPage(s.derived_from), text: origin ? origin.title || origin.name || origin.id : s.derived_from }),
+      " · ", el("a", { class: "compare-original", href: urls.comparePage({ a: s.derived_from, b: s.id }), text: "compare" })));
+  }
   if (s.description) li.append(el("p", { class: "muted small", text: plainText(s.description) }));
   const meta = el("p", { class: "small" }, el("code", { text: s.id }));
   if (s.demo) {
@@ -27,7 +34,7 @@ async function list() {
     for (const [node, wanted] of [[$("demo-list"), true], [$("saved-list"), false]]) {
       node.textContent = "";
       const mine = all.filter((s) => Boolean(s.demo) === wanted);
-      for (const s of mine) node.append(item(s));
+      for (const s of mine) node.append(item(s, all));
       if (!mine.length) node.append(el("li", { class: "muted", text: wanted ? "No demo scenarios are installed."
         : "None yet. Edit a demo and save it, or import a file." }));
     }

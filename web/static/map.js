@@ -224,7 +224,9 @@ export async function drawMap(Plotly, el, doc, setpoint, { onPick, onPreview, on
   height } = {}) {
   const data = traces(doc, setpoint);
   for (const n of el.querySelectorAll(".map-placeholder, .map-preview")) n.remove();
-  await Plotly.react(el, data, layout(doc, { height: height || el.clientHeight || 360 }), { displayModeBar: false, responsive: true, staticPlot });
+  el._exomapBase = data.length;
+  await Plotly.react(el, [...data, ...(el._exomapExtra || [])], layout(doc, { height: height || el.clientHeight || 360 }),
+    { displayModeBar: false, responsive: true, staticPlot });
   const spIndex = data.length - 1;
   const setSetpoint = (sp) => {
     const x = [toMin(sp.residence_time)], y = [toC(sp.feed_temperature)];
@@ -267,6 +269,14 @@ export async function drawMap(Plotly, el, doc, setpoint, { onPick, onPreview, on
   }
   el._exomap = { doc, setSetpoint, onPick, onPreview, onHover };
   return el._exomap;
+}
+
+// Traces of other panels drawn over the map (e.g. the plant's path), after the map's own traces, so the
+// setpoint's trace indices stay fixed; they are kept across redraws of the map.
+export async function setExtraTraces(Plotly, el, extra) {
+  el._exomapExtra = extra;
+  if (el._exomapBase === undefined || !el.data) return;
+  await Plotly.react(el, [...el.data.slice(0, el._exomapBase), ...extra], el.layout);
 }
 
 // A still picture of the map (regions, boundaries, setpoint) on a canvas, drawn from the same answer while

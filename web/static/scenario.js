@@ -10,6 +10,7 @@ import { parseTime, parseTemperature, parseFlow, fmtMin, fmtTime, fmtTemp, fmtPc
   clean, plainText } from "./units.js";
 import { Editor } from "./editor.js";
 import { helpHTML } from "./events.js";
+import { PlantPanel } from "./plant.js";
 
 const $ = (id) => document.getElementById(id);
 const B = boot();
@@ -101,6 +102,7 @@ function showPanel(name, push = true) {
   if (changed) syncURL(push);
   if (name === "curves") loadCurves();
   if (name === "editor") openEditor();
+  if (name === "plant" && view.scenario) plant().open();
   if (name === "simulate") {
     $("event-help").innerHTML = helpHTML();
     if (hasSimulation() && !view.simulation && Plotly && view.scenario) runSimulation();
@@ -479,6 +481,12 @@ function wireSimulation() {
   });
 }
 
+// -- plant data (plant.js) ------------------------------------------------------------------------------------
+function plant() {
+  if (!view.plant) view.plant = new PlantPanel({ id: ID, state: () => state, syncURL, scenario: () => view.scenario });
+  return view.plant;
+}
+
 // -- editor -------------------------------------------------------------------------------------------------
 function openEditor() {
   if (view.editor || !view.scenario) return;
@@ -613,6 +621,9 @@ async function listDemoFlag() {
       const box = $("scenario-derived");
       box.textContent = "· derived from ";
       box.append(el("a", { href: urls.scenarioPage(me.derived_from), text: origin ? origin.title || origin.id : me.derived_from }));
+      // lineage: what the change did, side by side with the scenario it was made from
+      box.append(" · ", el("a", { id: "compare-original", href: urls.comparePage({ a: me.derived_from, b: ID }),
+        text: "Compare with the original" }));
       box.hidden = false;
     }
   } catch { /* the demo note is a nicety */ }

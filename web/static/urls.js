@@ -2,16 +2,16 @@
 // View state lives in the query string in SI numbers: residence_time [s], feed_temperature [K],
 // coolant_temperature [K] (jacketed tanks), map_residence_time "lo,hi" [s], map_feed_temperature "lo,hi" [K],
 // points "n_tau,n_tin", branch, panel, upset; a simulation as sim_start (low | high), sim_duration [s] and
-// sim_events (the event lines as typed, one a line). The print sheet adds its sign-off fields (SIGNOFF_KEYS):
+// sim_events (the event lines as typed, one a line); dataset (the plant dataset the Plant data panel shows). The print sheet adds its sign-off fields (SIGNOFF_KEYS):
 // they travel in its link and are never stored.
 
 export const API = "/api/v1";
 export const VIEW_KEYS = [
   "residence_time", "feed_temperature", "coolant_temperature", "map_residence_time", "map_feed_temperature",
-  "points", "branch", "panel", "upset", "sim_start", "sim_duration", "sim_events",
+  "points", "branch", "panel", "upset", "sim_start", "sim_duration", "sim_events", "dataset",
 ];
 export const SIGNOFF_KEYS = ["prepared_by", "reviewed_by", "change_reference", "review_date"];
-export const PANELS = ["check", "curves", "simulate", "editor"];
+export const PANELS = ["check", "curves", "simulate", "editor", "plant"];
 const TEXT_LIMIT = { sim_events: 4000 };
 
 const seg = (s) => encodeURIComponent(String(s));
@@ -61,6 +61,8 @@ export function readState(search = window.location.search) {
     sim_start: ["low", "high"].includes(q.get("sim_start")) ? q.get("sim_start") : null,
     sim_duration: num("sim_duration"),
     sim_events: q.has("sim_events") ? q.get("sim_events").slice(0, TEXT_LIMIT.sim_events) : null,
+    // the plant dataset the "Plant data" panel shows (a content id: hex digits)
+    dataset: /^[0-9a-f]{1,64}$/.test(q.get("dataset") || "") ? q.get("dataset") : null,
   };
   if (st.points) st.points = st.points.map((n) => Math.round(n));
   for (const k of SIGNOFF_KEYS) st[k] = q.has(k) ? q.get(k).slice(0, 200) : null;

@@ -10,11 +10,12 @@ View state lives in the query string of a page URL, in SI numbers so a link is e
 ``map_feed_temperature``    map window ``lo,hi`` [K]
 ``points``                  map grid ``n_tau,n_tin``
 ``branch``                  ``low`` | ``high``: which stable state the check assumes
-``panel``                   open panel: ``check`` | ``curves`` | ``simulate`` | ``editor``
+``panel``                   open panel: ``check`` | ``curves`` | ``simulate`` | ``editor`` | ``plant``
 ``upset``                   index of the upset whose response is open
 ``sim_start``               ``low`` | ``high``: the steady state a simulation starts from
 ``sim_duration``            simulated time [s]
 ``sim_events``              the simulation's events as typed, one a line (the text of ``exomap.core.events``)
+``dataset``                 id of the stored plant dataset the "Plant data" panel shows
 ==========================  =============================================================
 
 The print sheet adds its sign-off fields (``SIGNOFF_KEYS``: prepared by, reviewed by, change reference, date),
@@ -46,10 +47,11 @@ VIEW_KEYS = (
     "sim_start",
     "sim_duration",
     "sim_events",
+    "dataset",
 )
 #: Sign-off fields of the print sheet: in its link only, never stored.
 SIGNOFF_KEYS = ("prepared_by", "reviewed_by", "change_reference", "review_date")
-PANELS = ("check", "curves", "simulate", "editor")
+PANELS = ("check", "curves", "simulate", "editor", "plant")
 BRANCHES = ("low", "high")
 
 

@@ -1,0 +1,410 @@
+// The "Plant data" panel of the scenario page (DESIGN.md §12): load a historian export (CSV), map its columns to
+// roles with their units, then show what was read, the plant's path on the operating map, a replay of the
+// scenario on the recorded inputs, and a calibration whose result can be saved as a new scenario. The dataset id
+// travels in the page link (view state key "dataset"), so a shared link opens the same data.
+
+import * as urls from "./urls.js";
+import { getJSON, postJSON, plotlyReady, ApiError } from "./api.js";
+import { el } from "./check.js";
+import { fmtTemp, parseTemperature, toC, toMin } from "./units.js";
+import { setExtraTraces } from "./map.js";
+
+const $ = (id) => document.getElementById(id);
+const ROLES = ["feed_flow", "feed_temperature", "coolant_temperature", "reactor_temperature", "level",
+  "valve_opening", "outlet_flow"];
+const ROLE_WORDS = {
+  time: "time", feed_flow: "feed flow", feed_temperature: "feed temperature",
+  coolant_temperature: "coolant temperature", reactor_temperature: "reactor temperature", level: "level",
+  valve_opening: "outlet valve opening", outlet_flow: "outlet flow",
+};
+// A sequential colour of our own for time along the plant's path: light sand to dark blue-black, lightness
+// falling evenly so early and late read apart in greyscale too.
+export const TIME_SCALE = [[0, "#f3e3b3"], [0.35, "#c9a25a"], [0.7, "#4f6d8a"], [1, "#101c2c"]];
+
+const api = {
+  datasets: (q) => `${urls.API}/datasets` + q,
+  dataset: (id) => `${urls.API}/datasets/${encodeURIComponent(id)}`,
+  replay: () => `${urls.API}/replay`,
+  overlay: () => `${urls.API}/overlay`,
+  calibrate: () => `${urls.API}/calibrate`,
+};
+
+function guessRole(name) {
+  const n = name.toLowerCase();
+  if (/^(time|timestamp|date|datetime|t)$/.test(n)) return "time";
+  return "";
+}
+
+// "TI-201 [degC]" -> {tag: "TI-201", unit: "degC"}
+export function splitHeader(h) {
+  const m = /^(.*?)\s*\[([^\]]*)\]\s*$/.exec(h.trim());
+  return m ? { tag: m[1].trim(), unit: m[2].trim() } : { tag: h.trim(), unit: "" };
+}
+
+function firstLine(text) {
+  const line = text.replace(/^\uFEFF/, "").split(/\r?\n/, 1)[0] || "";
+  // a header is plain names: split on commas outside double quotes
+  const out = [];
+  let cur = "", quoted = false;
+  for (const ch of line) {
+    if (ch === '"') quoted = !quoted;
+    else if (ch === "," && !quoted) { out.push(cur); cur = ""; } else cur += ch;
+  }
+  out.push(cur);
+  return out.map((s) => s.trim()).filter((s) => s !== "");
+}
+
+const authHeaders = () => {
+  const token = sessionStorage.getItem("exomap-token");
+  return token ? { Authorization: `Bearer ${token}` } : {};
+};
+
+function showError(id, e) {
+  const n = $(id);
+  n.textContent = e ? (e.message || String(e)) : "";
+  n.hidden = !e;
+}
+
+const hours = (s) => (s >= 7200 ? `${(s / 3600).toFixed(2)} h` : `${(s / 60).toFixed(1)} min`);
+const step = (s) => (s >= 120 ? `${(s / 60).toFixed(2)} min` : `${Number(s.toFixed(2))} s`);
+
+// Display of a fitted value in plant units; SI for the rest (the unit is named).
+function inPlantUnits(value, unit) {
+  if (!Number.isFinite(value)) return "—";
+  if (unit === "W/K") return `${Number((value / 1000).toPrecision(4))} kW/K`;
+  if (unit === "J/mol") return `${Number((value / 1000).toPrecision(4))} kJ/mol`;
+  return `${Number(value.toPrecision(4))} ${unit}`;
+}
+
+const TARGET_WORDS = {
+  rate_constant: "rate constant at the reference temperature", activation_energy: "activation energy",
+  reaction_enthalpy: "reaction enthalpy", "jacket.ua": "jacket heat transfer UA", "heat_loss.ua": "heat loss UA",
+};
+
+function targetWords(t, doc) {
+  const m = /^reactions\[(\d+)\]\.(.+)$/.exec(t);
+  if (m) {
+    const r = doc && doc.reactions && doc.reactions[Number(m[1])];
+    return `${TARGET_WORDS[m[2]] || m[2]} of ${r && r.label ? r.label : `reaction ${Number(m[1]) + 1}`}`;
+  }
+  return TARGET_WORDS[t] || t;
+}
+
+export function targetsOf(doc) {
+  const out = [];
+  (doc.reactions || []).forEach((_, i) => {
+    for (const p of ["rate_constant", "activation_energy", "reaction_enthalpy"]) out.push(`reactions[${i}].${p}`);
+  });
+  if (doc.jacket) out.push("jacket.ua");
+  if (doc.heat_loss) out.push("heat_loss.ua");
+  return out;
+}
+
+export class PlantPanel {
+  // ctx: { id, state(), syncURL(push), scenario() }
+  constructor(ctx) {
+    this.ctx = ctx;
+    this.text = null;
+    this.header = [];
+    this.dataset = null;
+    this.overlay = null;
+    this.calibration = null;
+    this.wired = false;
+    this.seq = 0;
+  }
+
+  open() {
+    if (!this.wired) this.wire();
+    const id = this.ctx.state().dataset;
+    if (id && (!this.dataset || this.dataset.dataset_id !== id)) this.load(id);
+  }
+
+  wire() {
+    this.wired = true;
+    $("plant-file").addEventListener("change", (ev) => { const f = ev.target.files[0]; if (f) this.readFile(f); });
+    $("plant-upload").addEventListener("click", () => this.upload());
+    $("plant-calibrate").addEventListener("submit", (ev) => { ev.preventDefault(); this.calibrate(); });
+    $("plant-save").addEventListener("click", () => this.save());
+    const doc = this.ctx.scenario();
+    const box = $("plant-targets");
+    box.textContent = "";
+    for (const t of targetsOf(doc || {})) {
+      const id = `plant-t-${t.replace(/[^a-z0-9]+/gi, "-")}`;
+      box.append(el("div", { class: "check-row" },
+        el("input", { type: "checkbox", id, value: t, "data-target": t }),
+        el("label", { for: id }, `${targetWords(t, doc)} `, el("code", { class: "small", text: t }))));
+    }
+  }
+
+  async readFile(file) {
+    showError("plant-error", null);
+    $("plant-fields").textContent = "";
+    this.text = await file.text();
+    this.header = firstLine(this.text);
+    const body = $("plant-columns").querySelector("tbody");
+    body.textContent = "";
+    const doc = this.ctx.scenario() || {};
+    const feedSpecies = Object.keys((doc.feed && doc.feed.concentrations) || {});
+    const roles = [...ROLES, ...feedSpecies.map((s) => `feed_concentration.${s}`)];
+    this.header.forEach((h, i) => {
+      const { tag, unit } = splitHeader(h);
+      const sel = el("select", { id: `plant-role-${i}`, "data-tag": tag, "aria-label": `Role of column ${tag}` });
+      sel.append(el("option", { value: "", text: "not used" }), el("option", { value: "time", text: "time" }));
+      for (const r of roles) {
+        sel.append(el("option", { value: r, text: ROLE_WORDS[r] || `feed concentration of ${r.split(".")[1]}` }));
+      }
+      sel.value = guessRole(tag);
+      const u = el("input", { type: "text", id: `plant-unit-${i}`, value: unit, "data-header-unit": unit,
+        "aria-label": `Unit of column ${tag}`, placeholder: "e.g. degC, m^3/h" });
+      body.append(el("tr", { "data-tag": tag }, el("th", { scope: "row" }, el("code", { text: h })),
+        el("td", {}, sel), el("td", {}, u)));
+    });
+    $("plant-columns").hidden = !this.header.length;
+    $("plant-upload").hidden = !this.header.length;
+    if (!this.header.length) showError("plant-error", new Error(`${file.name}: no header line was found.`));
+  }
+
+  mappingQuery() {
+    const map = [], unit = [];
+    let time = null;
+    this.header.forEach((h, i) => {
+      const { tag, unit: headerUnit } = splitHeader(h);
+      const role = $(`plant-role-${i}`).value;
+      const u = $(`plant-unit-${i}`).value.trim();
+      if (role === "time") time = h;
+      else if (role) {
+        map.push(`${tag}=${role}`);
+        if (u && u !== headerUnit) unit.push(`${tag}=${u}`);
+      }
+    });
+    const parts = [`map=${encodeURIComponent(map.join(","))}`];
+    if (unit.length) parts.push(`unit=${encodeURIComponent(unit.join(","))}`);
+    if (time) parts.push(`time_column=${encodeURIComponent(time)}`);
+    return { query: "?" + parts.join("&"), roles: map.length };
+  }
+
+  async upload() {
+    showError("plant-error", null);
+    $("plant-fields").textContent = "";
+    const { query, roles } = this.mappingQuery();
+    if (!roles) { showError("plant-error", new Error("Choose a role for at least one column.")); return; }
+    let resp;
+    try {
+      resp = await fetch(api.datasets(query), { method: "POST", body: this.text,
+        headers: { "Content-Type": "text/csv", Accept: "application/json", ...authHeaders() } });
+    } catch {
+      showError("plant-error", new Error("The server cannot be reached. Is exomap still running?"));
+      return;
+    }
+    let body = null;
+    try { body = await resp.json(); } catch { body = null; }
+    if (resp.status === 401) {
+      const t = window.prompt("Saving on this server needs its access token:");
+      if (t) { sessionStorage.setItem("exomap-token", t); return this.upload(); }
+    }
+    if (!resp.ok) {
+      const e = body && body.error;
+      showError("plant-error", new Error(`The data were not loaded: ${e ? e.message : `error ${resp.status}`}`));
+      for (const f of (e && e.fields) || []) $("plant-fields").append(el("li", {}, el("code", { text: f.field }), `: ${f.message}`));
+      return;
+    }
+    this.show(body);
+  }
+
+  async load(id) {
+    try {
+      this.show(await getJSON(api.dataset(id), "Loading the plant data"));
+    } catch (e) {
+      showError("plant-error", e instanceof ApiError && e.status === 404
+        ? new Error(`The plant dataset ${id} is not stored on this server.`) : e);
+    }
+  }
+
+  show(ds) {
+    this.dataset = ds;
+    this.calibration = null;
+    $("plant-cal").hidden = true;
+    const st = this.ctx.state();
+    if (st.dataset !== ds.dataset_id) { st.dataset = ds.dataset_id; this.ctx.syncURL(true); }
+    $("plant-dataset").hidden = false;
+    $("plant-dataset").dataset.datasetId = ds.dataset_id;
+    const dl = $("plant-summary");
+    dl.textContent = "";
+    const badTotal = Object.values(ds.dropped_bad || {}).reduce((a, b) => a + b, 0);
+    const rows = [
+      ["Dataset", el("code", { text: ds.dataset_id })],
+      ["Records", el("span", { id: "plant-records", "data-value": String(ds.records), text: `${ds.records} (of ${ds.rows} rows, ${ds.layout} layout)` })],
+      ["Time span", `${ds.start} to ${ds.end} (${hours(ds.duration_s)})`],
+      ["Sampling", `every ${step(ds.median_step_s)} (median)${ds.irregular_sampling ? ", irregular" : ""}`],
+      ["Gaps", ds.gaps.length ? ds.gaps.map((g) => `${g.start} to ${g.end} (${hours(g.length_s)})`).join("; ") : "none"],
+      ["Bad values dropped", badTotal ? Object.entries(ds.dropped_bad).map(([t, n]) => `${t}: ${n}`).join(", ") : "none"],
+      ["Columns", Object.entries(ds.roles).map(([r, v]) => `${ROLE_WORDS[r] || r} ← ${v.tag} [${v.unit}], ${v.values} values`).join("; ")],
+    ];
+    for (const [k, v] of rows) dl.append(el("dt", { text: k }), el("dd", {}, v));
+    const notes = $("plant-notes");
+    notes.textContent = "";
+    for (const n of ds.notes || []) notes.append(el("li", { text: n }));
+    this.drawOverlay();
+    this.replay();
+  }
+
+  body(extra = {}) { return { scenario_id: this.ctx.id, dataset_id: this.dataset.dataset_id, ...extra }; }
+
+  async drawOverlay() {
+    try {
+      this.overlay = await postJSON(api.overlay(), this.body(), "Placing the plant's path on the map");
+      await this.redrawOverlay();
+    } catch (e) {
+      showError("plant-error", e);
+    }
+  }
+
+  // The path is an extra trace of the map (map.js keeps it over the map's redraws).
+  async redrawOverlay() {
+    if (!this.overlay) return;
+    const ov = this.overlay;
+    const keep = ov.time_s.map((_, i) => Number.isFinite(ov.residence_time_s[i]) && Number.isFinite(ov.feed_temperature_K[i]));
+    const t = ov.time_s.filter((_, i) => keep[i]).map(toMin);
+    const x = ov.residence_time_s.filter((_, i) => keep[i]).map(toMin);
+    const y = ov.feed_temperature_K.filter((_, i) => keep[i]).map(toC);
+    const trace = {
+      type: "scatter", mode: "lines+markers", name: "plant-path", x, y, hoverinfo: "skip", cliponaxis: false,
+      line: { color: "rgba(16,28,44,0.45)", width: 1 },
+      marker: { size: 7, color: t, colorscale: TIME_SCALE, cmin: t[0], cmax: t[t.length - 1] || 1,
+        line: { color: "#ffffff", width: 0.8 }, showscale: true,
+        colorbar: { title: { text: "time [min]", side: "top" }, thickness: 10, len: 0.45, x: 0.995, xanchor: "right",
+          y: 0.02, yanchor: "bottom", bgcolor: "rgba(255,255,255,0.85)", outlinewidth: 0 } },
+    };
+    await setExtraTraces(await plotlyReady(), $("map"), [trace]);
+    let note = $("plant-map-note");
+    if (!note) {
+      note = el("p", { id: "plant-map-note", class: "small" });
+      $("map-legend").after(note);
+    }
+    note.textContent = `Plant's path (dataset ${ov.dataset_id}): ${x.length} records from ${ov.start}, `
+      + "light dots first, dark dots last; the scale beside the map is minutes from the first record.";
+    $("map").dataset.plantPath = String(x.length);
+  }
+
+  async replay() {
+    const n = ++this.seq;
+    $("plant-residuals").textContent = "";
+    try {
+      const rep = await postJSON(api.replay(), this.body(), "Replaying the scenario on the recorded inputs");
+      if (n !== this.seq) return;
+      this.replayAnswer = rep;
+      const Plotly = await plotlyReady();
+      const t = rep.time_s.map(toMin);
+      const rec = (rep.recorded.reactor_temperature_K || []).map((v) => (v === null ? null : toC(v)));
+      const sim = rep.simulated.temperature_K.map((v) => (v === null ? null : toC(v)));
+      const data = [
+        { type: "scatter", mode: "markers", name: "recorded", x: t, y: rec,
+          marker: { size: 5, color: "#101c2c", symbol: "circle-open" } },
+        { type: "scatter", mode: "lines", name: "simulated", x: t, y: sim, line: { color: "#a8541f", width: 2 } },
+      ];
+      const node = $("plant-replay");
+      node.textContent = "";
+      await Plotly.react(node, data, {
+        height: 260, margin: { l: 56, r: 10, t: 10, b: 40 }, showlegend: true,
+        legend: { orientation: "h", y: 1.12, x: 0 },
+        xaxis: { title: { text: "Time from the first record [min]" }, ticks: "outside" },
+        yaxis: { title: { text: "Reactor temperature [°C]" }, ticks: "outside" },
+        font: { family: "system-ui, sans-serif", size: 12 }, plot_bgcolor: "#ffffff",
+      }, { displayModeBar: false, responsive: true });
+      const s = rep.residual_statistics.reactor_temperature_K;
+      $("plant-residuals").textContent = s
+        ? `Simulated minus recorded reactor temperature over ${s.count} records: mean ${s.mean.toFixed(2)} K, `
+          + `spread (SD) ${s.sd === null ? "—" : s.sd.toFixed(2)} K, RMS ${s.rms.toFixed(2)} K, largest ${s.max_abs.toFixed(2)} K.`
+          + ` Started from the steady state at ${fmtTemp(rep.start_temperature_K)}.`
+        : "The dataset holds no reactor temperature to compare with.";
+      if (!rep.success) $("plant-residuals").textContent += ` The replay did not finish: ${rep.message}`;
+      node.dataset.series = String(data.length);
+    } catch (e) {
+      if (n === this.seq) { $("plant-replay").textContent = ""; showError("plant-error", e); }
+    }
+  }
+
+  async calibrate() {
+    showError("plant-cal-error", null);
+    const fit = [...document.querySelectorAll("#plant-targets input:checked")].map((c) => c.dataset.target);
+    if (!fit.length) { showError("plant-cal-error", new Error("Tick at least one parameter to fit.")); return; }
+    const extra = { fit };
+    const tref = $("plant-tref").value.trim();
+    if (tref) {
+      const K = parseTemperature(tref);
+      if (!Number.isFinite(K)) {
+        showError("plant-cal-error", new Error("Reference temperature: type a temperature in °C, e.g. 80."));
+        return;
+      }
+      extra.reference_temperature = `${K} K`;
+    }
+    $("plant-fit").disabled = true;
+    try {
+      const cal = await postJSON(api.calibrate(), this.body(extra), "Fitting the parameters");
+      this.calibration = cal;
+      this.renderCalibration(cal);
+    } catch (e) {
+      showError("plant-cal-error", e instanceof ApiError && e.fields.length
+        ? new Error(e.fields.map((f) => `${f.field}: ${f.message}`).join("; ")) : e);
+    } finally {
+      $("plant-fit").disabled = false;
+    }
+  }
+
+  renderCalibration(cal) {
+    const doc = this.ctx.scenario();
+    const body = $("plant-estimates").querySelector("tbody");
+    body.textContent = "";
+    for (const e of cal.estimates) {
+      const [lo, hi] = e.interval_95;
+      const side = (v) => (v === null ? "open" : inPlantUnits(v, e.unit));
+      body.append(el("tr", { "data-target": e.target, "data-value": String(e.value) },
+        el("th", { scope: "row" }, targetWords(e.target, doc)),
+        el("td", { text: inPlantUnits(e.initial, e.unit) }),
+        el("td", { class: "estimate", text: inPlantUnits(e.value, e.unit) }),
+        el("td", { text: inPlantUnits(e.standard_error, e.unit) }),
+        el("td", { class: "interval", text: `${side(lo)} to ${side(hi)}` })));
+    }
+    const sd = cal.residual_sd.reactor_temperature;
+    $("plant-cal-spread").textContent = `Reference temperature ${fmtTemp(cal.reference_temperature_K)}; `
+      + `${cal.observations} observations, ${cal.degrees_of_freedom} degrees of freedom`
+      + (Number.isFinite(sd) ? `; residual spread ${sd.toFixed(2)} K.` : ".")
+      + (cal.success ? "" : ` The fit did not converge: ${cal.message}`);
+    const cor = $("plant-correlations");
+    cor.textContent = "";
+    if (cal.estimates.length > 1) {
+      const t = el("table", { class: "plant-correlations small" });
+      const head = el("tr", {}, el("th", { text: "Correlation" }));
+      for (const e of cal.estimates) head.append(el("th", { scope: "col", text: targetWords(e.target, doc) }));
+      t.append(head);
+      cal.correlations.forEach((row, i) => {
+        const tr = el("tr", {}, el("th", { scope: "row", text: targetWords(cal.estimates[i].target, doc) }));
+        for (const c of row) tr.append(el("td", { text: c === null ? "—" : c.toFixed(2) }));
+        t.append(tr);
+      });
+      cor.append(t);
+    }
+    const w = $("plant-warnings");
+    w.textContent = "";
+    for (const m of cal.warnings) w.append(el("li", { class: "warning", text: m }));
+    if (!cal.warnings.length) w.append(el("li", { class: "muted small", text: "Every fitted parameter is determined by the data (no flat profile, no correlation near ±1)." }));
+    $("plant-cal").hidden = false;
+  }
+
+  async save() {
+    showError("plant-save-error", null);
+    if (!this.calibration) return;
+    try {
+      const saved = await postJSON(urls.apiSaveScenario(this.ctx.id), this.calibration.scenario,
+        "Checking and saving the calibrated scenario", authHeaders());
+      const st = this.ctx.state();
+      window.location.assign(urls.scenarioPage(saved.id, { ...st, panel: "check", upset: null, dataset: st.dataset }));
+    } catch (e) {
+      if (e.status === 401) {
+        const t = window.prompt("Saving on this server needs its access token:");
+        if (t) { sessionStorage.setItem("exomap-token", t); return this.save(); }
+      }
+      showError("plant-save-error", e);
+    }
+  }
+}
