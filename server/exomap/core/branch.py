@@ -30,7 +30,7 @@ from scipy.optimize import brentq, fsolve
 
 from exomap.core.errors import ModelInputError
 from exomap.core.manifold import Manifold
-from exomap.core.opmap import FoldColumns, chains, cusps, fold_columns
+from exomap.core.opmap import FoldColumns, chains, cusps, fold_columns, unhide_fold_pairs
 from exomap.core.scenario import Scenario, validate
 from exomap.core.steady import check_point, roots_in_samples
 
@@ -130,9 +130,7 @@ def _one(mf: Manifold, tau: float, s: float):
 
 def _fold_kind(mf: Manifold, tau: float, s: float) -> str:
     """ignition at a local maximum of T_in(s), extinction at a local minimum."""
-    h = 1e-6 * max(abs(s), 1e-12)
-    if mf.explicit:
-        h = min(h, 0.25 * min(s, mf.xi_max - s))
+    h = 1e-6 * max(abs(s), 1.0)  # s is a temperature or the log-odds of the conversion
     d2 = (float(_one(mf, tau, s + h).dTin_ds[0]) - float(_one(mf, tau, s - h).dTin_ds[0])) / (2 * h)
     return "ignition" if d2 < 0 else "extinction"
 
@@ -140,14 +138,29 @@ def _fold_kind(mf: Manifold, tau: float, s: float) -> str:
 def _lead(mf: Manifold, tau: float, s: float) -> tuple[float, bool, float]:
     """(leading real part, complex?, |imag| of the leading pair) of the reduced Jacobian."""
     smp = _one(mf, tau, s)
-    Jr = mf.reduced_jacobian(np.array([tau]), smp.T, smp.xi)[0]
+    Jr = mf.reduced_jacobian(np.array([tau]), smp.T, smp.xi, mf.state_C(smp))[0]
     ev = np.linalg.eigvals(Jr)
     k = int(np.argmax(ev.real))
     return float(ev[k].real), bool(abs(ev[k].imag) > 1e-12 * max(abs(ev[k].real), 1e-30)), float(abs(ev[k].imag))
 
 
-def _conversion(mf: Manifold, xi: np.ndarray) -> float:
-    C = mf.concentrations(xi)
+def _hopf_fn(mf: Manifold, tau: float, s: float) -> tuple[float, bool]:
+    """(h, meaningful) of ``Manifold.stability``: a smooth function of the point that changes sign where a
+    complex pair crosses the imaginary axis (the trace for one reaction, minus the Hurwitz determinant for
+    two), meaningful where a complex pair can exist there (det > 0, or a negative discriminant). Unlike the
+    leading real part it does not jump where the leading eigenvalue turns real (next to a fold)."""
+    smp = _one(mf, tau, s)
+    _, h, ok = mf.stability(np.array([tau]), smp.T, smp.xi, mf.state_C(smp))
+    return float(h[0]), bool(ok[0])
+
+
+def _is_hopf(mf: Manifold, tau: float, s: float) -> bool:
+    """A zero of the Hopf function is a Hopf point when the leading pair there is complex and on the axis."""
+    re, cplx, im = _lead(mf, tau, s)
+    return cplx and abs(re) <= 1e-6 * max(im, 1e-300)
+
+
+def _conversion(mf: Manifold, C: np.ndarray) -> float:
     return float(mf.conversion(np.array(C[mf.key])))
 
 
@@ -166,11 +179,15 @@ def default_range(sc: Scenario, along: str, tau: float, T_in: float) -> tuple[fl
 # -- along the feed temperature ---------------------------------------------------------------------------
 def _along_feed_temperature(mf: Manifold, tau: float, lo: float, hi: float, n: int):
     T_lo, T_hi = mf.temperature_window(lo, hi, tau)
-    smp = mf.sample(np.array([tau]), T_lo, T_hi, n)
+    # a fold pair closer together than one sample (next to a cusp) is brought out first, as on the map
+    smp = unhide_fold_pairs(mf, mf.sample(np.array([tau]), T_lo, T_hi, n))
     s, T_in, d = smp.s[0], smp.T_in[0], smp.dTin_ds[0]
     ok = smp.valid[0] & np.isfinite(T_in)
-    lead, cplx = mf.leading_real_part(smp.tau, smp.T, smp.xi)
+    C = mf.state_C(smp)
+    lead, cplx = mf.leading_real_part(smp.tau, smp.T, smp.xi, C)
     lead, cplx = lead[0], cplx[0]
+    _, hf, hok = mf.stability(smp.tau, smp.T, smp.xi, C)
+    hf, hok = hf[0], hok[0]
     points: list[BranchPoint] = []
     turns: list[TurningPoint] = []
     hopfs: list[HopfPoint] = []
@@ -186,7 +203,7 @@ def _along_feed_temperature(mf: Manifold, tau: float, lo: float, hi: float, n: i
                     tau,
                     float(T_in[k]),
                     float(smp.T[0, k]),
-                    _conversion(mf, smp.xi[0, k]),
+                    _conversion(mf, C[0, k]),
                     bool(lead[k] < 0),
                     bool(cplx[k]),
                     piece,
@@ -200,10 +217,12 @@ def _along_feed_temperature(mf: Manifold, tau: float, lo: float, hi: float, n: i
             e = _one(mf, tau, sf)
             if lo <= e.T_in[0] <= hi:
                 turns.append(TurningPoint(_fold_kind(mf, tau, sf), tau, float(e.T_in[0]), float(e.T[0])))
-        if cplx[k] and cplx[k + 1] and lead[k] * lead[k + 1] < 0:
-            sh = brentq(lambda x: _lead(mf, tau, x)[0], s[k], s[k + 1], xtol=1e-300, rtol=1e-15)
+        # a Hopf point: the smooth Hopf function changes sign with a complex pair possible at either end (the
+        # pair may be complex at one end only: next to a fold, or where a real eigenvalue leads)
+        if (hok[k] or hok[k + 1]) and hf[k] * hf[k + 1] < 0:
+            sh = brentq(lambda x: _hopf_fn(mf, tau, x)[0], s[k], s[k + 1], xtol=1e-300, rtol=1e-15)
             e = _one(mf, tau, sh)
-            if lo <= e.T_in[0] <= hi:
+            if lo <= e.T_in[0] <= hi and _is_hopf(mf, tau, sh):
                 hopfs.append(HopfPoint(tau, float(e.T_in[0]), float(e.T[0]), _lead(mf, tau, sh)[2]))
     return points, turns, hopfs
 
@@ -220,30 +239,24 @@ class _Plane:
         if mf.explicit:
             s_lo = mf.s_bounds(np.array([lo, hi]), T_lo, T_hi)[0].min()
             s_hi = mf.s_bounds(np.array([lo, hi]), T_lo, T_hi)[1].max()
-            self.y0, self.y1 = self._w(s_lo), self._w(s_hi)
+            self.y0, self.y1 = s_lo, s_hi  # the log-odds of the conversion
         else:
             self.y0, self.y1 = -1.0 / T_lo, -1.0 / T_hi
         self.scale = 100.0
 
-    def _w(self, s: float) -> float:
-        return math.log(s / (self.mf.xi_max - s))
-
     def tau_s(self, X: float, Y: float) -> tuple[float, float]:
         tau = math.exp(self.x0 + X * (self.x1 - self.x0))
         y = self.y0 + Y * (self.y1 - self.y0)
-        if self.mf.explicit:
-            s = self.mf.xi_max / (1.0 + math.exp(-y))
-        else:
-            s = -1.0 / y
+        s = y if self.mf.explicit else -1.0 / y
         return tau, s
 
     def XY(self, tau: float, s: float) -> tuple[float, float]:
-        y = self._w(s) if self.mf.explicit else -1.0 / s
+        y = s if self.mf.explicit else -1.0 / s
         return (math.log(tau) - self.x0) / (self.x1 - self.x0), (y - self.y0) / (self.y1 - self.y0)
 
     def ds_dY(self, s: float) -> float:
         if self.mf.explicit:
-            return s * (1.0 - s / self.mf.xi_max) * (self.y1 - self.y0)
+            return self.y1 - self.y0
         return s * s * (self.y1 - self.y0)
 
     def G(self, X: float, Y: float) -> float:
@@ -387,15 +400,18 @@ def _along_residence_time(mf: Manifold, T_in: float, lo: float, hi: float, max_s
                 continue
             e = _one(mf, tau, s)
             re, cplx, _ = _lead(mf, tau, s)
+            hf, hok = _hopf_fn(mf, tau, s)
             if i < len(path):
-                points.append(BranchPoint(tau, tau, T_in, float(e.T[0]), _conversion(mf, e.xi[0]), re < 0, cplx, k))
-            cur = (X, Y, tx, re, cplx)
+                points.append(
+                    BranchPoint(tau, tau, T_in, float(e.T[0]), _conversion(mf, mf.state_C(e)[0]), re < 0, cplx, k)
+                )
+            cur = (X, Y, tx, hf, hok)
             if prev is not None:
                 if prev[2] * tx < 0:
                     tp = _refine_fold(plane, 0.5 * (prev[0] + X), 0.5 * (prev[1] + Y))
                     if tp is not None:
                         turns.append(tp)
-                if prev[4] and cplx and prev[3] * re < 0:
+                if (prev[4] or hok) and prev[3] * hf < 0:
                     hp = _refine_hopf(plane, prev, cur)
                     if hp is not None:
                         hopfs.append(hp)
@@ -489,7 +505,7 @@ def _refine_hopf(plane: _Plane, a: tuple, b: tuple) -> HopfPoint | None:
         Y = a[1] + t * (b[1] - a[1])
         X, Y, _ = plane.correct(X, Y)
         tau, s = plane.tau_s(X, Y)
-        return _lead(mf, tau, s)[0]
+        return _hopf_fn(mf, tau, s)[0]
 
     try:
         t = brentq(lead_on_curve, 0.0, 1.0, xtol=1e-14)
@@ -497,6 +513,8 @@ def _refine_hopf(plane: _Plane, a: tuple, b: tuple) -> HopfPoint | None:
         return None
     X, Y, _ = plane.correct(a[0] + t * (b[0] - a[0]), a[1] + t * (b[1] - a[1]))
     tau, s = plane.tau_s(X, Y)
+    if not _is_hopf(mf, tau, s):  # the Hopf function's zero with real eigenvalues: not a Hopf point
+        return None
     e = _one(mf, tau, s)
     return HopfPoint(tau, plane.T_in, float(e.T[0]), _lead(mf, tau, s)[2])
 

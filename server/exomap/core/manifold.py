@@ -34,7 +34,10 @@ from dataclasses import dataclass
 import numpy as np
 
 from exomap.core.errors import ModelInputError
-from exomap.core.scenario import R_GAS, Scenario
+from exomap.core.scenario import R_GAS, Scenario, check_zero_orders
+
+#: Largest |log-odds| of the one-reaction coordinate: conversions from e^-700 to 1 - e^-700.
+W_BOUND = 700.0
 
 
 def _solve_list(A: list[list[float]], b: list[float]) -> list[float]:
@@ -66,7 +69,10 @@ def _solve_small(A: np.ndarray, b: np.ndarray) -> np.ndarray:
         a, bb, c, d = A[..., 0, 0], A[..., 0, 1], A[..., 1, 0], A[..., 1, 1]
         det = a * d - bb * c
         return np.stack(((d * b[..., 0] - bb * b[..., 1]) / det, (a * b[..., 1] - c * b[..., 0]) / det), axis=-1)
-    return np.linalg.solve(A, b[..., None])[..., 0]
+    try:
+        return np.linalg.solve(A, b[..., None])[..., 0]
+    except np.linalg.LinAlgError:  # a singular matrix somewhere in the stack: least squares there too
+        return np.einsum("...ij,...j->...i", np.linalg.pinv(A), b)
 
 
 @dataclass(frozen=True)
@@ -81,6 +87,7 @@ class Samples:
     dTin_ds: np.ndarray
     dT_ds: np.ndarray
     valid: np.ndarray
+    C: np.ndarray | None  # (..., n) concentrations (general path; None on the explicit one: Manifold.state_C)
 
 
 class Manifold:
@@ -98,6 +105,8 @@ class Manifold:
             raise ModelInputError(
                 "feed concentrations must be one finite value >= 0 per species", field="feed.concentrations"
             )
+        if c_in is not None:  # a feed other than the scenario's (validated with its own) may make one run out
+            check_zero_orders(sc.species, sc.nu, sc.orders, self.c_in)
         self.T_c = sc.T_c if T_c is None else float(T_c)
         rhocpV = sc.rho * sc.cp * sc.vessel.V_set
         self.kappa = sc.UA_jacket / rhocpV
@@ -117,12 +126,18 @@ class Manifold:
             self.explicit = bool(self.orders[0, i_lim] > 0 and self.xi_max > 0)
         if self.m == 1:
             self._active = [
-                (float(self.c_in[i]), float(self.nu[i, 0]), float(self.orders[0, i]))
+                (
+                    float(self.c_in[i]),
+                    float(self.nu[i, 0]),
+                    float(self.orders[0, i]),
+                    float(self.c_in[i] / -self.nu[i, 0] - self.xi_max) if self.nu[i, 0] < 0 else 0.0,
+                )
                 for i in range(self.n)
                 if self.orders[0, i] != 0
             ]
         self._release: tuple[float, float] | None = None
-        self._last_xi: np.ndarray | None = None
+        self._last_C: np.ndarray | None = None
+        self._setup_isothermal()
         self._orders_nz = [[i for i in range(self.n) if self.orders[j, i] != 0] for j in range(self.m)]
         self.key = sc.key_species
         self.key_feed = float(self.c_in[self.key])
@@ -175,124 +190,340 @@ class Manifold:
         return r, Rn, dr_dT
 
     # -- the explicit (one reaction) path -------------------------------------------------------------
-    def _g(self, xi: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """ln g(xi) with g = prod C_i^n_i, and g'/g, for one reaction; xi any shape. Only species with a
-        non-zero order enter (a loop over a handful of species, each term an array operation)."""
-        logg = np.zeros(np.shape(xi))
-        dlogg = np.zeros(np.shape(xi))
-        with np.errstate(divide="ignore", invalid="ignore"):
-            for c0, nu_i, n_i in self._active:
-                C = c0 + nu_i * xi  # >= 0 for 0 <= xi <= xi_max; at a bound the log is -inf: invalid
-                logg += n_i * np.log(C)
-                dlogg += n_i * nu_i / C
-        return logg, dlogg
+    def _split(self, w: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """(xi, xi_max - xi) at the log-odds w = ln(xi/(xi_max - xi)), each without cancellation: a
+        conversion of 1 - 1e-30 is as representable as one of 1e-30."""
+        t = np.exp(-np.abs(w))
+        big = self.xi_max / (1.0 + t)
+        small = big * t
+        pos = w >= 0
+        return np.where(pos, big, small), np.where(pos, small, big)
 
-    def explicit_eval(self, tau: np.ndarray, xi: np.ndarray) -> Samples:
-        """Manifold at (tau, xi) for the one-reaction path (shapes broadcast)."""
-        tau, xi = np.broadcast_arrays(np.asarray(tau, float), np.asarray(xi, float))
-        E = self.E[0]
-        logg, dlogg = self._g(xi)
+    def _g(self, w: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """(xi, xi_max - xi, ln g, d ln g/dw) for one reaction at the log-odds w, with g = prod C_i^n_i
+        over the species with a non-zero order. A reactant's concentration is written as
+        -nu_i (gap_i + (xi_max - xi)), gap_i = C_i,in/(-nu_i) - xi_max >= 0, so the limiting one keeps its
+        relative precision however far it is used up."""
+        xi, rem = self._split(w)
+        logg = np.zeros(np.shape(w))
+        dlogg = np.zeros(np.shape(w))
+        dxi = xi * rem / self.xi_max  # dxi/dw
         with np.errstate(divide="ignore", invalid="ignore"):
+            for c0, nu_i, n_i, gap in self._active:
+                if nu_i < 0:
+                    left = gap + rem  # C_i / (-nu_i)
+                    logg += n_i * np.log(-nu_i * left)
+                    dlogg -= n_i * dxi / left
+                else:
+                    C = c0 + nu_i * xi
+                    logg += n_i * np.log(C)
+                    dlogg += n_i * nu_i * dxi / C
+        return xi, rem, logg, dlogg
+
+    def explicit_C(self, w: np.ndarray) -> np.ndarray:
+        """Concentrations (..., n) at the log-odds w of the one-reaction path (reactants without
+        cancellation, see :meth:`_g`)."""
+        xi, rem = self._split(np.asarray(w, float))
+        C = self.c_in + xi[..., None] * self.nu[:, 0]
+        for i in range(self.n):
+            if self.nu[i, 0] < 0:
+                gap = self.c_in[i] / -self.nu[i, 0] - self.xi_max
+                C[..., i] = -self.nu[i, 0] * (gap + rem)
+        return C
+
+    def state_C(self, e: Samples) -> np.ndarray:
+        """Concentrations of manifold points (..., n): carried by the general path, computed from the
+        coordinate on the explicit one (where the hot path does not need them)."""
+        return e.C if e.C is not None else self.explicit_C(e.s)
+
+    def explicit_eval(self, tau: np.ndarray, w: np.ndarray) -> Samples:
+        """Manifold at (tau, w) for the one-reaction path (shapes broadcast), w = ln(xi/(xi_max - xi)) the
+        log-odds of the limiting reactant's conversion:
+
+        .. math:: T = (E_a/R)/L, \\quad L = \\ln(k_0 \\tau) + \\ln g - \\ln \\xi, \\quad
+                  dT/dw = (T^2 R/E_a)(d\\ln\\xi/dw - d\\ln g/dw)
+        """
+        tau, w = np.broadcast_arrays(np.asarray(tau, float), np.asarray(w, float))
+        E = self.E[0]
+        xi, rem, logg, dlogg = self._g(w)
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
             L = np.log(self.k0[0] * tau) + logg - np.log(xi)
-            valid = (L > 0) & (xi > 0) & (xi < self.xi_max)
+            valid = (L > 0) & np.isfinite(L)
             T = np.where(valid, E / np.where(valid, L, 1.0), np.nan)
-            dT_dxi = T * T / E * (1.0 / xi - dlogg)
+            sig = rem / self.xi_max  # d ln xi/dw
+            dT_dw = T * T / E * (sig - dlogg)
         a = self.a(tau)
         T_in = a * T - self.J[0] * xi - self.b(tau)
-        dTin = a * dT_dxi - self.J[0]
-        return Samples(tau, xi, T, xi[..., None], T_in, dTin, dT_dxi, valid)
+        dTin = a * dT_dw - self.J[0] * xi * sig
+        return Samples(tau, w, T, xi[..., None], T_in, dTin, dT_dw, valid, None)
 
-    def explicit_xi_at_T(self, tau: np.ndarray, T: np.ndarray, iterations: int = 60) -> np.ndarray:
-        """Extent at (tau, T) for one reaction: the root of ln xi - ln(tau k(T)) - ln g(xi) = 0, which is
-        increasing in xi, by Newton's method in ln xi safeguarded by bisection (vectorised)."""
+    def explicit_w_at_T(self, tau: np.ndarray, T: np.ndarray, iterations: int = 80) -> np.ndarray:
+        """Log-odds w at (tau, T) for one reaction: the root of ln xi - ln g - ln(tau k(T)) = 0, which is
+        increasing in w, by Newton's method safeguarded by bisection (vectorised)."""
         tau, T = np.broadcast_arrays(np.asarray(tau, float), np.asarray(T, float))
         ln_tk = np.log(self.k0[0] * tau) - self.E[0] / T
-        lo = np.full(tau.shape, np.log(self.xi_max) - 745.0)
-        hi = np.full(tau.shape, np.log(self.xi_max))
-        y = np.minimum(ln_tk + self._g(np.zeros(tau.shape))[0], hi - 1e-12)  # low-conversion guess
-        y = np.maximum(y, lo)
-        for _ in range(iterations):
-            xi = np.exp(y)
-            logg, dlogg = self._g(xi)
-            f = y - ln_tk - logg
-            lo = np.where(f < 0, y, lo)
-            hi = np.where(f > 0, y, hi)
-            df = 1.0 - xi * dlogg
-            y_new = y - f / df
-            bad = ~((y_new > lo) & (y_new < hi))
-            y_new = np.where(bad, 0.5 * (lo + hi), y_new)
-            if np.all(np.abs(y_new - y) <= 1e-15 * np.maximum(np.abs(y), 1.0)):
-                y = y_new
-                break
-            y = y_new
-        return np.exp(y)
+        lo = np.full(tau.shape, -W_BOUND)
+        hi = np.full(tau.shape, W_BOUND)
+        g0 = self._g(np.full(tau.shape, -W_BOUND))[2]
+        w = np.clip(ln_tk + g0 - math.log(self.xi_max), -W_BOUND + 1, W_BOUND - 1)  # low-conversion guess
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            for _ in range(iterations):
+                xi, rem, logg, dlogg = self._g(w)
+                f = np.log(xi) - logg - ln_tk
+                lo = np.where(f < 0, w, lo)
+                hi = np.where(f > 0, w, hi)
+                w_new = w - f / (rem / self.xi_max - dlogg)
+                bad = ~((w_new > lo) & (w_new < hi))
+                w_new = np.where(bad, 0.5 * (lo + hi), w_new)
+                if np.all(np.abs(w_new - w) <= 1e-15 * np.maximum(np.abs(w), 1.0)):
+                    w = w_new
+                    break
+                w = w_new
+        return w
 
     # -- the general path -----------------------------------------------------------------------------
-    def isothermal_extents(
-        self, tau: np.ndarray, T: np.ndarray, xi0: np.ndarray | None = None, tol: float = 1e-12, max_iter: int = 60
-    ) -> np.ndarray:
-        """Solve xi = tau r(C_in + nu xi, T) for xi (..., m) by damped Newton, vectorised."""
-        tau, T = np.broadcast_arrays(np.asarray(tau, float), np.asarray(T, float))
-        if xi0 is None:
-            r0 = self.rates(np.broadcast_to(self.c_in, tau.shape + (self.n,)), T)
-            xi = tau[..., None] * r0
-            xi = self._feasible(np.zeros_like(xi), xi)
-        else:
-            xi = np.array(xi0, dtype=float, copy=True)
-        eye = np.eye(self.m)
-        scale = max(float(np.max(self.c_in)), 1.0)
-        flat_xi = xi.reshape(-1, self.m)
-        flat_tau, flat_T = tau.reshape(-1), T.reshape(-1)
-        active = np.arange(flat_tau.size)
-        for _ in range(max_iter):
-            if active.size == 0:
+    def _setup_isothermal(self) -> None:
+        """Which reactions can run with this feed, and which concentrations the isothermal solve needs.
+
+        A reaction with a positive order in a species that is neither fed nor made by a reaction that can run
+        never runs (its rate is 0 at every temperature): it is left out, so no logarithm of 0 is taken. The
+        unknowns are the concentrations of the species with a positive order in a live reaction (``S``); every
+        one of them is positive at a steady state.
+        """
+        m, n = self.m, self.n
+        live = np.ones(m, dtype=bool)
+        while True:
+            produced = (self.nu[:, live] > 0).any(axis=1)
+            zero = (self.c_in <= 0) & ~produced
+            now = live & ~np.array([bool(np.any((self.orders[k] != 0) & zero)) for k in range(m)])
+            if np.array_equal(now, live):
                 break
-            x, ta, Ta = flat_xi[active], flat_tau[active], flat_T[active]
-            C = self.concentrations(x)
-            r, Rn, _ = self.extent_jacobian(C, Ta)
-            tr = ta[:, None] * r
-            res = x - tr
-            jac = eye - ta[:, None, None] * Rn
-            step = -_solve_small(jac, res)
-            new = self._feasible(x, x + step)
-            flat_xi[active] = new
-            # converged: the residual is at the rounding level of its terms, or the step is negligible
-            done = np.all(
-                (np.abs(res) <= tol * (np.abs(x) + np.abs(tr)) + 1e-300) | (np.abs(new - x) <= 1e-15 * scale), axis=-1
+            live = now
+        self.live = live
+        self.S = np.array([i for i in range(n) if np.any(live & (self.orders[:, i] != 0))], dtype=int)
+        self._live_idx = np.nonzero(live)[0]
+        # per solved species: (row in S, c_in, [(k, nu_ik)] making it, [(k, |nu_ik|)] using it)
+        S_list = self.S.tolist()
+        self._iso_rows = [
+            (
+                a,
+                float(self.c_in[i]),
+                [(int(k), float(self.nu[i, k])) for k in self._live_idx if self.nu[i, k] > 0],
+                [(int(k), float(-self.nu[i, k])) for k in self._live_idx if self.nu[i, k] < 0],
             )
-            active = active[~done]
-        return flat_xi.reshape(xi.shape)
+            for a, i in enumerate(S_list)
+        ]
+        # orders of every live reaction in the solved species, as (k, [(row in S, n_ki)])
+        self._iso_orders = [
+            (int(k), [(a, float(self.orders[k, i])) for a, i in enumerate(S_list) if self.orders[k, i] != 0])
+            for k in self._live_idx
+        ]
+        self._iso_order_map = dict(self._iso_orders)
+        total = float(np.sum(self.c_in)) * max(float(np.max(np.abs(self.nu))), 1.0) * (1 + self.m)
+        self._y_hi = math.log(max(total, 1e-300)) + 2.0  # no concentration can exceed this [ln mol/m^3]
+        self._y_lo = -740.0
 
-    def _feasible(self, xi: np.ndarray, target: np.ndarray) -> np.ndarray:
-        """Move from xi towards target, but no further than 99 % of the way to C = 0 or xi = 0."""
-        d = target - xi
-        t = np.full(xi.shape[:-1], np.inf)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            for i in range(self.n):
-                nz = np.nonzero(self.nu[i])[0]
-                if nz.size == 0:
-                    continue
-                Ci = self.c_in[i] + sum(self.nu[i, k] * xi[..., k] for k in nz)
-                dCi = sum(self.nu[i, k] * d[..., k] for k in nz)
-                t = np.minimum(t, np.where(dCi < 0, -Ci / dCi, np.inf))
-            for k in range(self.m):
-                t = np.minimum(t, np.where(d[..., k] < 0, -xi[..., k] / d[..., k], np.inf))
-        alpha = np.where(t >= 1.0, 1.0, 0.99 * np.maximum(t, 0.0))
-        return xi + alpha[..., None] * d
+    def _iso_system(
+        self, lnk: np.ndarray, y: np.ndarray, ln_tau: np.ndarray, dT: np.ndarray | None = None
+    ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray | None]:
+        """The isothermal balances of the solved species in logarithmic form, with their Jacobian.
 
-    def general_eval(self, tau: np.ndarray, T: np.ndarray, xi: np.ndarray | None = None) -> Samples:
-        """Manifold at (tau, T) (shapes broadcast); xi solved unless given."""
+        .. math:: G_i = \\ln(C_{i,in} + P_i) - \\ln C_i - \\ln(1 + L_i), \\quad
+                  P_i = \\sum_{\\nu_{ik} > 0} \\nu_{ik} \\tau r_k, \\quad
+                  L_i = \\sum_{\\nu_{ik} < 0} |\\nu_{ik}| \\tau r_k / C_i
+
+        (what enters over what leaves, as a logarithm), in the unknowns y = ln C of the solved species. A
+        reactant that is nearly used up is then as well resolved as one that is hardly touched (1 - X =
+        1e-30 as well as X = 1e-30), and a first-order consumption is linear in y. Returns (G, dG/dy, ln r of
+        every reaction (-inf where it cannot run), dG/dT when ``dT`` = E/T^2 (pts, m) is given).
+        """
+        pts = y.shape[0]
+        p = self.S.size
+        lr = np.full((pts, self.m), -np.inf)
+        for k, terms in self._iso_orders:
+            v = lnk[:, k] + ln_tau
+            for a, nk in terms:
+                v = v + nk * y[:, a]
+            lr[:, k] = v  # ln(tau r_k)
+        tr = np.exp(lr)
+        G = np.empty((pts, p))
+        Jac = np.zeros((pts, p, p))
+        GT = np.empty((pts, p)) if dT is not None else None
+        orders = self._iso_order_map
+        for a, c0, makes, uses in self._iso_rows:
+            made = [nu * tr[:, k] for k, nu in makes]
+            used = [nu * np.exp(lr[:, k] - y[:, a]) for k, nu in uses]  # |nu| tau r / C, never tau r / C
+            inflow = c0 + sum(made) if made else np.full(pts, c0)
+            inflow = np.maximum(inflow, 1e-300)
+            Lv = sum(used) if used else np.zeros(pts)
+            f_in = 1.0 / inflow
+            f_out = 1.0 / (1.0 + Lv)
+            G[:, a] = np.log(inflow) - y[:, a] - np.log1p(Lv)
+            row = Jac[:, a, :]
+            row[:, a] = -1.0
+            for (k, _), t in zip(makes, made, strict=True):
+                tf = t * f_in
+                for b, nk in orders[k]:
+                    row[:, b] += nk * tf
+            for (k, _), t in zip(uses, used, strict=True):
+                tf = t * f_out
+                for b, nk in orders[k]:
+                    row[:, b] -= nk * tf
+                row[:, a] += tf
+            if GT is not None:
+                PT = sum((t * dT[:, k] for (k, _), t in zip(makes, made, strict=True)), np.zeros(pts))
+                LT = sum((t * dT[:, k] for (k, _), t in zip(uses, used, strict=True)), np.zeros(pts))
+                GT[:, a] = PT * f_in - LT * f_out
+        return G, Jac, lr - ln_tau[:, None], GT
+
+    def _cold_guess(self, shape: tuple[int, ...]) -> np.ndarray:
+        c = self.c_in[self.S]
+        low = math.log(max(float(np.max(self.c_in)), 1e-300)) - 12.0
+        return np.broadcast_to(np.where(c > 0, np.log(np.maximum(c, 1e-300)), low), shape + (self.S.size,)).copy()
+
+    def isothermal(
+        self, tau: np.ndarray, T: np.ndarray, C0: np.ndarray | None = None
+    ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """(y = ln C of the solved species, ln r, converged) of the isothermal balances (see :meth:`_isothermal`)."""
+        return self._isothermal(tau, T, C0)[:3]
+
+    def _isothermal(
+        self, tau: np.ndarray, T: np.ndarray, C0: np.ndarray | None = None, max_iter: int = 100
+    ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """Solve the isothermal species balances C = C_in + nu tau r(C, T) at each (tau, T), vectorised.
+
+        Newton's method on the logarithmic form of ``_iso_system`` in y = ln C of the solved species, with
+        steps limited to a factor e^4 per iteration; started from ``C0`` (..., n) when given (continuation),
+        else from the feed. Converged when every balance closes to 1e-9 before the last Newton step (G is the
+        logarithm of inflow over outflow, so this is relative; the last step takes it to the rounding level);
+        anything else is reported as not converged, never as an answer.
+
+        Returns (y (..., p), ln r (..., m), converged (...), dG/dy (pts, p, p) and dG/dT (pts, p) of the
+        converged evaluation, NaN where it did not converge).
+        """
         tau, T = np.broadcast_arrays(np.asarray(tau, float), np.asarray(T, float))
-        if xi is None:
-            xi = self.isothermal_extents(tau, T)
+        shape = tau.shape
+        p = self.S.size
+        flat_tau, flat_T = tau.reshape(-1), T.reshape(-1)
+        pts = flat_tau.size
+        lnk_all = np.log(self.k0)[None, :] - self.E[None, :] / flat_T[:, None]
+        ln_tau = np.log(flat_tau)
+        if p == 0:
+            return (
+                np.zeros(shape + (0,)),
+                np.full(shape + (self.m,), -np.inf),
+                np.ones(shape, dtype=bool),
+                np.zeros((pts, 0, 0)),
+                np.zeros((pts, 0)),
+            )
+        if C0 is None:
+            y = self._cold_guess((pts,))
+        else:
+            C0 = np.broadcast_to(np.asarray(C0, float), shape + (self.n,)).reshape(pts, self.n)
+            y = np.log(np.maximum(C0[:, self.S], 1e-300))
+            y = np.where(np.isfinite(y), y, self._cold_guess((pts,)))
+        y = np.clip(y, self._y_lo, self._y_hi)
+        ok = np.zeros(pts, dtype=bool)
+        dT = self.E[None, :] / (flat_T * flat_T)[:, None]
+        Jac_out = np.empty((pts, p, p))  # filled where ok
+        GT_out = np.empty((pts, p))
+        active = None  # index of the points still iterating; None: all of them (no copies)
+        prev = np.full(pts, np.inf)  # each point's balance error at the previous evaluation
+
+        def rowmax(a: np.ndarray) -> np.ndarray:
+            out = np.abs(a[:, 0])
+            for j in range(1, p):
+                out = np.maximum(out, np.abs(a[:, j]))
+            return out
+
+        with np.errstate(over="ignore", invalid="ignore", divide="ignore", under="ignore"):
+            for _ in range(max_iter):
+                if active is None:
+                    ya, lk, lt, dTa, pa = y, lnk_all, ln_tau, dT, prev
+                else:
+                    if active.size == 0:
+                        break
+                    ya, lk, lt, dTa, pa = y[active], lnk_all[active], ln_tau[active], dT[active], prev[active]
+                G, Jac, _, GT = self._iso_system(lk, ya, lt, dTa)
+                err = rowmax(G)
+                step = -_solve_small(Jac, G)
+                big = rowmax(step)
+                # converged: closed to 1e-12 (G is ln of inflow over outflow, so relative), or closed to 1e-9
+                # one Newton step after being closed to 1e-9 (quadratic convergence: the rounding level);
+                # the Jacobian of this evaluation, at the answer itself, gives the derivatives
+                done = (err <= 1e-12) | ((err <= 1e-9) & (pa <= 1e-9))
+                go = ~done & np.isfinite(big) & np.isfinite(err)
+                if active is None:
+                    prev = err
+                else:
+                    prev[active] = err
+                if done.all():
+                    sel = slice(None) if active is None else active
+                    ok[sel] = True
+                    Jac_out[sel], GT_out[sel] = Jac, GT
+                    break
+                if done.any():
+                    idx = np.nonzero(done)[0] if active is None else active[done]
+                    ok[idx] = True
+                    Jac_out[idx], GT_out[idx] = Jac[done], GT[done]
+                step *= np.minimum(1.0, 4.0 / np.maximum(big, 1e-300))[:, None]
+                if active is None and go.all():
+                    np.clip(y + step, self._y_lo, self._y_hi, out=y)
+                    continue
+                moving = np.nonzero(go)[0] if active is None else active[go]
+                y[moving] = np.clip(ya[go] + step[go], self._y_lo, self._y_hi)
+                active = moving
+            lr_out = lnk_all.copy()
+            for k in range(self.m):
+                if not self.live[k]:
+                    lr_out[:, k] = -np.inf
+            for k, terms in self._iso_orders:
+                for a, nk in terms:
+                    lr_out[:, k] += nk * y[:, a]
+        return y.reshape(shape + (p,)), lr_out.reshape(shape + (self.m,)), ok.reshape(shape), Jac_out, GT_out
+
+    def _full_concentrations(self, y: np.ndarray, xi: np.ndarray) -> np.ndarray:
+        """C (..., n): the solved species from y = ln C, the others from C_in + nu xi."""
         C = self.concentrations(xi)
-        _, Rn, dr_dT = self.extent_jacobian(C, T)
-        jac = np.eye(self.m) - tau[..., None, None] * Rn
-        dxi_dT = _solve_small(jac, tau[..., None] * dr_dT)
+        if self.S.size:
+            C[..., self.S] = np.exp(y)
+        return C
+
+    def isothermal_extents(self, tau: np.ndarray, T: np.ndarray, C0: np.ndarray | None = None) -> np.ndarray:
+        """Extents xi (..., m) of the isothermal balances at (tau, T) (see :meth:`isothermal`)."""
+        tau, T = np.broadcast_arrays(np.asarray(tau, float), np.asarray(T, float))
+        _, lr, _ = self.isothermal(tau, T, C0)
+        with np.errstate(under="ignore"):
+            return np.exp(lr + np.log(tau)[..., None])
+
+    def general_eval(self, tau: np.ndarray, T: np.ndarray, C0: np.ndarray | None = None) -> Samples:
+        """Manifold at (tau, T) (shapes broadcast), the isothermal balances solved from the guess ``C0``.
+
+        dxi/dT follows from differentiating the logarithmic balances: dy/dT = -(dG/dy)^-1 dG/dT and
+        dxi_k/dT = tau r_k (E_k/T^2 + sum_i n_ki dy_i/dT).
+        """
+        tau, T = np.broadcast_arrays(np.asarray(tau, float), np.asarray(T, float))
+        shape = tau.shape
+        y, lr, ok, Jac, GT = self._isothermal(tau, T, C0)
+        flat_T = T.reshape(-1)
+        dT = self.E[None, :] / (flat_T * flat_T)[:, None]
+        p = self.S.size
+        with np.errstate(over="ignore", invalid="ignore", under="ignore"):
+            xi = np.exp(lr + np.log(tau)[..., None])
+            dxi = xi.reshape(-1, self.m) * dT
+            if p:
+                # dG/dy and dG/dT of the evaluation that converged, at the answer itself
+                dy = -_solve_small(np.where(ok.reshape(-1)[:, None, None], Jac, np.eye(p)), np.nan_to_num(GT))
+                for k, terms in self._iso_orders:
+                    for a, nk in terms:
+                        dxi[:, k] += xi.reshape(-1, self.m)[:, k] * nk * dy[:, a]
+        dxi_dT = dxi.reshape(shape + (self.m,))
+        C = self._full_concentrations(y, xi)
         a = self.a(tau)
         T_in = a * T - xi @ self.J - self.b(tau)
         dTin = a - dxi_dT @ self.J
-        return Samples(tau, T, T, xi, T_in, dTin, np.ones_like(T), np.isfinite(T_in))
+        valid = ok & np.isfinite(T_in) & np.isfinite(dTin)
+        return Samples(tau, T, T, xi, T_in, dTin, np.ones_like(T), valid, C)
 
     # -- common interface -----------------------------------------------------------------------------
     def evaluate(self, tau: np.ndarray, s: np.ndarray) -> Samples:
@@ -300,7 +531,8 @@ class Manifold:
 
         On the general path a single-point call starts its isothermal Newton solve from the previous
         single-point answer: callers that walk along a curve (root bracketing, continuation) then need one or
-        two iterations instead of a cold start (the solution is unique, so the start only changes the cost).
+        two iterations instead of a cold start (the solution is unique, so the start only changes the cost;
+        a start that does not converge is retried from the feed).
         """
         if self.explicit:
             return self.explicit_eval(tau, s)
@@ -310,72 +542,102 @@ class Manifold:
 
     def _general_point(self, tau_a: np.ndarray, T_a: np.ndarray) -> Samples:
         """One point of the general path in plain Python floats (numpy's per-call cost dominates for a single
-        point): the same damped Newton on xi = tau r(C_in + nu xi, T) as ``isothermal_extents``, started from
-        the previous single-point answer, then T_in and dT_in/dT as in ``general_eval``."""
+        point): the same Newton iteration on the logarithmic balances as :meth:`isothermal`, started from the
+        previous single-point answer (then from the feed if that does not converge), then T_in and dT_in/dT
+        as in :meth:`general_eval`."""
         tau, T = float(tau_a.reshape(-1)[0]), float(T_a.reshape(-1)[0])
-        m, n = self.m, self.n
-        nu = self.nu.tolist()
-        orders = self.orders.tolist()
-        c_in = self.c_in.tolist()
+        m, p = self.m, self.S.size
         lnk = [math.log(self.k0[j]) - self.E[j] / T for j in range(m)]
-        scale = max(max(c_in), 1.0)
+        dT = [self.E[j] / (T * T) for j in range(m)]
+        ln_tau = math.log(tau)
+        rows, orders = self._iso_rows, self._iso_orders
+        ordmap = {k: terms for k, terms in orders}
 
-        def conc(x: list[float]) -> list[float]:
-            return [c_in[i] + sum(nu[i][k] * x[k] for k in range(m)) for i in range(n)]
+        def system(y: list[float]) -> tuple[list[float], list[list[float]], list[float], list[float]]:
+            lr = [-math.inf] * m
+            for k, terms in orders:
+                v = lnk[k]
+                for a, nk in terms:
+                    v += nk * y[a]
+                lr[k] = v
+            G = [0.0] * p
+            Jac = [[0.0] * p for _ in range(p)]
+            GT = [0.0] * p
+            for a, c0, makes, uses in rows:
+                P = Lv = PT = LT = 0.0
+                dP = [0.0] * p
+                dL = [0.0] * p
+                for k, nu in makes:
+                    t = nu * math.exp(min(lr[k] + ln_tau, 709.0))
+                    P += t
+                    PT += t * dT[k]
+                    for b, nk in ordmap[k]:
+                        dP[b] += nk * t
+                for k, nu in uses:
+                    t = nu * math.exp(min(lr[k] + ln_tau - y[a], 709.0))
+                    Lv += t
+                    LT += t * dT[k]
+                    for b, nk in ordmap[k]:
+                        dL[b] += nk * t
+                    dL[a] -= t
+                inflow = max(c0 + P, 1e-300)
+                G[a] = math.log(inflow) - y[a] - math.log1p(Lv)
+                for b in range(p):
+                    Jac[a][b] = dP[b] / inflow - dL[b] / (1.0 + Lv)
+                Jac[a][a] -= 1.0
+                GT[a] = PT / inflow - LT / (1.0 + Lv)
+            return G, Jac, lr, GT
 
-        def rates_jac(x: list[float]) -> tuple[list[float], list[list[float]]]:
-            C = conc(x)
-            r = []
-            for j in range(m):
-                lr = lnk[j]
-                for i in self._orders_nz[j]:
-                    lr += orders[j][i] * math.log(max(C[i], 1e-300))
-                r.append(math.exp(lr))
-            Rn = [[0.0] * m for _ in range(m)]
-            for j in range(m):
-                for i in self._orders_nz[j]:
-                    g = r[j] * orders[j][i] / max(C[i], 1e-300)
-                    for k in range(m):
-                        Rn[j][k] += g * nu[i][k]
-            return r, Rn
+        def solve(y: list[float]) -> tuple[list[float], bool]:
+            for _ in range(100):
+                G, Jac, _, _ = system(y)
+                err = max((abs(g) for g in G), default=0.0)
+                if not math.isfinite(err):
+                    return y, False
+                step = _solve_list(Jac, [-g for g in G])
+                big = max((abs(v) for v in step), default=0.0)
+                if not math.isfinite(big):
+                    return y, False
+                f = min(1.0, 4.0 / big) if big > 0 else 1.0
+                y = [min(max(y[a] + f * step[a], self._y_lo), self._y_hi) for a in range(p)]
+                if err <= 1e-9:  # quadratic convergence: the step just taken closes it to rounding
+                    return y, True
+            return y, False
 
-        if self._last_xi is not None:
-            x = [float(v) for v in self._last_xi]
-        else:
-            r0, _ = rates_jac([0.0] * m)
-            x = self._feasible(np.zeros(m), tau * np.array(r0)).tolist()
-        for _ in range(60):
-            r, Rn = rates_jac(x)
-            res = [x[j] - tau * r[j] for j in range(m)]
-            A = [[(1.0 if j == k else 0.0) - tau * Rn[j][k] for k in range(m)] for j in range(m)]
-            step = _solve_list(A, [-v for v in res])
-            new = self._feasible(np.array(x), np.array(x) + np.array(step)).tolist()
-            done = all(
-                abs(res[j]) <= 1e-12 * (abs(x[j]) + abs(tau * r[j])) + 1e-300 or abs(new[j] - x[j]) <= 1e-15 * scale
-                for j in range(m)
-            )
-            x = new
-            if done:
-                break
-        self._last_xi = np.array(x)
-        r, Rn = rates_jac(x)
-        A = [[(1.0 if j == k else 0.0) - tau * Rn[j][k] for k in range(m)] for j in range(m)]
-        dxi_dT = _solve_list(A, [tau * r[j] * self.E[j] / (T * T) for j in range(m)])
+        cold = self._cold_guess(()).tolist()
+        start = cold
+        if self._last_C is not None and p:
+            start = [math.log(max(float(self._last_C[i]), 1e-300)) for i in self.S.tolist()]
+        y, ok = solve(start) if p else ([], True)
+        if not ok and start is not cold:
+            y, ok = solve(cold)
+        G, Jac, lr, GT = system(y) if p else ([], [], [-math.inf] * m, [])
+        ok = ok and max((abs(g) for g in G), default=0.0) <= 1e-10
+        xi = [math.exp(lr[k] + ln_tau) if math.isfinite(lr[k]) else 0.0 for k in range(m)]
+        dy = _solve_list(Jac, [-g for g in GT]) if p else []
+        dxi = [xi[k] * dT[k] for k in range(m)]
+        for k, terms in orders:
+            for a, nk in terms:
+                dxi[k] += xi[k] * nk * dy[a]
+        C = self._full_concentrations(np.array(y, dtype=float), np.array(xi, dtype=float))
+        if ok:
+            self._last_C = C
         a = 1.0 + (self.kappa + self.lam) * tau
         b = (self.kappa * self.T_c + self.lam * self.sc.T_amb + self.p) * tau
         J = self.J.tolist()
-        T_in = a * T - sum(J[j] * x[j] for j in range(m)) - b
-        dTin = a - sum(J[j] * dxi_dT[j] for j in range(m))
+        T_in = a * T - sum(J[j] * xi[j] for j in range(m)) - b
+        dTin = a - sum(J[j] * dxi[j] for j in range(m))
         one = np.array([T])
         return Samples(
             np.array([tau]),
             one,
             one,
-            np.array([x]),
+            np.array([xi]),
             np.array([T_in]),
             np.array([dTin]),
             np.ones(1),
-            np.array([math.isfinite(T_in)]),
+            np.array([ok and math.isfinite(T_in) and math.isfinite(dTin)]),
+            C[None, :],
         )
 
     def temperature_window(self, T_in_lo: float, T_in_hi: float, tau_hi: float) -> tuple[float, float]:
@@ -414,8 +676,8 @@ class Manifold:
         tau = np.asarray(tau, float)
         if self.explicit:
             return (
-                self.explicit_xi_at_T(tau, np.full(tau.shape, T_lo)),
-                self.explicit_xi_at_T(tau, np.full(tau.shape, T_hi)),
+                self.explicit_w_at_T(tau, np.full(tau.shape, T_lo)),
+                self.explicit_w_at_T(tau, np.full(tau.shape, T_hi)),
             )
         return np.full(tau.shape, T_lo), np.full(tau.shape, T_hi)
 
@@ -426,27 +688,24 @@ class Manifold:
         s_lo, s_hi = self.s_bounds(tau, T_lo, T_hi)
         u = np.linspace(0.0, 1.0, N)
         if self.explicit:
-            w_lo = np.log(s_lo / (self.xi_max - s_lo))
-            w_hi = np.log(s_hi / (self.xi_max - s_hi))
-            w = w_lo[:, None] + (w_hi - w_lo)[:, None] * u
-            s = self.xi_max / (1.0 + np.exp(-w))
-            return self.explicit_eval(tau[:, None], s)
+            return self.explicit_eval(tau[:, None], s_lo[:, None] + (s_hi - s_lo)[:, None] * u)
         inv = 1.0 / T_lo + (1.0 / T_hi - 1.0 / T_lo) * u
         Tg = np.broadcast_to(1.0 / inv, (tau.size, N))
         # continuation in T on every 8th temperature, then all the others at once from interpolated guesses
         coarse = np.unique(np.concatenate((np.arange(0, N, 8), [N - 1])))
-        xi_c = np.empty((tau.size, coarse.size, self.m))
+        C_c = np.empty((tau.size, coarse.size, self.n))
         guess = None
         for k, kk in enumerate(coarse):
-            guess = self.isothermal_extents(tau, Tg[:, kk], guess)
-            xi_c[:, k] = guess
+            e = self.general_eval(tau, Tg[:, kk], guess)
+            guess = np.where(e.valid[:, None], e.C, np.nan) if guess is None else np.where(e.valid[:, None], e.C, guess)
+            C_c[:, k] = guess
         idx = np.searchsorted(coarse, np.arange(N), side="right") - 1
         idx = np.clip(idx, 0, coarse.size - 1)
-        xi0 = xi_c[:, idx]
-        xi = self.isothermal_extents(np.broadcast_to(tau[:, None], (tau.size, N)), Tg, xi0)
-        return self.general_eval(tau[:, None], Tg, xi)
+        return self.general_eval(tau[:, None], Tg, C_c[:, idx])
 
-    def stability(self, tau: np.ndarray, T: np.ndarray, xi: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    def stability(
+        self, tau: np.ndarray, T: np.ndarray, xi: np.ndarray, C: np.ndarray | None = None
+    ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Vectorised stability on the manifold without eigenvalues where the size allows it.
 
         Returns (stable, hopf, hopf_valid): ``hopf`` is a smooth function that changes sign where a complex
@@ -454,13 +713,19 @@ class Manifold:
         positive determinant); for 3x3 it is minus the Hurwitz determinant :math:`c_2 c_1 - c_0` of the
         characteristic polynomial :math:`\\lambda^3 + c_2\\lambda^2 + c_1\\lambda + c_0` (where its
         discriminant is negative: one real root and a complex pair); larger systems use the leading real
-        part of the eigenvalues.
+        part of the eigenvalues. ``C`` are the concentrations of the points (``Samples.C``, exact where a
+        reactant is nearly used up); without it they are C_in + nu xi.
         """
         if self.m == 1:
-            tr, det = self.trace_det(tau, T, xi)
+            tr, det = self.trace_det(tau, T, xi, C)
             return (tr < 0) & (det > 0), tr, det > 0
-        Jr = self.reduced_jacobian(tau, T, xi)
+        Jr = self.reduced_jacobian(tau, T, xi, C)
         if self.m == 2:
+            # eigenvalues of Jr / w with w its largest entry: the same signs, and no overflow in the degree-6
+            # discriminant where the rates are fast
+            with np.errstate(invalid="ignore"):
+                w = np.max(np.abs(Jr), axis=(-2, -1))
+                Jr = Jr / np.where((w > 0) & np.isfinite(w), w, 1.0)[..., None, None]
             c2 = -(Jr[..., 0, 0] + Jr[..., 1, 1] + Jr[..., 2, 2])
             c1 = (
                 Jr[..., 0, 0] * Jr[..., 1, 1]
@@ -476,17 +741,19 @@ class Manifold:
             hurwitz = c2 * c1 - c0
             disc = 18 * c2 * c1 * c0 - 4 * c2**3 * c0 + c2**2 * c1**2 - 4 * c1**3 - 27 * c0**2
             return (c2 > 0) & (c1 > 0) & (c0 > 0) & (hurwitz > 0), -hurwitz, disc < 0
-        lead, cplx = self.leading_real_part(tau, T, xi)
+        lead, cplx = self.leading_real_part(tau, T, xi, C)
         return lead < 0, lead, cplx
 
     # -- stability on the manifold --------------------------------------------------------------------
-    def reduced_jacobian(self, tau: np.ndarray, T: np.ndarray, xi: np.ndarray) -> np.ndarray:
+    def reduced_jacobian(
+        self, tau: np.ndarray, T: np.ndarray, xi: np.ndarray, C: np.ndarray | None = None
+    ) -> np.ndarray:
         """Jacobian of the extent-and-temperature system on the invariant manifold, shape (..., m+1, m+1).
 
         The full species+energy block has these eigenvalues plus -1/tau once per reaction invariant
         (n - rank(nu) of them), which are always stable.
         """
-        C = self.concentrations(xi)
+        C = self.concentrations(xi) if C is None else C
         _, Rn, dr_dT = self.extent_jacobian(C, T)
         m = self.m
         out = np.zeros(T.shape + (m + 1, m + 1))
@@ -496,7 +763,9 @@ class Manifold:
         out[..., m, m] = -self.a(tau) / tau + dr_dT @ self.J
         return out
 
-    def trace_det(self, tau: np.ndarray, T: np.ndarray, xi: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    def trace_det(
+        self, tau: np.ndarray, T: np.ndarray, xi: np.ndarray, C: np.ndarray | None = None
+    ) -> tuple[np.ndarray, np.ndarray]:
         """Trace and determinant of the 2x2 reduced Jacobian of one reaction, on the manifold, where the
         rate is r = xi/tau exactly:
 
@@ -506,24 +775,29 @@ class Manifold:
         """
         x = xi[..., 0]
         r = x / tau
-        _, dlogg = self._g(x)
-        with np.errstate(invalid="ignore"):
-            # no extent (a feed without the reactant): no rate to perturb, and 0 * (-inf) must not be NaN
-            alpha = np.where(r == 0, 0.0, r * dlogg)
+        C = self.concentrations(xi) if C is None else C
+        alpha = np.zeros(np.shape(r))
+        with np.errstate(invalid="ignore", divide="ignore"):
+            for i in range(self.n):
+                if self.orders[0, i] != 0 and self.nu[i, 0] != 0:
+                    # r/C_i; no extent (a feed without the reactant) means no rate to perturb, not 0 * inf
+                    alpha += self.orders[0, i] * self.nu[i, 0] * np.where(r == 0, 0.0, r / C[..., i])
         beta = r * self.E[0] / (T * T)
         a = self.a(tau)
         Jb = self.J[0] * beta
         return alpha + Jb - (1.0 + a) / tau, (a - tau * (Jb + a * alpha)) / (tau * tau)
 
-    def leading_real_part(self, tau: np.ndarray, T: np.ndarray, xi: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    def leading_real_part(
+        self, tau: np.ndarray, T: np.ndarray, xi: np.ndarray, C: np.ndarray | None = None
+    ) -> tuple[np.ndarray, np.ndarray]:
         """(max real part of the reduced eigenvalues [1/s], whether the leading pair is complex)."""
         if self.m == 1:
-            tr, det = self.trace_det(tau, T, xi)
+            tr, det = self.trace_det(tau, T, xi, C)
             disc = tr * tr - 4.0 * det
             sq = np.sqrt(np.abs(disc))
             lead = np.where(disc >= 0, 0.5 * (tr + sq), 0.5 * tr)
             return lead, disc < 0
-        ev = np.linalg.eigvals(self.reduced_jacobian(tau, T, xi))
+        ev = np.linalg.eigvals(self.reduced_jacobian(tau, T, xi, C))
         idx = np.argmax(ev.real, axis=-1)
         lead = np.take_along_axis(ev, idx[..., None], axis=-1)[..., 0]
         return lead.real, np.abs(lead.imag) > 1e-12 * np.maximum(np.abs(lead.real), 1e-30)

@@ -30,7 +30,7 @@ from scipy.optimize import brentq
 
 from exomap.core import valve as valve_mod
 from exomap.core.errors import LimitExceededError, ModelInputError
-from exomap.core.manifold import Manifold, Samples
+from exomap.core.manifold import W_BOUND, Manifold, Samples
 from exomap.core.regions import CODE, REGIONS, legend
 from exomap.core.scenario import Scenario, validate
 
@@ -164,22 +164,21 @@ def _refine(
     b: np.ndarray,
     fa: np.ndarray,
     func,
-    xi_a: np.ndarray | None,
+    guess: np.ndarray | None,
     iterations: int = 60,
 ) -> tuple[np.ndarray, Samples]:
     """Vectorised root of func(Samples) bracketed by coordinates a and b, by the Illinois variant of the
     false-position method (superlinear, never leaves the bracket), to machine precision."""
-    fb = func(_eval(mf, tau, b, xi_a))
+    fb = func(_eval(mf, tau, b, guess))
     fa = np.asarray(fa, dtype=float).copy()
     a, b = a.astype(float).copy(), b.astype(float).copy()
-    xi_guess = xi_a
     side = np.zeros(a.shape)
     c_prev = np.full(a.shape, np.nan)
     for _ in range(iterations):
         with np.errstate(invalid="ignore", divide="ignore"):
             c = (a * fb - b * fa) / (fb - fa)
         c = np.where(np.isfinite(c) & (c > np.minimum(a, b)) & (c < np.maximum(a, b)), c, 0.5 * (a + b))
-        e = _eval(mf, tau, c, xi_guess)
+        e = _eval(mf, tau, c, guess)
         fc = func(e)
         left = np.sign(fc) == np.sign(fa)
         # Illinois: halve the weight of the end that stays twice in a row
@@ -187,27 +186,27 @@ def _refine(
         fb = np.where(left & (side > 0), 0.5 * fb, fb)
         fa = np.where(~left & (side < 0), 0.5 * fa, fa)
         side = np.where(left, 1.0, -1.0)
-        if xi_guess is not None:
-            xi_guess = e.xi
+        if guess is not None:
+            guess = e.C
         if np.all(
-            (np.abs(b - a) <= 4e-16 * np.maximum(np.abs(a), np.abs(b)))
+            (np.abs(b - a) <= 4e-16 * np.maximum(np.maximum(np.abs(a), np.abs(b)), 1.0))
             | (fc == 0)
             | (np.abs(c - c_prev) <= 1e-15 * np.abs(c))
         ):
             break
         c_prev = c
-    return c, _eval(mf, tau, c, xi_guess)
+    return c, _eval(mf, tau, c, guess)
 
 
-def _eval(mf: Manifold, tau: np.ndarray, s: np.ndarray, xi_guess: np.ndarray | None) -> Samples:
+def _eval(mf: Manifold, tau: np.ndarray, s: np.ndarray, guess: np.ndarray | None) -> Samples:
+    """Manifold at (tau, s); on the general path the isothermal solve starts from concentrations ``guess``."""
     if mf.explicit:
         return mf.explicit_eval(tau, s)
-    xi = mf.isothermal_extents(tau, s, xi_guess)
-    return mf.general_eval(tau, s, xi)
+    return mf.general_eval(tau, s, guess)
 
 
 def _hopf_function(mf: Manifold, e: Samples) -> np.ndarray:
-    return mf.stability(e.tau, e.T, e.xi)[1]
+    return mf.stability(e.tau, e.T, e.xi, mf.state_C(e))[1]
 
 
 def operating_map(
@@ -270,6 +269,17 @@ def operating_map(
         )
         bcols = fold_columns(mf, mf.sample(btau, T_lo, T_hi, N))
     boundaries = _boundaries(sc, mf, btau, bcols, float(T_in[0]), float(T_in[-1]))
+    # a map that is not complete never says success: every cell has at least one steady state (the energy
+    # balance is continuous in T and changes sign across the temperature window), and on the general path
+    # every sample's isothermal solve must have converged
+    empty = int(np.count_nonzero(count == 0))
+    unsolved = 0 if mf.explicit else int(np.count_nonzero(~smp.valid))
+    problems = []
+    if empty:
+        problems.append(f"{empty} cell(s) where no steady state was found")
+    if unsolved:
+        problems.append(f"{unsolved} manifold sample(s) whose mass balances did not converge")
+    message = f"{tau.size} x {T_in.size} cells, {N} samples per column"
     return MapResult(
         tau,
         T_in,
@@ -281,8 +291,8 @@ def operating_map(
         boundaries,
         sc.limits.T_max,
         spacing,
-        True,
-        f"{tau.size} x {T_in.size} cells, {N} samples per column",
+        not problems,
+        message if not problems else f"{message}; incomplete: {'; '.join(problems)}",
     )
 
 
@@ -298,7 +308,7 @@ class FoldColumns:
     cplx: np.ndarray  # where it is meaningful
 
 
-def _unhide_fold_pairs(mf: Manifold, smp: Samples) -> Samples:
+def unhide_fold_pairs(mf: Manifold, smp: Samples) -> Samples:
     """A fold pair closer together than one sample (next to a cusp) shows no sign change of dT_in/ds. Look
     inside every local minimum of |dT_in/ds| for an extremum of the other sign, and move that sample onto the
     extremum, so that the sign-change search below sees both folds."""
@@ -313,7 +323,7 @@ def _unhide_fold_pairs(mf: Manifold, smp: Samples) -> Samples:
     sgn = np.sign(d[dc, dk])
     tau_d = smp.tau[dc, dk]
     lo, hi = smp.s[dc, dk - 1], smp.s[dc, dk + 1]
-    xi_d = None if mf.explicit else smp.xi[dc, dk]
+    xi_d = None if mf.explicit else smp.C[dc, dk]
     for _ in range(20):  # golden-section search for the extremum of sign * dT_in/ds (to 1e-4 of a sample)
         m1 = hi - 0.618033988749895 * (hi - lo)
         m2 = lo + 0.618033988749895 * (hi - lo)
@@ -327,7 +337,10 @@ def _unhide_fold_pairs(mf: Manifold, smp: Samples) -> Samples:
         return smp
     hc, hk = dc[hidden], dk[hidden]
     fields = {}
-    for name in ("s", "T", "xi", "T_in", "dTin_ds", "dT_ds", "valid"):
+    for name in ("s", "T", "xi", "T_in", "dTin_ds", "dT_ds", "valid", "C"):
+        if getattr(smp, name) is None:  # the explicit path carries no concentrations
+            fields[name] = None
+            continue
         arr = np.array(getattr(smp, name), copy=True)
         arr[hc, hk] = getattr(e, name)[hidden]
         fields[name] = arr
@@ -336,10 +349,10 @@ def _unhide_fold_pairs(mf: Manifold, smp: Samples) -> Samples:
 
 def fold_columns(mf: Manifold, smp: Samples) -> FoldColumns:
     """Folds of every sampled column, refined to machine precision, and the Hopf indicator on the samples."""
-    smp = _unhide_fold_pairs(mf, smp)
+    smp = unhide_fold_pairs(mf, smp)
     d = smp.dTin_ds
     c, k = np.nonzero((d[:, :-1] * d[:, 1:]) < 0)
-    xi0 = None if mf.explicit else smp.xi[c, k]
+    xi0 = None if mf.explicit else smp.C[c, k]
     _, fold = _refine(mf, smp.tau[c, k], smp.s[c, k], smp.s[c, k + 1], d[c, k], lambda e: e.dTin_ds, xi0)
     if mf.m == 1 and mf.kappa == 0 and mf.lam == 0:
         # one reaction, adiabatic: trace = 0 means J beta + alpha = 2/tau, so det = -1/tau^2 < 0 and no
@@ -347,7 +360,7 @@ def fold_columns(mf: Manifold, smp: Samples) -> FoldColumns:
         hopf = np.ones(smp.T.shape)
         valid = np.zeros(smp.T.shape, dtype=bool)
     else:
-        _, hopf, valid = mf.stability(smp.tau, smp.T, smp.xi)
+        _, hopf, valid = mf.stability(smp.tau, smp.T, smp.xi, mf.state_C(smp))
     return FoldColumns(smp, c, k, fold, d[c, k] > 0, hopf, valid)
 
 
@@ -423,11 +436,11 @@ def _cell_states(mf: Manifold, smp: Samples, cols: FoldColumns, T_in: np.ndarray
     ts = smp.tau[ci, 0]
     xi_g = None
     if not mf.explicit:
-        xiL = np.repeat(smp.xi[:, -1:], L, axis=1)
-        xiL[rows, slot] = smp.xi
+        xiL = np.repeat(smp.C[:, -1:], L, axis=1)
+        xiL[rows, slot] = smp.C
         for off in (0, 1):
-            xiL[fc, end_slot + off] = cols.fold.xi[order]
-        xi_flat = xiL.reshape(-1, mf.m)
+            xiL[fc, end_slot + off] = cols.fold.C[order]
+        xi_flat = xiL.reshape(-1, mf.n)
         xi_g = xi_flat[k0] + w[:, None] * (xi_flat[k1] - xi_flat[k0])
     # polish in chunks of states, so the working arrays stay in the processor's cache (the cost per state
     # would otherwise grow with the map's size)
@@ -465,7 +478,7 @@ def _polish(
     ss = ss.copy()
     for _ in range(2):
         e = _eval(mf, ts, ss, xi_g)
-        xi_g = None if mf.explicit else e.xi
+        xi_g = None if mf.explicit else e.C
         with np.errstate(invalid="ignore", divide="ignore"):
             step = (e.T_in - v) / e.dTin_ds
         step = np.where(np.isfinite(step), step, 0.0)
@@ -481,12 +494,12 @@ def _polish(
         s2 = np.where(np.isfinite(s2), s2, 0.0)
         ss[idx] = np.clip(ss[idx] - s2, lo_b[idx], hi_b[idx])
         if xi_g is not None:
-            xi_g[idx] = e2.xi
+            xi_g[idx] = e2.C
         step = np.zeros_like(ss)
         step[idx] = s2
     if mf.explicit:
         e = mf.explicit_eval(ts, ss)
-    stable_s, _, _ = mf.stability(e.tau, e.T, e.xi)
+    stable_s, _, _ = mf.stability(e.tau, e.T, e.xi, mf.state_C(e))
     with np.errstate(invalid="ignore", divide="ignore"):
         sens = e.dT_ds / e.dTin_ds
     return (e.T if mf.explicit else ss), stable_s, sens
@@ -592,7 +605,7 @@ def cusps(mf: Manifold, tau: np.ndarray, cols: FoldColumns) -> list[tuple[float,
         width = s[pair + 1] - s[pair]
         s_lo, s_hi = s[pair] - 2 * width, s[pair + 1] + 2 * width
         if mf.explicit:
-            s_lo, s_hi = max(s_lo, 1e-300), min(s_hi, mf.xi_max * (1 - 1e-15))
+            s_lo, s_hi = max(s_lo, -W_BOUND), min(s_hi, W_BOUND)
         res = _solve_cusp(mf, math.log(tau[c]), math.log(tau[j + 1 if c == j else j]), s_lo, s_hi)
         if res is not None and not any(
             abs(res[0] - r[0]) <= 1e-9 * r[0] and abs(res[1] - r[1]) <= 1e-9 * r[1] for r in out
@@ -647,13 +660,17 @@ def _solve_cusp(
 def _hopf(mf: Manifold, tau: np.ndarray, cols: FoldColumns) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Hopf points of every column: (column, coordinate s, feed temperature)."""
     lead, cplx, smp = cols.lead, cols.cplx, cols.smp
-    ch = cplx[:, :-1] & cplx[:, 1:] & ((lead[:, :-1] * lead[:, 1:]) < 0)
+    # the smooth Hopf function changes sign with a complex pair possible at either end of the step (it may be
+    # complex at one end only: next to a fold, or where a real eigenvalue leads); the zero is then kept only
+    # where a complex pair exists there
+    ch = (cplx[:, :-1] | cplx[:, 1:]) & ((lead[:, :-1] * lead[:, 1:]) < 0)
     c, k = np.nonzero(ch)
     if c.size == 0:
         return c, np.zeros(0), np.zeros(0)
-    xi0 = None if mf.explicit else smp.xi[c, k]
+    xi0 = None if mf.explicit else smp.C[c, k]
     _, e = _refine(mf, tau[c], smp.s[c, k], smp.s[c, k + 1], lead[c, k], lambda e: _hopf_function(mf, e), xi0)
-    return c, e.s, e.T_in
+    keep = mf.stability(e.tau, e.T, e.xi, mf.state_C(e))[2] & np.isfinite(e.T_in)
+    return c[keep], e.s[keep], e.T_in[keep]
 
 
 def _max_temperature_curve(sc: Scenario, mf: Manifold, tau: np.ndarray, tin_lo: float, tin_hi: float) -> np.ndarray:
@@ -662,11 +679,10 @@ def _max_temperature_curve(sc: Scenario, mf: Manifold, tau: np.ndarray, tin_lo: 
     T_max = sc.limits.T_max
     Tm = np.full(tau.shape, T_max)
     if mf.explicit:
-        xi = mf.explicit_xi_at_T(tau, Tm)
-        e = mf.explicit_eval(tau, xi)
+        e = mf.explicit_eval(tau, mf.explicit_w_at_T(tau, Tm))
     else:
         e = mf.general_eval(tau, Tm)
-    stable_s, _, _ = mf.stability(e.tau, e.T, e.xi)
+    stable_s, _, _ = mf.stability(e.tau, e.T, e.xi, mf.state_C(e))
     ok = stable_s & np.isfinite(e.T_in) & (e.T_in >= tin_lo) & (e.T_in <= tin_hi)
     rows = []
     for i in range(tau.size):

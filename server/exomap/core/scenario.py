@@ -378,3 +378,46 @@ def validate(sc: Scenario) -> None:
     positive(sc.T_c, "jacket.coolant_temperature")
     positive(sc.T_amb, "heat_loss.ambient_temperature")
     positive(sc.limits.T_max, "limits.max_temperature")
+    check_zero_orders(sc.species, sc.nu, sc.orders, np.asarray(sc.c_in, dtype=float))
+
+
+def check_zero_orders(species: tuple[str, ...], nu: np.ndarray, orders: np.ndarray, c_in: np.ndarray) -> None:
+    """Refuse order 0 in a reactant that this feed can use up (``ModelInputError`` naming
+    ``reactions[j].orders.X``).
+
+    A rate with order 0 in a reactant does not fall as that reactant runs out, so the species balance would
+    drive its concentration below zero. exomap does not switch such a rate off at exhaustion (that would make
+    the rate, and the Jacobian that decides stability, jump where the reactant is used up); it accepts order 0
+    only in a reactant the feed holds in excess: over every composition the reactions can reach from this
+    feed (C = C_in + nu xi with xi >= 0 and every species with a positive order non-negative, since those
+    rates stop as their species run out), the reactant stays at or above zero. That is a small linear
+    programme per such reactant (scipy's HiGHS). Pseudo-first-order kinetics with a reactant in large excess
+    pass; a zero-order reactant that can be the limiting one is refused.
+    """
+    m = nu.shape[1]
+    used = [(j, i) for j in range(m) for i in range(len(species)) if nu[i, j] < 0 and orders[j, i] == 0]
+    if not used:
+        return
+    from scipy.optimize import linprog
+
+    scale = max(float(np.max(c_in)), 1.0)
+    for j, i in used:
+        # the species whose rates stop as they run out, other than this one (its order 0 here lets it go on)
+        limited = [k for k in range(len(species)) if k != i and np.any(orders[:, k] > 0)]
+        # minimise C_i = c_in_i + nu_i . xi over xi >= 0 with C_l >= 0 for the self-limiting species l
+        res = linprog(
+            nu[i],
+            A_ub=-nu[limited] if limited else None,
+            b_ub=c_in[limited] if limited else None,
+            bounds=[(0, None)] * m,
+            method="highs",
+        )
+        lowest = c_in[i] + res.fun if res.status == 0 else -math.inf
+        if lowest < -1e-9 * scale:
+            name = species[i]
+            raise ModelInputError(
+                f"order 0 in {name}, a reactant this feed can use up: a zero-order rate does not fall as {name} "
+                f"runs out, so its concentration would go negative; give {name} a positive order (e.g. 1) or feed "
+                f"it in excess of what the reactions can consume",
+                field=f"reactions[{j}].orders.{name}",
+            )

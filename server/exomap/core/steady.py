@@ -142,8 +142,12 @@ def check_point(tau: float, T_in: float) -> None:
 
 
 def roots_along(mf: Manifold, tau: float, T_in: float, T_lo: float, T_hi: float, n: int = POINT_SAMPLES) -> list[float]:
-    """Coordinates s of every root of T_in(tau, s) = T_in, for one tau."""
-    smp = mf.sample(np.array([tau]), T_lo, T_hi, n)
+    """Coordinates s of every root of T_in(tau, s) = T_in, for one tau. A fold pair closer together than one
+    sample (next to a cusp) is brought out first (``opmap.unhide_fold_pairs``, as the map does), so the three
+    states between its two folds are not reported as one."""
+    from exomap.core.opmap import unhide_fold_pairs
+
+    smp = unhide_fold_pairs(mf, mf.sample(np.array([tau]), T_lo, T_hi, n))
     return roots_in_samples(mf, tau, T_in, smp.s[0], smp.T_in[0] - T_in, smp.dTin_ds[0], smp.valid[0])
 
 
@@ -171,10 +175,10 @@ def roots_in_samples(
         if fb == 0.0:
             continue  # taken as the left end of the next interval (or the last sample below)
         if fa * fb < 0:
-            roots.append(brentq(phi, s[k], s[k + 1], xtol=1e-14 * max(abs(s[k]), 1e-300), rtol=1e-15, maxiter=200))
+            roots.append(brentq(phi, s[k], s[k + 1], xtol=1e-14 * max(abs(s[k]), 1.0), rtol=1e-15, maxiter=200))
         elif d[k] * d[k + 1] < 0:
             # an extremum between two samples: two roots may hide on its either side
-            se = brentq(dphi, s[k], s[k + 1], xtol=1e-15 * max(abs(s[k]), 1e-300), rtol=1e-15, maxiter=200)
+            se = brentq(dphi, s[k], s[k + 1], xtol=1e-15 * max(abs(s[k]), 1.0), rtol=1e-15, maxiter=200)
             fe = phi(se)
             if fe * fa < 0:
                 roots.append(brentq(phi, s[k], se, rtol=1e-15, maxiter=200))
@@ -246,7 +250,7 @@ def steady_states(
     for s_root in roots:
         smp = mf.evaluate(np.array([tau]), np.array([s_root]))
         T0 = float(smp.T[0])
-        C0 = mf.concentrations(smp.xi[0])
+        C0 = mf.state_C(smp)[0]
         C, T, res = _polish(model, u, C0, T0)
         y = model.pack(sc.vessel.h_set, C, T, 0.0)
         ev = np.linalg.eigvals(model.reactor_block(y, u))

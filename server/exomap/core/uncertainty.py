@@ -562,7 +562,7 @@ class StackedManifold:
         J = take(self.J)
         T_in = a * T - J * xi - take(self.b_col)
         dTin = a * dT_dxi - J
-        return Samples(tau, xi, T, xi[..., None], T_in, dTin, dT_dxi, valid)
+        return Samples(tau, xi, T, xi[..., None], T_in, dTin, dT_dxi, valid, None)
 
     def trace_det(self, tau: np.ndarray, T: np.ndarray, xi: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """As ``Manifold.trace_det`` (the 2x2 reduced Jacobian on the manifold), per column."""
@@ -577,7 +577,14 @@ class StackedManifold:
         Jb = take(self.J) * beta
         return alpha + Jb - (1.0 + a) / tau_r, (a - tau_r * (Jb + a * alpha)) / (tau_r * tau_r)
 
-    def stability(self, tau: np.ndarray, T: np.ndarray, xi: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    def state_C(self, e: Samples) -> None:
+        """The map machinery asks a manifold for its points' concentrations (``Manifold.state_C``); this one
+        works from the extent alone (its ``stability`` takes none)."""
+        return None
+
+    def stability(
+        self, tau: np.ndarray, T: np.ndarray, xi: np.ndarray, C: np.ndarray | None = None
+    ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         tr, det = self.trace_det(tau, T, xi)
         return (tr < 0) & (det > 0), tr, det > 0
 
@@ -641,8 +648,8 @@ class _SingleManifold:
 
     def s_at_T(self, idx: np.ndarray, T: float) -> np.ndarray:
         tau = self.tau[np.asarray(idx, np.int64)]
-        if self.mf.explicit:
-            return self.mf.explicit_xi_at_T(tau, np.full(tau.shape, T))
+        if self.mf.explicit:  # the coordinate of the one-reaction path is the log-odds of the conversion
+            return self.mf.explicit_w_at_T(tau, np.full(tau.shape, T))
         return np.full(tau.shape, T)
 
 
@@ -701,7 +708,7 @@ def column_regions(mf, T_in: np.ndarray, T_lo: float, T_hi: float, T_max: float,
     rc = col[pair]
     s_mid = 0.5 * (s[pair] + s[pair + 1])
     e = opmap._eval(core_mf, tau_arg[rc], s_mid, None)
-    stable, _, _ = core_mf.stability(e.tau, e.T, e.xi)
+    stable, _, _ = core_mf.stability(e.tau, e.T, e.xi, core_mf.state_C(e))
     hot = e.T > T_max
     lo = np.minimum(v[pair], v[pair + 1])
     hi = np.maximum(v[pair], v[pair + 1])

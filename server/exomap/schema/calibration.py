@@ -59,6 +59,20 @@ def calibrated_document(
         _set(out, t, float(v), reaction)
     if "uncertainty" in ScenarioDoc.model_fields:
         out["uncertainty"] = uncertainty_block(result)
+        from exomap.schema.errors import ScenarioError
+        from exomap.schema.parse import parse_scenario
+
+        try:
+            parse_scenario(out)
+        except ScenarioError as exc:
+            # a poorly determined fit can give an uncertainty the format refuses (a correlation of +-1, a normal
+            # spread above a fifth of a positive value): the fitted values are still written, without the block
+            del out["uncertainty"]
+            out["description"] = (
+                "The fit's uncertainty could not be written as an uncertainty block "
+                f"({exc.errors[0]['field']}: {exc.errors[0]['message']}); see the calibration's warnings. "
+                + str(out.get("description", ""))
+            )
     fitted = ", ".join(t.path for t in result.targets)
     note = f"Calibrated from scenario {source_id} on plant dataset {dataset_id} (fitted: {fitted})."
     out["description"] = (note + " " + str(out.get("description", ""))).strip()[:5000]
