@@ -41,6 +41,9 @@ from exomap.core.scenario import R_GAS, Scenario
 OUTPUT_SCALES = {"reactor_temperature": 1.0, "level": 0.01, "valve_opening": 0.01, "outlet_flow": 1.0 / 3600.0}
 #: Integrator tolerance of the replays inside a fit: tight, so the sum of squares is smooth in the parameters.
 REPLAY_RTOL = 1e-8
+#: Most model evaluations of one trial replay inside a fit: a trial far from the data (a parameter driven to an
+#: extreme by a flat profile) that stiffens the model is a bad fit, not a reason to integrate for minutes.
+TRIAL_EVALUATIONS = 20_000
 #: Relative finite-difference step: about the square root of the replay's relative noise.
 DIFF_STEP = 1e-4
 _TARGET_RE = re.compile(
@@ -270,9 +273,9 @@ def calibrate(
         return np.array([math.exp(x) if t.log else x for t, x in zip(parsed, p, strict=True)])
 
     def residuals(p: np.ndarray) -> np.ndarray:
-        trial = with_values(sc, parsed, natural(p), T_ref)
         try:
-            res = replay(trial, rec, rtol=REPLAY_RTOL)
+            trial = with_values(sc, parsed, natural(p), T_ref)
+            res = replay(trial, rec, rtol=REPLAY_RTOL, max_evaluations=TRIAL_EVALUATIONS)
         except (ModelInputError, ArithmeticError, ValueError, RuntimeError):
             # a trial the model cannot follow (no steady state, integrator failure) is a very bad fit, not a crash
             return np.full(sum(int(np.isfinite(rec.series[o]).sum()) for o in outputs), 1e6)

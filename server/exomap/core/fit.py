@@ -46,6 +46,9 @@ from exomap.core.errors import ConvergenceError, ModelInputError
 CORRELATION_WARNING = 0.99
 #: Profile search: largest distance from the estimate, in standard errors.
 PROFILE_MAX_SE = 50.0
+#: Most residual evaluations all the profiles of one fit may use, per parameter; past it the sides not yet
+#: found are reported open, with a warning (a profile that needs more is flat or the model is stiff there).
+PROFILE_EVALUATIONS = 150
 
 
 @dataclass(frozen=True)
@@ -232,9 +235,23 @@ def least_squares_fit(
     intervals: list[tuple[float | None, float | None]] = []
     if profile:
         threshold = ssr * (1.0 + stats.f.ppf(0.95, 1, dof) / dof)
+        budget = {"left": PROFILE_EVALUATIONS * p}
+
+        def budgeted(q: np.ndarray) -> np.ndarray:
+            budget["left"] -= 1
+            if budget["left"] < 0:
+                raise _OutOfBudget
+            return counted(q)
+
         for i in range(p):
-            lo_i, hi_i, used = _profile_interval(counted, est, se, i, threshold, (lo, hi), kw)
-            nfev += 0 * used
+            try:
+                lo_i, hi_i, _ = _profile_interval(budgeted, est, se, i, threshold, (lo, hi), kw)
+            except _OutOfBudget:
+                lo_i = hi_i = None
+                warnings.append(
+                    f"the profile of {names[i]} was not completed within {PROFILE_EVALUATIONS * p} evaluations: "
+                    "its interval is left open (the data hardly constrain it)"
+                )
             intervals.append((lo_i, hi_i))
             if lo_i is None or hi_i is None:
                 warnings.append(
@@ -261,6 +278,10 @@ def least_squares_fit(
         nfev=nfev,
         residuals=r,
     )
+
+
+class _OutOfBudget(Exception):
+    """The profiles used up their evaluations."""
 
 
 def _profile_interval(
@@ -298,7 +319,7 @@ def _profile_interval(
             start,
             method="trf" if sub_bounded else "lm",
             bounds=(lo[others], hi[others]),
-            **{**kw, "xtol": 1e-8, "ftol": 1e-10, "gtol": 1e-10, "max_nfev": 100},
+            **{**kw, "xtol": 1e-8, "ftol": 1e-10, "gtol": 1e-10, "max_nfev": 40},
         )
         warm["x"] = sol.x
         return float(sol.fun @ sol.fun)

@@ -217,7 +217,9 @@ def _flows(sc: Scenario, h: np.ndarray, x: np.ndarray) -> np.ndarray:
     return np.where((dp > 0) & (x > 0), q, 0.0)
 
 
-def replay(sc: Scenario, rec: PlantRecord, *, rtol: float = 1e-6) -> ReplayResult:
+def replay(
+    sc: Scenario, rec: PlantRecord, *, rtol: float = 1e-6, max_evaluations: int = MAX_RHS_EVALUATIONS
+) -> ReplayResult:
     """Drive the scenario with recorded inputs and compare with the recorded outputs.
 
     Parameters
@@ -227,6 +229,8 @@ def replay(sc: Scenario, rec: PlantRecord, *, rtol: float = 1e-6) -> ReplayResul
         At least two records; times increasing.
     rtol : float
         Relative tolerance of the integrator [-].
+    max_evaluations : int
+        Most model evaluations before the replay is abandoned with a ``ConvergenceError`` [-].
 
     Returns
     -------
@@ -272,8 +276,8 @@ def replay(sc: Scenario, rec: PlantRecord, *, rtol: float = 1e-6) -> ReplayResul
     def rhs(tt: float, y: np.ndarray) -> np.ndarray:
         nonlocal nfev
         nfev += 1
-        if nfev > MAX_RHS_EVALUATIONS:
-            raise ConvergenceError(f"the replay needed more than {MAX_RHS_EVALUATIONS} model evaluations")
+        if nfev > max_evaluations:
+            raise ConvergenceError(f"the replay needed more than {max_evaluations} model evaluations")
         return model.rhs(tt, y, inputs(tt))
 
     def jac(tt: float, y: np.ndarray) -> np.ndarray:
