@@ -62,6 +62,14 @@ def test_plant_panel_upload_overlay_replay_calibrate_and_save(
     # the header's units are prefilled; the time column is recognised by its name
     assert page.input_value("#plant-unit-1") == "m^3/h"
     assert page.input_value("#plant-role-0") == "time"
+    # a tag mapped badly is refused with the API's field message, and nothing is shown as read
+    page.select_option("#plant-role-1", "feed_flow")
+    page.select_option("#plant-role-2", "feed_flow")
+    page.click("#plant-upload")
+    page.wait_for_selector("#plant-error:not([hidden])", timeout=TIMEOUT)
+    assert "not loaded" in page.inner_text("#plant-error")
+    assert page.locator("#plant-fields li").count() >= 1
+    assert page.is_hidden("#plant-dataset")
     for i, tag in enumerate(["FI-101", "TI-101", "TI-201"], start=1):
         page.select_option(f"#plant-role-{i}", ROLES[tag])
     page.click("#plant-upload")

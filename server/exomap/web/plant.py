@@ -28,7 +28,10 @@ DatasetId = Annotated[str, Field(min_length=1, max_length=64, description="Id of
 class PlantRequest(BaseModel):
     """A scenario (inline or by id) and a stored dataset."""
 
-    model_config = ConfigDict(extra="forbid")
+    model_config = ConfigDict(
+        extra="forbid",
+        json_schema_extra={"examples": [{"scenario_id": "jacketed-first-order", "dataset_id": "0123456789abcdef"}]},
+    )
 
     scenario: dict[str, Any] | None = Field(default=None, description="A whole scenario document; or scenario_id.")
     scenario_id: str | None = Field(default=None, min_length=1, max_length=200, description="Stored id or demo name.")
