@@ -179,3 +179,15 @@ def test_stiff_stability_threshold():
     assert len(want) == 1 and want[0].stability == "unstable"
     got = [s for s in steady_states(sc, p["tau"], p["T_in"]).states if abs(s.T - p["T"]) < 1e-6]
     assert len(got) == 1 and got[0].stability == "unstable" and got[0].oscillatory
+
+
+@pytest.mark.xfail(strict=True, reason="finding branch-bracket-crash: branch(feed_temperature) raises ValueError")
+def test_branch_bracket_crash():
+    from exomap.core.branch import branch
+    from reference.solver import Column
+
+    sc, ref, p = load("branch-bracket-crash")
+    col = Column(ref, p["tau"], *ref.temperature_window(p["lo"], p["hi"], p["tau"]))
+    want = sorted(f.T_in for f in col.folds if p["lo"] < f.T_in < p["hi"])
+    got = branch(sc, "feed_temperature", tau=p["tau"], lo=p["lo"], hi=p["hi"])
+    assert sorted(t.T_in for t in got.turning_points) == pytest.approx(want, abs=1e-6)
