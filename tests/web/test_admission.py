@@ -128,7 +128,9 @@ def test_stored_scenario_is_parsed_off_the_event_loop_within_the_budget(make_cli
     """Defect 2: reading a stored scenario must neither block health nor escape the time budget."""
     from exomap.web.service import Service
 
-    client = make_client(request_time_budget_s=0.5)
+    # A budget of 3 s and a health allowance of 1 s: health stuck behind the parse would wait the whole budget
+    # (or the 10 s block), so the two are told apart with room for a loaded machine (0.25 s was flaky there).
+    client = make_client(request_time_budget_s=3.0)
     sid = client.post("/api/v1/scenarios", json=ADIABATIC).json()["id"]
     release = threading.Event()
     real = Service.resolve
@@ -144,9 +146,9 @@ def test_stored_scenario_is_parsed_off_the_event_loop_within_the_budget(make_cli
         for _ in range(5):
             h0 = time.monotonic()
             assert client.get("/api/v1/health").status_code == 200
-            assert time.monotonic() - h0 < 0.25, "health waited for the parse"
+            assert time.monotonic() - h0 < 1.0, "health waited for the parse"
         response = pending.result(timeout=10)
         elapsed = time.monotonic() - t0
         release.set()
     assert_error(response, 503, "time_budget_exceeded")
-    assert elapsed < 2.0, elapsed
+    assert elapsed < 5.0, elapsed
