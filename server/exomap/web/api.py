@@ -159,6 +159,19 @@ def _validated(model: type, data: dict[str, Any]) -> Any:
         ) from None
 
 
+def require_save_token(request: Request, settings: Settings) -> None:
+    """401 unless the request carries the server's save token (when one is set): every route that stores."""
+    if settings.save_token:
+        scheme, _, token = request.headers.get("authorization", "").partition(" ")
+        if scheme.lower() != "bearer" or not hmac.compare_digest(token.strip().encode(), settings.save_token.encode()):
+            raise ApiError(
+                401,
+                "unauthorized",
+                "saving needs the header 'Authorization: Bearer <token>'",
+                headers={"WWW-Authenticate": "Bearer"},
+            )
+
+
 def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
     """The ``/api/v1`` router. ``example_scenario`` is the OpenAPI example of a scenario body."""
     from exomap.schema.document import ScenarioDoc  # the answer model of GET /scenarios/{id}
@@ -268,18 +281,7 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
             ),
         ] = None,
     ) -> JSONResponse:
-        if settings.save_token:
-            auth = request.headers.get("authorization", "")
-            scheme, _, token = auth.partition(" ")
-            if scheme.lower() != "bearer" or not hmac.compare_digest(
-                token.strip().encode(), settings.save_token.encode()
-            ):
-                raise ApiError(
-                    401,
-                    "unauthorized",
-                    "saving needs the header 'Authorization: Bearer <token>'",
-                    headers={"WWW-Authenticate": "Bearer"},
-                )
+        require_save_token(request, settings)
         from exomap import schema
 
         if derived_from is not None:

@@ -10,7 +10,6 @@ in the worker pool like every computation (cached, merged when identical, within
 
 from __future__ import annotations
 
-import hmac
 import json
 from typing import Annotated, Any
 
@@ -88,16 +87,6 @@ def _pairs(text: str | None, field: str) -> dict[str, str]:
     return out
 
 
-def _check_token(request: Request, settings: Any) -> None:
-    if settings.save_token:
-        scheme, _, token = request.headers.get("authorization", "").partition(" ")
-        if scheme.lower() != "bearer" or not hmac.compare_digest(token.strip().encode(), settings.save_token.encode()):
-            raise ApiError(
-                401, "unauthorized", "saving needs the header 'Authorization: Bearer <token>'",
-                headers={"WWW-Authenticate": "Bearer"},
-            )  # fmt: skip
-
-
 def _datasets(request: Request) -> Any:
     from exomap.web.store import DatasetStore
 
@@ -128,7 +117,7 @@ def build_plant_router() -> APIRouter:
     """The plant-data routes of ``/api/v1``."""
     from exomap.web import plant_job
     from exomap.web.answers import CalibrationAnswer, DatasetAnswer, OverlayAnswer, ReplayAnswer
-    from exomap.web.api import _answer_response, answer_responses, get_service
+    from exomap.web.api import _answer_response, answer_responses, get_service, require_save_token
     from exomap.web.query import refuse_unknown_query
 
     router = APIRouter(prefix="/api/v1", dependencies=[Depends(refuse_unknown_query)])
@@ -165,7 +154,7 @@ def build_plant_router() -> APIRouter:
         from exomap.schema.plantdata import read_plant_csv
 
         settings = request.app.state.settings
-        _check_token(request, settings)
+        require_save_token(request, settings)
         mapping, units = _pairs(map, "map"), _pairs(unit, "unit")
         body = await request.body()
 
