@@ -161,10 +161,14 @@ class Manifold:
         return self.c_in + xi @ self.nu.T
 
     def rates(self, C: np.ndarray, T: np.ndarray) -> np.ndarray:
-        """r (..., m) at C (..., n) and T (...), from logarithms; only species with a non-zero order enter."""
+        """r (..., m) at C (..., n) and T (...), from logarithms; only species with a non-zero order enter. A
+        reaction that cannot run with this feed (``live``) has r = 0 and no derivative: its reactant is absent
+        and stays absent, so there is no rate to perturb (not r/C = 0/0 taken at a floor of 1e-300)."""
         logC = np.log(np.maximum(C, 1e-300))
-        r = np.empty(np.shape(T) + (self.m,))
+        r = np.zeros(np.shape(T) + (self.m,))
         for j in range(self.m):
+            if not self.live[j]:  # needs a species that is neither fed nor made: never runs
+                continue
             lr = np.log(self.k0[j]) - self.E[j] / T
             for i in self._orders_nz[j]:
                 lr = lr + self.orders[j, i] * logC[..., i]
@@ -181,6 +185,8 @@ class Manifold:
         Rn = np.zeros(np.shape(T) + (self.m, self.m))
         with np.errstate(divide="ignore", invalid="ignore"):
             for j in range(self.m):
+                if not self.live[j]:
+                    continue
                 for i in self._orders_nz[j]:
                     g = r[..., j] * (self.orders[j, i] / np.maximum(C[..., i], 1e-300))
                     for k in range(self.m):

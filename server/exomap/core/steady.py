@@ -10,14 +10,20 @@ from the eigenvalues of the species+energy Jacobian at fixed volume.
 
 Stability (DESIGN.md §2): ``stable`` when every eigenvalue has a negative real part; ``saddle`` when exactly
 one is real and positive (the middle state of a multiplicity); ``unstable`` otherwise. ``oscillatory`` flags
-a leading complex pair. The level block is decoupled at constant density (A dh/dt = q_in - q_out(h) with
-dq_out/dh > 0) and always stable, so it is left out.
+a leading complex pair. Each real part counts by its sign, judged against that eigenvalue's own rounding
+error (balanced matrix, condition number from its left and right eigenvectors [3]; the slow eigenvalues from
+the Schur complement of the fast variables where a fast reaction makes the matrix stiff); where a real part is
+within its error of zero and its sign would change the class, the answer says so and is not a success. The
+level block is decoupled at constant density (A dh/dt = q_in - q_out(h) with dq_out/dh > 0) and always
+stable, so it is left out.
 
 References
 ----------
 [1] C. van Heerden, Autothermic processes, Ind. Eng. Chem. 45 (1953) 1242-1247.
 [2] A. Uppal, W. H. Ray, A. B. Poore, On the dynamic behavior of continuous stirred tank reactors,
     Chem. Eng. Sci. 29 (1974) 967-985.
+[3] E. Anderson et al., LAPACK Users' Guide, 3rd ed., SIAM (1999), section 4.8 "Error Bounds for the
+    Nonsymmetric Eigenproblem" (error of eigenvalue i ~ eps ||A|| / s_i, s_i its reciprocal condition number).
 """
 
 from __future__ import annotations
@@ -26,6 +32,7 @@ import math
 from dataclasses import dataclass, field
 
 import numpy as np
+from scipy.linalg import eig, matrix_balance
 from scipy.optimize import brentq
 
 from exomap.core import valve as valve_mod
@@ -114,20 +121,127 @@ def _finite_or_none(x: float) -> float | None:
     return float(x) if x is not None and math.isfinite(x) else None
 
 
-def classify(eigenvalues: np.ndarray) -> tuple[str, bool]:
-    """Stability class and oscillatory flag from eigenvalues (DESIGN.md §2)."""
-    ev = np.asarray(eigenvalues)
+def _eig_errors(J: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Eigenvalues of the balanced matrix and the first-order bound eps ||B||_F / s_i of each one's error [3]."""
+    B, _ = matrix_balance(J, permute=True, scale=True)
+    w, vl, vr = eig(B, left=True, right=True)
+    s = np.abs(np.sum(np.conj(vl) * vr, axis=0)) / (np.linalg.norm(vl, axis=0) * np.linalg.norm(vr, axis=0))
+    return w, np.finfo(float).eps * np.linalg.norm(B) / np.maximum(s, 1e-300)
+
+
+#: A diagonal entry this many times the slow rate marks a fast variable (a reactant a fast reaction keeps near
+#: zero); the slow eigenvalues are then taken from the Schur complement, not from the whole stiff matrix.
+FAST = 1e6
+
+
+def eigenvalues_with_errors(J: np.ndarray, slow_rate: float | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """Eigenvalues of a real square matrix and an estimate of each one's error [same unit].
+
+    The matrix is balanced (a diagonal similarity, LAPACK ``gebal``); the error of eigenvalue i is the
+    first-order bound for a backward-stable eigensolver, eps ||B||_F / s_i, s_i = |y_i^H x_i| / (||x_i|| ||y_i||)
+    its reciprocal condition number from the left and right eigenvectors [3].
+
+    A fast reaction makes some diagonal entries (the variables it keeps near zero) many orders of magnitude
+    larger than the slow rate ``slow_rate`` (1/tau): the bound on the whole matrix then swamps the slow
+    eigenvalues, which decide stability. With ``slow_rate`` given, those fast variables F are split off: the
+    fast eigenvalues are those of J_FF, the slow ones those of the Schur complement
+    S(lambda) = J_SS - J_SF (J_FF - lambda I)^-1 J_FS (exact: lambda is an eigenvalue of J exactly when it is one
+    of S(lambda); iterated from lambda = 0 to a fixed point). The error of S's entries (rounding of the product
+    and of its cancellation against J_SS, to first order) is added to each slow eigenvalue's error through its
+    condition number. A matrix with a non-finite entry gives infinite errors.
+    """
+    J = np.asarray(J, dtype=float)
+    n = J.shape[0]
+    if n == 0:
+        return np.zeros(0, complex), np.zeros(0)
+    if not np.all(np.isfinite(J)):
+        return np.full(n, np.nan + 0j), np.full(n, np.inf)
+    w, err = _eig_errors(J)
+    if slow_rate is None or np.all(np.abs(w.real) > err):
+        return w, err
+    fast = np.abs(np.diag(J)) > FAST * slow_rate
+    if not fast.any() or fast.all():
+        return w, err
+    F, S = np.nonzero(fast)[0], np.nonzero(~fast)[0]
+    A, Bm, Cm, D = J[np.ix_(F, F)], J[np.ix_(F, S)], J[np.ix_(S, F)], J[np.ix_(S, S)]
+    wf, ef = _eig_errors(A)
+    if np.min(np.abs(wf)) <= FAST * slow_rate:  # the split block is not all fast: no clean separation
+        return w, err
+    eps = np.finfo(float).eps
+    try:
+        X = np.linalg.solve(A, Bm)
+    except np.linalg.LinAlgError:
+        return w, err
+    S0 = D - Cm @ X
+    # rounding of S's entries: of D, of the product and of the solve (relative to the fast block's conditioning)
+    dS = eps * (np.abs(D) + np.abs(Cm) @ np.abs(X) * (1.0 + np.linalg.cond(A)))
+    ws, es = _eig_errors(S0)
+    es = es * (1.0 + np.linalg.norm(dS) / max(eps * np.linalg.norm(S0), 1e-300))
+    # each eigenvalue of J is a fixed point lambda = eig(K(lambda)) of its block's complement taken at lambda
+    # (the slow ones: K = J_SS - J_SF (J_FF - lambda)^-1 J_FS; the fast ones: K = J_FF - J_FS (J_SS - lambda)^-1
+    # J_SF), iterated from the block's own eigenvalues; a fixed point not reached adds the change to the error
+    wf, ef = _settle(wf, ef, A, Bm, Cm, D)
+    ws, es = _settle(ws, es, D, Cm, Bm, A)
+    return np.concatenate((wf, ws)), np.concatenate((ef, es))
+
+
+def _settle(
+    w: np.ndarray, err: np.ndarray, P: np.ndarray, Q: np.ndarray, R: np.ndarray, O: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """Fixed points lambda = eig(P - Q (O - lambda I)^-1 R) near each of ``w`` (see :func:`eigenvalues_with_errors`)."""
+    eps = np.finfo(float).eps
+    out, err = w.astype(complex), err.copy()
+    eye = np.eye(O.shape[0])
+    for i, lam0 in enumerate(w):
+        lam = complex(lam0)
+        for _ in range(8):
+            try:
+                K = P - Q @ np.linalg.solve(O - lam * eye, R)
+            except np.linalg.LinAlgError:
+                err[i] = np.inf
+                break
+            cand = np.linalg.eigvals(K)
+            new = complex(cand[np.argmin(np.abs(cand - lam))])
+            done = abs(new - lam) <= max(err[i], 4 * eps * abs(new))
+            lam = new
+            if done:
+                break
+        else:
+            err[i] += abs(lam - lam0)
+        out[i] = lam
+    return out, err
+
+
+def _kind(positive: np.ndarray, real: np.ndarray) -> str:
+    if not positive.any():
+        return STABLE
+    if positive.sum() == 1 and bool(real[positive][0]):
+        return SADDLE
+    return UNSTABLE
+
+
+def classify(eigenvalues: np.ndarray, errors: np.ndarray | None = None) -> tuple[str, bool, bool]:
+    """Stability class, oscillatory flag and whether the class is resolved, from eigenvalues (DESIGN.md §2).
+
+    A real part counts by its sign alone (no threshold tied to the largest eigenvalue: a fast reaction must
+    not make a slowly growing oscillation look stable). With ``errors`` (each eigenvalue's rounding error,
+    :func:`eigenvalues_with_errors`) a real part within its error of zero has no known sign: the class is
+    ``resolved`` only when it comes out the same whichever sign such real parts take. An imaginary part within
+    its error of zero counts as real.
+    """
+    ev = np.asarray(eigenvalues, dtype=complex)
+    err = np.zeros(ev.shape) if errors is None else np.asarray(errors, dtype=float)
+    if ev.size == 0:
+        return STABLE, False, True
+    if not np.all(np.isfinite(ev)):
+        return UNSTABLE, False, False
     re = ev.real
-    scale = max(float(np.max(np.abs(ev))), 1e-300)
-    pos = re > 1e-10 * scale
-    if not pos.any():
-        kind = STABLE
-    elif pos.sum() == 1 and abs(ev[np.argmax(re)].imag) <= 1e-10 * scale:
-        kind = SADDLE
-    else:
-        kind = UNSTABLE
-    lead = ev[np.argmax(re)]
-    return kind, bool(abs(lead.imag) > 1e-10 * scale)
+    real = np.abs(ev.imag) <= err
+    kind = _kind(re > 0, real)
+    sure_pos, unsure = re > err, np.abs(re) <= err
+    resolved = _kind(sure_pos, real) == _kind(sure_pos | unsure, real) == kind
+    k = int(np.argmax(re))
+    return kind, bool(abs(ev[k].imag) > err[k]), bool(resolved)
 
 
 def check_point(tau: float, T_in: float) -> None:
@@ -247,15 +361,19 @@ def steady_states(
     u = nominal_inputs(sc, tau=tau, T_in=T_in, c_in=tuple(mf.c_in), T_c=mf.T_c)
     opening = valve_mod.opening_for_flow(sc, q)
     states = []
+    unresolved: list[float] = []  # temperatures of the states whose stability the rounding hides
     for s_root in roots:
         smp = mf.evaluate(np.array([tau]), np.array([s_root]))
         T0 = float(smp.T[0])
         C0 = mf.state_C(smp)[0]
         C, T, res = _polish(model, u, C0, T0)
         y = model.pack(sc.vessel.h_set, C, T, 0.0)
-        ev = np.linalg.eigvals(model.reactor_block(y, u))
-        ev = ev[np.argsort(-ev.real)]
-        kind, osc = classify(ev)
+        ev, err = eigenvalues_with_errors(model.reactor_block(y, u), slow_rate=1.0 / tau)
+        order = np.argsort(-ev.real)
+        ev, err = ev[order], err[order]
+        kind, osc, resolved = classify(ev, err)
+        if not resolved:
+            unresolved.append(T)
         dT = float(smp.dT_ds[0])
         dTin = float(smp.dTin_ds[0])
         sens = dT / dTin if dTin != 0 else math.inf
@@ -274,14 +392,23 @@ def steady_states(
             )
         )
     states.sort(key=lambda st: st.T)
-    ok = bool(states) and all(st.residual < 1e-8 for st in states)
-    msg = (
-        f"{len(states)} steady state(s)"
-        if ok
-        else "no steady state converged"
-        if not states
-        else ("a steady state did not polish to tolerance")
-    )
+    converged = bool(states) and all(st.residual < 1e-8 for st in states)
+    ok = converged and not unresolved
+    if ok:
+        msg = f"{len(states)} steady state(s)"
+    elif not states:
+        msg = "no steady state converged"
+    elif not converged:
+        msg = "a steady state did not polish to tolerance"
+    else:
+        msg = (
+            "the stability of the state(s) at "
+            + ", ".join(f"{t:.6g} K" for t in sorted(unresolved))
+            + (
+                " cannot be resolved: an eigenvalue's real part is within its rounding error of zero (a fast reaction"
+                " next to slow dynamics, or a point on a stability boundary)"
+            )
+        )
     return SteadyStateResult(
         tau=tau,
         T_in=T_in,
