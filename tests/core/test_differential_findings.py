@@ -183,16 +183,74 @@ def test_stiff_stability_threshold():
     assert len(got) == 1 and got[0].stability == "unstable" and got[0].oscillatory
 
 
-@pytest.mark.xfail(strict=True, reason="finding branch-bracket-crash: branch(feed_temperature) raises ValueError")
-def test_branch_bracket_crash():
+
+@pytest.mark.parametrize("name", ["branch-bracket-crash", "branch-bracket-crash-b"])
+def test_branch_bracket_crash(name):
+    # finding branch-bracket-crash: a fast second reaction (eigenvalues to -3.5e30 1/s beside -1e-4 1/s) made the
+    # leading real part of the whole reduced Jacobian rounding noise (+1618 1/s next to -0.003 1/s), its sign
+    # flipped between the vectorised samples and the point-by-point refinement, and Brent's method raised
     from exomap.core.branch import branch
     from reference.solver import Column
 
-    sc, ref, p = load("branch-bracket-crash")
+    sc, ref, p = load(name)
     col = Column(ref, p["tau"], *ref.temperature_window(p["lo"], p["hi"], p["tau"]))
     want = sorted(f.T_in for f in col.folds if p["lo"] < f.T_in < p["hi"])
     got = branch(sc, "feed_temperature", tau=p["tau"], lo=p["lo"], hi=p["hi"])
     assert sorted(t.T_in for t in got.turning_points) == pytest.approx(want, abs=1e-6)
+    assert got.success, got.message
+
+
+def test_branch_with_a_gap_is_not_success(monkeypatch):
+    # a branch whose samples did not all converge, or whose traced piece stopped inside the range, is not
+    # complete: success false, and the message says why (issue 9: never success on an incomplete answer)
+    import exomap.core.branch as branch_mod
+    from exomap.core.manifold import Manifold
+
+    sc, _, p = load("branch-bracket-crash-b")
+    real_sample = Manifold.sample
+
+    def holed(self, tau, T_lo, T_hi, N):
+        smp = real_sample(self, tau, T_lo, T_hi, N)
+        smp.valid[..., N // 2] = False
+        return smp
+
+    with monkeypatch.context() as mp:
+        mp.setattr(Manifold, "sample", holed)
+        got = branch_mod.branch(sc, "feed_temperature", tau=p["tau"], lo=p["lo"], hi=p["hi"])
+    assert got.points and not got.success and "did not converge" in got.message
+
+    real_correct = branch_mod._Plane.correct
+    calls = {"n": 0}
+
+    def failing(self, X, Y):
+        calls["n"] += 1
+        X, Y, ok = real_correct(self, X, Y)
+        return X, Y, ok and calls["n"] < 40
+
+    with monkeypatch.context() as mp:
+        mp.setattr(branch_mod._Plane, "correct", failing)
+        got = branch_mod.branch(sc, "residence_time", T_in=345.0, lo=p["tau"] / 3, hi=p["tau"] * 3)
+    assert got.points and not got.success and "stopped inside the range" in got.message
+    # and without the failure the same branch is complete
+    assert branch_mod.branch(sc, "residence_time", T_in=345.0, lo=p["tau"] / 3, hi=p["tau"] * 3).success
+
+
+def test_steady_states_with_a_gap_is_not_success(monkeypatch):
+    # the same for the steady states at a point: an unconverged sample may hide a state
+    from exomap.core.manifold import Manifold
+
+    sc, _, p = load("bracket-crash-series")
+    assert steady_states(sc, p["tau"], p["T_in"]).success
+    real_sample = Manifold.sample
+
+    def holed(self, tau, T_lo, T_hi, N):
+        smp = real_sample(self, tau, T_lo, T_hi, N)
+        smp.valid[..., N // 2] = False
+        return smp
+
+    monkeypatch.setattr(Manifold, "sample", holed)
+    got = steady_states(sc, p["tau"], p["T_in"])
+    assert not got.success and "did not converge" in got.message
 
 
 @pytest.mark.parametrize("name", ["map-nan-state", "map-nan-state-b"])

@@ -16,7 +16,8 @@ import mpmath
 import numpy as np
 import pytest
 from exomap.core.model import Model, nominal_inputs
-from exomap.core.steady import classify, eigenvalues_with_errors, steady_states
+from exomap.core.eigen import classify, eigenvalues_with_errors
+from exomap.core.steady import steady_states
 from exomap.schema import parse_scenario
 
 FINDINGS = Path(__file__).resolve().parents[1] / "reference" / "findings"
@@ -93,3 +94,31 @@ def test_unresolved_state_is_not_success(monkeypatch):
     monkeypatch.setattr(steady_mod, "eigenvalues_with_errors", blurred)
     res = steady_states(sc, p["tau"], p["T_in"])
     assert res.states and not res.success and "cannot be resolved" in res.message
+
+
+def test_batched_stiff_eigenvalues_against_60_digits():
+    # the map's and branches' vectorised path, on the reduced Jacobians (coordinates xi, theta = T - J . xi) of
+    # the feed-temperature branch of finding branch-bracket-crash: a second reaction 1e24..1e31 times faster
+    # than the residence time. The whole-matrix eigenvalues there put the leading one at +1618 1/s (rounding);
+    # 60 digits give -9.08e-5 1/s.
+    from exomap.core.eigen import eigenvalues_with_errors_batched
+    from exomap.core.manifold import Manifold
+
+    rec = json.loads((FINDINGS / "branch-bracket-crash.json").read_text(encoding="utf-8"))
+    sc, p = parse_scenario(rec["scenario"]).to_core(), rec["point"]
+    mf = Manifold(sc)
+    tau = p["tau"]
+    T = np.array([342.69, 477.28, 520.62, 565.72, 599.93, 613.80])
+    e = mf.general_eval(np.full(T.shape, tau), T)
+    Jt = mf.theta_jacobians(np.full(T.shape, tau), T, e.C)
+    ev, err = eigenvalues_with_errors_batched(Jt, np.full(T.shape, 1.0 / tau))
+    for k in range(T.size):
+        exact = _exact_eigenvalues(Jt[k])
+        for w in exact:
+            i = int(np.argmin(np.abs(ev[k] - w)))
+            assert abs(ev[k, i] - w) <= err[k, i] + 1e-12 * abs(w)
+            if abs(w) * tau < 1e3:  # a slow eigenvalue: its sign is resolved
+                assert abs(w.real) > err[k, i]
+        # the first-order complement (no fixed-point iteration here) is within its error bound above; at these
+        # points that is 2e-8 relative
+        assert np.max(ev[k].real) == pytest.approx(np.max(exact.real), rel=1e-6)

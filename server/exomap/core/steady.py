@@ -22,8 +22,7 @@ References
 [1] C. van Heerden, Autothermic processes, Ind. Eng. Chem. 45 (1953) 1242-1247.
 [2] A. Uppal, W. H. Ray, A. B. Poore, On the dynamic behavior of continuous stirred tank reactors,
     Chem. Eng. Sci. 29 (1974) 967-985.
-[3] E. Anderson et al., LAPACK Users' Guide, 3rd ed., SIAM (1999), section 4.8 "Error Bounds for the
-    Nonsymmetric Eigenproblem" (error of eigenvalue i ~ eps ||A|| / s_i, s_i its reciprocal condition number).
+[3] ``exomap.core.eigen`` (eigenvalues with their rounding errors; LAPACK Users' Guide section 4.8).
 """
 
 from __future__ import annotations
@@ -32,16 +31,16 @@ import math
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy.linalg import eig, matrix_balance
 from scipy.optimize import brentq
 
 from exomap.core import valve as valve_mod
+from exomap.core.eigen import SADDLE, STABLE, UNSTABLE, classify, eigenvalues_with_errors
 from exomap.core.errors import ModelInputError
 from exomap.core.manifold import Manifold
 from exomap.core.model import Model, nominal_inputs
 from exomap.core.scenario import Scenario, validate
 
-STABLE, SADDLE, UNSTABLE = "stable", "saddle", "unstable"
+__all__ = ["SADDLE", "STABLE", "UNSTABLE", "SteadyState", "SteadyStateResult", "classify", "steady_states"]
 #: Samples along the manifold coordinate for a single operating point (one-reaction closed form, general
 #: path where each sample costs an isothermal Newton solve).
 POINT_SAMPLES = 3000
@@ -121,129 +120,6 @@ def _finite_or_none(x: float) -> float | None:
     return float(x) if x is not None and math.isfinite(x) else None
 
 
-def _eig_errors(J: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Eigenvalues of the balanced matrix and the first-order bound eps ||B||_F / s_i of each one's error [3]."""
-    B, _ = matrix_balance(J, permute=True, scale=True)
-    w, vl, vr = eig(B, left=True, right=True)
-    s = np.abs(np.sum(np.conj(vl) * vr, axis=0)) / (np.linalg.norm(vl, axis=0) * np.linalg.norm(vr, axis=0))
-    return w, np.finfo(float).eps * np.linalg.norm(B) / np.maximum(s, 1e-300)
-
-
-#: A diagonal entry this many times the slow rate marks a fast variable (a reactant a fast reaction keeps near
-#: zero); the slow eigenvalues are then taken from the Schur complement, not from the whole stiff matrix.
-FAST = 1e6
-
-
-def eigenvalues_with_errors(J: np.ndarray, slow_rate: float | None = None) -> tuple[np.ndarray, np.ndarray]:
-    """Eigenvalues of a real square matrix and an estimate of each one's error [same unit].
-
-    The matrix is balanced (a diagonal similarity, LAPACK ``gebal``); the error of eigenvalue i is the
-    first-order bound for a backward-stable eigensolver, eps ||B||_F / s_i, s_i = |y_i^H x_i| / (||x_i|| ||y_i||)
-    its reciprocal condition number from the left and right eigenvectors [3].
-
-    A fast reaction makes some diagonal entries (the variables it keeps near zero) many orders of magnitude
-    larger than the slow rate ``slow_rate`` (1/tau): the bound on the whole matrix then swamps the slow
-    eigenvalues, which decide stability. With ``slow_rate`` given, those fast variables F are split off: the
-    fast eigenvalues are those of J_FF, the slow ones those of the Schur complement
-    S(lambda) = J_SS - J_SF (J_FF - lambda I)^-1 J_FS (exact: lambda is an eigenvalue of J exactly when it is one
-    of S(lambda); iterated from lambda = 0 to a fixed point). The error of S's entries (rounding of the product
-    and of its cancellation against J_SS, to first order) is added to each slow eigenvalue's error through its
-    condition number. A matrix with a non-finite entry gives infinite errors.
-    """
-    J = np.asarray(J, dtype=float)
-    n = J.shape[0]
-    if n == 0:
-        return np.zeros(0, complex), np.zeros(0)
-    if not np.all(np.isfinite(J)):
-        return np.full(n, np.nan + 0j), np.full(n, np.inf)
-    w, err = _eig_errors(J)
-    if slow_rate is None or np.all(np.abs(w.real) > err):
-        return w, err
-    fast = np.abs(np.diag(J)) > FAST * slow_rate
-    if not fast.any() or fast.all():
-        return w, err
-    F, S = np.nonzero(fast)[0], np.nonzero(~fast)[0]
-    A, Bm, Cm, D = J[np.ix_(F, F)], J[np.ix_(F, S)], J[np.ix_(S, F)], J[np.ix_(S, S)]
-    wf, ef = _eig_errors(A)
-    if np.min(np.abs(wf)) <= FAST * slow_rate:  # the split block is not all fast: no clean separation
-        return w, err
-    eps = np.finfo(float).eps
-    try:
-        X = np.linalg.solve(A, Bm)
-    except np.linalg.LinAlgError:
-        return w, err
-    S0 = D - Cm @ X
-    # rounding of S's entries: of D, of the product and of the solve (relative to the fast block's conditioning)
-    dS = eps * (np.abs(D) + np.abs(Cm) @ np.abs(X) * (1.0 + np.linalg.cond(A)))
-    ws, es = _eig_errors(S0)
-    es = es * (1.0 + np.linalg.norm(dS) / max(eps * np.linalg.norm(S0), 1e-300))
-    # each eigenvalue of J is a fixed point lambda = eig(K(lambda)) of its block's complement taken at lambda
-    # (the slow ones: K = J_SS - J_SF (J_FF - lambda)^-1 J_FS; the fast ones: K = J_FF - J_FS (J_SS - lambda)^-1
-    # J_SF), iterated from the block's own eigenvalues; a fixed point not reached adds the change to the error
-    wf, ef = _settle(wf, ef, A, Bm, Cm, D)
-    ws, es = _settle(ws, es, D, Cm, Bm, A)
-    return np.concatenate((wf, ws)), np.concatenate((ef, es))
-
-
-def _settle(
-    w: np.ndarray, err: np.ndarray, P: np.ndarray, Q: np.ndarray, R: np.ndarray, O: np.ndarray
-) -> tuple[np.ndarray, np.ndarray]:
-    """Fixed points lambda = eig(P - Q (O - lambda I)^-1 R) near each of ``w`` (see :func:`eigenvalues_with_errors`)."""
-    eps = np.finfo(float).eps
-    out, err = w.astype(complex), err.copy()
-    eye = np.eye(O.shape[0])
-    for i, lam0 in enumerate(w):
-        lam = complex(lam0)
-        for _ in range(8):
-            try:
-                K = P - Q @ np.linalg.solve(O - lam * eye, R)
-            except np.linalg.LinAlgError:
-                err[i] = np.inf
-                break
-            cand = np.linalg.eigvals(K)
-            new = complex(cand[np.argmin(np.abs(cand - lam))])
-            done = abs(new - lam) <= max(err[i], 4 * eps * abs(new))
-            lam = new
-            if done:
-                break
-        else:
-            err[i] += abs(lam - lam0)
-        out[i] = lam
-    return out, err
-
-
-def _kind(positive: np.ndarray, real: np.ndarray) -> str:
-    if not positive.any():
-        return STABLE
-    if positive.sum() == 1 and bool(real[positive][0]):
-        return SADDLE
-    return UNSTABLE
-
-
-def classify(eigenvalues: np.ndarray, errors: np.ndarray | None = None) -> tuple[str, bool, bool]:
-    """Stability class, oscillatory flag and whether the class is resolved, from eigenvalues (DESIGN.md §2).
-
-    A real part counts by its sign alone (no threshold tied to the largest eigenvalue: a fast reaction must
-    not make a slowly growing oscillation look stable). With ``errors`` (each eigenvalue's rounding error,
-    :func:`eigenvalues_with_errors`) a real part within its error of zero has no known sign: the class is
-    ``resolved`` only when it comes out the same whichever sign such real parts take. An imaginary part within
-    its error of zero counts as real.
-    """
-    ev = np.asarray(eigenvalues, dtype=complex)
-    err = np.zeros(ev.shape) if errors is None else np.asarray(errors, dtype=float)
-    if ev.size == 0:
-        return STABLE, False, True
-    if not np.all(np.isfinite(ev)):
-        return UNSTABLE, False, False
-    re = ev.real
-    real = np.abs(ev.imag) <= err
-    kind = _kind(re > 0, real)
-    sure_pos, unsure = re > err, np.abs(re) <= err
-    resolved = _kind(sure_pos, real) == _kind(sure_pos | unsure, real) == kind
-    k = int(np.argmax(re))
-    return kind, bool(abs(ev[k].imag) > err[k]), bool(resolved)
-
-
 def check_point(tau: float, T_in: float) -> None:
     if not (isinstance(tau, (int, float)) and math.isfinite(tau) and tau > 0):
         raise ModelInputError(
@@ -255,21 +131,58 @@ def check_point(tau: float, T_in: float) -> None:
         )
 
 
-def roots_along(mf: Manifold, tau: float, T_in: float, T_lo: float, T_hi: float, n: int = POINT_SAMPLES) -> list[float]:
+def roots_along(
+    mf: Manifold,
+    tau: float,
+    T_in: float,
+    T_lo: float,
+    T_hi: float,
+    n: int = POINT_SAMPLES,
+    misses: list[str] | None = None,
+) -> list[float]:
     """Coordinates s of every root of T_in(tau, s) = T_in, for one tau. A fold pair closer together than one
     sample (next to a cusp) is brought out first (``opmap.unhide_fold_pairs``, as the map does), so the three
-    states between its two folds are not reported as one."""
+    states between its two folds are not reported as one. What may hide a root (samples whose mass balances
+    did not converge, a bracket that did not hold) is appended to ``misses``."""
     from exomap.core.opmap import unhide_fold_pairs
 
     smp = unhide_fold_pairs(mf, mf.sample(np.array([tau]), T_lo, T_hi, n))
-    return roots_in_samples(mf, tau, T_in, smp.s[0], smp.T_in[0] - T_in, smp.dTin_ds[0], smp.valid[0])
+    if misses is not None and not np.all(smp.valid[0]):
+        misses.append(f"{int(np.count_nonzero(~smp.valid[0]))} sample(s) whose mass balances did not converge")
+    return roots_in_samples(mf, tau, T_in, smp.s[0], smp.T_in[0] - T_in, smp.dTin_ds[0], smp.valid[0], misses)
+
+
+def bracketed_root(fn, a: float, b: float, **kwargs: float) -> float | None:
+    """Brent's method on [a, b] only where ``fn`` itself changes sign there (the samples that pointed to the
+    interval may come from a different evaluation); None where it does not, or does not converge."""
+    fa, fb = fn(a), fn(b)
+    if not (math.isfinite(fa) and math.isfinite(fb)):
+        return None
+    if fa == 0.0:
+        return a
+    if fb == 0.0:
+        return b
+    if fa * fb > 0:
+        return None
+    try:
+        return float(brentq(fn, a, b, maxiter=200, **kwargs))
+    except (RuntimeError, ValueError):
+        return None
 
 
 def roots_in_samples(
-    mf: Manifold, tau: float, T_in: float, s: np.ndarray, f: np.ndarray, d: np.ndarray, valid: np.ndarray
+    mf: Manifold,
+    tau: float,
+    T_in: float,
+    s: np.ndarray,
+    f: np.ndarray,
+    d: np.ndarray,
+    valid: np.ndarray,
+    misses: list[str] | None = None,
 ) -> list[float]:
     """Roots of f = T_in(tau, s) - T_in from samples (s, f, d = dT_in/ds) of one column, refined by Brent's
-    method; two roots on either side of an extremum between two samples are found too."""
+    method; two roots on either side of an extremum between two samples are found too. An interval whose
+    sign change does not hold when refined is appended to ``misses`` (never an exception)."""
     ok = valid & np.isfinite(f)
 
     def phi(x: float) -> float:
@@ -277,6 +190,10 @@ def roots_in_samples(
 
     def dphi(x: float) -> float:
         return float(mf.evaluate(np.array([tau]), np.array([x])).dTin_ds[0])
+
+    def miss(k: int) -> None:
+        if misses is not None:
+            misses.append(f"a root between s = {s[k]:.9g} and {s[k + 1]:.9g} could not be refined")
 
     roots: list[float] = []
     # only the sample intervals with a sign change of f or of its slope need a closer look
@@ -289,14 +206,24 @@ def roots_in_samples(
         if fb == 0.0:
             continue  # taken as the left end of the next interval (or the last sample below)
         if fa * fb < 0:
-            roots.append(brentq(phi, s[k], s[k + 1], xtol=1e-14 * max(abs(s[k]), 1.0), rtol=1e-15, maxiter=200))
+            r = bracketed_root(phi, s[k], s[k + 1], xtol=1e-14 * max(abs(s[k]), 1.0), rtol=1e-15)
+            if r is None:
+                miss(k)
+            else:
+                roots.append(r)
         elif d[k] * d[k + 1] < 0:
             # an extremum between two samples: two roots may hide on its either side
-            se = brentq(dphi, s[k], s[k + 1], xtol=1e-15 * max(abs(s[k]), 1.0), rtol=1e-15, maxiter=200)
+            se = bracketed_root(dphi, s[k], s[k + 1], xtol=1e-15 * max(abs(s[k]), 1.0), rtol=1e-15)
+            if se is None:
+                miss(k)
+                continue
             fe = phi(se)
             if fe * fa < 0:
-                roots.append(brentq(phi, s[k], se, rtol=1e-15, maxiter=200))
-                roots.append(brentq(phi, se, s[k + 1], rtol=1e-15, maxiter=200))
+                r1 = bracketed_root(phi, s[k], se, rtol=1e-15)
+                r2 = bracketed_root(phi, se, s[k + 1], rtol=1e-15)
+                if r1 is None or r2 is None:
+                    miss(k)
+                roots += [r for r in (r1, r2) if r is not None]
             elif fe == 0.0:
                 roots.append(se)
     if ok[-1] and f[-1] == 0.0:
@@ -355,7 +282,8 @@ def steady_states(
     mf = Manifold(sc, c_in=c_in, T_c=T_c)
     T_lo, T_hi = mf.temperature_window(T_in, T_in, tau)
     samples = samples or (POINT_SAMPLES if mf.explicit else POINT_SAMPLES_GENERAL)
-    roots = roots_along(mf, tau, T_in, T_lo, T_hi, samples)
+    misses: list[str] = []
+    roots = roots_along(mf, tau, T_in, T_lo, T_hi, samples, misses)
     model = Model(sc)
     q = sc.vessel.V_set / tau
     u = nominal_inputs(sc, tau=tau, T_in=T_in, c_in=tuple(mf.c_in), T_c=mf.T_c)
@@ -393,9 +321,11 @@ def steady_states(
         )
     states.sort(key=lambda st: st.T)
     converged = bool(states) and all(st.residual < 1e-8 for st in states)
-    ok = converged and not unresolved
+    ok = converged and not unresolved and not misses
     if ok:
         msg = f"{len(states)} steady state(s)"
+    elif misses:
+        msg = f"{len(states)} steady state(s) found, but the search is incomplete: " + "; ".join(misses)
     elif not states:
         msg = "no steady state converged"
     elif not converged:
