@@ -15,8 +15,8 @@ from pathlib import Path
 import mpmath
 import numpy as np
 import pytest
-from exomap.core.model import Model, nominal_inputs
 from exomap.core.eigen import classify, eigenvalues_with_errors
+from exomap.core.model import Model, nominal_inputs
 from exomap.core.steady import steady_states
 from exomap.schema import parse_scenario
 

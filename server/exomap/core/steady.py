@@ -384,4 +384,16 @@ def _polish(model: Model, u, C: np.ndarray, T: float, iterations: int = 4) -> tu
         if err < 1e-14:
             break
     zb, err = best
-    return zb[:n], float(zb[n]), err
+    C_out = zb[:n].copy()
+    # Newton in linear concentrations resolves them only to about eps x the feed scale: a reactant that a fast
+    # reaction keeps at 1e-30 mol/m3 can come out as -3e-30. A negative value that small is rounding (far
+    # below what the residual tolerance, 1e-8 of the scale, can see): the start's value, solved in logarithms
+    # and positive, is kept there. A negative concentration beyond that is a failed polish, never reported
+    # as converged.
+    neg = C_out < 0
+    if neg.any():
+        tiny = neg & (np.abs(C_out) <= 1e-10 * scale[:n])
+        C_out[tiny] = np.maximum(C[tiny], 0.0)
+        if np.any(C_out < 0):
+            err = math.inf
+    return C_out, float(zb[n]), err
