@@ -66,12 +66,16 @@ def eigenvalues_with_errors(
     if slow_rate is None or n < 2 or _depth > 6 or np.all(np.abs(w.real) > err):
         return w, err
     d = np.maximum(np.abs(np.diag(J)), slow_rate)
-    order = np.argsort(-d)
-    gaps = d[order[:-1]] / d[order[1:]]
-    k = int(np.argmax(gaps))
-    if gaps[k] <= FAST:
-        return w, err
-    F, S = np.sort(order[: k + 1]), np.sort(order[k + 1 :])
+    fast = d > FAST * slow_rate
+    if not fast.any() or fast.all():  # no variable fast against the slow rate: split at the widest gap
+        order = np.argsort(-d)
+        gaps = d[order[:-1]] / d[order[1:]]
+        k = int(np.argmax(gaps))
+        if gaps[k] <= FAST:
+            return w, err
+        fast = np.zeros(n, dtype=bool)
+        fast[order[: k + 1]] = True
+    F, S = np.nonzero(fast)[0], np.nonzero(~fast)[0]
     A, Bm, Cm, D = J[np.ix_(F, F)], J[np.ix_(F, S)], J[np.ix_(S, F)], J[np.ix_(S, S)]
     wf, ef = eigenvalues_with_errors(A, slow_rate, _depth + 1)
     if not np.all(np.isfinite(wf)) or np.min(np.abs(wf)) <= 1e3 * float(np.max(d[S])):
@@ -196,21 +200,26 @@ def eigenvalues_with_errors_batched(
         d = np.maximum(np.abs(np.diagonal(J, axis1=-2, axis2=-1)), rate[:, None])
     order = np.argsort(-d, axis=-1)
     ds = np.take_along_axis(d, order, axis=-1)
+    # fast against the slow rate; where that is none or all of the variables, the widest gap of the sorted
+    # diagonal magnitudes if it exceeds FAST
+    fast_all = d > FAST * rate[:, None]
+    by_rate = fast_all.any(axis=-1) & ~fast_all.all(axis=-1)
     if n > 1 and _depth <= 6:
         gaps = ds[:, :-1] / ds[:, 1:]
         cut = np.argmax(gaps, axis=-1)
-        split = good & (gaps[np.arange(k), cut] > FAST)
+        by_gap = ~by_rate & (gaps[np.arange(k), cut] > FAST)
+        rank = np.argsort(order, axis=-1)  # position of each variable in the sorted order
+        fast_all = np.where(by_rate[:, None], fast_all, rank <= cut[:, None])
+        split = good & (by_rate | by_gap)
     else:
-        cut, split = np.zeros(k, dtype=int), np.zeros(k, dtype=bool)
+        split = np.zeros(k, dtype=bool)
     plain = np.nonzero(good & ~split)[0]
     if plain.size:
         ev[plain], err[plain] = _leaf_batched(J[plain])
     idx = np.nonzero(split)[0]
     if idx.size == 0:
         return ev, err
-    fast = np.zeros((idx.size, n), dtype=bool)
-    rank = np.argsort(order[idx], axis=-1)  # position of each variable in the sorted order
-    fast[:] = rank <= cut[idx][:, None]
+    fast = fast_all[idx]
     patterns, group = np.unique(fast, axis=0, return_inverse=True)
     group = group.reshape(-1)
     eps = np.finfo(float).eps
