@@ -184,6 +184,10 @@ class StackedManifold:
         dTin = a * dT_dw - J * xi * sig
         return Samples(tau, w, T, xi[..., None], T_in, dTin, dT_dw, valid, None)
 
+    def evaluate(self, tau: np.ndarray, s: np.ndarray) -> Samples:
+        """``Manifold.evaluate``: the manifold at (column code, coordinate)."""
+        return self.explicit_eval(tau, s)
+
     def state_C(self, e: Samples) -> np.ndarray:
         """Concentrations (..., n) at the points' log-odds, reactants from xi_max - xi (``Manifold.explicit_C``)."""
         take = _gather(e.tau)
@@ -380,6 +384,10 @@ class StackedGeneralManifold(Manifold):
             np.full(self.tau.shape, rise[1]),
             self._p * self.tau,
         )
+
+    def evaluate(self, tau: np.ndarray, s: np.ndarray) -> Samples:
+        """``Manifold.evaluate``: the manifold at (column code, T), every point solved from the feed."""
+        return self.general_eval(tau, s)
 
     def general_eval(self, tau: np.ndarray, T: np.ndarray, C0: np.ndarray | None = None) -> Samples:
         """Manifold at (column code, T) (``Manifold.general_eval`` with each column's parameters)."""
@@ -625,7 +633,7 @@ def column_regions(
     node_col = [np.arange(n_col), np.arange(n_col), cols.fold_col]
     node_s = [smp.s[:, 0], smp.s[:, -1], cols.fold.s]
     node_v = [smp.T_in[:, 0], smp.T_in[:, -1], cols.fold.T_in]
-    hc, hs, hv = opmap._hopf(core, tau_arg, cols)
+    hc, hs, hv = opmap.hopf_points(core, tau_arg, cols)
     node_col.append(hc)
     node_s.append(hs)
     node_v.append(hv)
@@ -633,7 +641,7 @@ def column_regions(
     inside = (s_max > np.minimum(smp.s[:, 0], smp.s[:, -1])) & (s_max < np.maximum(smp.s[:, 0], smp.s[:, -1]))
     ic = np.nonzero(inside)[0]
     if ic.size:
-        e = opmap._eval(core, tau_arg[ic], s_max[ic], None)
+        e = core.evaluate(tau_arg[ic], s_max[ic])
         node_col.append(ic)
         node_s.append(s_max[ic])
         node_v.append(e.T_in)
@@ -645,7 +653,7 @@ def column_regions(
     pair = np.nonzero(col[:-1] == col[1:])[0]
     rc = col[pair]
     s_mid = 0.5 * (s[pair] + s[pair + 1])
-    e = opmap._eval(core, tau_arg[rc], s_mid, None)
+    e = core.evaluate(tau_arg[rc], s_mid)
     stable, _, _ = core.stability(e.tau, e.T, e.xi, core.state_C(e))
     hot = e.T > T_max
     lo = np.minimum(v[pair], v[pair + 1])

@@ -659,7 +659,7 @@ def uncertainty_map(
             field="uncertainty",
         )
     n_req = spec.samples if samples is None else samples
-    tau, T_in = opmap._grid_args(sc, tau_range, T_in_range, points, spacing)
+    tau, T_in = opmap.grid_axes(sc, tau_range, T_in_range, points, spacing)
     if n_req * tau.size * T_in.size > MAX_SAMPLE_CELLS:
         raise LimitExceededError(
             f"{n_req} samples x {tau.size} x {T_in.size} cells is more than the limit of {MAX_SAMPLE_CELLS} "
