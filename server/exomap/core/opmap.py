@@ -343,9 +343,10 @@ def unhide_fold_pairs(mf: Manifold, smp: Samples) -> Samples:
     tau_d = smp.tau[dc, dk]
     lo, hi = smp.s[dc, dk - 1], smp.s[dc, dk + 1]
     xi_d = None if mf.explicit else smp.C[dc, dk]
-    # the extremum of sign * dT_in/ds: ``UNHIDE_ZOOMS`` zooms of a grid (one vectorised evaluation each, every dip at once;
-    # the bracket shrinks 8-fold per zoom), then the vertex of the parabola through the three grid points
-    # around it; the value at the vertex is what decides, and a parabola fits a smooth extremum to third order
+    # the extremum of sign * dT_in/ds: UNHIDE_ZOOMS zooms of a grid (one vectorised evaluation each, every dip
+    # at once; the bracket shrinks 8-fold per zoom), then the vertex of the parabola through the three grid
+    # points around it; the value at the vertex is what decides, and a parabola fits a smooth extremum to third
+    # order
     g = np.linspace(0.0, 1.0, UNHIDE_GRID)
     n_d = dc.size
     rep = None if xi_d is None else np.repeat(xi_d, UNHIDE_GRID, axis=0)
