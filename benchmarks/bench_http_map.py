@@ -51,8 +51,9 @@ def free_port() -> int:
 class Server:
     """``with Server() as base_url:`` runs the app under uvicorn in a child process on a free loopback port."""
 
-    def __init__(self, workers: int = 2) -> None:
+    def __init__(self, workers: int = 2, src: str | None = None) -> None:
         self.workers = workers
+        self.src = src  # another source tree of exomap to run the server from (a before/after comparison)
         self.proc: subprocess.Popen | None = None
         self._tmp = tempfile.TemporaryDirectory(prefix="exomap-bench-")
 
@@ -60,9 +61,13 @@ class Server:
         import httpx
 
         port = free_port()
+        env = dict(os.environ)
+        if self.src:
+            env["PYTHONPATH"] = os.pathsep.join(p for p in (self.src, env.get("PYTHONPATH")) if p)
         self.proc = subprocess.Popen(
             [sys.executable, "-c", SERVER_CODE, self._tmp.name, str(port), str(self.workers)],
             stdout=subprocess.DEVNULL,
+            env=env,
         )
         self.base_url = f"http://127.0.0.1:{port}"
         deadline = time.monotonic() + 60
@@ -150,6 +155,7 @@ PHASES = ("dispatch", "compute", "encode", "return", "gzip")
 
 
 def main() -> int:
+    import argparse
     import gzip
     import zlib
 
@@ -157,6 +163,13 @@ def main() -> int:
     from exomap.core.opmap import operating_map
     from exomap.web.jobs import dumps, map_document
 
+    parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    parser.add_argument(
+        "--server-src",
+        help="run the server from this source folder (e.g. a checkout's server/ of an earlier commit), for a "
+        "before/after comparison in one run; the baseline is always this tree's",
+    )
+    args = parser.parse_args()
     sc = demo_scenario()
     spec = sc.map
     tau_range = spec.tau_range if spec else None
@@ -166,10 +179,11 @@ def main() -> int:
     def window(i: int) -> tuple[float, float]:
         return (T_lo, T_hi + 1e-3 * (i + 1))  # a new map window per call: nothing is cached anywhere
 
-    # -- baseline: the core in this process ------------------------------------------------------------------
+    # -- baseline: the core in this process, interleaved with the HTTP requests below -----------------------------
     operating_map(sc, points=POINTS)  # warm (imports, caches)
     base: dict[str, list[float]] = {k: [] for k in ("core", "to_dict", "json", "orjson", "array", "gzip", "gunzip")}
-    for i in range(REPEATS):
+
+    def in_process(i: int) -> None:
         t0 = time.perf_counter()
         result = operating_map(sc, tau_range=tau_range, T_in_range=window(i), points=POINTS)
         t1 = time.perf_counter()
@@ -191,7 +205,7 @@ def main() -> int:
 
     # -- HTTP ---------------------------------------------------------------------------------------------------
     runs: dict[str, list[dict[str, float]]] = {}
-    with Server() as url, httpx.Client(base_url=url, timeout=60) as client:
+    with Server(src=args.server_src) as url, httpx.Client(base_url=url, timeout=60) as client:
         sid = next(s["id"] for s in client.get("/api/v1/scenarios").json()["scenarios"] if s["name"] == DEMO)
         # warm the path once (first request through the pool)
         client.post("/api/v1/map", json={"scenario_id": sid, "points": list(POINTS)}).raise_for_status()
@@ -204,33 +218,35 @@ def main() -> int:
                 "feed_temperature": list(window(i)),
             }
 
-        def measure(name: str, first: int, headers: dict[str, str], cache: str) -> None:
-            rows = runs.setdefault(name, [])
-            for i in range(REPEATS if cache == "miss" else REPEATS * 3):
-                t0 = time.perf_counter()
-                r = client.post("/api/v1/map", json=body_of(first + (i if cache == "miss" else 0)), headers=headers)
-                t1 = time.perf_counter()
-                doc = json.loads(r.content)
-                t2 = time.perf_counter()
-                r.raise_for_status()
-                assert r.headers["x-exomap-cache"] == cache, r.headers
-                assert len(doc["region"]) == POINTS[1] and len(doc["region"][0]) == POINTS[0]
-                row = {
-                    "e2e": t1 - t0,
-                    "parsed": t2 - t0,
-                    "raw": len(r.content),
-                    "wire": int(r.headers.get("content-length", 0)),
-                    "gzip?": float(r.headers.get("content-encoding") == "gzip"),
-                }
-                rows.append(row | server_timing(r.headers.get("server-timing", "")))
+        def request(name: str, i: int, headers: dict[str, str], cache: str) -> None:
+            t0 = time.perf_counter()
+            r = client.post("/api/v1/map", json=body_of(i), headers=headers)
+            t1 = time.perf_counter()
+            doc = json.loads(r.content)
+            t2 = time.perf_counter()
+            r.raise_for_status()
+            assert r.headers["x-exomap-cache"] == cache, r.headers
+            assert len(doc["region"]) == POINTS[1] and len(doc["region"][0]) == POINTS[0]
+            row = {
+                "e2e": t1 - t0,
+                "parsed": t2 - t0,
+                "raw": len(r.content),
+                "wire": int(r.headers.get("content-length", 0)),
+                "gzip?": float(r.headers.get("content-encoding") == "gzip"),
+            }
+            runs.setdefault(name, []).append(row | server_timing(r.headers.get("server-timing", "")))
 
-        # a client on this machine (the usual `exomap serve`): the answer is sent as it is
-        measure("loopback, not cached", 100, {}, "miss")
-        # a client elsewhere behind a proxy on this machine (X-Forwarded-For): the answer is gzipped
+        # a client on this machine (the usual `exomap serve`): the answer is sent as it is; a client elsewhere
+        # behind a proxy on this machine (X-Forwarded-For): the answer is gzipped. Each round also runs the core
+        # in this process, so both see the same load on a shared machine.
         proxied = {"X-Forwarded-For": "192.0.2.10"}
-        measure("via a proxy (gzip), not cached", 200, proxied, "miss")
-        measure("loopback, cached", 100, {}, "hit")
-        measure("via a proxy (gzip), cached", 200, proxied, "hit")
+        for i in range(REPEATS):
+            in_process(i)
+            request("loopback, not cached", 100 + i, {}, "miss")
+            request("via a proxy (gzip), not cached", 200 + i, proxied, "miss")
+        for _ in range(REPEATS * 3):
+            request("loopback, cached", 100, {}, "hit")
+            request("via a proxy (gzip), cached", 200, proxied, "hit")
 
         get_cached = []
         lo, hi = tau_range
