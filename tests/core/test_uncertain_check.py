@@ -34,7 +34,7 @@ def test_fold_margins_agree_with_the_traced_branches(adiabatic, tau, T_in):
     # scan columns (tolerance 1 % point) and only looked for up to twice its threshold
     sc = adiabatic.sc
     states = steady_states(sc, tau, T_in).states
-    idx, _ = check_mod._pick_state(states, None)
+    idx, _ = check_mod.pick_state(states, None)
     T = float(states[idx].T)
     ours = {m.key: m.value for m in _fold_margins(sc, tau, T_in, T, hot=False)}
     theirs = {m.key: m.value for m in check_mod._branch_margins(sc, tau, T_in, states[idx], len(states), idx)}

@@ -126,7 +126,9 @@ class MapResult:
         return out.getvalue()
 
 
-def _grid_args(sc: Scenario, tau_range, T_in_range, points, spacing):
+def grid_axes(sc: Scenario, tau_range, T_in_range, points, spacing):  # noqa: ANN001
+    """The map's axes (tau [s], T_in [K]) from a window (None: the scenario's map window); raises
+    ``ModelInputError``/``LimitExceededError`` naming the field. Shared with the probability map."""
     if spacing not in SPACINGS:
         raise ModelInputError("spacing must be 'log' or 'linear'", field="spacing")
     spec = sc.map
@@ -248,7 +250,7 @@ def operating_map(
         More cells than ``MAX_CELLS``.
     """
     validate(sc)
-    tau, T_in = _grid_args(sc, tau_range, T_in_range, points, spacing)
+    tau, T_in = grid_axes(sc, tau_range, T_in_range, points, spacing)
     mf = Manifold(sc, c_in=c_in, T_c=T_c)
     N = samples or (SAMPLES_EXPLICIT if mf.explicit else SAMPLES_GENERAL)
     T_lo, T_hi = mf.temperature_window(float(T_in[0]), float(T_in[-1]), float(tau[-1]))
@@ -530,7 +532,7 @@ def _boundaries(sc: Scenario, mf: Manifold, tau: np.ndarray, cols: FoldColumns, 
     # ignition: a local maximum of T_in(s) (dT_in/ds goes from + to -); both curves are drawn into the cusp
     ign = _chain(tau, cols.fold_col, f.s, f.T_in, inside & cols.rising, cusp_pts)
     ext = _chain(tau, cols.fold_col, f.s, f.T_in, inside & ~cols.rising, cusp_pts)
-    hc, hs, hv = _hopf(mf, tau, cols)
+    hc, hs, hv = hopf_points(mf, tau, cols)
     hopf = _chain(tau, hc, hs, hv, (hv >= tin_lo) & (hv <= tin_hi), [])
     return {
         "ignition": ign,
@@ -657,8 +659,9 @@ def _solve_cusp(
     return (math.exp(x_c), float(e.T_in[0]), float(e.T[0]))
 
 
-def _hopf(mf: Manifold, tau: np.ndarray, cols: FoldColumns) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Hopf points of every column: (column, coordinate s, feed temperature)."""
+def hopf_points(mf: Manifold, tau: np.ndarray, cols: FoldColumns) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Hopf points of every column: (column, coordinate s, feed temperature). Shared with the probability map
+    (``exomap.core.stacked``), whose ``tau`` are column codes."""
     lead, cplx, smp = cols.lead, cols.cplx, cols.smp
     # the smooth Hopf function changes sign with a complex pair possible at either end of the step (it may be
     # complex at one end only: next to a fold, or where a real eigenvalue leads); the zero is then kept only

@@ -216,7 +216,7 @@ def sample_outcome(
         return SampleOutcome("undetermined", nan, nan, nan)
     if not steady.states or not steady.success:
         return SampleOutcome("undetermined", nan, nan, nan)
-    idx, _ = check_mod._pick_state(steady.states, branch)
+    idx, _ = check_mod.pick_state(steady.states, branch)
     st = steady.states[idx]
     safety = safety_figures(sc, tau, T_in, st)
     hot = len(steady.states) > 1 and idx == len(steady.states) - 1
@@ -227,8 +227,8 @@ def sample_outcome(
     pol, lim = sc.policy, sc.limits
     margins.append(check_mod.Margin("steady_temperature_to_max_K", lim.T_max - float(st.T), pol.min_temperature_margin))
     margins.append(check_mod.Margin("mtsr_to_max_K", lim.T_max - safety.mtsr, pol.min_mtsr_margin))
-    ev = check_mod._Evidence(sc, steady, idx, region_of(sc, steady.states), tuple(margins), safety, tuple(upsets))
-    verdict, _ = check_mod._verdict(check_mod._findings(ev), ev)
+    ev = check_mod.Evidence(sc, steady, idx, region_of(sc, steady.states), tuple(margins), safety, tuple(upsets))
+    verdict, _ = check_mod.judge(ev)
     return SampleOutcome(verdict, float(st.T), float(safety.mtsr), float(safety.tmr_ad))
 
 
