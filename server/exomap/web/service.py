@@ -371,6 +371,7 @@ class Service:
 
     async def _compute(self, key: Any, fn: Any, args: tuple[Any, ...], deadline: float) -> jobs.Answer:
         budget = self.settings.request_time_budget_s
+        sent = time.monotonic()
         try:
             out = await self.runner.run(fn, *args, budget_s=budget, deadline=deadline)
         except Busy as exc:
@@ -382,6 +383,10 @@ class Service:
             raise unavailable("worker_lost", f"{exc}; try again") from None
         if isinstance(out, jobs.JobError):
             raise self._job_error(out)
+        if out.span is not None:  # the time to get the job to a worker and its answer back (Server-Timing)
+            back = time.monotonic()
+            started, finished = out.span
+            out.timing = (("dispatch", max(started - sent, 0.0)), *out.timing, ("return", max(back - finished, 0.0)))
         self.cache.put(key, out)
         return out
 
