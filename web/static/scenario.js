@@ -31,6 +31,7 @@ function syncURL(push = false) {
   $("json-twin").href = twin;
   $("twin-link").href = twin;
   $("print-link").href = urls.printPage(ID, state);
+  $("uncertainty-link").href = urls.uncertaintyPage(ID, state); // the setpoint and window go along
   $("dl-check").href = twin;
   $("dl-map").href = urls.mapOfPage(ID, state, "csv");
   $("dl-scenario").href = urls.apiScenario(ID);
