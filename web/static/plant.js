@@ -41,17 +41,43 @@ export function splitHeader(h) {
   return m ? { tag: m[1].trim(), unit: m[2].trim() } : { tag: h.trim(), unit: "" };
 }
 
-function firstLine(text) {
-  const line = text.replace(/^\uFEFF/, "").split(/\r?\n/, 1)[0] || "";
-  // a header is plain names: split on commas outside double quotes
+// Split one CSV line on commas outside double quotes ("" inside quotes is a quote).
+function splitLine(line) {
   const out = [];
   let cur = "", quoted = false;
-  for (const ch of line) {
-    if (ch === '"') quoted = !quoted;
-    else if (ch === "," && !quoted) { out.push(cur); cur = ""; } else cur += ch;
+  for (let i = 0; i < line.length; i++) {
+    const ch = line[i];
+    if (ch === '"') {
+      if (quoted && line[i + 1] === '"') { cur += '"'; i++; } else quoted = !quoted;
+    } else if (ch === "," && !quoted) { out.push(cur); cur = ""; } else cur += ch;
   }
   out.push(cur);
-  return out.map((s) => s.trim()).filter((s) => s !== "");
+  return out.map((s) => s.trim());
+}
+
+function firstLine(text) {
+  const line = text.replace(/^\uFEFF/, "").split(/\r?\n/, 1)[0] || "";
+  return splitLine(line).filter((s) => s !== "");
+}
+
+// The layout of an export (DESIGN.md §12), told apart the way the server does: a header with tag, time and
+// value columns is the long layout (one row per sample of one tag), anything else is wide.
+export function isLong(header) {
+  const lower = new Set(header.map((h) => h.toLowerCase()));
+  return lower.has("tag") && lower.has("time") && lower.has("value");
+}
+
+// The distinct tags of a long-layout file, in order of first appearance (at most `limit`).
+export function longTags(text, header, limit = 200) {
+  const col = header.findIndex((h) => h.toLowerCase() === "tag");
+  const seen = new Set();
+  const lines = text.replace(/^\uFEFF/, "").split(/\r?\n/);
+  for (let k = 1; k < lines.length && seen.size < limit; k++) {
+    if (!lines[k].trim()) continue;
+    const tag = splitLine(lines[k])[col];
+    if (tag) seen.add(tag);
+  }
+  return [...seen];
 }
 
 const authHeaders = () => {
@@ -67,6 +93,14 @@ function showError(id, e) {
 
 const hours = (s) => (s >= 7200 ? `${(s / 3600).toFixed(2)} h` : `${(s / 60).toFixed(1)} min`);
 const step = (s) => (s >= 120 ? `${(s / 60).toFixed(2)} min` : `${Number(s.toFixed(2))} s`);
+
+// The SI unit of a reaction's rate constant from its overall order n: 1/s, or (m^3/mol)^(n-1)/s.
+export function rateConstantUnit(reaction) {
+  const n = Object.values((reaction && reaction.orders) || {}).reduce((a, b) => a + Number(b), 0);
+  if (!Number.isFinite(n)) return null;
+  if (Math.abs(n - 1) < 1e-12) return "1/s";
+  return `(m³/mol)^${Number((n - 1).toPrecision(6))}/s`;
+}
 
 // Display of a fitted value in plant units; SI for the rest (the unit is named).
 function inPlantUnits(value, unit) {
@@ -141,37 +175,49 @@ export class PlantPanel {
     $("plant-fields").textContent = "";
     this.text = await file.text();
     this.header = firstLine(this.text);
+    this.layout = isLong(this.header) ? "long" : "wide";
+    // what is mapped: the header's columns (wide) or the tags found in the tag column (long)
+    const labels = this.layout === "long" ? longTags(this.text, this.header) : this.header;
+    this.columns = labels.map((label) => ({ label, ...splitHeader(label) }));
     const body = $("plant-columns").querySelector("tbody");
     body.textContent = "";
     const doc = this.ctx.scenario() || {};
     const feedSpecies = Object.keys((doc.feed && doc.feed.concentrations) || {});
     const roles = [...ROLES, ...feedSpecies.map((s) => `feed_concentration.${s}`)];
-    this.header.forEach((h, i) => {
-      const { tag, unit } = splitHeader(h);
-      const sel = el("select", { id: `plant-role-${i}`, "data-tag": tag, "aria-label": `Role of column ${tag}` });
-      sel.append(el("option", { value: "", text: "not used" }), el("option", { value: "time", text: "time" }));
+    const what = this.layout === "long" ? "tag" : "column";
+    $("plant-columns-what").textContent = this.layout === "long" ? "Tag" : "Column";
+    $("plant-columns-caption").textContent = this.layout === "long"
+      ? `Long layout (tag, time, value${this.header.some((h) => h.toLowerCase() === "quality") ? ", quality" : ""}): `
+        + `${this.columns.length} tags found. What each tag is, with its unit; leave a tag "not used" to skip it.`
+      : 'What each column is. Leave a column "not used" to skip it.';
+    $("plant-columns").dataset.layout = this.layout;
+    this.columns.forEach(({ label, tag, unit }, i) => {
+      const sel = el("select", { id: `plant-role-${i}`, "data-tag": tag, "aria-label": `Role of ${what} ${tag}` });
+      sel.append(el("option", { value: "", text: "not used" }));
+      if (this.layout === "wide") sel.append(el("option", { value: "time", text: "time" }));
       for (const r of roles) {
         sel.append(el("option", { value: r, text: ROLE_WORDS[r] || `feed concentration of ${r.split(".")[1]}` }));
       }
-      sel.value = guessRole(tag);
+      sel.value = this.layout === "wide" ? guessRole(tag) : "";
       const u = el("input", { type: "text", id: `plant-unit-${i}`, value: unit, "data-header-unit": unit,
-        "aria-label": `Unit of column ${tag}`, placeholder: "e.g. degC, m^3/h" });
-      body.append(el("tr", { "data-tag": tag }, el("th", { scope: "row" }, el("code", { text: h })),
+        "aria-label": `Unit of ${what} ${tag}`, placeholder: "e.g. degC, m^3/h" });
+      body.append(el("tr", { "data-tag": tag }, el("th", { scope: "row" }, el("code", { text: label })),
         el("td", {}, sel), el("td", {}, u)));
     });
-    $("plant-columns").hidden = !this.header.length;
-    $("plant-upload").hidden = !this.header.length;
+    const any = this.columns.length > 0;
+    $("plant-columns").hidden = !any;
+    $("plant-upload").hidden = !any;
     if (!this.header.length) showError("plant-error", new Error(`${file.name}: no header line was found.`));
+    else if (!any) showError("plant-error", new Error(`${file.name}: the tag column holds no tags.`));
   }
 
   mappingQuery() {
     const map = [], unit = [];
     let time = null;
-    this.header.forEach((h, i) => {
-      const { tag, unit: headerUnit } = splitHeader(h);
+    this.columns.forEach(({ label, tag, unit: headerUnit }, i) => {
       const role = $(`plant-role-${i}`).value;
       const u = $(`plant-unit-${i}`).value.trim();
-      if (role === "time") time = h;
+      if (role === "time") time = label;
       else if (role) {
         map.push(`${tag}=${role}`);
         if (u && u !== headerUnit) unit.push(`${tag}=${u}`);
@@ -179,7 +225,7 @@ export class PlantPanel {
     });
     const parts = [`map=${encodeURIComponent(map.join(","))}`];
     if (unit.length) parts.push(`unit=${encodeURIComponent(unit.join(","))}`);
-    if (time) parts.push(`time_column=${encodeURIComponent(time)}`);
+    if (time) parts.push(`time_column=${encodeURIComponent(splitHeader(time).tag)}`);
     return { query: "?" + parts.join("&"), roles: map.length };
   }
 
@@ -187,7 +233,10 @@ export class PlantPanel {
     showError("plant-error", null);
     $("plant-fields").textContent = "";
     const { query, roles } = this.mappingQuery();
-    if (!roles) { showError("plant-error", new Error("Choose a role for at least one column.")); return; }
+    if (!roles) {
+      showError("plant-error", new Error(`Choose a role for at least one ${this.layout === "long" ? "tag" : "column"}.`));
+      return;
+    }
     let resp;
     try {
       resp = await fetch(api.datasets(query), { method: "POST", body: this.text,
@@ -339,14 +388,25 @@ export class PlantPanel {
       extra.reference_temperature = `${K} K`;
     }
     $("plant-fit").disabled = true;
+    const status = $("plant-cal-status");
+    const t0 = performance.now();
+    status.textContent = `Fitting ${fit.length} parameter${fit.length > 1 ? "s" : ""}: every trial replays the `
+      + "whole record, and each 95 % interval needs a few fits of its own; this takes seconds to tens of seconds.";
+    const tick = setInterval(() => {
+      status.textContent = status.textContent.replace(/ \(\d+ s so far\)$/, "")
+        + ` (${Math.round((performance.now() - t0) / 1000)} s so far)`;
+    }, 1000);
     try {
       const cal = await postJSON(api.calibrate(), this.body(extra), "Fitting the parameters");
       this.calibration = cal;
       this.renderCalibration(cal);
+      status.textContent = `Fitted in ${((performance.now() - t0) / 1000).toFixed(1)} s.`;
     } catch (e) {
+      status.textContent = "";
       showError("plant-cal-error", e instanceof ApiError && e.fields.length
         ? new Error(e.fields.map((f) => `${f.field}: ${f.message}`).join("; ")) : e);
     } finally {
+      clearInterval(tick);
       $("plant-fit").disabled = false;
     }
   }
@@ -355,7 +415,11 @@ export class PlantPanel {
     const doc = this.ctx.scenario();
     const body = $("plant-estimates").querySelector("tbody");
     body.textContent = "";
-    for (const e of cal.estimates) {
+    for (const e0 of cal.estimates) {
+      // a rate constant's unit from its reaction's orders (the answer names it generically)
+      const m = /^reactions\[(\d+)\]\.rate_constant$/.exec(e0.target);
+      const kUnit = m && doc && doc.reactions ? rateConstantUnit(doc.reactions[Number(m[1])]) : null;
+      const e = kUnit ? { ...e0, unit: kUnit } : e0;
       const [lo, hi] = e.interval_95;
       const side = (v) => (v === null ? "open" : inPlantUnits(v, e.unit));
       body.append(el("tr", { "data-target": e.target, "data-value": String(e.value) },
