@@ -96,6 +96,8 @@ def test_check_with_confidence_in_plain_words(page: Any, server: str, api: httpx
         assert f"{u['quantiles'][key]['q50'] - 273.15:.1f} °C" in quantiles
     assert "TMRad" in quantiles and "MTSR" in quantiles
     assert "max_unsafe_probability" in page.inner_text("#unc-check-policy")
+    # what the bounds and the per-sample margins are, from the answer
+    assert u["upper_bound_basis"] in page.inner_text("#unc-check-notes") and "Sobol" in u["upper_bound_basis"]
     assert "32 samples (seed 1)" in page.inner_text("#unc-check-setpoint")
     assert page.locator("#unc-check-drivers tr").count() == 1 + len(u["drivers"])
     page.wait_for_function(_drawn(1), timeout=TIMEOUT)

@@ -289,6 +289,7 @@ async function loadCheck(id, st) {
     ["TMRad (time to maximum rate)", hours(q.tmr_ad_s.q05), hours(q.tmr_ad_s.q50), hours(q.tmr_ad_s.q95)],
   ]);
   $("unc-check-policy").textContent = policyLine(doc);
+  $("unc-check-notes").textContent = `Bounds: ${u.upper_bound_basis}. Margins: ${u.margins}.`;
   const f = (v) => (v === null || v === undefined ? "—" : Number(v).toFixed(2));
   table($("unc-check-drivers"), ["Parameter", "Steady temperature [K per sd]", "MTSR [K per sd]"],
     u.drivers.length ? u.drivers.map((d) => [d.target, f(d.temperature_K_per_sd), f(d.mtsr_K_per_sd)])
