@@ -243,6 +243,15 @@ def _crossing(f: Callable[[float], float], x0: float, x1: float, g0: float, g1: 
     return x0 + g0 / (g0 - g1) * (x1 - x0)
 
 
+def _point_samples(sc: Scenario) -> int:
+    """Samples along the manifold for each sample's steady states: as many as the map takes per column (its
+    folds, and so every state, are refined to machine precision either way; ``steady_states`` also looks
+    inside every sample interval where the slope changes sign), instead of the single point's denser default."""
+    from exomap.core import opmap
+
+    return opmap.SAMPLES_EXPLICIT if Manifold(sc).explicit else opmap.SAMPLES_GENERAL
+
+
 def sample_outcome(
     sc: Scenario, tau: float, T_in: float, branch: str | None, upsets: tuple[Any, ...] = ()
 ) -> SampleOutcome:
@@ -253,7 +262,7 @@ def sample_outcome(
 
     nan = float("nan")
     try:
-        steady = steady_states(sc, tau, T_in)
+        steady = steady_states(sc, tau, T_in, samples=_point_samples(sc))
     except (ModelInputError, ConvergenceError):
         return SampleOutcome("undetermined", nan, nan, nan)
     if not steady.states or not steady.success:
