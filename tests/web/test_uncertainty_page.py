@@ -78,3 +78,23 @@ def test_browser_and_server_build_the_same_page_urls() -> None:
     js = (ASSETS / "static" / "urls.js").read_text(encoding="utf-8")
     keys = re.search(r"UNCERTAINTY_KEYS = \[([^\]]*)\]", js).group(1)
     assert tuple(re.findall(r'"(\w+)"', keys)) == urls.UNCERTAINTY_KEYS
+
+
+def test_the_check_with_confidence_is_linked_with_its_setpoint_samples_and_seed(client: Any) -> None:
+    # the page's setpoint keys (SI, as on the scenario page) go into the check's JSON link with samples and seed,
+    # and that link answers the check with its uncertainty block
+    sid = client.post("/api/v1/scenarios", json=UNCERTAIN).json()["id"]
+    state = {"samples": "16", "seed": "4", "residence_time": "1500", "feed_temperature": "310", "branch": "low"}
+    r = client.get(urls.uncertainty_page(sid, state))
+    assert r.status_code == 200
+    link = parse(r.text).anchors["unc-check-json"]
+    assert link == urls.api_uncertainty_check(sid, state)
+    for part in ("residence_time=1500", "feed_temperature=310", "branch=low", "samples=16", "seed=4"):
+        assert part in link
+    doc = client.get(link).json()
+    assert doc["operating_point"]["residence_time_s"] == 1500.0 and doc["operating_point"]["feed_temperature_K"] == 310
+    u = doc["uncertainty"]
+    assert u["samples"] == 16 and u["seed"] == 4
+    # a link without samples keeps its setpoint through the redirect that names them
+    r = client.get(f"/scenarios/{sid}/uncertainty?residence_time=1500&branch=high", follow_redirects=False)
+    assert r.headers["location"].endswith("?samples=256&seed=0&residence_time=1500&branch=high")

@@ -446,8 +446,11 @@ def _cell_states(mf: Manifold, smp: Samples, cols: FoldColumns, T_in: np.ndarray
     seg_a = seg[:, :-1]
     rising = direction[rows, seg_a] > 0
     closed = np.where(rising, last, first)
-    i_lo = np.searchsorted(T_in, lo.ravel(), side="left")
-    i_hi = np.searchsorted(T_in, hi.ravel(), side="left")
+    # rows of the grid below each slot's T_in, once per slot (an interval's ends are two neighbouring slots)
+    below = np.searchsorted(T_in, vL.ravel(), side="left").reshape(n_tau, L)
+    up = vb >= va
+    i_lo = np.where(up, below[:, :-1], below[:, 1:]).ravel()
+    i_hi = np.where(up, below[:, 1:], below[:, :-1]).ravel()
     on_top = closed.ravel() & (i_hi < n_tin)
     on_top[on_top] = T_in[i_hi[on_top]] == hi.ravel()[on_top]
     i_hi = i_hi + on_top

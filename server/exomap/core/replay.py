@@ -20,7 +20,7 @@ Notes
 
   .. math::
 
-      \dot S = A(t)\,S + \partial f/\partial\theta, \qquad S(0) = -A_0^{-1}\,\partial f/\partial\theta|_0
+      \\dot S = A(t)\\,S + \\partial f/\\partial\\theta, \\qquad S(0) = -A_0^{-1}\\,\\partial f/\\partial\\theta|_0
 
   where A is the Jacobian of the species+energy block (``Model.reactor_block``) and S(0) follows from the
   starting steady state by the implicit function theorem [1]. The level block does not depend on the

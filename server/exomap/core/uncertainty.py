@@ -91,6 +91,13 @@ STACKED_SAMPLES_GENERAL = 160
 STACKED_GENERAL_COLUMNS = 1024
 #: Confidence of the one-sided binomial bound.
 CONFIDENCE = 0.95
+#: What the bounds are, said in every answer with them (DESIGN.md §11 asks for the exact binomial bound; the
+#: samples are not independent draws, so the caveat travels with the numbers).
+BOUND_BASIS = (
+    "exact one-sided 95 % binomial bound (Clopper-Pearson) on the share of samples; it assumes independent draws, "
+    "and the samples are scrambled Sobol points, whose estimates are usually closer to the truth than independent "
+    "draws', so for them the bound is on the cautious side"
+)
 
 _TARGET_RE = re.compile(
     r"^(?:reactions\[(\d+)\]\.(rate_constant|activation_energy|reaction_enthalpy)"
@@ -525,6 +532,7 @@ class UncertaintyMapResult:
                 "parameters": list(self.targets),
                 "probability": {k: grid(self.probability[k]) for k in PROBABILITY_KEYS},
                 "upper_bound_95": {k: grid(self.upper[k]) for k in PROBABILITY_KEYS},
+                "upper_bound_basis": BOUND_BASIS,
                 "max_unsafe_probability": self.max_unsafe_probability,
                 "robust_window": self.robust.tolist(),
                 "boundary_bands": {

@@ -40,6 +40,21 @@ def _prefixed(errors: list[dict[str, str]], prefix: str) -> list[dict[str, str]]
     return [{"field": f"{prefix}.{e['field']}" if prefix else e["field"], "message": e["message"]} for e in errors]
 
 
+def _sampling_hint(kind: str, params: dict[str, Any]) -> str:
+    """What to reduce when a computation under uncertain data runs past the time budget: the time grows in
+    proportion to the samples (and, for the map, to the residence-time points)."""
+    n = int(params["samples"])
+    fewer = max(n // 4, 8)
+    if kind == "map":
+        points = params.get("points")
+        where = f" or fewer points (asked: {points[0]} x {points[1]})" if points else " or fewer points"
+        return (
+            f"the uncertainty map with {n} samples costs about {n} operating maps' worth of columns: ask for fewer "
+            f"samples (samples={fewer}){where}, or run it as a batch study (exomap study) without a time budget"
+        )
+    return f"the check with {n} samples judges every sample: ask for fewer samples (samples={fewer})"
+
+
 def invalid(field: str, message: str, code: str = "invalid_input") -> ApiError:
     return ApiError(422, code, f"{field}: {message}", [{"field": field, "message": message}])
 
@@ -349,7 +364,12 @@ class Service:
                     "time_budget_exceeded", f"reading the scenario took longer than the budget of {budget:g} s"
                 ) from None
         key = (kind, resolved.id, _freeze(params), fmt)
-        return await self.computed(key, jobs.run_job, kind, resolved.scenario, params, fmt, deadline=deadline)
+        try:
+            return await self.computed(key, jobs.run_job, kind, resolved.scenario, params, fmt, deadline=deadline)
+        except ApiError as exc:
+            if exc.code != "time_budget_exceeded" or params.get("samples") is None:
+                raise
+            raise unavailable(exc.code, f"{exc.message}; {_sampling_hint(kind, params)}") from None
 
     async def computed(self, key: Any, fn: Any, *args: Any, deadline: float | None = None) -> tuple[jobs.Answer, bool]:
         """The answer of ``fn(*args)`` (a job returning ``Answer | JobError``) from the cache, from the same
