@@ -191,3 +191,41 @@ def test_long_layout_export_is_mapped_tag_by_tag(
     page.wait_for_function("() => document.getElementById('plant-replay').dataset.series === '2'", timeout=TIMEOUT)
     page.locator("#plant-dataset").scroll_into_view_if_needed()
     _shot(page, "plant-long-loaded")
+
+
+CURVE_POINTS = "id => { const el = document.getElementById(id); return el && el.dataset.plantPoints; }"
+PLANT_TRACE = "id => document.getElementById(id).data.find(t => t.name.startsWith('plant records'))"
+
+
+def test_plant_records_on_the_steady_state_curves(
+    new_context: Any, server: str, api: httpx.Client, jacketed: str, plant: dict[str, Any]
+) -> None:
+    text = _wide_csv(plant)
+    mapping = "FI-101=feed_flow,TI-101=feed_temperature,TI-201=reactor_temperature"
+    did = api.post("/api/v1/datasets", params={"map": mapping}, content=text.encode()).json()["dataset_id"]
+    ov = api.post("/api/v1/overlay", json={"scenario_id": jacketed, "dataset_id": did}).json()
+    # a shared link straight to the curves with the dataset: the records are drawn without opening the panel
+    page = open_page(new_context(viewport={"width": 1366, "height": 1300}))
+    page.goto(f"{server}/scenarios/{jacketed}?panel=curves&dataset={did}")
+    for plot in ("curve-tau", "curve-tin"):
+        page.wait_for_function(f"() => ({CURVE_POINTS})('{plot}') === '{plant['t'].size}'", timeout=TIMEOUT)
+    tau = page.evaluate(f"({PLANT_TRACE})('curve-tau')")
+    tin = page.evaluate(f"({PLANT_TRACE})('curve-tin')")
+    # x: the recorded residence time [min] and feed temperature [°C]; y: the recorded reactor temperature [°C]
+    assert tau["x"] == pytest.approx([v / 60 for v in ov["residence_time_s"]], rel=1e-12)
+    assert tin["x"] == pytest.approx([v - 273.15 for v in ov["feed_temperature_K"]], abs=1e-9)
+    for trace in (tau, tin):
+        assert trace["y"] == pytest.approx([v - 273.15 for v in ov["reactor_temperature_K"]], abs=1e-9)
+        # coloured by minutes from the first record, on the map path's scale
+        assert trace["marker"]["color"] == pytest.approx([t / 60 for t in ov["time_s"]], rel=1e-12)
+    # the curves' own traces are still there, before the records
+    names = page.evaluate("() => document.getElementById('curve-tau').data.map(t => t.name)")
+    assert names[0] in ("stable", "unstable") and names[-1].startswith("plant records")
+    note = page.inner_text("#curves-plant-note")
+    assert did in note and "holds the other input" in note
+    # the map shows the same records as its path
+    page.wait_for_function("() => document.getElementById('map').dataset.plantPath", timeout=TIMEOUT)
+    path = page.evaluate("() => document.getElementById('map').data.find(t => t.name === 'plant-path')")
+    assert path["x"] == tau["x"] and path["y"] == tin["x"]
+    page.locator("#curve-tau").scroll_into_view_if_needed()
+    _shot(page, "plant-on-curves")

@@ -134,6 +134,31 @@ export function targetsOf(doc) {
   return out;
 }
 
+// Plant records on a steady-state curve: x the recorded residence time [min] or feed temperature [°C], y the
+// recorded reactor temperature [°C], colour the time from the first record [min] (the map path's scale).
+export function curvePoints(ov, along) {
+  const xsRaw = along === "residence_time" ? ov.residence_time_s : ov.feed_temperature_K;
+  const xOf = along === "residence_time" ? toMin : toC;
+  const keep = ov.time_s.map((_, i) => Number.isFinite(xsRaw[i]) && Number.isFinite(ov.reactor_temperature_K[i]));
+  const pick = (a, f) => a.filter((_, i) => keep[i]).map(f);
+  const t = pick(ov.time_s, toMin);
+  if (!t.length) return null;
+  const other = along === "residence_time" ? pick(ov.feed_temperature_K, (v) => (v === null ? NaN : toC(v)))
+    : pick(ov.residence_time_s, (v) => (v === null ? NaN : toMin(v)));
+  return {
+    type: "scatter", mode: "markers", name: "plant records (colour: time)", x: pick(xsRaw, xOf),
+    y: pick(ov.reactor_temperature_K, toC), customdata: t.map((v, i) => [v, other[i]]),
+    hovertemplate: (along === "residence_time"
+      ? "τ %{x:.3g} min, T %{y:.1f} °C<br>at %{customdata[0]:.0f} min, feed %{customdata[1]:.1f} °C"
+      : "feed %{x:.1f} °C, T %{y:.1f} °C<br>at %{customdata[0]:.0f} min, τ %{customdata[1]:.3g} min")
+      + "<extra>plant</extra>",
+    marker: { size: 6, color: t, colorscale: TIME_SCALE, cmin: t[0], cmax: t[t.length - 1] || 1,
+      line: { color: "#101c2c", width: 0.6 }, showscale: true,
+      colorbar: { title: { text: "time [min]", side: "top", font: { size: 11 } }, thickness: 8, len: 1, x: 1.01,
+        xanchor: "left", y: 0.5, yanchor: "middle", nticks: 4, tickfont: { size: 10 }, outlinewidth: 0 } },
+  };
+}
+
 export class PlantPanel {
   // ctx: { id, state(), syncURL(push), scenario() }
   constructor(ctx) {
@@ -302,6 +327,7 @@ export class PlantPanel {
   async drawOverlay() {
     try {
       this.overlay = await postJSON(api.overlay(), this.body(), "Placing the plant's path on the map");
+      this.overlayLoading = null;
       await this.redrawOverlay();
     } catch (e) {
       showError("plant-error", e);
@@ -333,6 +359,47 @@ export class PlantPanel {
     note.textContent = `Plant's path (dataset ${ov.dataset_id}): ${x.length} records from ${ov.start}, `
       + "light dots first, dark dots last; the scale beside the map is minutes from the first record.";
     $("map").dataset.plantPath = String(x.length);
+  }
+
+  // The overlay of the dataset in the page link, fetched once (the steady-state curves use it without the panel
+  // being opened); the map gets the path too, so both views show the same records.
+  async overlayFor() {
+    const id = this.ctx.state().dataset;
+    if (!id) return null;
+    if (this.overlay && this.overlay.dataset_id === id) return this.overlay;
+    if (!this.overlayLoading || this.overlayLoading.id !== id) {
+      const body = { scenario_id: this.ctx.id, dataset_id: id };
+      const p = postJSON(api.overlay(), body, "Placing the plant's records").then(async (ov) => {
+        this.overlay = ov;
+        await this.redrawOverlay();
+        return ov;
+      });
+      this.overlayLoading = { id, p };
+    }
+    return this.overlayLoading.p;
+  }
+
+  // The recorded reactor temperature against the curve's input (residence time or feed temperature), as
+  // markers coloured by time on the map path's scale; null when there is nothing to draw.
+  curveTrace(along) {
+    const ov = this.overlay;
+    if (!ov || ov.dataset_id !== this.ctx.state().dataset) return null;
+    return curvePoints(ov, along);
+  }
+
+  // The note under the curves: what the plant's markers are, and that each curve holds the other input.
+  describeCurves(node) {
+    if (!node) return;
+    const ov = this.overlay;
+    node.hidden = !(ov && ov.dataset_id === this.ctx.state().dataset);
+    if (node.hidden) return;
+    const n = ov.reactor_temperature_K.filter((v) => Number.isFinite(v)).length;
+    node.textContent = n
+      ? `Markers: the plant's records (dataset ${ov.dataset_id}, ${n} with a reactor temperature, from ${ov.start}), `
+        + "recorded reactor temperature against the recorded input, light first, dark last. Each curve holds the "
+        + "other input at the setpoint's value, so a record taken at another feed temperature or residence time "
+        + "is not expected to lie on it."
+      : `The plant's dataset ${ov.dataset_id} has no reactor temperature to place on the curves.`;
   }
 
   async replay() {
