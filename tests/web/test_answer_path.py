@@ -153,3 +153,31 @@ def test_cache_counts_the_gzip_form_before_it_is_made() -> None:
     assert cache.size_bytes == 5000 + 400
     small = Answer(b"{}")
     assert len(small) == 2  # too small to be compressed: no room counted
+
+
+def test_a_stored_scenario_read_once_is_prepared_from_memory_and_an_unsaved_one_is_still_unknown(client) -> None:
+    service = client.app.state.service
+    sid = client.post("/api/v1/scenarios", json=ADIABATIC).json()["id"]
+    first = client.post("/api/v1/steady", json={"scenario_id": sid, "residence_time": "40 min"})
+    assert first.status_code == 200, first.text
+    reads = []
+    real_get = service.store.get
+    service.store.get = lambda key: reads.append(key) or real_get(key)
+    # a repeat with other parameters: computed (not cached), scenario from memory, no store read
+    second = client.post("/api/v1/steady", json={"scenario_id": sid, "residence_time": 3000})
+    assert second.status_code == 200 and second.headers["x-exomap-cache"] == "miss"
+    assert reads == []
+    # the same question in other units is the same answer (one cache key, either way of preparing)
+    again = client.post("/api/v1/steady", json={"scenario_id": sid, "residence_time": "50 min"})
+    assert again.headers["x-exomap-cache"] == "hit" and again.content == second.content
+    # bad input found on the fast path is the usual 422 naming the field
+    bad = client.post("/api/v1/steady", json={"scenario_id": sid, "residence_time": "40 kg"})
+    assert bad.status_code == 422 and bad.json()["error"]["fields"][0]["field"] == "residence_time"
+    # a scenario sent inline (never saved) is converted and cached too, but its id is still not a stored one
+    inline = {**ADIABATIC, "title": "inline only (invented)"}
+    assert client.post("/api/v1/steady", json={"scenario": inline}).status_code == 200
+    from exomap import schema
+
+    unsaved = schema.scenario_id(schema.parse_scenario(inline))
+    missing = client.post("/api/v1/steady", json={"scenario_id": unsaved})
+    assert missing.status_code == 404 and reads == [unsaved]

@@ -15,6 +15,7 @@ should get.
 
 from __future__ import annotations
 
+import functools
 import ipaddress
 import time
 from collections.abc import Mapping
@@ -34,16 +35,19 @@ PROXY_HEADERS = (b"forwarded", b"x-forwarded-for", b"via")
 def local_client(scope: Scope) -> bool:
     """True when the request's peer is a loopback address and no proxy relayed it."""
     client = scope.get("client")
-    if not client:
+    if not client or not _loopback(str(client[0])):
         return False
+    return not any(key in PROXY_HEADERS for key, _ in scope.get("headers", ()))
+
+
+@functools.lru_cache(maxsize=256)
+def _loopback(host: str) -> bool:
     try:
-        address = ipaddress.ip_address(str(client[0]).split("%", 1)[0])
+        address = ipaddress.ip_address(host.split("%", 1)[0])
     except ValueError:  # a name rather than an address (a test client, a Unix socket path)
         return False
     mapped = getattr(address, "ipv4_mapped", None)  # ::ffff:127.0.0.1 from a dual-stack socket
-    if not (mapped or address).is_loopback:
-        return False
-    return not any(key in PROXY_HEADERS for key, _ in scope.get("headers", ()))
+    return (mapped or address).is_loopback
 
 
 def accepts_gzip(headers: Mapping[str, str]) -> bool:
