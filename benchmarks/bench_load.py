@@ -64,6 +64,12 @@ def health_prober(url: str, duration_s: float, conn) -> None:  # noqa: ANN001 - 
     conn.close()
 
 
+def process_cpu_s(pid: int) -> float:
+    """CPU time (user + system) of one process so far, not its children (Linux /proc), in seconds."""
+    fields = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()
+    return (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")
+
+
 def pct(values: list[float], q: float) -> float:
     if not values:
         return float("nan")
@@ -150,14 +156,24 @@ async def run(url: str, pid: int) -> dict:
         probe = ctx.Process(target=health_prober, args=(url, DURATION_S, child))
         probe.start()
         started = time.monotonic()
+        cpu_before = process_cpu_s(pid)
         await asyncio.gather(*(user(rng.randrange(1 << 30)) for _ in range(CLIENTS)), memory())
         elapsed = time.monotonic() - started
+        server_cpu = process_cpu_s(pid) - cpu_before
         health, health_errors = await asyncio.to_thread(parent.recv)
         probe.join(timeout=30)
         lat["health"].extend(health)
         errors.extend(health_errors)
         rss.append(tree_rss_bytes(pid))
-    return {"lat": lat, "errors": errors, "rss": rss, "elapsed": elapsed, "idle": idle, "check": check_ok}
+    return {
+        "lat": lat,
+        "errors": errors,
+        "rss": rss,
+        "elapsed": elapsed,
+        "idle": idle,
+        "check": check_ok,
+        "server_cpu": server_cpu,
+    }
 
 
 async def burst(url: str) -> dict:
@@ -233,6 +249,12 @@ def main() -> int:
     if not out["check"]:
         print("  (the check route did not answer 200 before the run: maps only)")
     print(f"  throughput {done / out['elapsed']:.1f} requests/s ({done} answered in {out['elapsed']:.1f} s)")
+    answered = done + len(lat["health"])
+    print(
+        f"  server process CPU (event loop and its threads; not the workers) {out['server_cpu']:.2f} s in "
+        f"{out['elapsed']:.1f} s = {out['server_cpu'] / out['elapsed'] * 100:.0f} % of one CPU, "
+        f"{out['server_cpu'] / answered * 1e3:.2f} ms per answer"
+    )
     print(summary("map", lat["map"]))
     print(summary("check", lat["check"]))
     print(summary("health, idle server (base)", out["idle"]))

@@ -121,3 +121,68 @@ def test_interval_coverage_over_seeded_replicates(jacketed):
         covered += int(lo is not None and hi is not None and lo <= jacketed.UA_jacket <= hi)
     # 95 % intervals: fewer than 90 of 100 has probability < 3 % if the coverage is right (binomial)
     assert covered >= 90, covered
+
+
+def test_sensitivities_agree_with_differences_of_tight_replays(jacketed):
+    # check values: central differences of replays at rtol 1e-11 (no sensitivity equations on that path)
+    from exomap.core.calibrate import _balance_derivative, value_of
+
+    sim, t, T_in, q = _ramped_run(jacketed, step=60.0, hours=2.0)
+    rec = PlantRecord(t, {"feed_flow": q, "feed_temperature": T_in, "reactor_temperature": sim.T})
+    T_ref = 350.0
+    paths = [
+        "reactions[0].rate_constant",
+        "reactions[0].activation_energy",
+        "reactions[0].reaction_enthalpy",
+        "jacket.ua",
+        "jacket.coolant_temperature",
+        "liquid.heat_capacity",
+        "feed.concentrations.A",
+    ]
+    targets = [parse_target(p, jacketed) for p in paths]
+    v0 = np.array([value_of(jacketed, tg, T_ref) for tg in targets])
+    p0 = np.array([np.log(v) if tg.log else v for tg, v in zip(targets, v0, strict=True)])
+    scale = np.array([1.0 if tg.log else abs(v) for tg, v in zip(targets, p0, strict=True)])
+    deriv = _balance_derivative(jacketed, targets, rec, T_ref, scale)
+    res = replay(jacketed, rec, rtol=1e-9, sensitivity=deriv, n_params=len(paths))
+    S = res.sensitivity[jacketed.n_species] / scale[:, None]  # dT/dθ, (params, records)
+
+    def natural(p):
+        return [np.exp(x) if tg.log else x for tg, x in zip(targets, p, strict=True)]
+
+    for k, path in enumerate(paths):
+        h = 1e-5 * scale[k]
+        up, dn = p0.copy(), p0.copy()
+        up[k] += h
+        dn[k] -= h
+        T_up = replay(with_values(jacketed, targets, natural(up), T_ref), rec, rtol=1e-11).T
+        T_dn = replay(with_values(jacketed, targets, natural(dn), T_ref), rec, rtol=1e-11).T
+        fd = (T_up - T_dn) / (2.0 * h)
+        assert np.abs(fd).max() > 0, path
+        # the two agree to the integrators' tolerance (relative 1e-3 of the largest sensitivity)
+        np.testing.assert_allclose(S[k], fd, rtol=0, atol=1e-3 * np.abs(fd).max(), err_msg=path)
+
+
+def test_a_recorded_coolant_temperature_is_not_fitted(jacketed):
+    # the record's coolant temperature drives the replay, so the scenario's own value cannot matter: a zero
+    # column, reported as a parameter the data cannot determine
+    sim, t, T_in, q = _ramped_run(jacketed, step=120.0, hours=1.5)
+    rec = PlantRecord(
+        t,
+        {"feed_flow": q, "feed_temperature": T_in, "coolant_temperature": np.full(t.size, jacketed.T_c),
+         "reactor_temperature": sim.T + np.random.default_rng(2).normal(0.0, 0.2, t.size)},
+    )  # fmt: skip
+    cal = calibrate(jacketed, rec, ["jacket.ua", "jacket.coolant_temperature"], profile=False)
+    assert any("rank-deficient" in w for w in cal.fit.warnings), cal.fit.warnings
+
+
+def test_profiles_stop_at_the_deadline_and_say_so(jacketed):
+    import time
+
+    sim, t, T_in, q = _ramped_run(jacketed, step=120.0, hours=1.5)
+    noisy = sim.T + np.random.default_rng(5).normal(0.0, 0.2, t.size)
+    rec = PlantRecord(t, {"feed_flow": q, "feed_temperature": T_in, "reactor_temperature": noisy})
+    cal = calibrate(jacketed, rec, ["jacket.ua"], deadline=time.monotonic())
+    assert cal.interval_95 == ((None, None),)
+    assert np.isfinite(cal.estimates[0]) and cal.standard_errors[0] > 0
+    assert any("time allowed ran out" in w and "jacket.ua" in w for w in cal.fit.warnings), cal.fit.warnings

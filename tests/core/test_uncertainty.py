@@ -71,13 +71,13 @@ def test_no_spread_gives_the_deterministic_regions(cstr, jacketed):
     assert (det.region == CODE["multiple"]).any() and (det.region == CODE["runaway"]).any()
 
 
-def test_no_spread_several_reactions_one_sample_at_a_time(series):
-    # analytic: as above, on the general (several reactions) path, which samples one scenario at a time
+def test_no_spread_several_reactions_stacked(series):
+    # analytic: as above, on the general (several reactions) path, stacked like one reaction
     sc = series(T_max=420.0)
     window = {"tau_range": (100.0, 10000.0), "T_in_range": (240.0, 300.0), "points": (12, 12)}
     um = uncertainty_map(sc, _spec(_ea(0.0), samples=8), **window)
     det = operating_map(sc, **window)
-    assert um.method == "one sample at a time"
+    assert um.method == "stacked columns (general path)"
     for key in ("runaway", "unstable", "multiple"):
         np.testing.assert_array_equal(um.probability[key] == 1.0, det.region == CODE[key], err_msg=key)
 

@@ -95,3 +95,22 @@ def test_check_with_samples_is_the_core_answer(client, uncertain_id) -> None:
     block = want["uncertainty"]
     assert block["samples"] == 8 and 0.0 <= block["probability_outside"] <= block["probability_marginal_or_worse"]
     assert "uncertainty" not in client.get(f"/api/v1/scenarios/{uncertain_id}/check").json()
+
+
+def test_past_the_time_budget_the_answer_says_what_to_reduce(make_client) -> None:
+    # a map under uncertainty costs in proportion to its samples: the 503 names the request's sample count and
+    # points, and a smaller count to ask for
+    client = make_client(request_time_budget_s=0.02)
+    sid = client.post("/api/v1/scenarios", json=UNCERTAIN).json()["id"]
+    response = client.post("/api/v1/map", json={"scenario_id": sid, "samples": 1024, "points": [40, 30]})
+    assert response.status_code == 503, response.text
+    error = response.json()["error"]
+    assert error["code"] == "time_budget_exceeded"
+    assert "1024 samples" in error["message"] and "samples=256" in error["message"]
+    assert "40 x 30" in error["message"]
+    check = client.post("/api/v1/check", json={"scenario_id": sid, "samples": 64})
+    assert check.status_code == 503
+    assert "samples=16" in check.json()["error"]["message"]
+    # without samples the message is the plain budget one
+    plain = client.post("/api/v1/map", json={"scenario_id": sid, "points": [500, 500]})
+    assert plain.status_code == 503 and "samples" not in plain.json()["error"]["message"]

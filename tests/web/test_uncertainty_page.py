@@ -4,6 +4,7 @@ with the link's samples and seed), the cautions, and a palette of our own that r
 from __future__ import annotations
 
 import copy
+import json
 import re
 from importlib import resources
 from pathlib import Path
@@ -33,6 +34,9 @@ def test_page_twin_is_the_probability_map_of_its_link(client: Any) -> None:
     links = parse(r.text)
     assert any(s.startswith("/static/uncertainty.js") for s in links.scripts)
     assert links.anchors["unc-csv"].endswith("format=csv")
+    # the page's time estimate knows how many reactions there are (one: the closed-form path)
+    boot = json.loads(re.search(r'<script type="application/json" id="boot">(.*?)</script>', r.text, re.S).group(1))
+    assert boot["reactions"] == len(UNCERTAIN["reactions"]) == 1
     # the twin answers: the nominal map with the probability keys
     doc = client.get(twin).json()
     assert doc["samples"] == 64 and doc["seed"] == 3 and "region" in doc and "robust_window" in doc
@@ -78,3 +82,23 @@ def test_browser_and_server_build_the_same_page_urls() -> None:
     js = (ASSETS / "static" / "urls.js").read_text(encoding="utf-8")
     keys = re.search(r"UNCERTAINTY_KEYS = \[([^\]]*)\]", js).group(1)
     assert tuple(re.findall(r'"(\w+)"', keys)) == urls.UNCERTAINTY_KEYS
+
+
+def test_the_check_with_confidence_is_linked_with_its_setpoint_samples_and_seed(client: Any) -> None:
+    # the page's setpoint keys (SI, as on the scenario page) go into the check's JSON link with samples and seed,
+    # and that link answers the check with its uncertainty block
+    sid = client.post("/api/v1/scenarios", json=UNCERTAIN).json()["id"]
+    state = {"samples": "16", "seed": "4", "residence_time": "1500", "feed_temperature": "310", "branch": "low"}
+    r = client.get(urls.uncertainty_page(sid, state))
+    assert r.status_code == 200
+    link = parse(r.text).anchors["unc-check-json"]
+    assert link == urls.api_uncertainty_check(sid, state)
+    for part in ("residence_time=1500", "feed_temperature=310", "branch=low", "samples=16", "seed=4"):
+        assert part in link
+    doc = client.get(link).json()
+    assert doc["operating_point"]["residence_time_s"] == 1500.0 and doc["operating_point"]["feed_temperature_K"] == 310
+    u = doc["uncertainty"]
+    assert u["samples"] == 16 and u["seed"] == 4
+    # a link without samples keeps its setpoint through the redirect that names them
+    r = client.get(f"/scenarios/{sid}/uncertainty?residence_time=1500&branch=high", follow_redirects=False)
+    assert r.headers["location"].endswith("?samples=256&seed=0&residence_time=1500&branch=high")

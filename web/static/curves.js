@@ -70,7 +70,8 @@ export function branchTraces(doc, xOf, setpointX, maxK) {
   return tr;
 }
 
-export async function drawBranch(Plotly, el, doc, setpoint, maxK) {
+// `extra`: more traces drawn over the curve (the plant's records, from plant.js), after the curve's own.
+export async function drawBranch(Plotly, el, doc, setpoint, maxK, extra = []) {
   if (doc.success === false) throw new Error(doc.message || "the branch could not be traced");
   const alongTau = doc.parameter === "residence_time";
   const xOf = alongTau ? toMin : toC;
@@ -80,7 +81,14 @@ export async function drawBranch(Plotly, el, doc, setpoint, maxK) {
     || (alongTau && values.length > 1 && Math.max(...values) / Math.min(...values) > 20));
   lay.title = { text: alongTau ? "Against residence time, feed temperature held" : "Against feed temperature, residence time held",
     font: { size: 13 } };
-  await Plotly.react(el, branchTraces(doc, xOf, x, maxK), lay, { displayModeBar: false, responsive: true });
+  if (extra.length) {
+    // room for the time scale on the right and a third legend row below the axis title
+    lay.margin = { ...lay.margin, r: 70, b: 118 };
+    lay.height += 22;
+    lay.legend = { ...lay.legend, y: -0.36 };
+  }
+  await Plotly.react(el, [...branchTraces(doc, xOf, x, maxK), ...extra], lay, { displayModeBar: false, responsive: true });
+  el.dataset.plantPoints = String(extra.reduce((n, t) => n + (t.x ? t.x.length : 0), 0));
 }
 
 // Crossings of generation and removal (steady states), by linear interpolation between grid temperatures.

@@ -41,17 +41,43 @@ export function splitHeader(h) {
   return m ? { tag: m[1].trim(), unit: m[2].trim() } : { tag: h.trim(), unit: "" };
 }
 
-function firstLine(text) {
-  const line = text.replace(/^\uFEFF/, "").split(/\r?\n/, 1)[0] || "";
-  // a header is plain names: split on commas outside double quotes
+// Split one CSV line on commas outside double quotes ("" inside quotes is a quote).
+function splitLine(line) {
   const out = [];
   let cur = "", quoted = false;
-  for (const ch of line) {
-    if (ch === '"') quoted = !quoted;
-    else if (ch === "," && !quoted) { out.push(cur); cur = ""; } else cur += ch;
+  for (let i = 0; i < line.length; i++) {
+    const ch = line[i];
+    if (ch === '"') {
+      if (quoted && line[i + 1] === '"') { cur += '"'; i++; } else quoted = !quoted;
+    } else if (ch === "," && !quoted) { out.push(cur); cur = ""; } else cur += ch;
   }
   out.push(cur);
-  return out.map((s) => s.trim()).filter((s) => s !== "");
+  return out.map((s) => s.trim());
+}
+
+function firstLine(text) {
+  const line = text.replace(/^\uFEFF/, "").split(/\r?\n/, 1)[0] || "";
+  return splitLine(line).filter((s) => s !== "");
+}
+
+// The layout of an export (DESIGN.md §12), told apart the way the server does: a header with tag, time and
+// value columns is the long layout (one row per sample of one tag), anything else is wide.
+export function isLong(header) {
+  const lower = new Set(header.map((h) => h.toLowerCase()));
+  return lower.has("tag") && lower.has("time") && lower.has("value");
+}
+
+// The distinct tags of a long-layout file, in order of first appearance (at most `limit`).
+export function longTags(text, header, limit = 200) {
+  const col = header.findIndex((h) => h.toLowerCase() === "tag");
+  const seen = new Set();
+  const lines = text.replace(/^\uFEFF/, "").split(/\r?\n/);
+  for (let k = 1; k < lines.length && seen.size < limit; k++) {
+    if (!lines[k].trim()) continue;
+    const tag = splitLine(lines[k])[col];
+    if (tag) seen.add(tag);
+  }
+  return [...seen];
 }
 
 const authHeaders = () => {
@@ -67,6 +93,14 @@ function showError(id, e) {
 
 const hours = (s) => (s >= 7200 ? `${(s / 3600).toFixed(2)} h` : `${(s / 60).toFixed(1)} min`);
 const step = (s) => (s >= 120 ? `${(s / 60).toFixed(2)} min` : `${Number(s.toFixed(2))} s`);
+
+// The SI unit of a reaction's rate constant from its overall order n: 1/s, or (m^3/mol)^(n-1)/s.
+export function rateConstantUnit(reaction) {
+  const n = Object.values((reaction && reaction.orders) || {}).reduce((a, b) => a + Number(b), 0);
+  if (!Number.isFinite(n)) return null;
+  if (Math.abs(n - 1) < 1e-12) return "1/s";
+  return `(m³/mol)^${Number((n - 1).toPrecision(6))}/s`;
+}
 
 // Display of a fitted value in plant units; SI for the rest (the unit is named).
 function inPlantUnits(value, unit) {
@@ -98,6 +132,31 @@ export function targetsOf(doc) {
   if (doc.jacket) out.push("jacket.ua");
   if (doc.heat_loss) out.push("heat_loss.ua");
   return out;
+}
+
+// Plant records on a steady-state curve: x the recorded residence time [min] or feed temperature [°C], y the
+// recorded reactor temperature [°C], colour the time from the first record [min] (the map path's scale).
+export function curvePoints(ov, along) {
+  const xsRaw = along === "residence_time" ? ov.residence_time_s : ov.feed_temperature_K;
+  const xOf = along === "residence_time" ? toMin : toC;
+  const keep = ov.time_s.map((_, i) => Number.isFinite(xsRaw[i]) && Number.isFinite(ov.reactor_temperature_K[i]));
+  const pick = (a, f) => a.filter((_, i) => keep[i]).map(f);
+  const t = pick(ov.time_s, toMin);
+  if (!t.length) return null;
+  const other = along === "residence_time" ? pick(ov.feed_temperature_K, (v) => (v === null ? NaN : toC(v)))
+    : pick(ov.residence_time_s, (v) => (v === null ? NaN : toMin(v)));
+  return {
+    type: "scatter", mode: "markers", name: "plant records (colour: time)", x: pick(xsRaw, xOf),
+    y: pick(ov.reactor_temperature_K, toC), customdata: t.map((v, i) => [v, other[i]]),
+    hovertemplate: (along === "residence_time"
+      ? "τ %{x:.3g} min, T %{y:.1f} °C<br>at %{customdata[0]:.0f} min, feed %{customdata[1]:.1f} °C"
+      : "feed %{x:.1f} °C, T %{y:.1f} °C<br>at %{customdata[0]:.0f} min, τ %{customdata[1]:.3g} min")
+      + "<extra>plant</extra>",
+    marker: { size: 6, color: t, colorscale: TIME_SCALE, cmin: t[0], cmax: t[t.length - 1] || 1,
+      line: { color: "#101c2c", width: 0.6 }, showscale: true,
+      colorbar: { title: { text: "time [min]", side: "top", font: { size: 11 } }, thickness: 8, len: 1, x: 1.01,
+        xanchor: "left", y: 0.5, yanchor: "middle", nticks: 4, tickfont: { size: 10 }, outlinewidth: 0 } },
+  };
 }
 
 export class PlantPanel {
@@ -141,37 +200,49 @@ export class PlantPanel {
     $("plant-fields").textContent = "";
     this.text = await file.text();
     this.header = firstLine(this.text);
+    this.layout = isLong(this.header) ? "long" : "wide";
+    // what is mapped: the header's columns (wide) or the tags found in the tag column (long)
+    const labels = this.layout === "long" ? longTags(this.text, this.header) : this.header;
+    this.columns = labels.map((label) => ({ label, ...splitHeader(label) }));
     const body = $("plant-columns").querySelector("tbody");
     body.textContent = "";
     const doc = this.ctx.scenario() || {};
     const feedSpecies = Object.keys((doc.feed && doc.feed.concentrations) || {});
     const roles = [...ROLES, ...feedSpecies.map((s) => `feed_concentration.${s}`)];
-    this.header.forEach((h, i) => {
-      const { tag, unit } = splitHeader(h);
-      const sel = el("select", { id: `plant-role-${i}`, "data-tag": tag, "aria-label": `Role of column ${tag}` });
-      sel.append(el("option", { value: "", text: "not used" }), el("option", { value: "time", text: "time" }));
+    const what = this.layout === "long" ? "tag" : "column";
+    $("plant-columns-what").textContent = this.layout === "long" ? "Tag" : "Column";
+    $("plant-columns-caption").textContent = this.layout === "long"
+      ? `Long layout (tag, time, value${this.header.some((h) => h.toLowerCase() === "quality") ? ", quality" : ""}): `
+        + `${this.columns.length} tags found. What each tag is, with its unit; leave a tag "not used" to skip it.`
+      : 'What each column is. Leave a column "not used" to skip it.';
+    $("plant-columns").dataset.layout = this.layout;
+    this.columns.forEach(({ label, tag, unit }, i) => {
+      const sel = el("select", { id: `plant-role-${i}`, "data-tag": tag, "aria-label": `Role of ${what} ${tag}` });
+      sel.append(el("option", { value: "", text: "not used" }));
+      if (this.layout === "wide") sel.append(el("option", { value: "time", text: "time" }));
       for (const r of roles) {
         sel.append(el("option", { value: r, text: ROLE_WORDS[r] || `feed concentration of ${r.split(".")[1]}` }));
       }
-      sel.value = guessRole(tag);
+      sel.value = this.layout === "wide" ? guessRole(tag) : "";
       const u = el("input", { type: "text", id: `plant-unit-${i}`, value: unit, "data-header-unit": unit,
-        "aria-label": `Unit of column ${tag}`, placeholder: "e.g. degC, m^3/h" });
-      body.append(el("tr", { "data-tag": tag }, el("th", { scope: "row" }, el("code", { text: h })),
+        "aria-label": `Unit of ${what} ${tag}`, placeholder: "e.g. degC, m^3/h" });
+      body.append(el("tr", { "data-tag": tag }, el("th", { scope: "row" }, el("code", { text: label })),
         el("td", {}, sel), el("td", {}, u)));
     });
-    $("plant-columns").hidden = !this.header.length;
-    $("plant-upload").hidden = !this.header.length;
+    const any = this.columns.length > 0;
+    $("plant-columns").hidden = !any;
+    $("plant-upload").hidden = !any;
     if (!this.header.length) showError("plant-error", new Error(`${file.name}: no header line was found.`));
+    else if (!any) showError("plant-error", new Error(`${file.name}: the tag column holds no tags.`));
   }
 
   mappingQuery() {
     const map = [], unit = [];
     let time = null;
-    this.header.forEach((h, i) => {
-      const { tag, unit: headerUnit } = splitHeader(h);
+    this.columns.forEach(({ label, tag, unit: headerUnit }, i) => {
       const role = $(`plant-role-${i}`).value;
       const u = $(`plant-unit-${i}`).value.trim();
-      if (role === "time") time = h;
+      if (role === "time") time = label;
       else if (role) {
         map.push(`${tag}=${role}`);
         if (u && u !== headerUnit) unit.push(`${tag}=${u}`);
@@ -179,7 +250,7 @@ export class PlantPanel {
     });
     const parts = [`map=${encodeURIComponent(map.join(","))}`];
     if (unit.length) parts.push(`unit=${encodeURIComponent(unit.join(","))}`);
-    if (time) parts.push(`time_column=${encodeURIComponent(time)}`);
+    if (time) parts.push(`time_column=${encodeURIComponent(splitHeader(time).tag)}`);
     return { query: "?" + parts.join("&"), roles: map.length };
   }
 
@@ -187,7 +258,10 @@ export class PlantPanel {
     showError("plant-error", null);
     $("plant-fields").textContent = "";
     const { query, roles } = this.mappingQuery();
-    if (!roles) { showError("plant-error", new Error("Choose a role for at least one column.")); return; }
+    if (!roles) {
+      showError("plant-error", new Error(`Choose a role for at least one ${this.layout === "long" ? "tag" : "column"}.`));
+      return;
+    }
     let resp;
     try {
       resp = await fetch(api.datasets(query), { method: "POST", body: this.text,
@@ -253,6 +327,7 @@ export class PlantPanel {
   async drawOverlay() {
     try {
       this.overlay = await postJSON(api.overlay(), this.body(), "Placing the plant's path on the map");
+      this.overlayLoading = null;
       await this.redrawOverlay();
     } catch (e) {
       showError("plant-error", e);
@@ -284,6 +359,47 @@ export class PlantPanel {
     note.textContent = `Plant's path (dataset ${ov.dataset_id}): ${x.length} records from ${ov.start}, `
       + "light dots first, dark dots last; the scale beside the map is minutes from the first record.";
     $("map").dataset.plantPath = String(x.length);
+  }
+
+  // The overlay of the dataset in the page link, fetched once (the steady-state curves use it without the panel
+  // being opened); the map gets the path too, so both views show the same records.
+  async overlayFor() {
+    const id = this.ctx.state().dataset;
+    if (!id) return null;
+    if (this.overlay && this.overlay.dataset_id === id) return this.overlay;
+    if (!this.overlayLoading || this.overlayLoading.id !== id) {
+      const body = { scenario_id: this.ctx.id, dataset_id: id };
+      const p = postJSON(api.overlay(), body, "Placing the plant's records").then(async (ov) => {
+        this.overlay = ov;
+        await this.redrawOverlay();
+        return ov;
+      });
+      this.overlayLoading = { id, p };
+    }
+    return this.overlayLoading.p;
+  }
+
+  // The recorded reactor temperature against the curve's input (residence time or feed temperature), as
+  // markers coloured by time on the map path's scale; null when there is nothing to draw.
+  curveTrace(along) {
+    const ov = this.overlay;
+    if (!ov || ov.dataset_id !== this.ctx.state().dataset) return null;
+    return curvePoints(ov, along);
+  }
+
+  // The note under the curves: what the plant's markers are, and that each curve holds the other input.
+  describeCurves(node) {
+    if (!node) return;
+    const ov = this.overlay;
+    node.hidden = !(ov && ov.dataset_id === this.ctx.state().dataset);
+    if (node.hidden) return;
+    const n = ov.reactor_temperature_K.filter((v) => Number.isFinite(v)).length;
+    node.textContent = n
+      ? `Markers: the plant's records (dataset ${ov.dataset_id}, ${n} with a reactor temperature, from ${ov.start}), `
+        + "recorded reactor temperature against the recorded input, light first, dark last. Each curve holds the "
+        + "other input at the setpoint's value, so a record taken at another feed temperature or residence time "
+        + "is not expected to lie on it."
+      : `The plant's dataset ${ov.dataset_id} has no reactor temperature to place on the curves.`;
   }
 
   async replay() {
@@ -339,14 +455,25 @@ export class PlantPanel {
       extra.reference_temperature = `${K} K`;
     }
     $("plant-fit").disabled = true;
+    const status = $("plant-cal-status");
+    const t0 = performance.now();
+    status.textContent = `Fitting ${fit.length} parameter${fit.length > 1 ? "s" : ""}: every trial replays the `
+      + "whole record, and each 95 % interval needs a few fits of its own; this takes seconds to tens of seconds.";
+    const tick = setInterval(() => {
+      status.textContent = status.textContent.replace(/ \(\d+ s so far\)$/, "")
+        + ` (${Math.round((performance.now() - t0) / 1000)} s so far)`;
+    }, 1000);
     try {
       const cal = await postJSON(api.calibrate(), this.body(extra), "Fitting the parameters");
       this.calibration = cal;
       this.renderCalibration(cal);
+      status.textContent = `Fitted in ${((performance.now() - t0) / 1000).toFixed(1)} s.`;
     } catch (e) {
+      status.textContent = "";
       showError("plant-cal-error", e instanceof ApiError && e.fields.length
         ? new Error(e.fields.map((f) => `${f.field}: ${f.message}`).join("; ")) : e);
     } finally {
+      clearInterval(tick);
       $("plant-fit").disabled = false;
     }
   }
@@ -355,7 +482,11 @@ export class PlantPanel {
     const doc = this.ctx.scenario();
     const body = $("plant-estimates").querySelector("tbody");
     body.textContent = "";
-    for (const e of cal.estimates) {
+    for (const e0 of cal.estimates) {
+      // a rate constant's unit from its reaction's orders (the answer names it generically)
+      const m = /^reactions\[(\d+)\]\.rate_constant$/.exec(e0.target);
+      const kUnit = m && doc && doc.reactions ? rateConstantUnit(doc.reactions[Number(m[1])]) : null;
+      const e = kUnit ? { ...e0, unit: kUnit } : e0;
       const [lo, hi] = e.interval_95;
       const side = (v) => (v === null ? "open" : inPlantUnits(v, e.unit));
       body.append(el("tr", { "data-target": e.target, "data-value": String(e.value) },

@@ -31,6 +31,7 @@ function syncURL(push = false) {
   $("json-twin").href = twin;
   $("twin-link").href = twin;
   $("print-link").href = urls.printPage(ID, state);
+  $("uncertainty-link").href = urls.uncertaintyPage(ID, state); // the setpoint and window go along
   $("dl-check").href = twin;
   $("dl-map").href = urls.mapOfPage(ID, state, "csv");
   $("dl-scenario").href = urls.apiScenario(ID);
@@ -399,12 +400,15 @@ async function loadCurves() {
   const sp = setpoint();
   const maxK = (view.scenario.limits || {}).max_temperature;
   const ranges = { residence_time: state.map_residence_time, feed_temperature: state.map_feed_temperature };
+  // the plant's records of the dataset in the link go on the curves too (plant.js)
+  const records = state.dataset ? plant().overlayFor().catch(() => null) : Promise.resolve(null);
   const one = async (along, node) => {
     const body = { scenario_id: ID, along, ...sp };
     if (ranges[along]) body.range = ranges[along];
     try {
       const doc = await postJSON(urls.apiPost("branch"), body, "Tracing the steady-state curves");
-      if (seq === view.seq.curves) await drawBranch(Plotly, node, doc, sp, maxK);
+      const extra = (await records) ? [plant().curveTrace(along)].filter(Boolean) : [];
+      if (seq === view.seq.curves) await drawBranch(Plotly, node, doc, sp, maxK, extra);
     } catch (e) { if (seq === view.seq.curves) node.textContent = `This curve could not be traced: ${e.message}`; }
   };
   const heat = async () => {
@@ -413,6 +417,7 @@ async function loadCurves() {
     } catch (e) { $("heat-balance").textContent = `The heat balance could not be drawn: ${e.message}`; }
   };
   await Promise.all([one("residence_time", $("curve-tau")), one("feed_temperature", $("curve-tin")), heat()]);
+  if (seq === view.seq.curves) plant().describeCurves($("curves-plant-note"));
 }
 
 // -- simulation ---------------------------------------------------------------------------------------------

@@ -7,7 +7,7 @@ import * as urls from "./urls.js";
 import { getJSON, showProblem, wireProblemBox, boot, plotlyReady } from "./api.js";
 import { layout, segments, chain, isLogSpaced } from "./map.js";
 import { LINES } from "./palette.js";
-import { fmtMin, fmtTemp, toMin, toC } from "./units.js";
+import { fmtMin, fmtTemp, toMin, toC, inputMin, inputTemp, parseTime, parseTemperature } from "./units.js";
 
 const $ = (id) => document.getElementById(id);
 
@@ -38,10 +38,11 @@ function state() {
 }
 
 // The expected time of a computation, for the progress bar: a generous figure per sample-cell measured on a
-// loaded machine (benchmarks/bench_uncertainty.py); the bar says it is an estimate.
+// loaded machine (benchmarks/bench_uncertainty.py: one reaction about 0.4 us CPU per sample-cell, several
+// reactions about 5 us, wall time about twice that under load); the bar says it is an estimate.
 function expectedSeconds(st) {
   const n = st.points ? st.points[0] * st.points[1] : 100 * 100;
-  return 2.0 + st.samples * n * 4e-6;
+  return 2.0 + st.samples * n * ((boot().reactions || 1) > 1 ? 1e-5 : 4e-6);
 }
 
 function progress(st) {
@@ -174,6 +175,9 @@ function choose(select, value, label) {
 }
 
 function fillForm(st) {
+  $("unc-tau").value = inputMin(st.residence_time ?? NaN);
+  $("unc-tin").value = inputTemp(st.feed_temperature ?? NaN);
+  $("unc-branch").value = st.branch ?? "";
   choose($("unc-samples"), String(st.samples), String(st.samples));
   $("unc-seed").value = String(st.seed);
   $("unc-show").value = st.show;
@@ -181,12 +185,120 @@ function fillForm(st) {
   else $("unc-points").value = "";
 }
 
+// The form's view state; throws an Error in plain words for a setpoint that cannot be read.
 function formState(st) {
   const pts = $("unc-points").value.split(",").map(Number);
+  const tau = $("unc-tau").value.trim(), tin = $("unc-tin").value.trim();
   return {
     ...st, samples: Number($("unc-samples").value), seed: Math.max(0, Math.round(Number($("unc-seed").value) || 0)),
     show: $("unc-show").value, points: pts.length === 2 && pts.every((n) => n >= 2) ? pts : null,
+    residence_time: tau ? parseTime(tau) : null, feed_temperature: tin ? parseTemperature(tin) : null,
+    branch: $("unc-branch").value || null,
   };
+}
+
+// -- the setpoint check with confidence (the check answer's "uncertainty" block, DESIGN.md §11) ------------
+const VERDICT_WORDS = {
+  inside: "inside the safe operating window",
+  marginal: "marginal",
+  outside: "outside the safe operating window",
+  undetermined: "undetermined (a computation failed)",
+};
+const pct = (p) => `${(100 * p).toFixed(p > 0 && p < 0.01 ? 2 : 1)} %`;
+const hours = (s) => (Number.isFinite(s) ? (s >= 7200 ? `${(s / 3600).toFixed(1)} h` : `${(s / 60).toFixed(0)} min`) : "—");
+
+function table(node, head, rows) {
+  node.textContent = "";
+  [head, ...rows].forEach((cells, r) => {
+    const tr = document.createElement("tr");
+    cells.forEach((c, i) => {
+      const td = document.createElement(r === 0 || i === 0 ? "th" : "td");
+      if (r === 0) td.scope = "col"; else if (i === 0) td.scope = "row";
+      td.textContent = c;
+      if (i > 0) td.className = "num";
+      tr.append(td);
+    });
+    node.append(tr);
+  });
+}
+
+export function checkLines(doc) {
+  const u = doc.uncertainty, c = u.counts, n = u.samples;
+  const b = u.upper_bound_95;
+  const unc = doc.reasons.find((r) => r.startsWith("under the stated uncertainty"));
+  // the check makes a nominal "inside" marginal when the bound is above the policy, with that reason only
+  const nominalInside = unc && doc.verdict === "marginal" && doc.reasons.length === 1;
+  const lines = [
+    nominalInside
+      ? "With the nominal data the setpoint is inside the safe operating window; under the uncertain data the " +
+        "verdict is marginal (the reason is below)."
+      : `The check's verdict is ${VERDICT_WORDS[doc.verdict] || doc.verdict}` +
+        (unc ? "; the uncertain data add a reason (below)." : "."),
+    `The verdict would be outside in ${c.outside} of ${n} samples: probability ${pct(u.probability_outside)}, ` +
+      `at most ${pct(b.outside)} with 95 % confidence.`,
+    `It would be marginal or worse in ${c.marginal_or_worse} of ${n} samples: probability ` +
+      `${pct(u.probability_marginal_or_worse)}, at most ${pct(b.marginal_or_worse)} with 95 % confidence` +
+      (doc.verdict !== "inside" && c.marginal_or_worse === n ? " (the nominal upsets count for every sample)." : "."),
+  ];
+  if (c.undetermined) lines.push(`${c.undetermined} of ${n} samples could not be computed; they are counted as outside.`);
+  return lines;
+}
+
+function policyLine(doc) {
+  const u = doc.uncertainty, b = u.upper_bound_95.outside, lim = u.max_unsafe_probability;
+  const reason = doc.reasons.find((r) => r.startsWith("under the stated uncertainty"));
+  if (reason) return `The bound is above the acceptable ${pct(lim)}, so the check carries this reason: ${reason}.`;
+  return `The 95 % bound on the probability of outside, ${pct(b)}, is within the acceptable ${pct(lim)} ` +
+    "(check_policy.max_unsafe_probability).";
+}
+
+async function loadCheck(id, st) {
+  const status = $("unc-check-status"), body = $("unc-check-body"), box = $("unc-check");
+  const url = urls.uncertaintyCheck(id, st);
+  $("unc-check-json").href = url;
+  $("unc-check-page").href = urls.scenarioPage(id, {
+    residence_time: st.residence_time, feed_temperature: st.feed_temperature, branch: st.branch, panel: "check",
+  });
+  body.hidden = true;
+  status.hidden = false;
+  status.textContent = `Checking the setpoint with ${st.samples} samples (seed ${st.seed}); the nominal upsets are ` +
+    "simulated first, which can take a while…";
+  let doc;
+  try {
+    doc = await getJSON(url, "Checking the setpoint under the uncertain data");
+  } catch (err) {
+    status.textContent = `The check with confidence could not be computed: ${err.message}`;
+    return;
+  }
+  const u = doc.uncertainty, op = doc.operating_point;
+  $("unc-check-setpoint").textContent =
+    `Setpoint: residence time ${fmtMin(op.residence_time_s)}, feed ${fmtTemp(op.feed_temperature_K)}` +
+    (st.residence_time || st.feed_temperature ? "" : " (the scenario's own feed)") +
+    `; ${u.samples} samples (seed ${u.seed}) of ${u.parameters.join(", ") || "nothing uncertain"}, rate constants ` +
+    `stated at ${fmtTemp(u.reference_temperature_K)}.`;
+  const ul = $("unc-check-lines");
+  ul.textContent = "";
+  for (const text of checkLines(doc)) {
+    const li = document.createElement("li");
+    li.textContent = text;
+    ul.append(li);
+  }
+  const q = u.quantiles;
+  table($("unc-check-quantiles"), ["Over the samples", "5 %", "median", "95 %"], [
+    ["Steady temperature", fmtTemp(q.temperature_K.q05), fmtTemp(q.temperature_K.q50), fmtTemp(q.temperature_K.q95)],
+    ["MTSR (cooling lost, adiabatic)", fmtTemp(q.mtsr_K.q05), fmtTemp(q.mtsr_K.q50), fmtTemp(q.mtsr_K.q95)],
+    ["TMRad (time to maximum rate)", hours(q.tmr_ad_s.q05), hours(q.tmr_ad_s.q50), hours(q.tmr_ad_s.q95)],
+  ]);
+  $("unc-check-policy").textContent = policyLine(doc);
+  $("unc-check-notes").textContent = `Bounds: ${u.upper_bound_basis}. Margins: ${u.margins}.`;
+  const f = (v) => (v === null || v === undefined ? "—" : Number(v).toFixed(2));
+  table($("unc-check-drivers"), ["Parameter", "Steady temperature [K per sd]", "MTSR [K per sd]"],
+    u.drivers.length ? u.drivers.map((d) => [d.target, f(d.temperature_K_per_sd), f(d.mtsr_K_per_sd)])
+      : [["no uncertain parameter", "—", "—"]]);
+  status.hidden = true;
+  body.hidden = false;
+  box.dataset.samples = String(u.samples);
+  box.dataset.seed = String(u.seed);
 }
 
 async function load(id, st) {
@@ -228,12 +340,19 @@ function main() {
   });
   $("unc-form").addEventListener("submit", (ev) => {
     ev.preventDefault();
-    st = formState(st);
+    try {
+      st = formState(st);
+    } catch (err) {
+      showProblem(err);
+      return;
+    }
     history.pushState(null, "", urls.uncertaintyPage(id, st));
     load(id, st);
+    loadCheck(id, st);
   });
-  window.addEventListener("popstate", () => { st = state(); fillForm(st); load(id, st); });
+  window.addEventListener("popstate", () => { st = state(); fillForm(st); load(id, st); loadCheck(id, st); });
   load(id, st);
+  loadCheck(id, st);
 }
 
 main();

@@ -138,7 +138,10 @@ export function apiCompare(state) {
 }
 
 // -- probability map (DESIGN.md §11) -----------------------------------------------------------------------
-export const UNCERTAINTY_KEYS = ["samples", "seed", "show", "map_residence_time", "map_feed_temperature", "points"];
+export const UNCERTAINTY_KEYS = [
+  "samples", "seed", "show", "map_residence_time", "map_feed_temperature", "points", "residence_time",
+  "feed_temperature", "branch",
+];
 export const SHOWN = ["unsafe", "runaway", "unstable", "multiple"];
 
 export function readUncertaintyState(search = window.location.search) {
@@ -151,15 +154,31 @@ export function readUncertaintyState(search = window.location.search) {
     map_residence_time: pair(q.get("map_residence_time")),
     map_feed_temperature: pair(q.get("map_feed_temperature")),
     points: pair(q.get("points")),
+    residence_time: positive(q.get("residence_time")),
+    feed_temperature: positive(q.get("feed_temperature")),
+    branch: ["low", "high"].includes(q.get("branch")) ? q.get("branch") : null,
   };
   if (st.points) st.points = st.points.map((n) => Math.round(n));
   return st;
+}
+
+function positive(text) {
+  const v = Number(text);
+  return text !== null && text !== "" && Number.isFinite(v) && v > 0 ? v : null;
 }
 
 export function uncertaintyPage(id, state) {
   const out = {};
   for (const k of UNCERTAINTY_KEYS) if (state && state[k] !== undefined && state[k] !== null) out[k] = state[k];
   return `/scenarios/${seg(id)}/uncertainty` + query(out);
+}
+
+// The check with confidence of the page's view: its setpoint (default the scenario's feed), samples and seed.
+export function uncertaintyCheck(id, state) {
+  return apiAnswer(id, "check", {
+    residence_time: state.residence_time, feed_temperature: state.feed_temperature, branch: state.branch,
+    samples: state.samples ?? 256, seed: state.seed,
+  });
 }
 
 export function uncertaintyMap(id, state, format) {

@@ -211,6 +211,7 @@ def render_uncertainty(block: dict) -> str:
     ]
     if c["undetermined"]:
         lines.append(f"  {c['undetermined']} samples could not be computed (counted as outside)")
+    lines.append(f"  bounds: {block['upper_bound_basis']}")
     if block["drivers"]:
         lines.append(
             "  drivers (K per standard deviation, steady temperature / MTSR): "

@@ -21,31 +21,45 @@ the data (k0 and E_a fitted directly are correlated to within 1e-6 of ±1 and ca
 The residuals are simulated minus recorded outputs, each divided by its scale (``OUTPUT_SCALES``: 1 K for
 temperatures, 1 cm for the level, 1 % for the valve opening, 1 m³/h for the flow), so several outputs can be
 fitted together. Statistics and intervals come from ``exomap.core.fit``.
+
+The Jacobian of the residuals is not taken by finite differences of replays: each trial replay integrates the
+forward sensitivities of the reactor temperature and concentrations with the state (``exomap.core.replay``),
+from the analytic derivative of the balances with respect to each target (``_balance_derivative``). One
+integration then gives the residuals and their exact Jacobian, free of the integrator noise a difference
+quotient amplifies, so the replays can run at a moderate tolerance.
 """
 
 from __future__ import annotations
 
 import math
 import re
-from collections.abc import Sequence
+import warnings
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, replace
 
 import numpy as np
 
 from exomap.core.errors import ModelInputError
 from exomap.core.fit import FitResult, least_squares_fit
+from exomap.core.model import Inputs, Kinetics
 from exomap.core.replay import OUTPUT_ROLES, PlantRecord, ReplayResult, replay
 from exomap.core.scenario import R_GAS, Scenario
 
 #: Scale dividing each output's residuals (SI): 1 K, 1 cm, 1 % opening, 1 m^3/h.
 OUTPUT_SCALES = {"reactor_temperature": 1.0, "level": 0.01, "valve_opening": 0.01, "outlet_flow": 1.0 / 3600.0}
-#: Integrator tolerance of the replays inside a fit: tight, so the sum of squares is smooth in the parameters.
-REPLAY_RTOL = 1e-8
+#: Integrator tolerance of the replays inside a fit. The Jacobian comes from the sensitivity equations, not from
+#: differences, so the only need is that the sum of squares be accurate well inside the 95 % threshold's rise
+#: (about 4 s^2): at 3e-7 the replay of the benchmark's 8 h record agrees with one at 1e-11 to about 1e-5 K.
+REPLAY_RTOL = 3e-7
+#: Without sensitivities (``calibrate(..., sensitivities=False)``): replays tight enough for difference quotients
+#: with a relative step of 1e-4 (about the square root of the replay's relative noise).
+DIFFERENCES_RTOL = 1e-8
+DIFF_STEP = 1e-4
+#: xtol/ftol/gtol of the main fit: parameters to about 1e-10 relative, far inside any standard error.
+FIT_TOLERANCE = 1e-8
 #: Most model evaluations of one trial replay inside a fit: a trial far from the data (a parameter driven to an
 #: extreme by a flat profile) that stiffens the model is a bad fit, not a reason to integrate for minutes.
 TRIAL_EVALUATIONS = 20_000
-#: Relative finite-difference step: about the square root of the replay's relative noise.
-DIFF_STEP = 1e-4
 _TARGET_RE = re.compile(
     r"^(?:reactions\[(?P<j>\d+)\]\.(?P<rxn>rate_constant|activation_energy|reaction_enthalpy)"
     r"|(?P<plain>jacket\.ua|heat_loss\.ua|jacket\.coolant_temperature|liquid\.heat_capacity)"
@@ -79,7 +93,10 @@ def parse_target(path: str, sc: Scenario) -> Target:
     if m.group("rxn"):
         j = int(m.group("j"))
         if j >= len(sc.reactions):
-            raise ModelInputError(f"the scenario has {len(sc.reactions)} reactions, not {j + 1}", field=path)
+            n = len(sc.reactions)
+            raise ModelInputError(
+                f"the scenario has {n} reaction{'s' if n != 1 else ''} (numbered from 0), no reactions[{j}]", field=path
+            )
         return Target(path, m.group("rxn"), index=j)
     if m.group("species"):
         s = m.group("species")
@@ -212,6 +229,48 @@ def _unit(t: Target) -> str:
     }[t.kind]
 
 
+def _balance_derivative(
+    sc: Scenario, targets: Sequence[Target], rec: PlantRecord, T_ref: float, scale: np.ndarray
+) -> Callable[[np.ndarray, float, float, Inputs, np.ndarray], np.ndarray]:
+    """d(dC/dt, dT/dt)/dθ of the scenario ``sc`` (already at the trial values) for the fitted parametrisation
+    (ln k for a rate constant), each column multiplied by ``scale`` (so the integrator sees sensitivities of
+    one size). A recorded coolant temperature or feed concentration overrides the scenario's: zero column."""
+    kin = Kinetics.of(sc)
+    rhocp = sc.rho * sc.cp
+    n = sc.n_species
+    p = len(targets)
+    recorded_tc = rec.has("coolant_temperature")
+    recorded_c = {s: rec.has(f"feed_concentration.{s}") for s in sc.species}
+
+    def deriv(C: np.ndarray, T: float, V: float, u: Inputs, r: np.ndarray) -> np.ndarray:
+        out = np.zeros((n + 1, p))
+        for k, t in enumerate(targets):
+            col = out[:, k]
+            if t.kind in ("rate_constant", "activation_energy"):
+                j = t.index
+                # r_j = k_ref exp(-E_a/R (1/T - 1/T_ref)) g(C): d r_j/d ln k_ref = r_j
+                dr = r[j] if t.kind == "rate_constant" else -r[j] * (1.0 / T - 1.0 / T_ref) / R_GAS
+                col[:n] = kin.nu[:, j] * dr
+                col[n] = kin.J[j] * dr
+            elif t.kind == "reaction_enthalpy":
+                col[n] = -r[t.index] / rhocp
+            elif t.kind == "jacket.ua":
+                col[n] = -(T - u.T_c) / (rhocp * V)
+            elif t.kind == "heat_loss.ua":
+                col[n] = -(T - u.T_amb) / (rhocp * V)
+            elif t.kind == "jacket.coolant_temperature":
+                col[n] = 0.0 if recorded_tc else u.UA_jacket / (rhocp * V)
+            elif t.kind == "liquid.heat_capacity":
+                heat_out = u.UA_jacket * (T - u.T_c) + u.UA_loss * (T - u.T_amb) - u.P_agitator
+                col[n] = -float(kin.J @ r) / sc.cp + heat_out / (rhocp * sc.cp * V)
+            elif t.kind == "feed_concentration":
+                i = sc.species.index(t.species)
+                col[i] = 0.0 if recorded_c[t.species] else u.q_in / V
+        return out * scale
+
+    return deriv
+
+
 def calibrate(
     sc: Scenario,
     rec: PlantRecord,
@@ -220,6 +279,8 @@ def calibrate(
     T_ref: float | None = None,
     outputs: Sequence[str] = ("reactor_temperature",),
     profile: bool = True,
+    deadline: float | None = None,
+    sensitivities: bool = True,
 ) -> CalibrationResult:
     """Fit ``targets`` so the replay of ``rec`` matches its recorded ``outputs``.
 
@@ -237,6 +298,12 @@ def calibrate(
         Recorded outputs to fit (``OUTPUT_ROLES``).
     profile : bool
         Profile-likelihood intervals (default) or linearised ones.
+    deadline : float, optional
+        ``time.monotonic()`` past which the profiles stop (their intervals are then not given, with a warning):
+        a server passes what is left of its time budget, so the estimates still come back.
+    sensitivities : bool
+        Jacobian from the sensitivity equations (default). False: finite differences of replays at a tight
+        tolerance, the earlier method, kept as the benchmark's baseline and as an independent check.
 
     Returns
     -------
@@ -272,27 +339,63 @@ def calibrate(
     def natural(p: np.ndarray) -> np.ndarray:
         return np.array([math.exp(x) if t.log else x for t, x in zip(parsed, p, strict=True)])
 
-    def residuals(p: np.ndarray) -> np.ndarray:
+    n_res = sum(int(np.isfinite(rec.series[o]).sum()) for o in outputs)
+    # sensitivities of a relative change of each natural parameter (ln k is already relative)
+    scale = np.array([1.0 if t.log else (abs(p) if p != 0 else 1.0) for t, p in zip(parsed, p0, strict=True)])
+    T_row = sc.n_species  # the temperature's row of the sensitivities
+    cache: dict[bytes, tuple[np.ndarray, np.ndarray]] = {}
+
+    def evaluate(p: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        key = np.asarray(p, dtype=float).tobytes()
+        hit = cache.get(key)
+        if hit is not None:
+            return hit
         try:
             trial = with_values(sc, parsed, natural(p), T_ref)
-            res = replay(trial, rec, rtol=REPLAY_RTOL, max_evaluations=TRIAL_EVALUATIONS)
+            with warnings.catch_warnings():
+                # a far trial may make LSODA complain before it fails; the failure is what counts (below)
+                warnings.simplefilter("ignore", UserWarning)
+                res = replay(
+                    trial,
+                    rec,
+                    rtol=REPLAY_RTOL if sensitivities else DIFFERENCES_RTOL,
+                    max_evaluations=TRIAL_EVALUATIONS,
+                    sensitivity=_balance_derivative(trial, parsed, rec, T_ref, scale) if sensitivities else None,
+                    n_params=len(parsed) if sensitivities else 0,
+                )
         except (ModelInputError, ArithmeticError, ValueError, RuntimeError):
             # a trial the model cannot follow (no steady state, integrator failure) is a very bad fit, not a crash
-            return np.full(sum(int(np.isfinite(rec.series[o]).sum()) for o in outputs), 1e6)
-        parts = []
-        for o in outputs:
-            r = res.residuals[o]
-            parts.append(r[np.isfinite(r)] / OUTPUT_SCALES[o])
-        return np.concatenate(parts)
+            out = (np.full(n_res, 1e6), np.zeros((n_res, len(parsed))))
+        else:
+            parts, jparts = [], []
+            for o in outputs:
+                r = res.residuals[o]
+                ok = np.isfinite(r)
+                parts.append(r[ok] / OUTPUT_SCALES[o])
+                if not sensitivities:
+                    continue
+                if o == "reactor_temperature":
+                    jparts.append(res.sensitivity[T_row].T[ok] / scale / OUTPUT_SCALES[o])  # type: ignore[index]
+                else:
+                    # level, valve and outlet flow do not depend on any target (constant density)
+                    jparts.append(np.zeros((int(ok.sum()), len(parsed))))
+            out = (np.concatenate(parts), np.concatenate(jparts) if sensitivities else np.zeros((0, 0)))
+        if len(cache) > 8:
+            cache.pop(next(iter(cache)))
+        cache[key] = out
+        return out
 
     fit = least_squares_fit(
-        residuals,
+        lambda p: evaluate(p)[0],
         p0,
         names=[t.path for t in parsed],
+        jac=(lambda p: evaluate(p)[1]) if sensitivities else None,
         bounds=(lower, upper),
         profile=profile,
         max_nfev=200,
-        diff_step=DIFF_STEP,
+        diff_step=None if sensitivities else DIFF_STEP,
+        tolerance=FIT_TOLERANCE if sensitivities else 1e-15,
+        deadline=deadline,
     )
     est = natural(fit.estimates)
     se = np.array([v * s if t.log else s for t, v, s in zip(parsed, est, fit.standard_errors, strict=True)])

@@ -3,7 +3,7 @@
 ``check_setpoint()`` is the list of DESIGN.md §6 as named steps:
 
 1. ``_operating_point``: the point and the request checked (the upsets' cap bounded like a simulation);
-2. ``steady_states`` and ``_pick_state``: every steady state, and which one the tank is on;
+2. ``steady_states`` and ``pick_state``: every steady state, and which one the tank is on;
 3. ``region_of``: the map region of the point;
 4. ``_margins``: to ignition, extinction, the maximum temperature and the valve's usable range;
 5. ``safety_figures``: ΔT_ad, MTSR, TMRad, TD24, criticality class;
@@ -486,7 +486,9 @@ def _operating_point(
     return float(sc.tau_nominal if tau is None else tau), float(sc.T_in if T_in is None else T_in)
 
 
-def _pick_state(states: tuple[Any, ...], branch: str | None) -> tuple[int, str]:
+def pick_state(states: tuple[Any, ...], branch: str | None) -> tuple[int, str]:
+    """(index of the state the tank is taken to be on, the assumption in words): the only one, the low stable
+    one by default, or the stable state of the ``branch`` asked ("low" or "high")."""
     stable = [i for i, s in enumerate(states) if s.stability == "stable"]
     n = len(states)
     if n == 1:
@@ -639,7 +641,7 @@ def _ceiling(sc: Scenario, events: list[dict[str, Any]], sim: SimulationResult) 
 
 
 @dataclass(frozen=True)
-class _Evidence:
+class Evidence:
     """Everything the rules read."""
 
     sc: Scenario
@@ -655,7 +657,7 @@ class _Evidence:
         return self.steady.states[self.idx]
 
 
-def failed_computations(ev: _Evidence) -> list[Finding]:
+def failed_computations(ev: Evidence) -> list[Finding]:
     """``undetermined``: a state that did not converge, a branch not traced, an upset not followed, a TD24
     that cannot be bounded."""
     out = []
@@ -684,7 +686,7 @@ def failed_computations(ev: _Evidence) -> list[Finding]:
     return out
 
 
-def operating_state(ev: _Evidence) -> list[Finding]:
+def operating_state(ev: Evidence) -> list[Finding]:
     """``outside``: the operating state is not stable, or it is above the maximum temperature."""
     st, T_max = ev.state, ev.sc.limits.T_max
     out = []
@@ -707,7 +709,7 @@ def operating_state(ev: _Evidence) -> list[Finding]:
     return out
 
 
-def map_region(ev: _Evidence) -> list[Finding]:
+def map_region(ev: Evidence) -> list[Finding]:
     """``outside`` in ``runaway``; ``marginal`` in ``multiple`` or ``sensitive``."""
     sc, states = ev.sc, ev.steady.states
     if ev.region == "runaway":
@@ -751,7 +753,7 @@ _MARGIN_WORDS = {
 }  # fmt: skip
 
 
-def margins_below_thresholds(ev: _Evidence) -> list[Finding]:
+def margins_below_thresholds(ev: Evidence) -> list[Finding]:
     """``marginal``: a margin below its threshold; the steady temperature or MTSR too close to the maximum."""
     sc, lim, pol = ev.sc, ev.sc.limits, ev.sc.policy
     out = []
@@ -800,7 +802,7 @@ def _valve_out_of_range(x: float) -> str:
     return ""
 
 
-def valve_range(ev: _Evidence) -> list[Finding]:
+def valve_range(ev: Evidence) -> list[Finding]:
     """``marginal``: the valve opening needed is outside its usable range, or the valve cannot pass the flow."""
     pol = ev.sc.policy
     x = float(ev.state.valve_opening)
@@ -825,7 +827,7 @@ def valve_range(ev: _Evidence) -> list[Finding]:
     ]
 
 
-def decomposition(ev: _Evidence) -> list[Finding]:
+def decomposition(ev: Evidence) -> list[Finding]:
     """``outside``: MTSR reaches TD24, or the criticality class is 4 or 5; ``marginal``: class 3, or the
     maximum temperature at or above TD24."""
     s, T_max = ev.safety, ev.sc.limits.T_max
@@ -862,7 +864,7 @@ def decomposition(ev: _Evidence) -> list[Finding]:
     return out
 
 
-def upset_outcomes(ev: _Evidence) -> list[Finding]:
+def upset_outcomes(ev: Evidence) -> list[Finding]:
     """``marginal``: an upset crosses the maximum temperature, overflows sooner than
     ``check_policy.min_time_to_act``, or is still heating at its cap."""
     sc, lim, pol = ev.sc, ev.sc.limits, ev.sc.policy
@@ -922,11 +924,17 @@ RULES = (
 )
 
 
-def _findings(ev: _Evidence) -> list[Finding]:
+def judge(ev: Evidence) -> tuple[str, tuple[str, ...]]:
+    """(verdict, reasons) of the evidence by ``RULES`` (DESIGN.md §6); the check under uncertain data judges
+    every sample with it."""
+    return _verdict(_findings(ev), ev)
+
+
+def _findings(ev: Evidence) -> list[Finding]:
     return [f for rule in RULES for f in rule(ev)]
 
 
-def _verdict(findings: list[Finding], ev: _Evidence | None) -> tuple[str, tuple[str, ...]]:
+def _verdict(findings: list[Finding], ev: Evidence | None) -> tuple[str, tuple[str, ...]]:
     """``undetermined`` with only its reasons when anything failed; else the worst level, worst reasons first."""
     failed = [f.text for f in findings if f.level == "undetermined"]
     if failed:
@@ -996,14 +1004,14 @@ def check_setpoint(
     if not steady.states:
         return _result(sc, tau_v, T_in_v, branch, steady, None, "no steady state found", None, (), None, (),
                        ("undetermined", (f"no steady state was found at this point ({steady.message})",)))  # fmt: skip
-    idx, assumption = _pick_state(steady.states, branch)
+    idx, assumption = pick_state(steady.states, branch)
     st = steady.states[idx]
     safety = safety_figures(sc, tau_v, T_in_v, st)
     if not steady.success:  # nothing computed from a state that did not converge is worth showing
-        ev = _Evidence(sc, steady, idx, region_of(sc, steady.states), (), safety, ())
+        ev = Evidence(sc, steady, idx, region_of(sc, steady.states), (), safety, ())
         return _result(sc, tau_v, T_in_v, branch, steady, idx, assumption, None, (), None, (),
                        _verdict(failed_computations(ev), None))  # fmt: skip
-    ev = _Evidence(
+    ev = Evidence(
         sc=sc,
         steady=steady,
         idx=idx,
@@ -1065,12 +1073,15 @@ def _result(
 __all__ = [
     "ALARM_KINDS",
     "CheckResult",
+    "Evidence",
     "Finding",
     "MTSR_ASSUMES",
     "Margin",
     "RULES",
     "UpsetResult",
     "check_setpoint",
+    "judge",
+    "pick_state",
     "run_upsets",
     "upset_battery",
 ]

@@ -23,7 +23,7 @@ from __future__ import annotations
 import csv
 import io
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, fields
 
 import numpy as np
 from scipy.optimize import brentq
@@ -43,10 +43,17 @@ SAMPLES_EXPLICIT = 256
 SAMPLES_GENERAL = 160
 #: States polished at once (keeps the working arrays in cache; see _cell_states).
 POLISH_CHUNK = 8192
+# Newton evaluations of a state at most, and the step below which it is done (relative to max(1, |s|))
+POLISH_ITERATIONS = 8
+POLISH_ACCEPT = 1e-9
+# points of the grid searched for a hidden fold pair inside a dip of |dT_in/ds|
+UNHIDE_GRID = 17
+UNHIDE_ZOOMS = 3
 #: Columns used for the boundary curves at least (more than the map's when the map is coarse).
 BOUNDARY_COLUMNS = 200
 SPACINGS = ("log", "linear")
 #: None as a 0-d object array: np.where with it gives object arrays whose tolist() has None for NaN.
+SAMPLE_FIELDS = tuple(f.name for f in fields(Samples))
 _NONE = np.array(None, dtype=object)
 
 
@@ -126,7 +133,9 @@ class MapResult:
         return out.getvalue()
 
 
-def _grid_args(sc: Scenario, tau_range, T_in_range, points, spacing):
+def grid_axes(sc: Scenario, tau_range, T_in_range, points, spacing):  # noqa: ANN001
+    """The map's axes (tau [s], T_in [K]) from a window (None: the scenario's map window); raises
+    ``ModelInputError``/``LimitExceededError`` naming the field. Shared with the probability map."""
     if spacing not in SPACINGS:
         raise ModelInputError("spacing must be 'log' or 'linear'", field="spacing")
     spec = sc.map
@@ -168,33 +177,43 @@ def _refine(
     iterations: int = 60,
 ) -> tuple[np.ndarray, Samples]:
     """Vectorised root of func(Samples) bracketed by coordinates a and b, by the Illinois variant of the
-    false-position method (superlinear, never leaves the bracket), to machine precision."""
+    false-position method (superlinear, never leaves the bracket), to machine precision. Each iteration
+    evaluates only the roots not yet converged."""
     fb = func(_eval(mf, tau, b, guess))
     fa = np.asarray(fa, dtype=float).copy()
     a, b = a.astype(float).copy(), b.astype(float).copy()
     side = np.zeros(a.shape)
     c_prev = np.full(a.shape, np.nan)
+    c = 0.5 * (a + b)
+    guess = None if guess is None else guess.copy()
+    act = np.arange(a.size)
     for _ in range(iterations):
-        with np.errstate(invalid="ignore", divide="ignore"):
-            c = (a * fb - b * fa) / (fb - fa)
-        c = np.where(np.isfinite(c) & (c > np.minimum(a, b)) & (c < np.maximum(a, b)), c, 0.5 * (a + b))
-        e = _eval(mf, tau, c, guess)
-        fc = func(e)
-        left = np.sign(fc) == np.sign(fa)
-        # Illinois: halve the weight of the end that stays twice in a row
-        a, fa, b, fb = (np.where(left, c, a), np.where(left, fc, fa), np.where(left, b, c), np.where(left, fb, fc))
-        fb = np.where(left & (side > 0), 0.5 * fb, fb)
-        fa = np.where(~left & (side < 0), 0.5 * fa, fa)
-        side = np.where(left, 1.0, -1.0)
-        if guess is not None:
-            guess = e.C
-        if np.all(
-            (np.abs(b - a) <= 4e-16 * np.maximum(np.maximum(np.abs(a), np.abs(b)), 1.0))
-            | (fc == 0)
-            | (np.abs(c - c_prev) <= 1e-15 * np.abs(c))
-        ):
+        if act.size == 0:
             break
-        c_prev = c
+        A, B, FA, FB = a[act], b[act], fa[act], fb[act]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            C = (A * FB - B * FA) / (FB - FA)
+        C = np.where(np.isfinite(C) & (C > np.minimum(A, B)) & (C < np.maximum(A, B)), C, 0.5 * (A + B))
+        e = _eval(mf, tau[act], C, None if guess is None else guess[act])
+        FC = func(e)
+        left = np.sign(FC) == np.sign(FA)
+        # Illinois: halve the weight of the end that stays twice in a row
+        S = side[act]
+        A, FA, B, FB = (np.where(left, C, A), np.where(left, FC, FA), np.where(left, B, C), np.where(left, FB, FC))
+        FB = np.where(left & (S > 0), 0.5 * FB, FB)
+        FA = np.where(~left & (S < 0), 0.5 * FA, FA)
+        a[act], fa[act], b[act], fb[act] = A, FA, B, FB
+        side[act] = np.where(left, 1.0, -1.0)
+        c[act] = C
+        if guess is not None:
+            guess[act] = e.C
+        done = (
+            (np.abs(B - A) <= 4e-16 * np.maximum(np.maximum(np.abs(A), np.abs(B)), 1.0))
+            | (FC == 0)
+            | (np.abs(C - c_prev[act]) <= 1e-15 * np.abs(C))
+        )
+        c_prev[act] = C
+        act = act[~done]
     return c, _eval(mf, tau, c, guess)
 
 
@@ -248,7 +267,7 @@ def operating_map(
         More cells than ``MAX_CELLS``.
     """
     validate(sc)
-    tau, T_in = _grid_args(sc, tau_range, T_in_range, points, spacing)
+    tau, T_in = grid_axes(sc, tau_range, T_in_range, points, spacing)
     mf = Manifold(sc, c_in=c_in, T_c=T_c)
     N = samples or (SAMPLES_EXPLICIT if mf.explicit else SAMPLES_GENERAL)
     T_lo, T_hi = mf.temperature_window(float(T_in[0]), float(T_in[-1]), float(tau[-1]))
@@ -327,13 +346,26 @@ def unhide_fold_pairs(mf: Manifold, smp: Samples) -> Samples:
     tau_d = smp.tau[dc, dk]
     lo, hi = smp.s[dc, dk - 1], smp.s[dc, dk + 1]
     xi_d = None if mf.explicit else smp.C[dc, dk]
-    for _ in range(20):  # golden-section search for the extremum of sign * dT_in/ds (to 1e-4 of a sample)
-        m1 = hi - 0.618033988749895 * (hi - lo)
-        m2 = lo + 0.618033988749895 * (hi - lo)
-        f1 = sgn * _eval(mf, tau_d, m1, xi_d).dTin_ds
-        f2 = sgn * _eval(mf, tau_d, m2, xi_d).dTin_ds
-        lo, hi = np.where(f1 < f2, lo, m1), np.where(f1 < f2, m2, hi)
-    s_ext = 0.5 * (lo + hi)
+    # the extremum of sign * dT_in/ds: UNHIDE_ZOOMS zooms of a grid (one vectorised evaluation each, every dip
+    # at once; the bracket shrinks 8-fold per zoom), then the vertex of the parabola through the three grid
+    # points around it; the value at the vertex is what decides, and a parabola fits a smooth extremum to third
+    # order
+    g = np.linspace(0.0, 1.0, UNHIDE_GRID)
+    n_d = dc.size
+    rep = None if xi_d is None else np.repeat(xi_d, UNHIDE_GRID, axis=0)
+    for _ in range(UNHIDE_ZOOMS):
+        sg = lo[:, None] + (hi - lo)[:, None] * g
+        f = sgn[:, None] * _eval(mf, np.repeat(tau_d, UNHIDE_GRID), sg.ravel(), rep).dTin_ds.reshape(n_d, -1)
+        f = np.where(np.isfinite(f), f, np.inf)
+        kk = np.clip(np.argmin(f, axis=1), 1, UNHIDE_GRID - 2)
+        r = np.arange(n_d)
+        lo, hi = sg[r, kk - 1], sg[r, kk + 1]
+    f0, f1, f2 = f[r, kk - 1], f[r, kk], f[r, kk + 1]
+    h = sg[r, kk] - sg[r, kk - 1]
+    den = f0 - 2.0 * f1 + f2
+    with np.errstate(invalid="ignore", divide="ignore"):
+        off = np.where(den > 0, 0.5 * h * (f0 - f2) / den, 0.0)
+    s_ext = sg[r, kk] + np.clip(np.where(np.isfinite(off), off, 0.0), -h, h)
     e = _eval(mf, tau_d, s_ext, xi_d)
     hidden = sgn * e.dTin_ds < 0
     if not hidden.any():
@@ -386,57 +418,73 @@ def _cell_states(mf: Manifold, smp: Samples, cols: FoldColumns, T_in: np.ndarray
     end_slot = fk + 1 + 2 * rank
     sL = np.repeat(smp.s[:, -1:], L, axis=1)
     vL = np.repeat(smp.T_in[:, -1:], L, axis=1)
+    dL = np.repeat(smp.dTin_ds[:, -1:], L, axis=1)
     sL[rows, slot] = smp.s
     vL[rows, slot] = smp.T_in
+    dL[rows, slot] = smp.dTin_ds
     fs, fv = cols.fold.s[order], cols.fold.T_in[order]
     for off in (0, 1):
         sL[fc, end_slot + off] = fs
         vL[fc, end_slot + off] = fv
-    seg_step = np.zeros((n_tau, L), dtype=np.int64)
-    seg_step[fc, end_slot + 1] = 1
-    seg = np.cumsum(seg_step, axis=1)  # piece index of every slot
-    first_idx = np.zeros((n_tau, S), dtype=np.int64)
-    has = np.zeros((n_tau, S), dtype=bool)
-    has[:, 0] = True
-    first_idx[fc, rank + 1] = end_slot + 1
-    has[fc, rank + 1] = True
+        dL[fc, end_slot + off] = 0.0  # dT_in/ds vanishes at a fold
+    starts = np.zeros((n_tau, L), dtype=bool)  # slot that starts a piece (after a fold)
+    starts[fc, end_slot + 1] = True
+    seg = np.cumsum(starts, axis=1, dtype=np.int16)  # piece index of every slot
     # direction of a piece: the sign of dT_in/ds at its first sample
     d_first = np.full((n_tau, S), 1.0)
     d_first[:, 0] = smp.dTin_ds[:, 0]
     d_first[fc, rank + 1] = smp.dTin_ds[fc, np.minimum(fk + 1, N - 1)]
     direction = np.where(d_first >= 0, 1.0, -1.0)
-    # span of each piece (pieces are contiguous runs of the flattened layout)
-    c_has, p_has = np.nonzero(has)
-    starts = c_has * L + first_idx[c_has, p_has]
-    flat_v = vL.ravel()
-    vmin = np.full((n_tau, S), np.inf)
-    vmax = np.full((n_tau, S), -np.inf)
-    vmin[c_has, p_has] = np.minimum.reduceat(flat_v, starts)
-    vmax[c_has, p_has] = np.maximum.reduceat(flat_v, starts)
-    span = float(np.nanmax(np.abs(flat_v))) * 4.0 + 1.0
-    key = (direction[rows, seg] * vL + span * (rows * S + seg)).ravel()
-    # which (row, column, piece) hold a state: the piece's span contains the row's feed temperature;
-    # dense arrays are laid out (piece, row, column) so that the per-cell reductions over pieces are
-    # element-wise operations on contiguous slices
-    present = (
-        has.T[:, None, :] & (T_in[None, :, None] >= vmin.T[:, None, :]) & (T_in[None, :, None] <= vmax.T[:, None, :])
-    )
-    pi, ri, ci = np.nonzero(present)
+    # the intervals between neighbouring slots of one piece: T_in is monotone along a piece, so every feed
+    # temperature of the grid inside a piece's span lies in exactly one of its intervals when each interval is
+    # half-open [low, high) and the one that ends at the piece's highest T_in is closed (the last interval of a
+    # rising piece, the first of a falling one); an interval with a non-finite end holds no state
+    va, vb = vL[:, :-1], vL[:, 1:]
+    lo = np.minimum(va, vb)
+    hi = np.maximum(va, vb)
+    last = np.ones((n_tau, L - 1), dtype=bool)
+    last[:, :-1] = starts[:, 2:]
+    first = np.ones((n_tau, L - 1), dtype=bool)
+    first[:, 1:] = starts[:, 1:-1]
+    seg_a = seg[:, :-1]
+    rising = direction[rows, seg_a] > 0
+    closed = np.where(rising, last, first)
+    # rows of the grid below each slot's T_in, once per slot (an interval's ends are two neighbouring slots)
+    below = np.searchsorted(T_in, vL.ravel(), side="left").reshape(n_tau, L)
+    up = vb >= va
+    i_lo = np.where(up, below[:, :-1], below[:, 1:]).ravel()
+    i_hi = np.where(up, below[:, 1:], below[:, :-1]).ravel()
+    on_top = closed.ravel() & (i_hi < n_tin)
+    on_top[on_top] = T_in[i_hi[on_top]] == hi.ravel()[on_top]
+    i_hi = i_hi + on_top
+    usable = (~starts[:, 1:]).ravel() & np.isfinite(lo.ravel()) & np.isfinite(hi.ravel())
+    n_in = np.where(usable, np.maximum(i_hi - i_lo, 0), 0)
+    J = np.nonzero(n_in)[0]  # flat interval index (column * (L-1) + slot)
+    n_J = n_in[J]
+    total = int(n_J.sum())
+    which = np.repeat(np.arange(J.size), n_J)
+    offset = np.cumsum(n_J) - n_J
+    ri = i_lo[J][which] + (np.arange(total) - offset[which])  # feed-temperature row of each state
+    Jw = J[which]
+    ci = Jw // (L - 1)
+    j0 = Jw - ci * (L - 1)
+    pi = seg_a.ravel()[Jw].astype(np.intp)
+    k0 = ci * L + j0
+    k1 = k0 + 1
     v = T_in[ri]
-    q = direction[ci, pi] * v + span * (ci * S + pi)
-    pos = np.searchsorted(key, q, side="left")
-    pos = np.clip(pos, ci * L + first_idx[ci, pi] + 1, ci * L + L - 1)
-    k0, k1 = pos - 1, pos
-    ka, kb = key[k0], key[k1]
-    with np.errstate(invalid="ignore", divide="ignore"):
-        w = np.where(kb > ka, (q - ka) / (kb - ka), 0.0)
-    w = np.clip(w, 0.0, 1.0)
-    s_flat = sL.ravel()
+    flat_v, s_flat, d_flat = vL.ravel(), sL.ravel(), dL.ravel()
+    va_s, vb_s = flat_v[k0], flat_v[k1]
     sa, sb = s_flat[k0], s_flat[k1]
-    ss = sa + w * (sb - sa)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        w = np.where(vb_s != va_s, (v - va_s) / (vb_s - va_s), 0.0)
+    w = np.clip(w, 0.0, 1.0)
+    dirn = np.where(vb_s >= va_s, 1.0, -1.0)
+    ss = _hermite_start(w, dirn * (vb_s - va_s), sa, sb, dirn * d_flat[k0], dirn * d_flat[k1])
     lo_b = np.minimum(sa, sb)
     hi_b = np.maximum(sa, sb)
     ts = smp.tau[ci, 0]
+    present = np.zeros((S, n_tin, n_tau), dtype=bool)
+    present[pi, ri, ci] = True
     xi_g = None
     if not mf.explicit:
         xiL = np.repeat(smp.C[:, -1:], L, axis=1)
@@ -470,6 +518,23 @@ def _cell_states(mf: Manifold, smp: Samples, cols: FoldColumns, T_in: np.ndarray
     return {"present": present, "T": T, "stable": stable, "sensitivity": sensitivity, "unknown": unknown}
 
 
+def _hermite_start(
+    t: np.ndarray, h: np.ndarray, sa: np.ndarray, sb: np.ndarray, ga: np.ndarray, gb: np.ndarray
+) -> np.ndarray:
+    """Start of the polish: the coordinate s at the fraction t of a step h > 0 of |T_in| between two samples
+    sa <= sb, by cubic Hermite interpolation of the inverse function s(|T_in|) with end slopes 1/ga, 1/gb
+    (ga, gb = d|T_in|/ds at the samples). Where a slope is not usable (next to a fold it tends to infinity) or
+    the cubic could leave the bracket (Fritsch-Carlson: each end slope at most 3 x the secant), the linear
+    start."""
+    ds = sb - sa
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        ok = (ga * ds * 3.0 >= h) & (gb * ds * 3.0 >= h) & (h > 0)
+        t2 = t * t
+        t3 = t2 * t
+        cubic = sa + ds * (3.0 * t2 - 2.0 * t3) + (h / ga) * (t - 2.0 * t2 + t3) + (h / gb) * (t3 - t2)
+    return np.where(ok, cubic, sa + t * ds)
+
+
 def _polish(
     mf: Manifold,
     ts: np.ndarray,
@@ -479,39 +544,60 @@ def _polish(
     hi_b: np.ndarray,
     xi_g: np.ndarray | None,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Newton steps on T_in(s) = v from interpolated starts, kept inside their brackets; returns the states'
-    temperature, stability, dT/dT_in and whether temperature and stability are known (finite). Stability and
-    slope are taken at the polished point (explicit path) or at the point of the second step (general path,
-    which would need one more isothermal solve everywhere; the later steps are far below the sample spacing)."""
+    """Newton steps on T_in(s) = v from the interpolated starts, kept inside their brackets; returns the states'
+    temperature, stability, dT/dT_in and whether temperature and stability are known (finite).
+
+    A state is done when its Newton step is below ``POLISH_ACCEPT`` (relative to max(1, |s|)): the step is taken
+    and the temperature moved along it to first order (the error is of the order of the step squared, below
+    1e-15 K on the explicit path; on the general path s is the temperature itself), with stability and slope
+    taken at the point of that last evaluation (closer to the state than any sample can resolve). The others
+    step again, on the shrinking subset only; after ``POLISH_ITERATIONS`` evaluations whatever is left is taken
+    as it stands (a state on a fold, where T_in(s) is flat and Newton slow)."""
+    n = ss.size
     ss = ss.copy()
-    for _ in range(2):
-        e = _eval(mf, ts, ss, xi_g)
-        xi_g = None if mf.explicit else e.C
+    T_out = np.empty(n)
+    stable = np.zeros(n, dtype=bool)
+    known = np.zeros(n, dtype=bool)
+    sens = np.empty(n)
+    idx = np.arange(n)
+    for it in range(POLISH_ITERATIONS):
+        full = idx.size == n
+        t_i, s_i = (ts, ss) if full else (ts[idx], ss[idx])
+        g_i = None if xi_g is None else (xi_g if full else xi_g[idx])
+        e = _eval(mf, t_i, s_i, g_i)
+        v_i = v if full else v[idx]
         with np.errstate(invalid="ignore", divide="ignore"):
-            step = (e.T_in - v) / e.dTin_ds
+            step = (e.T_in - v_i) / e.dTin_ds
         step = np.where(np.isfinite(step), step, 0.0)
-        ss = np.clip(ss - step, lo_b, hi_b)
-    # next to a fold T_in(s) is nearly flat, the linear start is poor and Newton slow: keep stepping there only
-    for _ in range(4):
-        idx = np.nonzero(np.abs(step) > 1e-12 * np.abs(ss))[0]
+        new = np.clip(s_i - step, lo_b if full else lo_b[idx], hi_b if full else hi_b[idx])
+        taken = s_i - new
+        done = np.abs(taken) <= POLISH_ACCEPT * np.maximum(np.abs(s_i), 1.0)
+        if it == POLISH_ITERATIONS - 1:
+            done[:] = True
+        ss[idx] = new
+        if xi_g is not None and e.C is not None:
+            xi_g[idx] = e.C
+        d = np.nonzero(done)[0]
+        if d.size:
+            dd = idx[d]
+            e_d = e if d.size == e.T.size else _take(e, d)
+            if mf.explicit:
+                T_out[dd] = e_d.T - e_d.dT_ds * taken[d]
+            else:
+                T_out[dd] = new[d]
+            stable[dd], h_d, _ = mf.stability(e_d.tau, e_d.T, e_d.xi, mf.state_C(e_d))
+            known[dd] = np.isfinite(T_out[dd] + h_d)
+            with np.errstate(invalid="ignore", divide="ignore"):
+                sens[dd] = e_d.dT_ds / e_d.dTin_ds
+        idx = idx[~done]
         if idx.size == 0:
             break
-        e2 = _eval(mf, ts[idx], ss[idx], None if xi_g is None else xi_g[idx])
-        with np.errstate(invalid="ignore", divide="ignore"):
-            s2 = (e2.T_in - v[idx]) / e2.dTin_ds
-        s2 = np.where(np.isfinite(s2), s2, 0.0)
-        ss[idx] = np.clip(ss[idx] - s2, lo_b[idx], hi_b[idx])
-        if xi_g is not None:
-            xi_g[idx] = e2.C
-        step = np.zeros_like(ss)
-        step[idx] = s2
-    if mf.explicit:
-        e = mf.explicit_eval(ts, ss)
-    stable_s, h, _ = mf.stability(e.tau, e.T, e.xi, mf.state_C(e))
-    with np.errstate(invalid="ignore", divide="ignore"):
-        sens = e.dT_ds / e.dTin_ds
-    T_out = e.T if mf.explicit else ss
-    return T_out, stable_s, sens, np.isfinite(T_out + h)
+    return T_out, stable, sens, known
+
+
+def _take(e: Samples, k: np.ndarray) -> Samples:
+    """The points k of 1-D manifold samples."""
+    return Samples(*(None if getattr(e, f) is None else getattr(e, f)[k] for f in SAMPLE_FIELDS))
 
 
 def _classify(sc: Scenario, st: dict) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -548,7 +634,7 @@ def _boundaries(sc: Scenario, mf: Manifold, tau: np.ndarray, cols: FoldColumns, 
     # ignition: a local maximum of T_in(s) (dT_in/ds goes from + to -); both curves are drawn into the cusp
     ign = _chain(tau, cols.fold_col, f.s, f.T_in, inside & cols.rising, cusp_pts)
     ext = _chain(tau, cols.fold_col, f.s, f.T_in, inside & ~cols.rising, cusp_pts)
-    hc, hs, hv = _hopf(mf, tau, cols)
+    hc, hs, hv = hopf_points(mf, tau, cols)
     hopf = _chain(tau, hc, hs, hv, (hv >= tin_lo) & (hv <= tin_hi), [])
     return {
         "ignition": ign,
@@ -675,8 +761,9 @@ def _solve_cusp(
     return (math.exp(x_c), float(e.T_in[0]), float(e.T[0]))
 
 
-def _hopf(mf: Manifold, tau: np.ndarray, cols: FoldColumns) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Hopf points of every column: (column, coordinate s, feed temperature)."""
+def hopf_points(mf: Manifold, tau: np.ndarray, cols: FoldColumns) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Hopf points of every column: (column, coordinate s, feed temperature). Shared with the probability map
+    (``exomap.core.stacked``), whose ``tau`` are column codes."""
     lead, cplx, smp = cols.lead, cols.cplx, cols.smp
     # the smooth Hopf function changes sign with a complex pair possible at either end of the step (it may be
     # complex at one end only: next to a fold, or where a real eigenvalue leads); the zero is then kept only

@@ -23,14 +23,15 @@ normal is mapped to its parameter's distribution:
 The same spec and seed give the same samples, bit for bit.
 
 The probability map (:func:`uncertainty_map`) is the operating map of every sample, counted cell by cell.
-Each (sample, residence-time) column is independent, so for one reaction (the closed-form path of
-``exomap.core.manifold``) the columns of all samples are stacked into one vectorised pass of the map's own
-fold machinery (``exomap.core.opmap.fold_columns``): :class:`StackedManifold` evaluates the manifold with a
-different parameter set per column. Per column the feed temperature is split at the refined folds, Hopf points
-and the point where the steady temperature equals the maximum temperature into runs on which the number of
-states, their stability and whether one is too hot do not change; each cell's region is then a comparison of
-its feed temperature with a handful of run ends. Other scenarios (several reactions) are sampled one by one
-with the deterministic manifold and the same run logic.
+Each (sample, residence-time) column is independent, so the columns of all samples are stacked into one
+vectorised pass of the map's own fold machinery (``exomap.core.opmap.fold_columns``), with the manifold
+evaluated by a different parameter set per column (``exomap.core.stacked``): the closed form of one reaction
+in the log-odds of its conversion, or the general path (several reactions). Per column the feed temperature is
+split at the refined folds, Hopf points and the point where the steady temperature equals the maximum
+temperature into runs on which the number of states, their stability and whether one is too hot do not
+change; each cell's region is then a comparison of its feed temperature with a handful of run ends. Samples
+that do not all feed the same species are taken one by one with the deterministic manifold and the same run
+logic (also the reference of the tests and the benchmark, ``stacked=False``).
 
 The bound on each probability is the exact one-sided 95 % binomial (Clopper–Pearson) bound [2]. Sobol points
 are not independent draws: their estimates are usually closer to the truth than independent ones, so the
@@ -57,9 +58,10 @@ from scipy import special
 from scipy.stats import qmc
 
 from exomap.core.errors import LimitExceededError, ModelInputError
-from exomap.core.manifold import Manifold, Samples
+from exomap.core.manifold import Manifold
 from exomap.core.regions import CODE
 from exomap.core.scenario import R_GAS, Scenario, validate
+from exomap.core.stacked import SingleManifold, StackedManifold, column_regions, stacked_class
 
 DISTRIBUTIONS = ("normal", "lognormal", "uniform")
 #: Default number of samples and seed (DESIGN.md §11).
@@ -80,8 +82,22 @@ BAND_QUANTILES = (0.05, 0.5, 0.95)
 #: are refined to machine precision whatever the spacing, and a fold pair closer than one sample is still found
 #: (opmap's search inside every dip of |dT_in/ds|), so fewer samples only cost robustness next to a cusp.
 STACKED_SAMPLES = 64
+#: Samples per stacked column on the general path: as many as the deterministic map takes
+#: (opmap.SAMPLES_GENERAL). With 64 a Hopf point next to a fold was missed in one cell of the tests' jacketed
+#: A -> P -> D case, for 20 % less time.
+STACKED_SAMPLES_GENERAL = 160
+#: Columns stacked in one pass on the general path (each has opmap.SAMPLES_GENERAL samples and an isothermal
+#: Newton solve per sample: about 30 MB of working arrays for two reactions).
+STACKED_GENERAL_COLUMNS = 1024
 #: Confidence of the one-sided binomial bound.
 CONFIDENCE = 0.95
+#: What the bounds are, said in every answer with them (DESIGN.md §11 asks for the exact binomial bound; the
+#: samples are not independent draws, so the caveat travels with the numbers).
+BOUND_BASIS = (
+    "exact one-sided 95 % binomial bound (Clopper-Pearson) on the share of samples; it assumes independent draws, "
+    "and the samples are scrambled Sobol points, whose estimates are usually closer to the truth than independent "
+    "draws', so for them the bound is on the cautious side"
+)
 
 _TARGET_RE = re.compile(
     r"^(?:reactions\[(\d+)\]\.(rate_constant|activation_energy|reaction_enthalpy)"
@@ -204,8 +220,9 @@ _POSITIVE = {"rate_constant", "activation_energy", "liquid.heat_capacity", "jack
 _NONNEGATIVE = {"jacket.ua", "heat_loss.ua", "concentration"}
 
 
-def validate_spec(sc: Scenario, spec: UncertaintySpec) -> None:
-    """Check a spec against its scenario; raise ``ModelInputError`` naming the target path."""
+def validate_spec(sc: Scenario, spec: UncertaintySpec, T_ref: float | None = None) -> None:
+    """Check a spec against its scenario; raise ``ModelInputError`` naming the target path. ``T_ref``: the
+    reference temperature when already known (:func:`reference_temperature` costs a steady-state solve)."""
     if not isinstance(spec.samples, int) or isinstance(spec.samples, bool):
         raise ModelInputError("samples must be a whole number", field="uncertainty.samples")
     n = spec.samples
@@ -234,8 +251,9 @@ def validate_spec(sc: Scenario, spec: UncertaintySpec) -> None:
                 f"{where}: distribution must be one of {', '.join(DISTRIBUTIONS)}, got {p.distribution!r}",
                 field=field,
             )
-        T_ref = reference_temperature(sc, spec) if kind == "rate_constant" else sc.T_in
-        nominal = nominal_value(sc, p.target, T_ref)
+        if kind == "rate_constant" and T_ref is None:
+            T_ref = reference_temperature(sc, spec)
+        nominal = nominal_value(sc, p.target, T_ref if kind == "rate_constant" else sc.T_in)  # type: ignore[arg-type]
         if p.distribution == "normal":
             if p.sd is None or not (math.isfinite(p.sd) and p.sd >= 0):
                 raise ModelInputError(f"{where}: a normal distribution needs sd >= 0", field=field)
@@ -364,9 +382,9 @@ def draw(
             spec, samples=spec.samples if samples is None else samples, seed=spec.seed if seed is None else seed
         )
     validate(sc)
-    validate_spec(sc, spec)
-    n = spec.samples
     T_ref = reference_temperature(sc, spec)
+    validate_spec(sc, spec, T_ref)
+    n = spec.samples
     d = len(spec.parameters)
     if d:
         u = qmc.Sobol(d, scramble=True, seed=spec.seed).random_base2(int(round(math.log2(n))))
@@ -466,285 +484,6 @@ def upper_bound(k: np.ndarray | int, n: int, confidence: float = CONFIDENCE) -> 
     return np.where(k >= n, 1.0, b)
 
 
-# -- the stacked manifold (one reaction, closed form) -------------------------------------------------------
-class StackedManifold:
-    """The closed-form manifold of one reaction (``Manifold.explicit_eval``) for many parameter sets at once.
-
-    Column ``c`` has its own parameters and residence time. The map machinery passes residence times through
-    to the manifold without using them, so here the "residence time" arrays it carries are column codes: the
-    float index of the column, from which every call gathers that column's parameters. A column code array
-    broadcast along its last axis (as ``Samples.tau`` is) is gathered once per row.
-    """
-
-    explicit = True
-    m = 1
-
-    def __init__(self, samples: ParameterSamples, tau: np.ndarray, sample_index: np.ndarray) -> None:
-        sc = samples.base
-        i = np.asarray(sample_index, dtype=np.int64)
-        tau = np.asarray(tau, dtype=float)
-        rhocpV = sc.rho * samples.cp[i] * sc.vessel.V_set
-        kappa = samples.UA_jacket[i] / rhocpV
-        lam = samples.UA_loss[i] / rhocpV
-        p = sc.P_agitator / rhocpV
-        self.tau = tau
-        self._kappa, self._lam, self._p, self._T_c, self._T_amb = kappa, lam, p, samples.T_c[i], sc.T_amb
-        self.lnk0tau = np.log(samples.k0[i, 0] * tau)
-        self.E = samples.Ea[i, 0] / R_GAS
-        self.J = -samples.dH[i, 0] / (sc.rho * samples.cp[i])
-        self.a_col = 1.0 + (kappa + lam) * tau
-        self.b_col = (kappa * samples.T_c[i] + lam * sc.T_amb + p) * tau
-        nu = sc.nu[:, 0]
-        orders = sc.orders[0]
-        c_in = samples.c_in[i]
-        cons = nu < 0
-        with np.errstate(divide="ignore"):
-            lim = np.where(cons, c_in / np.where(cons, -nu, 1.0), np.inf)
-        self.xi_max = lim.min(axis=1)
-        i_lim = np.argmin(lim, axis=1)
-        self.ok = (orders[i_lim] > 0) & (self.xi_max > 0)
-        self.active = [(c_in[:, k], float(nu[k]), float(orders[k])) for k in range(sc.n_species) if orders[k] != 0]
-        # scalars the map machinery reads: whether any column has heat exchange (Hopf points are possible)
-        self.kappa = float(np.max(kappa))
-        self.lam = float(np.max(lam))
-
-    def temperature_window(self, T_in_lo: float, T_in_hi: float) -> tuple[float, float]:
-        """The union over the columns of ``Manifold.temperature_window`` at each column's residence time [K]."""
-        inf = np.inf
-        lo = np.minimum.reduce(
-            [
-                np.full(self.tau.shape, T_in_lo),
-                np.where(self._kappa > 0, self._T_c, inf),
-                np.where(self._lam > 0, self._T_amb, inf),
-            ]
-        )
-        hi = np.maximum.reduce(
-            [
-                np.full(self.tau.shape, T_in_hi),
-                np.where(self._kappa > 0, self._T_c, -inf),
-                np.where(self._lam > 0, self._T_amb, -inf),
-            ]
-        )
-        release = self.J * self.xi_max  # one reaction: the limiting reactant runs out
-        hi = hi + np.maximum(release, 0.0) + self._p * self.tau
-        lo = lo + np.minimum(release, 0.0)
-        return float(np.min(np.maximum(lo - 2.0, 50.0))), float(np.max(hi + 5.0))
-
-    def _col(self, code: np.ndarray) -> tuple[np.ndarray, Callable[[np.ndarray], np.ndarray]]:
-        code = np.asarray(code)
-        if code.ndim >= 1 and code.shape[-1] > 1 and code.strides[-1] == 0:
-            rows = code[..., :1].astype(np.int64)
-        else:
-            rows = code.astype(np.int64)
-        return rows, lambda arr: arr[rows]
-
-    def _g(self, take, xi: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        logg = np.zeros(np.shape(xi))
-        dlogg = np.zeros(np.shape(xi))
-        with np.errstate(divide="ignore", invalid="ignore"):
-            for c0, nu_i, n_i in self.active:
-                C = take(c0) + nu_i * xi
-                logg += n_i * np.log(C)
-                dlogg += n_i * nu_i / C
-        return logg, dlogg
-
-    def explicit_eval(self, tau: np.ndarray, xi: np.ndarray) -> Samples:
-        tau, xi = np.broadcast_arrays(np.asarray(tau, float), np.asarray(xi, float))
-        _, take = self._col(tau)
-        E = take(self.E)
-        logg, dlogg = self._g(take, xi)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            L = take(self.lnk0tau) + logg - np.log(xi)
-            valid = (L > 0) & (xi > 0) & (xi < take(self.xi_max))
-            T = np.where(valid, E / np.where(valid, L, 1.0), np.nan)
-            dT_dxi = T * T / E * (1.0 / xi - dlogg)
-        a = take(self.a_col)
-        J = take(self.J)
-        T_in = a * T - J * xi - take(self.b_col)
-        dTin = a * dT_dxi - J
-        return Samples(tau, xi, T, xi[..., None], T_in, dTin, dT_dxi, valid, None)
-
-    def trace_det(self, tau: np.ndarray, T: np.ndarray, xi: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """As ``Manifold.trace_det`` (the 2x2 reduced Jacobian on the manifold), per column."""
-        _, take = self._col(tau)
-        x = xi[..., 0]
-        tau_r = take(self.tau)
-        r = x / tau_r
-        _, dlogg = self._g(take, x)
-        alpha = r * dlogg
-        beta = r * take(self.E) / (T * T)
-        a = take(self.a_col)
-        Jb = take(self.J) * beta
-        return alpha + Jb - (1.0 + a) / tau_r, (a - tau_r * (Jb + a * alpha)) / (tau_r * tau_r)
-
-    def state_C(self, e: Samples) -> None:
-        """The map machinery asks a manifold for its points' concentrations (``Manifold.state_C``); this one
-        works from the extent alone (its ``stability`` takes none)."""
-        return None
-
-    def stability(
-        self, tau: np.ndarray, T: np.ndarray, xi: np.ndarray, C: np.ndarray | None = None
-    ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        tr, det = self.trace_det(tau, T, xi)
-        return (tr < 0) & (det > 0), tr, det > 0
-
-    def xi_at_T(self, code: np.ndarray, T: np.ndarray, iterations: int = 60) -> np.ndarray:
-        """As ``Manifold.explicit_xi_at_T``, per column (``code`` the column codes)."""
-        code, T = np.broadcast_arrays(np.asarray(code, float), np.asarray(T, float))
-        _, take = self._col(code)
-        ln_tk = take(self.lnk0tau) - take(self.E) / T
-        xmax = take(self.xi_max)
-        lo = np.log(xmax) - 745.0
-        hi = np.log(xmax)
-        y = np.minimum(ln_tk + self._g(take, np.zeros(T.shape))[0], hi - 1e-12)
-        y = np.maximum(y, lo)
-        for _ in range(iterations):
-            xi = np.exp(y)
-            logg, dlogg = self._g(take, xi)
-            f = y - ln_tk - logg
-            lo = np.where(f < 0, y, lo)
-            hi = np.where(f > 0, y, hi)
-            y_new = y - f / (1.0 - xi * dlogg)
-            bad = ~((y_new > lo) & (y_new < hi))
-            y_new = np.where(bad, 0.5 * (lo + hi), y_new)
-            if np.all(np.abs(y_new - y) <= 1e-15 * np.maximum(np.abs(y), 1.0)):
-                y = y_new
-                break
-            y = y_new
-        return np.exp(y)
-
-    def sample(self, T_lo: float, T_hi: float, N: int) -> Samples:
-        """As ``Manifold.sample`` on the closed-form path: N points per column, even in the log-odds of the
-        conversion between the extents at T_lo and T_hi."""
-        code = np.arange(self.tau.size, dtype=float)
-        s_lo = self.xi_at_T(code, np.full(code.shape, T_lo))
-        s_hi = self.xi_at_T(code, np.full(code.shape, T_hi))
-        u = np.linspace(0.0, 1.0, N)
-        xm = self.xi_max
-        w_lo = np.log(s_lo / (xm - s_lo))
-        w_hi = np.log(s_hi / (xm - s_hi))
-        w = w_lo[:, None] + (w_hi - w_lo)[:, None] * u
-        s = xm[:, None] / (1.0 + np.exp(-w))
-        return self.explicit_eval(code[:, None], s)
-
-    def s_at_T(self, code: np.ndarray, T: float) -> np.ndarray:
-        return self.xi_at_T(code, np.full(np.shape(code), T))
-
-
-class _SingleManifold:
-    """Adapter giving one deterministic ``Manifold`` the interface the run logic uses (codes = column
-    indices into ``tau``)."""
-
-    def __init__(self, mf: Manifold, tau: np.ndarray) -> None:
-        self.mf = mf
-        self.tau = np.asarray(tau, float)
-        self.explicit = mf.explicit
-        self.m = mf.m
-        self.kappa = mf.kappa
-        self.lam = mf.lam
-
-    def sample(self, T_lo: float, T_hi: float, N: int) -> Samples:
-        return self.mf.sample(self.tau, T_lo, T_hi, N)
-
-    def s_at_T(self, idx: np.ndarray, T: float) -> np.ndarray:
-        tau = self.tau[np.asarray(idx, np.int64)]
-        if self.mf.explicit:  # the coordinate of the one-reaction path is the log-odds of the conversion
-            return self.mf.explicit_w_at_T(tau, np.full(tau.shape, T))
-        return np.full(tau.shape, T)
-
-
-# -- per-column runs and cell regions -----------------------------------------------------------------------
-@dataclass(frozen=True)
-class ColumnRegions:
-    """Regions of every (column, feed temperature) cell, and the folds of every column."""
-
-    region: np.ndarray  # (n_columns, n_tin) int8: runaway / unstable / multiple / stable codes
-    ignition: np.ndarray  # (n_columns,) lowest ignition feed temperature [K], NaN where none
-    extinction: np.ndarray  # (n_columns,) highest extinction feed temperature [K], NaN where none
-
-
-def column_regions(mf, T_in: np.ndarray, T_lo: float, T_hi: float, T_max: float, N: int) -> ColumnRegions:  # noqa: ANN001
-    """Region codes of every cell of every column of ``mf`` (a :class:`StackedManifold` or a deterministic
-    manifold wrapped by ``_SingleManifold``), without solving for each cell's states.
-
-    Along a column the steady states are the points of the curve T_in(s) at the cell's feed temperature. The
-    curve is cut at its refined folds, Hopf points and the point at the maximum temperature into runs; on a run
-    T_in is monotone and the stability and "too hot" flags are constant, so a cell has one state on each run
-    whose T_in span contains it, and its region follows from the counts (DESIGN.md §5; ``sensitive`` is not
-    told apart from ``stable`` here).
-    """
-    from exomap.core import opmap
-
-    deterministic = isinstance(mf, _SingleManifold)
-    core_mf = mf.mf if deterministic else mf
-    smp = mf.sample(T_lo, T_hi, N)
-    n_col = smp.s.shape[0]
-    cols = opmap.fold_columns(core_mf, smp)
-    smp = cols.smp
-    code = np.arange(n_col, dtype=float)
-    tau_arg = mf.tau if deterministic else code
-    # nodes: both ends, folds, Hopf points, the point at the maximum temperature
-    node_col = [np.arange(n_col), np.arange(n_col), cols.fold_col]
-    node_s = [smp.s[:, 0], smp.s[:, -1], cols.fold.s]
-    node_v = [smp.T_in[:, 0], smp.T_in[:, -1], cols.fold.T_in]
-    hc, hs, hv = opmap._hopf(core_mf, tau_arg, cols)
-    node_col.append(hc)
-    node_s.append(hs)
-    node_v.append(hv)
-    s_max = mf.s_at_T(code, T_max)
-    inside = (s_max > np.minimum(smp.s[:, 0], smp.s[:, -1])) & (s_max < np.maximum(smp.s[:, 0], smp.s[:, -1]))
-    ic = np.nonzero(inside)[0]
-    if ic.size:
-        e = opmap._eval(core_mf, tau_arg[ic], s_max[ic], None)
-        node_col.append(ic)
-        node_s.append(s_max[ic])
-        node_v.append(e.T_in)
-    col = np.concatenate(node_col).astype(np.int64)
-    s = np.concatenate(node_s)
-    v = np.concatenate(node_v)
-    order = np.lexsort((s, col))
-    col, s, v = col[order], s[order], v[order]
-    pair = np.nonzero(col[:-1] == col[1:])[0]
-    rc = col[pair]
-    s_mid = 0.5 * (s[pair] + s[pair + 1])
-    e = opmap._eval(core_mf, tau_arg[rc], s_mid, None)
-    stable, _, _ = core_mf.stability(e.tau, e.T, e.xi, core_mf.state_C(e))
-    hot = e.T > T_max
-    lo = np.minimum(v[pair], v[pair + 1])
-    hi = np.maximum(v[pair], v[pair + 1])
-    ok = np.isfinite(lo) & np.isfinite(hi) & np.isfinite(e.T)
-    rank = np.arange(rc.size) - np.searchsorted(rc, rc)
-    R = int(rank.max()) + 1 if rank.size else 1
-    LO = np.full((n_col, R), np.inf)
-    HI = np.full((n_col, R), -np.inf)
-    ST = np.zeros((n_col, R), dtype=bool)
-    HT = np.zeros((n_col, R), dtype=bool)
-    LO[rc[ok], rank[ok]] = lo[ok]
-    HI[rc[ok], rank[ok]] = hi[ok]
-    ST[rc[ok], rank[ok]] = stable[ok]
-    HT[rc[ok], rank[ok]] = stable[ok] & hot[ok]
-    region = np.empty((n_col, T_in.size), dtype=np.int8)
-    chunk = max(1, (1 << 21) // max(T_in.size * R, 1))
-    vv = T_in[None, :, None]
-    for a in range(0, n_col, chunk):
-        b = min(a + chunk, n_col)
-        present = (LO[a:b, None, :] <= vv) & (vv < HI[a:b, None, :])
-        count = present.sum(axis=2)
-        n_stable = (present & ST[a:b, None, :]).sum(axis=2)
-        runaway = (present & HT[a:b, None, :]).any(axis=2)
-        reg = np.full(count.shape, CODE["stable"], dtype=np.int8)
-        reg[count > 1] = CODE["multiple"]
-        reg[n_stable == 0] = CODE["unstable"]
-        reg[runaway] = CODE["runaway"]
-        region[a:b] = reg
-    ign = np.full(n_col, np.nan)
-    ext = np.full(n_col, np.nan)
-    rising = cols.rising
-    np.fmin.at(ign, cols.fold_col[rising], cols.fold.T_in[rising])
-    np.fmax.at(ext, cols.fold_col[~rising], cols.fold.T_in[~rising])
-    return ColumnRegions(region, ign, ext)
-
-
 # -- the uncertainty map --------------------------------------------------------------------------------------
 @dataclass(frozen=True)
 class UncertaintyMapResult:
@@ -793,6 +532,7 @@ class UncertaintyMapResult:
                 "parameters": list(self.targets),
                 "probability": {k: grid(self.probability[k]) for k in PROBABILITY_KEYS},
                 "upper_bound_95": {k: grid(self.upper[k]) for k in PROBABILITY_KEYS},
+                "upper_bound_basis": BOUND_BASIS,
                 "max_unsafe_probability": self.max_unsafe_probability,
                 "robust_window": self.robust.tolist(),
                 "boundary_bands": {
@@ -927,7 +667,7 @@ def uncertainty_map(
             field="uncertainty",
         )
     n_req = spec.samples if samples is None else samples
-    tau, T_in = opmap._grid_args(sc, tau_range, T_in_range, points, spacing)
+    tau, T_in = opmap.grid_axes(sc, tau_range, T_in_range, points, spacing)
     if n_req * tau.size * T_in.size > MAX_SAMPLE_CELLS:
         raise LimitExceededError(
             f"{n_req} samples x {tau.size} x {T_in.size} cells is more than the limit of {MAX_SAMPLE_CELLS} "
@@ -944,45 +684,44 @@ def uncertainty_map(
     )
     T_max = sc.limits.T_max
     n_tau, n_tin = tau.size, T_in.size
-    explicit = False
-    mfs: list[Manifold] = []
-    if len(sc.reactions) == 1:
-        whole = StackedManifold(ps, np.full(ps.n, tau[-1]), np.arange(ps.n))
-        explicit = bool(np.all(whole.ok))
-    if explicit:
+    lo_in, hi_in = float(T_in[0]), float(T_in[-1])
+    # how the samples are taken: stacked with the closed form of one reaction, stacked on the general path
+    # (several reactions), or one deterministic manifold per sample (the reference; also where the samples
+    # cannot be stacked)
+    kind = stacked_class(ps)
+    if kind is None or not stacked:
+        mfs = [Manifold(ps.scenario(i)) for i in range(ps.n)]
+    if kind is not None:
         # one temperature window for every sample, the union of theirs (Manifold.temperature_window, per sample)
-        T_lo, T_hi = whole.temperature_window(float(T_in[0]), float(T_in[-1]))
+        T_lo, T_hi = kind(ps, np.full(ps.n, tau[-1]), np.arange(ps.n)).window(lo_in, hi_in)
     else:
-        mfs = [Manifold(ps.scenario(i)) for i in range(ps.n)]
-        wins = np.array([mf.temperature_window(float(T_in[0]), float(T_in[-1]), float(tau[-1])) for mf in mfs])
+        wins = np.array([mf.temperature_window(lo_in, hi_in, float(tau[-1])) for mf in mfs])
         T_lo, T_hi = float(wins[:, 0].min()), float(wins[:, 1].max())
-    if explicit and not stacked:
-        mfs = [Manifold(ps.scenario(i)) for i in range(ps.n)]
-    if stacked and explicit:
-        N = STACKED_SAMPLES
-        region = np.empty((ps.n * n_tau, n_tin), dtype=np.int8)
-        ign = np.empty(ps.n * n_tau)
-        ext = np.empty(ps.n * n_tau)
+    region = np.empty((ps.n * n_tau, n_tin), dtype=np.int8)
+    ign = np.empty(ps.n * n_tau)
+    ext = np.empty(ps.n * n_tau)
+    if stacked and kind is not None:
+        if kind is StackedManifold:
+            N, budget = STACKED_SAMPLES, 1 << 12
+            method = "stacked columns (closed-form manifold of one reaction)"
+        else:
+            N, budget = STACKED_SAMPLES_GENERAL, STACKED_GENERAL_COLUMNS
+            method = "stacked columns (general path)"
         # chunks of whole samples keep the working arrays moderate and let progress be reported
-        per = max(1, min(ps.n, (1 << 12) // n_tau))
+        per = max(1, min(ps.n, budget // n_tau))
         for a in range(0, ps.n, per):
             b = min(a + per, ps.n)
             idx = np.repeat(np.arange(a, b), n_tau)
-            smf = StackedManifold(ps, np.tile(tau, b - a), idx)
-            cr = column_regions(smf, T_in, T_lo, T_hi, T_max, N)
+            cr = column_regions(kind(ps, np.tile(tau, b - a), idx), T_in, T_lo, T_hi, T_max, N)
             region[a * n_tau : b * n_tau] = cr.region
             ign[a * n_tau : b * n_tau] = cr.ignition
             ext[a * n_tau : b * n_tau] = cr.extinction
             if progress:
                 progress(b / ps.n)
-        method = "stacked columns (closed-form manifold of one reaction)"
     else:
-        region = np.empty((ps.n * n_tau, n_tin), dtype=np.int8)
-        ign = np.empty(ps.n * n_tau)
-        ext = np.empty(ps.n * n_tau)
         for i, mf in enumerate(mfs):
             N = opmap.SAMPLES_EXPLICIT if mf.explicit else opmap.SAMPLES_GENERAL
-            cr = column_regions(_SingleManifold(mf, tau), T_in, T_lo, T_hi, T_max, N)
+            cr = column_regions(SingleManifold(mf, tau), T_in, T_lo, T_hi, T_max, N)
             region[i * n_tau : (i + 1) * n_tau] = cr.region
             ign[i * n_tau : (i + 1) * n_tau] = cr.ignition
             ext[i * n_tau : (i + 1) * n_tau] = cr.extinction

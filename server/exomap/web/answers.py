@@ -274,6 +274,7 @@ class MapAnswer(Answer):
     parameters: list[str] = MaybeAbsent()
     probability: ProbabilityGridsAnswer = MaybeAbsent()
     upper_bound_95: ProbabilityGridsAnswer = MaybeAbsent()
+    upper_bound_basis: str = MaybeAbsent()
     max_unsafe_probability: float = MaybeAbsent()
     robust_window: list[list[bool]] = MaybeAbsent()
     boundary_bands: BoundaryBandsAnswer = MaybeAbsent()
@@ -455,10 +456,12 @@ class CheckUncertaintyAnswer(Answer):
     probability_marginal_or_worse: float
     counts: CheckCountsAnswer
     upper_bound_95: CheckBoundsAnswer
+    upper_bound_basis: str = Field(description="What the bounds are, and why they are cautious for these samples.")
     max_unsafe_probability: float = Field(description="check_policy.max_unsafe_probability [-].")
     quantiles: CheckQuantilesAnswer
     drivers: list[CheckDriverAnswer]
     upsets: str
+    margins: str = Field(description="How each sample's margins are found.")
 
 
 class CheckAnswer(Answer):

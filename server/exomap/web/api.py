@@ -24,6 +24,7 @@ from exomap.web.answers import (
     ScenarioSummary,
     VersionAnswer,
 )
+from exomap.web.compression import AnswerResponse, accepts_gzip, local_client
 from exomap.web.errors import ApiError, error_responses
 from exomap.web.jobs import Answer
 from exomap.web.models import BranchRequest, CheckRequest, MapRequest, SimulateRequest, SteadyRequest
@@ -82,28 +83,19 @@ ServiceDep = Annotated[Service, Depends(get_service)]
 SettingsDep = Annotated[Settings, Depends(get_settings)]
 
 
-def _accepts_gzip(request: Request) -> bool:
-    for item in request.headers.get("accept-encoding", "").split(","):
-        coding, _, params = item.strip().partition(";")
-        if coding.strip().lower() == "gzip":
-            return params.replace(" ", "") not in ("q=0", "q=0.0", "q=0.00", "q=0.000")
-    return False
-
-
 def _answer_response(
     request: Request, out: Answer, hit: bool, fmt: str, kind: str, scenario: str | None = None
 ) -> Response:
-    """The answer as sent: its stored gzip form when the client takes gzip (compressed once, in the worker)."""
+    """The answer as sent: gzipped for a client across a network that takes gzip (compressed once per cached
+    answer), as it is for a client on this machine (exomap.web.compression)."""
     headers = {"X-Exomap-Cache": "hit" if hit else "miss", "Vary": "Accept-Encoding"}
     media = "application/json"
     if fmt == "csv":
         name = f"{kind}-{scenario}.csv" if scenario else f"{kind}.csv"
         headers["Content-Disposition"] = f'inline; filename="{name}"'
         media = "text/csv; charset=utf-8"
-    if out.gz is not None and _accepts_gzip(request):
-        headers["Content-Encoding"] = "gzip"
-        return Response(out.gz, media_type=media, headers=headers)
-    return Response(out.body, media_type=media, headers=headers)
+    compress = accepts_gzip(request.headers) and not local_client(request.scope)
+    return AnswerResponse(out, compress=compress, hit=hit, media_type=media, headers=headers)
 
 
 def _compute_responses(kind: str, post: bool = False) -> dict[int | str, dict[str, Any]]:

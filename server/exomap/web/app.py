@@ -5,9 +5,10 @@ the SQLite file in ``settings.data_dir``), applying its migrations, and reads th
 demo scenarios; the pool of workers starts on the first computation (or at startup under uvicorn, through the
 lifespan) and stops with the app.
 
-Middleware, outermost first: security headers, the Host check, HEAD answered as GET without a body, gzip
-(answers over 1 kB), CORS (only when ``cors_origins`` is set), the request-body limit. Every failure goes through
-``exomap.web.errors``.
+Middleware, outermost first: the server's time (``Server-Timing`` of computed answers), security headers, the
+Host check, HEAD answered as GET without a body, gzip (answers over 1 kB, for clients across a network:
+``exomap.web.compression``), CORS (only when ``cors_origins`` is set), the request-body limit. Every failure
+goes through ``exomap.web.errors``.
 """
 
 from __future__ import annotations
@@ -22,13 +23,13 @@ from typing import Any
 
 from fastapi import FastAPI
 from starlette.middleware.cors import CORSMiddleware
-from starlette.middleware.gzip import GZipMiddleware
 
 from exomap.web import apidocs, pages
 from exomap.web.api import API_VERSION, build_router
 from exomap.web.compare import build_compare_router
+from exomap.web.compression import NetworkGZip
 from exomap.web.errors import install_error_handlers
-from exomap.web.middleware import BodyLimit, HeadAsGet, HostCheck, SecurityHeaders, allowed_hosts
+from exomap.web.middleware import BodyLimit, HeadAsGet, HostCheck, SecurityHeaders, ServerTiming, allowed_hosts
 from exomap.web.plant import build_plant_router
 from exomap.web.service import Service
 from exomap.web.settings import Settings
@@ -118,8 +119,10 @@ def create_app(settings: Settings | None = None, *, warm_up: bool = False) -> Fa
             allow_methods=["GET", "POST"],
             allow_headers=["Content-Type", "Authorization"],
         )
-    app.add_middleware(GZipMiddleware, minimum_size=1000)
+    # gzip (answers over 1 kB) for clients across a network only (exomap.web.compression)
+    app.add_middleware(NetworkGZip, minimum_size=1000)
     app.add_middleware(HeadAsGet)
     app.add_middleware(HostCheck, hosts=allowed_hosts(settings.allowed_hosts, settings.host))
     app.add_middleware(SecurityHeaders)
+    app.add_middleware(ServerTiming)
     return app

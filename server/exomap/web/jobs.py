@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import dataclasses
 import gzip
+import time
 from dataclasses import dataclass
 from typing import Any
 
@@ -25,25 +26,63 @@ KINDS = ("steady", "branch", "map", "check", "simulate")
 GZIP_MIN_BYTES = 1000
 
 
-@dataclass(frozen=True)
 class Answer:
-    """A serialised answer: the body (JSON or CSV, UTF-8) and its gzip form (None when small)."""
+    """A serialised answer: the body (JSON or CSV, UTF-8), its gzip form once a client has taken it, and where
+    the time of its computation went.
 
-    body: bytes
-    gz: bytes | None
+    The gzip form is made on the first request that wants it (``gzipped``, blocking: call it off the event
+    loop) and kept, so a cached repeat is sent without work; an answer only ever sent to clients on this
+    machine is never compressed (exomap.web.compression).
+
+    ``timing`` holds ``(phase, seconds)`` pairs of the computation (worker and server side, for the
+    ``Server-Timing`` header of the answer that computed it); ``span`` is the job's start and end on
+    ``time.monotonic()`` in the process that ran it (one clock for all processes of the machine, so the
+    server can tell the time spent getting the job to its worker and the answer back).
+    """
+
+    __slots__ = ("body", "gz", "timing", "span")
+
+    def __init__(
+        self,
+        body: bytes,
+        gz: bytes | None = None,
+        timing: tuple[tuple[str, float], ...] = (),
+        span: tuple[float, float] | None = None,
+    ) -> None:
+        self.body = body
+        self.gz = gz
+        self.timing = timing
+        self.span = span
 
     def __len__(self) -> int:
-        return len(self.body) + (len(self.gz) if self.gz else 0)
+        """Bytes held, counting room for the gzip form before it is made (JSON answers compress to about a
+        quarter at level 1), so the cache's byte bound holds whether or not a client ever asks for it."""
+        if self.gz is not None:
+            return len(self.body) + len(self.gz)
+        return len(self.body) + (len(self.body) // 4 if self.compressible else 0)
+
+    def __reduce__(self) -> tuple[Any, ...]:  # pickled by value across the worker pipe
+        return (Answer, (self.body, self.gz, self.timing, self.span))
+
+    @property
+    def compressible(self) -> bool:
+        return len(self.body) >= GZIP_MIN_BYTES
+
+    def gzipped(self) -> bytes:
+        """The gzip form of the body, compressed on the first call and kept (blocking; zlib releases the GIL).
+
+        Level 1: for a 200 x 200 map (0.75 MB of JSON) it takes about 6 ms against 60 ms at level 6, for a
+        body 17 % larger (benchmarks/bench_http_map.py prints it). Two requests racing here both compress
+        and keep equal bytes: harmless.
+        """
+        if self.gz is None:
+            self.gz = gzip.compress(self.body, compresslevel=1, mtime=0)
+        return self.gz
 
 
-def pack(body: bytes) -> Answer:
-    """The answer with its gzip form, compressed once here so a cached repeat is sent without work.
-
-    Level 1: for a 200 x 200 map (0.76 MB of JSON) it takes about 10 ms against 60 ms at level 6, for a body
-    17 % larger (measured on the development machine; see benchmarks/bench_http_map.py).
-    """
-    gz = gzip.compress(body, compresslevel=1, mtime=0) if len(body) >= GZIP_MIN_BYTES else None
-    return Answer(body, gz)
+def pack(body: bytes, timing: tuple[tuple[str, float], ...] = (), span: tuple[float, float] | None = None) -> Answer:
+    """The answer of a job (not compressed: see ``Answer.gzipped``)."""
+    return Answer(body, None, timing, span)
 
 
 @dataclass(frozen=True)
@@ -147,10 +186,58 @@ def compute(kind: str, sc: Any, params: dict[str, Any]) -> Any:
     raise ValueError(f"unknown job kind {kind!r}")
 
 
+#: The boundary curves of a map document, in ``MapResult.to_dict()``'s order.
+MAP_BOUNDARIES = ("ignition", "extinction", "hopf", "max_temperature", "cusp")
+
+
+def map_document(result: Any) -> dict[str, Any]:
+    """The document of an operating map (``MapResult.to_dict()``) with its grids left as numpy arrays, for
+    ``dumps``: the same JSON bytes (a test holds them equal on every demo), written by orjson straight from
+    the arrays instead of through 200,000 Python objects built by ``tolist()``: about half the time of
+    ``to_dict()`` + ``dumps`` for a 200 x 200 map (benchmarks/bench_http_map.py prints both). orjson writes
+    NaN as null, which is the ``None`` that ``to_dict`` puts there.
+    """
+    import numpy as np
+
+    from exomap.core.regions import legend
+
+    def grid(rows: Any, decimals: int | None = None) -> Any:
+        rows = np.asarray(rows, dtype=float)
+        return np.ascontiguousarray(rows if decimals is None else np.round(rows, decimals))
+
+    r = result
+    opening = np.where((r.valve_opening >= 0) & (r.valve_opening <= 1), r.valve_opening, np.nan)
+    return {
+        "residence_time_s": np.ascontiguousarray(r.tau),
+        "feed_temperature_K": np.ascontiguousarray(r.T_in),
+        "spacing": r.spacing,
+        "region": np.ascontiguousarray(r.region),
+        "legend": legend(),
+        "state_count": np.ascontiguousarray(r.state_count),
+        "max_temperature_K": grid(r.max_temperature, 4),
+        "limit_temperature_K": r.T_max,
+        "valve_opening": grid(opening),
+        "valve_limited": np.ascontiguousarray(np.broadcast_to(r.valve_limited, r.region.shape)),
+        "boundaries": {name: grid(r.boundaries[name]) for name in MAP_BOUNDARIES},
+        "success": r.success,
+        "message": r.message,
+    }
+
+
+def document(result: Any) -> Any:
+    """The answer document of a core result: ``to_dict()``, or its array form for an operating map."""
+    from exomap.core.opmap import MapResult
+
+    if type(result) is MapResult:
+        return map_document(result)
+    return result.to_dict()
+
+
 def run_job(kind: str, sc: Any, params: dict[str, Any], fmt: str = "json") -> Answer | JobError:
     """Run one computation; return the JSON (``fmt="json"``) or CSV (``"csv"``) ``Answer``, or a ``JobError``."""
     from exomap.core import errors
 
+    started = time.monotonic()
     try:
         result = compute(kind, sc, params)
     except errors.LimitExceededError as exc:
@@ -161,6 +248,7 @@ def run_job(kind: str, sc: Any, params: dict[str, Any], fmt: str = "json") -> An
         return JobError("convergence", str(exc))
     except errors.BudgetExceededError as exc:
         return JobError("budget", str(exc))
-    if fmt == "csv":
-        return pack(str(result.to_csv()).encode("utf-8"))
-    return pack(dumps(result.to_dict()))
+    computed = time.monotonic()
+    body = str(result.to_csv()).encode("utf-8") if fmt == "csv" else dumps(document(result))
+    finished = time.monotonic()
+    return pack(body, (("compute", computed - started), ("encode", finished - computed)), (started, finished))

@@ -1,12 +1,14 @@
-"""ASGI middleware of the app: HEAD on every GET route, the request-body size guard and the security headers.
+"""ASGI middleware of the app: HEAD on every GET route, the request-body size guard, the security headers, the
+Host check and the server's time in ``Server-Timing``.
 
-Both are plain ASGI (no BaseHTTPMiddleware), so they add no task per request and never buffer responses.
+All are plain ASGI (no BaseHTTPMiddleware), so they add no task per request and never buffer responses.
 """
 
 from __future__ import annotations
 
 import asyncio
 import json
+import time
 from collections.abc import Awaitable, Callable, MutableMapping
 from typing import Any
 
@@ -218,3 +220,32 @@ class HostCheck:
             )
             return
         await self.app(scope, receive, send)
+
+
+class ServerTiming:
+    """Add ``app;dur=<ms>`` (request received to answer started, in this app) to an answer that already says
+    where its time went in ``Server-Timing`` (a computed answer: exomap.web.compression.AnswerResponse), so a
+    client can tell the server's time from the network's and its own."""
+
+    def __init__(self, app: ASGIApp) -> None:
+        self.app = app
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if scope["type"] != "http":
+            await self.app(scope, receive, send)
+            return
+        started = time.monotonic()
+
+        async def send_timed(message: Message) -> None:
+            if message["type"] == "http.response.start":
+                headers = message.get("headers", [])
+                for i, (key, value) in enumerate(headers):
+                    if key == b"server-timing":
+                        took = b"app;dur=%.2f" % ((time.monotonic() - started) * 1e3)
+                        headers = list(headers)
+                        headers[i] = (key, value + b", " + took)
+                        message["headers"] = headers
+                        break
+            await send(message)
+
+        await self.app(scope, receive, send_timed)

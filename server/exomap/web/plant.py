@@ -11,6 +11,7 @@ in the worker pool like every computation (cached, merged when identical, within
 from __future__ import annotations
 
 import json
+import time
 from typing import Annotated, Any
 
 import anyio.to_thread
@@ -20,6 +21,12 @@ from pydantic import BaseModel, ConfigDict, Field, model_validator
 
 from exomap.web.errors import ApiError
 from exomap.web.models import Quantity
+
+#: Share of the computation time budget a calibration's profiles may use (the rest: queueing, the main fit's
+#: tail, the final replay and the answer).
+PROFILE_SHARE = 0.8
+#: Words of the fit's warning when the profiles ran out of time (exomap.core.fit).
+TIMED_OUT = "the time allowed ran out"
 
 DatasetId = Annotated[str, Field(min_length=1, max_length=64, description="Id of a stored plant dataset.")]
 
@@ -238,9 +245,16 @@ def build_plant_router() -> APIRouter:
         if req.reference_temperature is not None:
             T_ref = quantity(req.reference_temperature, "temperature", "reference_temperature")
         key = ("calibrate", resolved.id, ds.dataset_id, tuple(req.fit), T_ref, tuple(req.outputs))
+        # the profiles stop at PROFILE_SHARE of the time budget (their intervals then not given, with a warning),
+        # so the estimates come back inside the budget rather than a 503 after all of it
+        budget = service.settings.request_time_budget_s
+        deadline = time.monotonic() + budget
         out, hit = await service.computed(
-            key, plant_job.run_calibrate, resolved.scenario, doc, source, ds, list(req.fit), T_ref, list(req.outputs)
-        )
+            key, plant_job.run_calibrate, resolved.scenario, doc, source, ds, list(req.fit), T_ref, list(req.outputs),
+            deadline - (1.0 - PROFILE_SHARE) * budget, deadline=deadline,
+        )  # fmt: skip
+        if not hit and TIMED_OUT.encode() in bytes(out.body):
+            service.cache.drop(key)  # cut short by the budget: a retry on a quieter server may complete it
         return _answer_response(request, out, hit, "json", "calibrate")
 
     return router

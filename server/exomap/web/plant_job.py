@@ -41,14 +41,24 @@ def run_replay(sc: Any, dataset: Any) -> Answer | JobError:
 
 
 def run_calibrate(
-    sc: Any, doc: dict, source_id: str, dataset: Any, targets: list[str], T_ref: float | None, outputs: list[str]
+    sc: Any,
+    doc: dict,
+    source_id: str,
+    dataset: Any,
+    targets: list[str],
+    T_ref: float | None,
+    outputs: list[str],
+    profile_deadline: float | None = None,
 ) -> Answer | JobError:
-    """``exomap.core.calibrate.calibrate``: estimates with their uncertainty and the calibrated scenario."""
+    """``exomap.core.calibrate.calibrate``: estimates with their uncertainty and the calibrated scenario.
+
+    ``profile_deadline`` (``time.monotonic()``, one clock for every process of the machine) is when the
+    profile-likelihood intervals stop."""
     from exomap.core.calibrate import calibrate
     from exomap.schema.calibration import calibrated_document
 
     def go() -> dict:
-        cal = calibrate(sc, dataset.record(), targets, T_ref=T_ref, outputs=tuple(outputs))
+        cal = calibrate(sc, dataset.record(), targets, T_ref=T_ref, outputs=tuple(outputs), deadline=profile_deadline)
         out = cal.to_dict()
         out["dataset"] = dataset.summary()
         out["scenario"] = calibrated_document(doc, cal, dataset_id=dataset.dataset_id, source_id=source_id)

@@ -22,6 +22,7 @@ import logging
 import multiprocessing
 import os
 import queue
+import socket
 import threading
 import time
 from collections.abc import Callable
@@ -84,11 +85,37 @@ def _warm() -> None:
             pass
 
 
+#: Socket buffer asked for on each end of a worker's pipe (the kernel caps it at net.core.wmem_max/rmem_max).
+PIPE_BUFFER_BYTES = 4 << 20
+
+
+def _widen(conn: Any) -> None:
+    """Ask for socket buffers that hold a whole answer (a 200 x 200 map is 0.75 MB).
+
+    With the default (~200 kB) the worker's send of a large answer blocks until the server has read the
+    first part, so a worker at low priority on a busy machine waits for the CPU again, once per buffer-full,
+    before its answer is through (a few ms each time, measured with benchmarks/bench_http_map.py). With room
+    for the whole answer, the send completes at once and the server reads it at its own priority.
+    """
+    try:
+        sock = socket.socket(fileno=os.dup(conn.fileno()))
+    except (OSError, AttributeError):  # pragma: no cover - not a socket on this platform
+        return
+    with sock:
+        for option in (socket.SO_SNDBUF, socket.SO_RCVBUF):
+            try:
+                sock.setsockopt(socket.SOL_SOCKET, option, PIPE_BUFFER_BYTES)
+            except OSError:  # pragma: no cover - refused: the default stays
+                pass
+
+
 class WorkerProcess:
     """One worker process and the server's end of its pipe."""
 
     def __init__(self, ctx: Any) -> None:
         self.conn, child = ctx.Pipe(duplex=True)
+        for end in (self.conn, child):
+            _widen(end)
         self.process = ctx.Process(target=_worker_main, args=(child,), daemon=True, name="exomap-worker")
         self.process.start()
         child.close()

@@ -40,6 +40,21 @@ def _prefixed(errors: list[dict[str, str]], prefix: str) -> list[dict[str, str]]
     return [{"field": f"{prefix}.{e['field']}" if prefix else e["field"], "message": e["message"]} for e in errors]
 
 
+def _sampling_hint(kind: str, params: dict[str, Any]) -> str:
+    """What to reduce when a computation under uncertain data runs past the time budget: the time grows in
+    proportion to the samples (and, for the map, to the residence-time points)."""
+    n = int(params["samples"])
+    fewer = max(n // 4, 8)
+    if kind == "map":
+        points = params.get("points")
+        where = f" or fewer points (asked: {points[0]} x {points[1]})" if points else " or fewer points"
+        return (
+            f"the uncertainty map with {n} samples costs about {n} operating maps' worth of columns: ask for fewer "
+            f"samples (samples={fewer}){where}, or run it as a batch study (exomap study) without a time budget"
+        )
+    return f"the check with {n} samples judges every sample: ask for fewer samples (samples={fewer})"
+
+
 def invalid(field: str, message: str, code: str = "invalid_input") -> ApiError:
     return ApiError(422, code, f"{field}: {message}", [{"field": field, "message": message}])
 
@@ -81,6 +96,9 @@ class Service:
         self._scenarios: OrderedDict[str, Any] = OrderedDict()
         self._lock = threading.Lock()
         self._inflight: dict[Any, asyncio.Future] = {}  # cache key -> the computation answering it (event loop)
+        #: scenario ids and demo names read from the store before (content ids: the same key is the same
+        #: scenario for good), so a repeat does not need the store: see ``known``
+        self._stored: dict[str, str] = {}
 
     # -- scenarios ----------------------------------------------------------------------------------------------
     def _core_of_document(self, doc: dict[str, Any], prefix: str) -> tuple[str, Any]:
@@ -114,6 +132,19 @@ class Service:
                 self._scenarios.popitem(last=False)
         return sid, core
 
+    def known(self, ref: ScenarioRef) -> Resolved | None:
+        """The request's scenario when it is a stored one already read and converted (memory only, no store
+        read, no parsing), else None."""
+        if ref.scenario_id is None:
+            return None
+        with self._lock:
+            sid = self._stored.get(ref.scenario_id)
+            core = self._scenarios.get(sid) if sid is not None else None
+            if core is None:
+                return None
+            self._scenarios.move_to_end(sid)
+        return Resolved(sid, core)
+
     def resolve(self, ref: ScenarioRef) -> Resolved:
         if ref.scenario_id is not None:
             stored = self.store.get(ref.scenario_id)
@@ -126,6 +157,9 @@ class Service:
                 )
             # A stored scenario's id is its content id: a scenario already converted is not parsed again.
             with self._lock:
+                self._stored[ref.scenario_id] = stored.id
+                while len(self._stored) > 4 * 64:
+                    self._stored.pop(next(iter(self._stored)))
                 core = self._scenarios.get(stored.id)
                 if core is not None:
                     self._scenarios.move_to_end(stored.id)
@@ -288,12 +322,14 @@ class Service:
         raise ValueError(f"unknown kind {kind!r}")
 
     # -- answers ------------------------------------------------------------------------------------------------
-    def prepare(self, kind: str, req: Any) -> tuple[Resolved, dict[str, Any]]:
-        """The request's scenario and the SI arguments of its core call (blocking: parsing, store, pint)."""
+    def prepare(self, kind: str, req: Any, resolved: Resolved | None = None) -> tuple[Resolved, dict[str, Any]]:
+        """The request's scenario (``resolved``, or read and parsed now) and the SI arguments of its core call
+        (blocking: parsing, store, pint)."""
         from exomap import schema
         from exomap.core.errors import LimitExceededError, ModelInputError
 
-        resolved = self.resolve(req)
+        if resolved is None:
+            resolved = self.resolve(req)
         try:
             params = self.params(kind, req, resolved.scenario)
         except LimitExceededError as exc:
@@ -309,19 +345,31 @@ class Service:
 
         Everything that can take time runs off the event loop and inside the request's time budget: reading
         and parsing the scenario (inline or stored) and its parameters in a thread, the computation in the
-        runner. Identical requests in flight at once (the cache key) share one computation.
+        runner. Only a stored scenario already in memory, with no events to parse, is prepared on the event
+        loop (``known``). Identical requests in flight at once (the cache key) share one computation.
         """
         budget = self.settings.request_time_budget_s
         deadline = time.monotonic() + budget
-        try:
-            with anyio.fail_after(budget):
-                resolved, params = await anyio.to_thread.run_sync(self.prepare, kind, req, abandon_on_cancel=True)
-        except TimeoutError:
-            raise unavailable(
-                "time_budget_exceeded", f"reading the scenario took longer than the budget of {budget:g} s"
-            ) from None
+        known = self.known(req)
+        if known is not None and not getattr(req, "events", None):
+            # the usual repeat: a stored scenario already converted, a handful of quantities (tens of µs each):
+            # done here, without two thread switches per request that would cost the event loop more
+            resolved, params = self.prepare(kind, req, known)
+        else:
+            try:
+                with anyio.fail_after(budget):
+                    resolved, params = await anyio.to_thread.run_sync(self.prepare, kind, req, abandon_on_cancel=True)
+            except TimeoutError:
+                raise unavailable(
+                    "time_budget_exceeded", f"reading the scenario took longer than the budget of {budget:g} s"
+                ) from None
         key = (kind, resolved.id, _freeze(params), fmt)
-        return await self.computed(key, jobs.run_job, kind, resolved.scenario, params, fmt, deadline=deadline)
+        try:
+            return await self.computed(key, jobs.run_job, kind, resolved.scenario, params, fmt, deadline=deadline)
+        except ApiError as exc:
+            if exc.code != "time_budget_exceeded" or params.get("samples") is None:
+                raise
+            raise unavailable(exc.code, f"{exc.message}; {_sampling_hint(kind, params)}") from None
 
     async def computed(self, key: Any, fn: Any, *args: Any, deadline: float | None = None) -> tuple[jobs.Answer, bool]:
         """The answer of ``fn(*args)`` (a job returning ``Answer | JobError``) from the cache, from the same
@@ -351,6 +399,7 @@ class Service:
 
     async def _compute(self, key: Any, fn: Any, args: tuple[Any, ...], deadline: float) -> jobs.Answer:
         budget = self.settings.request_time_budget_s
+        sent = time.monotonic()
         try:
             out = await self.runner.run(fn, *args, budget_s=budget, deadline=deadline)
         except Busy as exc:
@@ -362,6 +411,10 @@ class Service:
             raise unavailable("worker_lost", f"{exc}; try again") from None
         if isinstance(out, jobs.JobError):
             raise self._job_error(out)
+        if out.span is not None:  # the time to get the job to a worker and its answer back (Server-Timing)
+            back = time.monotonic()
+            started, finished = out.span
+            out.timing = (("dispatch", max(started - sent, 0.0)), *out.timing, ("return", max(back - finished, 0.0)))
         self.cache.put(key, out)
         return out
 

@@ -163,6 +163,17 @@ def api_map_of_page(scenario_id: str, state: Mapping[str, object] | None = None,
     return api_answer(scenario_id, "map", params)
 
 
+def api_uncertainty_check(scenario_id: str, state: Mapping[str, object] | None = None) -> str:
+    """The check with confidence of the page's view: its setpoint (``residence_time``, ``feed_temperature``,
+    ``branch``; default the scenario's own feed) with the page's samples and seed."""
+    state = state or {}
+    params: dict[str, object] = {k: state[k] for k in ("residence_time", "feed_temperature", "branch") if k in state}
+    params["samples"] = state.get("samples", 256)
+    if "seed" in state:
+        params["seed"] = state["seed"]
+    return api_answer(scenario_id, "check", params)
+
+
 # -- compare ----------------------------------------------------------------------------------------------------
 #: Query keys of the compare page, in link order (exomap.web.compare.VIEW_KEYS).
 COMPARE_KEYS = (
@@ -200,7 +211,17 @@ def api_compare(params: Mapping[str, object]) -> str:
 
 # -- probability map (DESIGN.md §11) ----------------------------------------------------------------------
 #: Query keys of the probability-map page, in link order.
-UNCERTAINTY_KEYS = ("samples", "seed", "show", "map_residence_time", "map_feed_temperature", "points")
+UNCERTAINTY_KEYS = (
+    "samples",
+    "seed",
+    "show",
+    "map_residence_time",
+    "map_feed_temperature",
+    "points",
+    "residence_time",
+    "feed_temperature",
+    "branch",
+)
 #: Probabilities the page can shade.
 SHOWN = ("unsafe", "runaway", "unstable", "multiple")
 
