@@ -155,7 +155,7 @@ def _hottest_state(k0: float, Ea: float, dT_ad: float, tau: float, T_in: float) 
         return w - (math.log(tau * k0) - Ea / (R_GAS * (T_in + dT_ad / (1.0 + math.exp(-w)))))
 
     ws = np.linspace(-60.0, 160.0, 4401)
-    fs = np.array([f(float(v)) for v in ws])
+    fs = ws - (math.log(tau * k0) - Ea / (R_GAS * (T_in + dT_ad / (1.0 + np.exp(-ws)))))  # f on the whole grid
     i = np.nonzero(fs[:-1] * fs[1:] <= 0)[0][-1]
     w = brentq(f, ws[i], ws[i + 1], xtol=1e-12)
     return T_in + dT_ad / (1.0 + math.exp(-w)), w

@@ -10,11 +10,12 @@ from __future__ import annotations
 
 from dataclasses import replace
 
+import numpy as np
 import pytest
 from exomap.core import check as check_mod
 from exomap.core.steady import steady_states
-from exomap.core.uncertain_check import _fold_margins, uncertain_check
-from exomap.core.uncertainty import UncertainParameter, UncertaintySpec, upper_bound
+from exomap.core.uncertain_check import _fold_margins, stacked_fold_margins, uncertain_check
+from exomap.core.uncertainty import UncertainParameter, UncertaintySpec, draw, upper_bound
 
 
 @pytest.fixture(scope="module")
@@ -77,3 +78,47 @@ def test_a_bound_above_the_policy_is_a_reason(adiabatic):
     lax = replace(adiabatic.sc, policy=replace(adiabatic.sc.policy, max_unsafe_probability=0.5))
     r2 = uncertain_check(lax, _ea(500.0), tau=1000.0, T_in=300.0)
     assert not any("max_unsafe_probability" in x for x in r2.reasons)
+
+
+@pytest.mark.parametrize(
+    ("case", "tau", "T_in"),
+    [("adiabatic", 1000.0, 300.0), ("adiabatic", 60.0, 345.0), ("jacketed", 300.0, 300.0), ("series", 1000.0, 255.0)],
+)
+def test_stacked_fold_margins_equal_each_samples_own(cstr, series, case, tau, T_in):
+    # invariant: the margins of all samples from one stacked pass are those of each sample's own manifold (the
+    # folds are refined to machine precision either way; the residence-time crossings to 1e-6 K of the fold's
+    # feed temperature)
+    if case == "series":
+        sc = series(UA=200.0, T_c=260.0, T_max=500.0)
+    else:
+        sc = cstr(20.0, 8.0 if case == "adiabatic" else 12.0, T_in=350.0, T_max=440.0,
+                  kappa=0.0 if case == "adiabatic" else 2e-3).sc  # fmt: skip
+    spec = UncertaintySpec(
+        (
+            UncertainParameter("reactions[0].activation_energy", "normal", sd=2000.0),
+            UncertainParameter("reactions[0].rate_constant", "lognormal", factor=1.3),
+        ),
+        samples=8 if case == "series" else 16,
+    )
+    ps = draw(sc, spec)
+    which, T, hot = [], [], []
+    for i in range(ps.n):
+        states = steady_states(ps.scenario(i), tau, T_in).states
+        idx, _ = check_mod.pick_state(states, None)
+        which.append(i)
+        T.append(float(states[idx].T))
+        hot.append(len(states) > 1 and idx == len(states) - 1)
+    stacked = stacked_fold_margins(ps, np.array(which), tau, T_in, np.array(T), np.array(hot))
+    assert stacked is not None
+    found = {"K": 0, "percent": 0}
+    for j, i in enumerate(which):
+        own = {m.key: m.value for m in _fold_margins(ps.scenario(i), tau, T_in, T[j], hot[j])}
+        ours = {m.key: m.value for m in stacked[j]}
+        assert ours.keys() == own.keys()
+        for key, value in own.items():
+            if value is None:
+                assert ours[key] is None, key
+            else:
+                found["percent" if key.endswith("percent") else "K"] += 1
+                assert ours[key] == pytest.approx(value, abs=1e-4 if key.endswith("percent") else 1e-7), key
+    assert found["K"] >= ps.n // 2

@@ -4,6 +4,7 @@ with the link's samples and seed), the cautions, and a palette of our own that r
 from __future__ import annotations
 
 import copy
+import json
 import re
 from importlib import resources
 from pathlib import Path
@@ -33,6 +34,9 @@ def test_page_twin_is_the_probability_map_of_its_link(client: Any) -> None:
     links = parse(r.text)
     assert any(s.startswith("/static/uncertainty.js") for s in links.scripts)
     assert links.anchors["unc-csv"].endswith("format=csv")
+    # the page's time estimate knows how many reactions there are (one: the closed-form path)
+    boot = json.loads(re.search(r'<script type="application/json" id="boot">(.*?)</script>', r.text, re.S).group(1))
+    assert boot["reactions"] == len(UNCERTAIN["reactions"]) == 1
     # the twin answers: the nominal map with the probability keys
     doc = client.get(twin).json()
     assert doc["samples"] == 64 and doc["seed"] == 3 and "region" in doc and "robust_window" in doc

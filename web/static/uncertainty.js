@@ -38,10 +38,11 @@ function state() {
 }
 
 // The expected time of a computation, for the progress bar: a generous figure per sample-cell measured on a
-// loaded machine (benchmarks/bench_uncertainty.py); the bar says it is an estimate.
+// loaded machine (benchmarks/bench_uncertainty.py: one reaction about 0.4 us CPU per sample-cell, several
+// reactions about 5 us, wall time about twice that under load); the bar says it is an estimate.
 function expectedSeconds(st) {
   const n = st.points ? st.points[0] * st.points[1] : 100 * 100;
-  return 2.0 + st.samples * n * 4e-6;
+  return 2.0 + st.samples * n * ((boot().reactions || 1) > 1 ? 1e-5 : 4e-6);
 }
 
 function progress(st) {

@@ -9,7 +9,7 @@ classes here evaluate the manifold of ``exomap.core.manifold`` with the paramete
   in the same coordinate as the deterministic core, the log-odds of the conversion
   :math:`w = \\ln(\\xi/(\\xi_{max} - \\xi))`, with each reactant's concentration written from
   :math:`\\xi_{max} - \\xi`, so a hot state at :math:`1 - X = 10^{-30}` is as representable as a cold one;
-* :class:`StackedGeneralManifold`: any other scenario (several reactions): the coordinate is T and the
+* :class:`StackedGeneralManifold`: several reactions: the coordinate is T and the
   isothermal balances are solved by the vectorised Newton iteration of the deterministic general path (its
   logarithmic form in ln C), with the rate constants, activation energies, heats, feed and heat exchange of
   each column.
@@ -133,7 +133,7 @@ class StackedManifold:
     def tau_arg(self) -> np.ndarray:
         return np.arange(self.tau.size, dtype=float)
 
-    def temperature_window(self, T_in_lo: float, T_in_hi: float) -> tuple[float, float]:
+    def window(self, T_in_lo: float, T_in_hi: float) -> tuple[float, float]:
         """The union over the columns of ``Manifold.temperature_window`` at each column's residence time [K]."""
         release = self.J * self.xi_max  # one reaction: the limiting reactant runs out
         return _heat_window(
@@ -356,7 +356,7 @@ class StackedGeneralManifold(Manifold):
     def s_at_T(self, code: np.ndarray, T: float) -> np.ndarray:
         return np.full(np.shape(code), float(T))
 
-    def stacked_window(self, T_in_lo: float, T_in_hi: float) -> tuple[float, float]:
+    def window(self, T_in_lo: float, T_in_hi: float) -> tuple[float, float]:
         """Bounds on every steady temperature of every column [K] (``Manifold.temperature_window``).
 
         The heat release is bounded by two linear programmes (those of ``Manifold.max_heat_release``) with
@@ -576,6 +576,16 @@ class StackedGeneralManifold(Manifold):
         return out
 
 
+def stacked_class(samples: ParameterSamples) -> type[StackedManifold] | type[StackedGeneralManifold] | None:
+    """Which stacked manifold takes these samples: the closed form for one reaction whose limiting reactant has
+    a positive order in every sample, the general path for several reactions whose samples all feed the same
+    species; None otherwise (each sample is then taken on its own)."""
+    n = samples.n
+    if len(samples.base.reactions) == 1:
+        return StackedManifold if bool(np.all(StackedManifold(samples, np.ones(n), np.arange(n)).ok)) else None
+    return StackedGeneralManifold if StackedGeneralManifold(samples, np.ones(n), np.arange(n)).same_structure else None
+
+
 class SingleManifold:
     """The deterministic ``Manifold`` of one scenario with the interface of :func:`column_regions` (column
     codes are indices into ``tau``): the reference the stacked classes are compared with."""
@@ -697,4 +707,5 @@ __all__ = [
     "StackedGeneralManifold",
     "StackedManifold",
     "column_regions",
+    "stacked_class",
 ]

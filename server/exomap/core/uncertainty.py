@@ -61,7 +61,7 @@ from exomap.core.errors import LimitExceededError, ModelInputError
 from exomap.core.manifold import Manifold
 from exomap.core.regions import CODE
 from exomap.core.scenario import R_GAS, Scenario, validate
-from exomap.core.stacked import SingleManifold, StackedGeneralManifold, StackedManifold, column_regions
+from exomap.core.stacked import SingleManifold, StackedManifold, column_regions, stacked_class
 
 DISTRIBUTIONS = ("normal", "lognormal", "uniform")
 #: Default number of samples and seed (DESIGN.md §11).
@@ -686,36 +686,26 @@ def uncertainty_map(
     n_tau, n_tin = tau.size, T_in.size
     lo_in, hi_in = float(T_in[0]), float(T_in[-1])
     # how the samples are taken: stacked with the closed form of one reaction, stacked on the general path
-    # (several reactions, or one without a closed form), or one deterministic manifold per sample (the
-    # reference; also where the samples do not all feed the same species)
-    whole: StackedManifold | StackedGeneralManifold | None = None
-    if len(sc.reactions) == 1:
-        whole = StackedManifold(ps, np.full(ps.n, tau[-1]), np.arange(ps.n))
-        if not np.all(whole.ok):
-            whole = None
-    if whole is None and len(sc.reactions) > 1:
-        whole = StackedGeneralManifold(ps, np.full(ps.n, tau[-1]), np.arange(ps.n))
-        if not whole.same_structure:
-            whole = None
-    if whole is None or not stacked:
+    # (several reactions), or one deterministic manifold per sample (the reference; also where the samples
+    # cannot be stacked)
+    kind = stacked_class(ps)
+    if kind is None or not stacked:
         mfs = [Manifold(ps.scenario(i)) for i in range(ps.n)]
-    if isinstance(whole, StackedManifold):
+    if kind is not None:
         # one temperature window for every sample, the union of theirs (Manifold.temperature_window, per sample)
-        T_lo, T_hi = whole.temperature_window(lo_in, hi_in)
-    elif isinstance(whole, StackedGeneralManifold):
-        T_lo, T_hi = whole.stacked_window(lo_in, hi_in)
+        T_lo, T_hi = kind(ps, np.full(ps.n, tau[-1]), np.arange(ps.n)).window(lo_in, hi_in)
     else:
         wins = np.array([mf.temperature_window(lo_in, hi_in, float(tau[-1])) for mf in mfs])
         T_lo, T_hi = float(wins[:, 0].min()), float(wins[:, 1].max())
     region = np.empty((ps.n * n_tau, n_tin), dtype=np.int8)
     ign = np.empty(ps.n * n_tau)
     ext = np.empty(ps.n * n_tau)
-    if stacked and whole is not None:
-        if isinstance(whole, StackedManifold):
-            kind, N, budget = StackedManifold, STACKED_SAMPLES, 1 << 12
+    if stacked and kind is not None:
+        if kind is StackedManifold:
+            N, budget = STACKED_SAMPLES, 1 << 12
             method = "stacked columns (closed-form manifold of one reaction)"
         else:
-            kind, N, budget = StackedGeneralManifold, STACKED_SAMPLES_GENERAL, STACKED_GENERAL_COLUMNS
+            N, budget = STACKED_SAMPLES_GENERAL, STACKED_GENERAL_COLUMNS
             method = "stacked columns (general path)"
         # chunks of whole samples keep the working arrays moderate and let progress be reported
         per = max(1, min(ps.n, budget // n_tau))

@@ -16,11 +16,18 @@ from fastapi.responses import HTMLResponse, RedirectResponse, Response
 from exomap.web import urls
 
 
+def _document(document: str) -> dict[str, Any]:
+    try:
+        doc = json.loads(document)
+    except ValueError:
+        return {}
+    return doc if isinstance(doc, dict) else {}
+
+
 def _block(document: str) -> tuple[str, str]:
     """(samples, seed) of a stored document's uncertainty block, as text; the defaults without one."""
-    try:
-        block = json.loads(document).get("uncertainty") or {}
-    except (ValueError, AttributeError):
+    block = _document(document).get("uncertainty") or {}
+    if not isinstance(block, dict):
         block = {}
     return str(block.get("samples", 256)), str(block.get("seed", 0))
 
@@ -54,5 +61,10 @@ def install_pages(app: FastAPI, render: Any) -> None:
             title=stored.title,
             state=state,
             twin=urls.api_uncertainty_map(scenario_id, state),
-            boot={"page": "uncertainty", "scenario_id": scenario_id},
+            # the number of reactions sets the page's estimate of the computing time (several: the general path)
+            boot={
+                "page": "uncertainty",
+                "scenario_id": scenario_id,
+                "reactions": len(_document(stored.document).get("reactions") or []),
+            },
         )
