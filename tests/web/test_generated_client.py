@@ -99,7 +99,7 @@ def test_a_generated_client_calls_every_operation_with_typed_answers(generated: 
     doc = call("scenarios.get_scenario", "ScenarioDoc", "jacketed-first-order").parsed
     assert doc.species == ["A", "P"]
 
-    saved = call("scenarios.save_scenario", "ScenarioSummary", body=_model("SaveScenarioDocument").from_dict(ADIABATIC))
+    saved = call("scenarios.save_scenario", "ScenarioSummary", body=_model("ScenarioDoc").from_dict(ADIABATIC))
     assert saved.status_code == 201
     sid = saved.parsed.id
 

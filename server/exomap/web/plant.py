@@ -20,7 +20,7 @@ from fastapi.responses import JSONResponse, Response
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 
 from exomap.web.errors import ApiError
-from exomap.web.models import Quantity
+from exomap.web.models import InlineScenario, Quantity
 
 #: Share of the computation time budget a calibration's profiles may use (the rest: queueing, the main fit's
 #: tail, the final replay and the answer).
@@ -42,7 +42,7 @@ class PlantRequest(BaseModel):
         json_schema_extra={"examples": [{"scenario_id": "jacketed-first-order", "dataset_id": "0123456789abcdef"}]},
     )
 
-    scenario: dict[str, Any] | None = Field(default=None, description="A whole scenario document; or scenario_id.")
+    scenario: InlineScenario = Field(default=None, description="A whole scenario document; or scenario_id.")
     scenario_id: str | None = Field(default=None, min_length=1, max_length=200, description="Stored id or demo name.")
     dataset_id: DatasetId
 
