@@ -48,7 +48,8 @@ def _gather(code: np.ndarray) -> Callable[[np.ndarray], np.ndarray]:
         rows = code[..., :1].astype(np.int64)
     else:
         rows = code.astype(np.int64)
-    return lambda arr: arr[rows]
+    # np.take along the first axis: several times faster than arr[rows] for a 2-D arr
+    return lambda arr: np.take(arr, rows, axis=0)
 
 
 def _heat_window(
@@ -264,6 +265,15 @@ class StackedManifold:
 
 
 # -- any scenario: the general path -------------------------------------------------------------------------
+def _rowdot(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """sum(a * b) over the few columns of two (pts, m) arrays, element-wise (a reduction along a short axis costs
+    more than the arithmetic)."""
+    out = a[..., 0] * b[..., 0]
+    for j in range(1, a.shape[-1]):
+        out = out + a[..., j] * b[..., j]
+    return out
+
+
 def _rowmax(a: np.ndarray) -> np.ndarray:
     """max |a| over the few columns of a (pts, p) array, element-wise (np.max along a short axis is slower)."""
     out = np.abs(a[:, 0])
@@ -397,27 +407,32 @@ class StackedGeneralManifold(Manifold):
         Tf = T.reshape(-1)
         pts = col.size
         m, n, p = self.m, self.n, self.S.size
-        E = self.E_col[col]
-        lnk = self.lnk0[col] - E / Tf[:, None]
-        ln_tau = self.ln_tau[col]
-        cin = self.c_col[col]
+        E = np.take(self.E_col, col, axis=0)  # np.take: several times faster than fancy rows of a 2-D array
+        lnk = np.take(self.lnk0, col, axis=0) - E / Tf[:, None]
+        ln_tau = np.take(self.ln_tau, col)
+        cin = np.take(self.c_col, col, axis=0)
         dT = E / (Tf * Tf)[:, None]
         y, lr, ok, Jac, GT = self._solve_isothermal(lnk, ln_tau, cin, dT, C0, pts)
         with np.errstate(over="ignore", invalid="ignore", under="ignore"):
             xi = np.exp(lr + ln_tau[:, None])
             dxi = xi * dT
             if p:
-                dy = -_solve(np.where(ok[:, None, None], Jac, np.eye(p)), np.nan_to_num(GT))
+                if not ok.all():  # no derivative where the solve failed (those points are not valid)
+                    Jac, GT = Jac.copy(), GT.copy()
+                    Jac[~ok], GT[~ok] = np.eye(p), 0.0
+                dy = -_solve(Jac, GT)
                 for k, terms in self._ords.items():
                     for a, nk in terms:
                         dxi[:, k] += xi[:, k] * nk * dy[:, a]
-        C = cin + xi @ self.nu.T
+        C = cin.copy()
+        for k in range(m):  # C = C_in + nu xi, a column at a time (a (pts, m) @ (m, n) product is slower)
+            C += xi[:, k, None] * self.nu[:, k]
         if p:
             C[:, self.S] = np.exp(y)
-        J = self.J_col[col]
-        a = self.a_col[col]
-        T_in = a * Tf - np.sum(xi * J, axis=1) - self.b_col[col]
-        dTin = a - np.sum(dxi * J, axis=1)
+        J = np.take(self.J_col, col, axis=0)
+        a = np.take(self.a_col, col)
+        T_in = a * Tf - _rowdot(xi, J) - np.take(self.b_col, col)
+        dTin = a - _rowdot(dxi, J)
         valid = ok & np.isfinite(T_in) & np.isfinite(dTin)
         return Samples(
             code,
@@ -487,7 +502,7 @@ class StackedGeneralManifold(Manifold):
             lr = np.where(self.live, lnk, -np.inf)
             return np.zeros((pts, 0)), lr, np.ones(pts, dtype=bool), np.zeros((pts, 0, 0)), np.zeros((pts, 0))
         cS = cin[:, self.S]
-        low = np.log(np.maximum(np.max(cin, axis=1), 1e-300)) - 12.0
+        low = np.log(np.maximum(_rowmax(cin), 1e-300)) - 12.0
         cold = np.where(cS > 0, np.log(np.maximum(cS, 1e-300)), low[:, None])
         if C0 is None:
             y = cold.copy()
@@ -508,8 +523,14 @@ class StackedGeneralManifold(Manifold):
                 else:
                     if active.size == 0:
                         break
-                    ya = y[active]
-                    args = (lnk[active], ya, ln_tau[active], cS[active], dT[active])
+                    ya = np.take(y, active, axis=0)
+                    args = (
+                        np.take(lnk, active, axis=0),
+                        ya,
+                        np.take(ln_tau, active),
+                        np.take(cS, active, axis=0),
+                        np.take(dT, active, axis=0),
+                    )
                 G, Jac, GT = self._system(*args)
                 err = _rowmax(G)
                 step = -_solve(Jac, G)
@@ -523,9 +544,14 @@ class StackedGeneralManifold(Manifold):
                 else:
                     prev[active] = err
                     idx = active[done]
-                if idx.size:
+                if active is None and idx.size == pts:  # all closed at once (the common case): no copies
+                    ok[:] = True
+                    Jac_out, GT_out = Jac, GT
+                elif idx.size:
                     ok[idx] = True
-                    Jac_out[idx], GT_out[idx] = Jac[done], GT[done]
+                    di = np.nonzero(done)[0]
+                    Jac_out.reshape(pts, p * p)[idx] = np.take(Jac.reshape(-1, p * p), di, axis=0)
+                    GT_out[idx] = np.take(GT, di, axis=0)
                 step *= np.minimum(1.0, 4.0 / np.maximum(big, 1e-300))[:, None]
                 if active is None and go.all():
                     np.clip(y + step, -740.0, self._y_top, out=y)
@@ -571,8 +597,11 @@ class StackedGeneralManifold(Manifold):
         out = np.zeros(np.shape(T) + (m + 1, m + 1))
         out[..., :m, :m] = Rn - np.eye(m) / tau_r[..., None, None]
         out[..., :m, m] = dr_dT
-        out[..., m, :m] = np.einsum("...j,...jk->...k", J, Rn)
-        out[..., m, m] = -take(self.a_col) / tau_r + np.sum(dr_dT * J, axis=-1)
+        row = J[..., 0, None] * Rn[..., 0, :]  # J . Rn, a reaction at a time (einsum is slower at this size)
+        for j in range(1, m):
+            row = row + J[..., j, None] * Rn[..., j, :]
+        out[..., m, :m] = row
+        out[..., m, m] = -take(self.a_col) / tau_r + _rowdot(dr_dT, J)
         return out
 
 
