@@ -305,8 +305,26 @@ CASES: list[Case] = [
         "POST",
         "/api/v1/overlay",
         json={"scenario_id": "jacketed-first-order", "dataset_id": DATASET},
+        expect=lambda a: a["records"] == 30 and a["stride"] == 1 and len(a["time_s"]) == 30,
+    ),  # fmt: skip
+    Case(
+        "overlay-thinned",
+        "computeOverlay",
+        "POST",
+        "/api/v1/overlay",
+        json={"scenario_id": "jacketed-first-order", "dataset_id": DATASET, "max_points": 10},
+        # 30 records into 10: every 4th (0, 4, .., 28) and the last (29)
+        expect=lambda a: a["stride"] == 4 and a["time_s"] == [60.0 * k for k in (0, 4, 8, 12, 16, 20, 24, 28, 29)],
     ),  # fmt: skip
     Case("error-overlay", "computeOverlay", "POST", "/api/v1/overlay", 422, json={"dataset_id": DATASET}),
+    Case(
+        "error-overlay-points",
+        "computeOverlay",
+        "POST",
+        "/api/v1/overlay",
+        422,
+        json={"scenario_id": "jacketed-first-order", "dataset_id": DATASET, "max_points": 1},
+    ),  # fmt: skip
     Case(
         "calibrate",
         "computeCalibrate",

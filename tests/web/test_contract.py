@@ -123,3 +123,71 @@ def test_every_answer_object_is_closed(spec: dict[str, Any]) -> None:
     schemas = spec["components"]["schemas"]
     for name in names & set(schemas):
         assert schemas[name].get("additionalProperties") is False, name
+
+
+def _free_objects(node: Any, where: str) -> list[str]:
+    """Places where a schema is an object anything may fill (no properties, any additional property), or an
+    array of anything (``items: {}``)."""
+    found: list[str] = []
+    if isinstance(node, dict):
+        if (
+            node.get("type") == "object"
+            and "properties" not in node
+            and node.get("additionalProperties") in (True, None)
+        ):
+            found.append(where)
+        if node.get("type") == "array" and node.get("items") == {}:
+            found.append(where)
+        for key, value in node.items():
+            found += _free_objects(value, f"{where}/{key}")
+    elif isinstance(node, list):
+        for i, value in enumerate(node):
+            found += _free_objects(value, f"{where}[{i}]")
+    return found
+
+
+def test_every_request_body_is_typed(spec: dict[str, Any]) -> None:
+    """A request body says what it takes: an inline scenario is the scenario document's own schema, an event is
+    one of the event forms; no free-form object or array of anything."""
+    schemas = spec["components"]["schemas"]
+    roots: list[tuple[str, Any]] = []
+    for path, method, op in operations(spec):
+        for media, content in op.get("requestBody", {}).get("content", {}).items():
+            if media == "application/json":
+                roots.append((f"{method.upper()} {path}", content["schema"]))
+    seen: set[str] = set()
+    found: list[str] = []
+    while roots:
+        where, node = roots.pop()
+        found += _free_objects(node, where)
+        for ref in re.findall(r'"#/components/schemas/(\w+)"', json.dumps(node)):
+            if ref not in seen:
+                seen.add(ref)
+                roots.append((ref, schemas[ref]))
+    assert "ScenarioDoc" in seen  # POST /scenarios and every inline scenario
+    assert found == []
+
+
+def test_the_event_forms_are_the_cores(spec: dict[str, Any]) -> None:
+    from exomap.core.events import ACTIONS, FORMS
+
+    items = spec["components"]["schemas"]["SimulateRequest"]["properties"]["events"]["items"]["anyOf"]
+    objects = [s for s in items if s.get("type") == "object"]
+    # one object form per kind of event (exomap.core.events.FORMS), with the keys that kind needs, and the text form
+    assert sorted(next(k for k in s["required"] if k in FORMS) for s in objects) == sorted(FORMS)
+    for s in objects:
+        kind = next(k for k in s["required"] if k in FORMS)
+        assert set(s["required"]) == {"at", kind, *FORMS[kind]}, s["title"]
+        assert s["additionalProperties"] is False
+    do = next(s for s in objects if "do" in s["required"])
+    assert do["properties"]["do"]["enum"] == list(ACTIONS)
+    assert any(s.get("type") == "string" for s in items)
+
+
+def test_the_connection_layers_answers_are_listed_on_every_operation(spec: dict[str, Any]) -> None:
+    # 408 (slow head or body), 414 (long URL), 431 (large head): exomap.web.protocol and BodyLimit
+    for path, method, op in operations(spec):
+        for status in ("408", "414", "431"):
+            answer = op["responses"].get(status)
+            assert answer is not None, f"{method.upper()} {path} {status}"
+            assert answer["content"]["application/json"]["schema"] == {"$ref": "#/components/schemas/ErrorBody"}

@@ -99,7 +99,7 @@ def test_a_generated_client_calls_every_operation_with_typed_answers(generated: 
     doc = call("scenarios.get_scenario", "ScenarioDoc", "jacketed-first-order").parsed
     assert doc.species == ["A", "P"]
 
-    saved = call("scenarios.save_scenario", "ScenarioSummary", body=_model("SaveScenarioDocument").from_dict(ADIABATIC))
+    saved = call("scenarios.save_scenario", "ScenarioSummary", body=_model("ScenarioDoc").from_dict(ADIABATIC))
     assert saved.status_code == 201
     sid = saved.parsed.id
 
@@ -172,7 +172,12 @@ def test_a_generated_client_calls_every_operation_with_typed_answers(generated: 
     plant = {"scenario_id": "jacketed-first-order", "dataset_id": did}
     replayed = call("plant_data.compute_replay", "ReplayAnswer", body=_model("PlantRequest").from_dict(plant)).parsed
     assert replayed.residual_statistics.additional_properties["reactor_temperature_K"].count == 30
-    call("plant_data.compute_overlay", "OverlayAnswer", body=_model("PlantRequest").from_dict(plant))
+    path = call(
+        "plant_data.compute_overlay",
+        "OverlayAnswer",
+        body=_model("OverlayRequest").from_dict({**plant, "max_points": 10}),
+    ).parsed
+    assert path.records == 30 and path.stride == 4 and len(path.time_s) == 9
     fitted = call(
         "plant_data.compute_calibrate",
         "CalibrationAnswer",

@@ -81,7 +81,7 @@ def test_openapi_has_an_example_for_every_request_body(client) -> None:
             bodies += 1
             content = body["content"]["application/json"]
             schema = content["schema"]
-            if "$ref" in schema:
+            if "$ref" in schema and "examples" not in schema:  # an example beside the $ref is the body's own
                 schema = spec["components"]["schemas"][schema["$ref"].rsplit("/", 1)[1]]
             examples = (
                 content.get("examples")
@@ -102,7 +102,7 @@ def test_request_examples_are_valid_requests(client) -> None:
                 continue
             content = op["requestBody"]["content"]["application/json"]
             schema = content["schema"]
-            if "$ref" in schema:
+            if "$ref" in schema and "examples" not in schema:  # an example beside the $ref is the body's own
                 schema = spec["components"]["schemas"][schema["$ref"].rsplit("/", 1)[1]]
             example = (content.get("examples") or schema.get("examples"))[0]
             if isinstance(example, dict) and "value" in example and len(example) <= 3 and "summary" in example:

@@ -90,3 +90,27 @@ def test_uploads_need_the_save_token_and_respect_the_size_limit(make_client):
         "/api/v1/datasets", params={"map": PLANT_MAP}, content=big.encode(), headers={"Authorization": "Bearer s3cret"}
     )
     assert r.status_code == 413
+
+
+def test_a_calibration_cut_short_by_the_budget_says_so_and_is_not_cached(client, monkeypatch):
+    # no time left for the profiles: the estimates and linearised standard errors come back (200), the
+    # intervals are not given and a warning says why; the answer is not kept, so a retry computes it again
+    from exomap.web import plant
+
+    monkeypatch.setattr(plant, "PROFILE_SHARE", 0.0)
+    did = client.post("/api/v1/datasets", params={"map": PLANT_MAP}, content=PLANT_CSV.encode()).json()["dataset_id"]
+    body = {"scenario_id": "jacketed-first-order", "dataset_id": did, "fit": ["jacket.ua"]}
+    r = client.post("/api/v1/calibrate", json=body)
+    assert r.status_code == 200, r.text
+    cal = r.json()
+    assert cal["estimates"][0]["interval_95"] == [None, None]
+    assert cal["estimates"][0]["standard_error"] > 0
+    assert any(plant.TIMED_OUT in w and "jacket.ua" in w for w in cal["warnings"]), cal["warnings"]
+    again = client.post("/api/v1/calibrate", json=body)
+    assert again.headers["x-exomap-cache"] == "miss"
+    # with the time back, the same request gives the profile interval, about the estimate
+    monkeypatch.setattr(plant, "PROFILE_SHARE", 0.8)
+    full = client.post("/api/v1/calibrate", json=body).json()
+    lo, hi = full["estimates"][0]["interval_95"]
+    assert lo < full["estimates"][0]["value"] < hi
+    assert client.post("/api/v1/calibrate", json=body).headers["x-exomap-cache"] == "hit"

@@ -134,6 +134,9 @@ export function targetsOf(doc) {
   return out;
 }
 
+// How a long dataset was thinned for drawing (the overlay answers every stride-th record).
+const thinned = (ov) => (ov.stride > 1 ? ` (every ${ov.stride}th of ${ov.records} records)` : "");
+
 // Plant records on a steady-state curve: x the recorded residence time [min] or feed temperature [°C], y the
 // recorded reactor temperature [°C], colour the time from the first record [min] (the map path's scale).
 export function curvePoints(ov, along) {
@@ -356,7 +359,7 @@ export class PlantPanel {
       note = el("p", { id: "plant-map-note", class: "small" });
       $("map-legend").after(note);
     }
-    note.textContent = `Plant's path (dataset ${ov.dataset_id}): ${x.length} records from ${ov.start}, `
+    note.textContent = `Plant's path (dataset ${ov.dataset_id}): ${x.length} records from ${ov.start}${thinned(ov)}, `
       + "light dots first, dark dots last; the scale beside the map is minutes from the first record.";
     $("map").dataset.plantPath = String(x.length);
   }
@@ -395,7 +398,8 @@ export class PlantPanel {
     if (node.hidden) return;
     const n = ov.reactor_temperature_K.filter((v) => Number.isFinite(v)).length;
     node.textContent = n
-      ? `Markers: the plant's records (dataset ${ov.dataset_id}, ${n} with a reactor temperature, from ${ov.start}), `
+      ? `Markers: the plant's records (dataset ${ov.dataset_id}, ${n} with a reactor temperature, from ${ov.start}`
+        + `${thinned(ov)}), `
         + "recorded reactor temperature against the recorded input, light first, dark last. Each curve holds the "
         + "other input at the setpoint's value, so a record taken at another feed temperature or residence time "
         + "is not expected to lie on it."

@@ -56,7 +56,7 @@ REPLAY_RTOL = 3e-7
 DIFFERENCES_RTOL = 1e-8
 DIFF_STEP = 1e-4
 #: xtol/ftol/gtol of the main fit: parameters to about 1e-10 relative, far inside any standard error.
-FIT_TOLERANCE = 1e-10
+FIT_TOLERANCE = 1e-8
 #: Most model evaluations of one trial replay inside a fit: a trial far from the data (a parameter driven to an
 #: extreme by a flat profile) that stiffens the model is a bad fit, not a reason to integrate for minutes.
 TRIAL_EVALUATIONS = 20_000
@@ -93,7 +93,10 @@ def parse_target(path: str, sc: Scenario) -> Target:
     if m.group("rxn"):
         j = int(m.group("j"))
         if j >= len(sc.reactions):
-            raise ModelInputError(f"the scenario has {len(sc.reactions)} reactions, not {j + 1}", field=path)
+            n = len(sc.reactions)
+            raise ModelInputError(
+                f"the scenario has {n} reaction{'s' if n != 1 else ''} (numbered from 0), no reactions[{j}]", field=path
+            )
         return Target(path, m.group("rxn"), index=j)
     if m.group("species"):
         s = m.group("species")

@@ -382,15 +382,22 @@ def _profile_interval(
             jac=sub_jac if jac is not None else "2-point",
             method="trf" if sub_bounded else "lm",
             bounds=(lo[others], hi[others]),
-            **{**kw, "xtol": 1e-7, "ftol": 1e-9, "gtol": 1e-9, "max_nfev": 40},
+            **{**kw, **sub_tol, "max_nfev": 40},
         )
         path.append((v, sol.x.copy()))
         return float(sol.fun @ sol.fun)
 
     step = se[i] if np.isfinite(se[i]) and se[i] > 0 else max(abs(est[i]) * 0.1, 1e-8)
+    sub_tol = {"xtol": 1e-7, "ftol": 1e-9, "gtol": 1e-9}
     if ssr_min is None:
         ssr_min = profile_ssr(float(est[i]))
     target = math.sqrt(max(threshold - ssr_min, 0.0))
+    # a profile point's sum of squares is needed to a small part of the threshold's rise above the minimum
+    # (1e-3 of it moves the interval's end by about 0.05 % of its half-width), not to machine precision:
+    # the sub-fits stop there, which saves them their last Gauss-Newton steps
+    rise = max(threshold - ssr_min, 0.0)
+    sub_ftol = min(max(1e-3 * rise / ssr_min, 1e-10), 1e-4) if ssr_min > 0 else 1e-10
+    sub_tol.update(xtol=1e-6, ftol=sub_ftol, gtol=1e-10)
     t_quad = 2.0  # first probe: about where a near-linear profile crosses the 95 % threshold
     ends: list[float | None] = []
     for direction in (-1.0, 1.0):

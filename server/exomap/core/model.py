@@ -201,13 +201,14 @@ class Model:
         return valve_mod.flow(self.sc, float(y[0]), x)
 
     # -- model ------------------------------------------------------------------------------------------
-    def rhs(self, t: float, y: np.ndarray, u: Inputs) -> np.ndarray:
-        """dy/dt [SI per s]."""
+    def rhs(self, t: float, y: np.ndarray, u: Inputs, r: np.ndarray | None = None) -> np.ndarray:
+        """dy/dt [SI per s]. ``r``: the extent rates at y when the caller has them already."""
         h, C, T, _ = self.unpack(y)
         V = self.A * max(h, 1e-12)
         x, _, _, integrating = self.opening(y, u)
         q_out = 0.0 if u.outlet_blocked else valve_mod.flow(self.sc, h, x)
-        r = self.kin.rates(C, T)
+        if r is None:
+            r = self.kin.rates(C, T)
         c_in = np.asarray(u.c_in)
         dh = (u.q_in - q_out) / self.A
         dC = u.q_in / V * (c_in - C) + self.kin.nu @ r

@@ -365,7 +365,7 @@ def replay(
             A[n, n] = -u.q_in / V + Jh @ dr_dT - (u.UA_jacket + u.UA_loss) / (rhocp * V)
             S = ya[N:].reshape(n + 1, p)
             dS = A @ S + sensitivity(C, T, V, u, r)
-            return np.concatenate((model.rhs(tt, y, u), dS.ravel()))
+            return np.concatenate((model.rhs(tt, y, u, r), dS.ravel()))
 
         def jac_aug(tt: float, ya: np.ndarray) -> np.ndarray:
             y = ya[:N]

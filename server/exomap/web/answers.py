@@ -696,6 +696,10 @@ class OverlayAnswer(Answer):
 
     dataset_id: str
     start: str = Field(description="Time of the first record (ISO 8601, UTC).")
+    records: int = Field(description="Records in the dataset.")
+    stride: int = Field(
+        description="Every stride-th record is answered (1: all), the last always, so at most max_points."
+    )
     time_s: list[float] = Field(description="Record times from the first record [s].")
     residence_time_s: list[float | None] = Field(description="V_set / recorded feed flow [s]; null where missing.")
     feed_temperature_K: list[float | None] = Field(description="Recorded feed temperature [K]; null where missing.")

@@ -14,7 +14,7 @@ import anyio.to_thread
 from fastapi import APIRouter, Body, Depends, Path, Query, Request
 from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse, Response
-from pydantic import BaseModel, ValidationError
+from pydantic import BaseModel, ValidationError, WithJsonSchema
 
 import exomap
 from exomap.web.answers import (
@@ -27,7 +27,14 @@ from exomap.web.answers import (
 from exomap.web.compression import AnswerResponse, accepts_gzip, local_client
 from exomap.web.errors import ApiError, error_responses
 from exomap.web.jobs import Answer
-from exomap.web.models import BranchRequest, CheckRequest, MapRequest, SimulateRequest, SteadyRequest
+from exomap.web.models import (
+    SCENARIO_SCHEMA,
+    BranchRequest,
+    CheckRequest,
+    MapRequest,
+    SimulateRequest,
+    SteadyRequest,
+)
 from exomap.web.query import refuse_unknown_query
 from exomap.web.service import REQUEST_MODELS, Service
 from exomap.web.settings import Settings
@@ -39,7 +46,7 @@ SCENARIO_FORMAT = "exomap-scenario/1"
 #: enumeration value); MAJOR for anything that breaks a client generated from the previous document (a key,
 #: route or operation id removed or renamed, a type or unit changed, a request field made required) -- a
 #: MAJOR bump also moves the routes to the next prefix (/api/v2) and keeps /api/v1 serving until retired.
-API_VERSION = "1.3.0"
+API_VERSION = "1.5.0"
 
 SUMMARIES = {
     "steady": "Every steady state at an operating point, with its stability",
@@ -262,7 +269,12 @@ def build_router(example_scenario: dict[str, Any] | None) -> APIRouter:
         service: ServiceDep,
         settings: SettingsDep,
         document: Annotated[
-            dict[str, Any], Body(description="A scenario document (DESIGN.md §3).", examples=[body_example])
+            dict[str, Any],
+            # checked by exomap.schema (messages per field); typed for the contract
+            WithJsonSchema(
+                {**SCENARIO_SCHEMA, "description": "A scenario document (DESIGN.md §3).", "examples": [body_example]}
+            ),
+            Body(),
         ],
         derived_from: Annotated[
             str | None,

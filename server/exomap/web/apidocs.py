@@ -7,7 +7,8 @@ every operation with its parameters, its request-body example and a form to send
 written for this API rather than a general OpenAPI browser, and has no third-party code.
 
 The OpenAPI document itself is FastAPI's, less the framework's default 422 body (``HTTPValidationError``),
-which this API never sends: every failure has the shape of ``exomap.web.errors.ErrorBody``. The document is the
+which this API never sends: every failure has the shape of ``exomap.web.errors.ErrorBody``; and it lists the
+connection layer's 408, 414 and 431 on every operation. The document is the
 API's contract and is committed as ``docs/openapi.json``; ``make openapi`` (``python -m exomap.web.apidocs
 docs/openapi.json``) refreshes it, and ``tests/web/test_contract.py`` fails with a diff when they differ.
 """
@@ -96,7 +97,9 @@ function bodyExample(spec, op) {
     const first = Object.values(content.examples)[0];
     if (first && first.value !== undefined) return first.value;
   }
-  const schema = resolveRef(spec, content.schema) || {};
+  const own = content.schema || {};
+  if (own.examples && own.examples.length) return own.examples[0];  // beside a $ref (POST /scenarios)
+  const schema = resolveRef(spec, own) || {};
   if (schema.examples && schema.examples.length) return schema.examples[0];
   if (schema.example !== undefined) return schema.example;
   return {};
@@ -202,6 +205,26 @@ def _without_framework_errors(doc: dict[str, Any]) -> dict[str, Any]:
     return doc
 
 
+#: Answers of the connection layer (``exomap.web.protocol`` and the body deadline of
+#: ``exomap.web.middleware.BodyLimit``), possible on every operation before any route runs.
+CONNECTION_ERRORS = {
+    "408": "The request head, or its body, did not arrive within the server's timeout (a slow or silent client).",
+    "414": "The request line (the URL) is longer than the server's limit (EXOMAP_MAX_URL_BYTES).",
+    "431": "The request head is larger than the server's limit (EXOMAP_MAX_HEADER_BYTES).",
+}
+
+
+def _with_connection_errors(doc: dict[str, Any]) -> dict[str, Any]:
+    """List 408, 414 and 431 (the shared error shape) on every operation: the server may answer any request so."""
+    body = {"application/json": {"schema": {"$ref": "#/components/schemas/ErrorBody"}}}
+    for item in doc.get("paths", {}).values():
+        for op in item.values():
+            responses = op.setdefault("responses", {})
+            for status, description in CONNECTION_ERRORS.items():
+                responses.setdefault(status, {"description": description, "content": body})
+    return doc
+
+
 def install(app: FastAPI) -> None:
     """Add ``/api/docs`` and its two files to ``app``, and clean its OpenAPI document."""
 
@@ -209,7 +232,7 @@ def install(app: FastAPI) -> None:
 
     def openapi() -> dict[str, Any]:
         if app.openapi_schema is None:
-            app.openapi_schema = _without_framework_errors(generate())
+            app.openapi_schema = _with_connection_errors(_without_framework_errors(generate()))
         return app.openapi_schema
 
     app.openapi = openapi  # type: ignore[method-assign]

@@ -49,6 +49,13 @@ class AnswerCache:
                 _, (_, dropped) = self._data.popitem(last=False)
                 self._bytes -= dropped
 
+    def drop(self, key: Hashable) -> None:
+        """Forget one answer (one that is right but not complete, e.g. cut short by the time budget)."""
+        with self._lock:
+            old = self._data.pop(key, None)
+            if old is not None:
+                self._bytes -= old[1]
+
     def __len__(self) -> int:
         with self._lock:
             return len(self._data)

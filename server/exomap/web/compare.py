@@ -18,7 +18,7 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationError, model_valida
 
 from exomap.web import urls
 from exomap.web.errors import ApiError
-from exomap.web.models import GridPoints, Quantity, Range
+from exomap.web.models import GridPoints, InlineScenario, Quantity, Range
 
 #: Query keys of the compare page's view state (SI numbers, like the scenario page's), built in ``urls``.
 VIEW_KEYS = urls.COMPARE_KEYS
@@ -31,7 +31,7 @@ class CompareSide(BaseModel):
 
     model_config = ConfigDict(extra="forbid")
 
-    scenario: dict[str, Any] | None = Field(default=None, description="A whole scenario document; or scenario_id.")
+    scenario: InlineScenario = Field(default=None, description="A whole scenario document; or scenario_id.")
     scenario_id: str | None = Field(
         default=None, min_length=1, max_length=200, description="Id of a stored scenario or a demo name."
     )

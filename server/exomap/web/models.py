@@ -11,7 +11,16 @@ from __future__ import annotations
 
 from typing import Annotated, Any, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, StrictFloat, StrictInt, StrictStr, model_validator
+from pydantic import (
+    BaseModel,
+    ConfigDict,
+    Field,
+    StrictFloat,
+    StrictInt,
+    StrictStr,
+    WithJsonSchema,
+    model_validator,
+)
 
 # Strict members: JSON true/false is not a quantity (lax pydantic would read it as 1.0/0.0).
 Quantity = Annotated[
@@ -24,6 +33,53 @@ GridPoints = Annotated[
     Field(min_length=2, max_length=2, description="[n_residence_time, n_feed_temperature], each at least 2."),
 ]
 
+#: The OpenAPI schema of an inline scenario: the scenario document's own (``ScenarioDoc``, a component of the
+#: document as the answer of ``GET /scenarios/{id}``). The body is still checked by ``exomap.schema``, whose
+#: messages name each field (``scenario.vessel.diameter``); only the contract is typed by this.
+SCENARIO_SCHEMA = {"$ref": "#/components/schemas/ScenarioDoc"}
+InlineScenario = Annotated[
+    dict[str, Any] | None,
+    WithJsonSchema({"anyOf": [SCENARIO_SCHEMA, {"type": "null"}]}),
+]
+
+
+def _event_schemas() -> list[dict[str, Any]]:
+    """The forms of a simulation event (``exomap.core.events``), for the OpenAPI document."""
+    from exomap.core.events import ACTIONS, QUANTITIES
+
+    quantity = {"anyOf": [{"type": "number"}, {"type": "string"}], "description": Quantity.__metadata__[0].description}
+    named = {
+        "type": "string",
+        "description": f"One of {', '.join(QUANTITIES)} (feed_concentration.<species> for one species).",
+    }
+    at = {**quantity, "description": "Time from the start, e.g. '10 min' or seconds."}
+
+    def form(title: str, properties: dict[str, Any]) -> dict[str, Any]:
+        return {
+            "type": "object",
+            "title": title,
+            "properties": {"at": at, **properties},
+            "required": ["at", *properties],
+            "additionalProperties": False,
+        }
+
+    return [
+        form("SetEventInput", {"set": named, "to": {**quantity, "description": "The new value."}}),
+        form("AddEventInput", {"add": named, "value": {**quantity, "description": "The change, e.g. '10 K'."}}),
+        form("ScaleEventInput", {"scale": named, "by": {**quantity, "description": "Factor [-], e.g. 1.5."}}),
+        form(
+            "RampEventInput",
+            {
+                "ramp": named,
+                "to": {**quantity, "description": "The value at the end of the ramp."},
+                "over": {**quantity, "description": "Ramp duration, e.g. '20 min' or seconds."},
+            },
+        ),
+        form("DoEventInput", {"do": {"type": "string", "enum": list(ACTIONS), "description": "A plant action."}}),
+        {"type": "string", "description": "One line of text, e.g. 'at 10 min set feed_temperature to 45 degC'."},
+    ]
+
+
 EXAMPLE_ID = "jacketed-first-order"
 """Demo name used in the examples (any stored scenario id works the same way)."""
 
@@ -33,7 +89,7 @@ class ScenarioRef(BaseModel):
 
     model_config = ConfigDict(extra="forbid")
 
-    scenario: dict[str, Any] | None = Field(
+    scenario: InlineScenario = Field(
         default=None, description="A whole scenario document (DESIGN.md §3); give this or scenario_id."
     )
     scenario_id: str | None = Field(
@@ -180,7 +236,8 @@ class SimulateRequest(OperatingPoint):
     )
 
     start: Literal["low", "high"] = Field(default="low", description="Steady state the simulation starts from.")
-    events: list[Any] = Field(
+    # checked by exomap.core.events.parse_events (messages name events[i].<key>); typed here for the contract
+    events: Annotated[list[Any], WithJsonSchema({"type": "array", "items": {"anyOf": _event_schemas()}})] = Field(
         default_factory=list,
         description="Events applied during the run, each an object, e.g. {'at': '10 min', 'do': 'feed_stop'}, or a "
         "line of text as the pages teach, e.g. 'at 10 min set feed_temperature to 45 degC' (exomap.core.events).",

@@ -20,11 +20,16 @@ from fastapi.responses import JSONResponse, Response
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 
 from exomap.web.errors import ApiError
-from exomap.web.models import Quantity
+from exomap.web.models import InlineScenario, Quantity
 
 #: Share of the computation time budget a calibration's profiles may use (the rest: queueing, the main fit's
 #: tail, the final replay and the answer).
 PROFILE_SHARE = 0.8
+#: Records an overlay answers by default (a chart of more markers than this shows nothing more, and a
+#: million-record dataset would make a 70 MB answer).
+OVERLAY_POINTS = 5000
+#: Words of the fit's warning when the profiles ran out of time (exomap.core.fit).
+TIMED_OUT = "the time allowed ran out"
 
 DatasetId = Annotated[str, Field(min_length=1, max_length=64, description="Id of a stored plant dataset.")]
 
@@ -37,7 +42,7 @@ class PlantRequest(BaseModel):
         json_schema_extra={"examples": [{"scenario_id": "jacketed-first-order", "dataset_id": "0123456789abcdef"}]},
     )
 
-    scenario: dict[str, Any] | None = Field(default=None, description="A whole scenario document; or scenario_id.")
+    scenario: InlineScenario = Field(default=None, description="A whole scenario document; or scenario_id.")
     scenario_id: str | None = Field(default=None, min_length=1, max_length=200, description="Stored id or demo name.")
     dataset_id: DatasetId
 
@@ -46,6 +51,25 @@ class PlantRequest(BaseModel):
         if (self.scenario is None) == (self.scenario_id is None):
             raise ValueError("give exactly one of 'scenario' (a document) or 'scenario_id'")
         return self
+
+
+class OverlayRequest(PlantRequest):
+    """Where the plant ran, thinned for drawing."""
+
+    model_config = ConfigDict(
+        extra="forbid",
+        json_schema_extra={
+            "examples": [{"scenario_id": "jacketed-first-order", "dataset_id": "0123456789abcdef", "max_points": 2000}]
+        },
+    )
+
+    max_points: int = Field(
+        default=OVERLAY_POINTS,
+        ge=2,
+        le=200_000,
+        description="Most records answered: a longer dataset is thinned to every k-th record (the last always "
+        "kept), k the smallest that fits; the answer says k ('stride') and the dataset's record count.",
+    )
 
 
 class CalibrateRequest(PlantRequest):
@@ -218,11 +242,11 @@ def build_plant_router() -> APIRouter:
         summary="Overlay: where the plant ran on the operating map (residence time and feed temperature in time)",
         responses=answer_responses(OverlayAnswer, 400, 404, 422, 503),
     )
-    async def overlay_route(request: Request, req: PlantRequest) -> JSONResponse:
+    async def overlay_route(request: Request, req: OverlayRequest) -> JSONResponse:
         service = await get_service(request)
         resolved = await anyio.to_thread.run_sync(service.resolve, req)
         ds = await anyio.to_thread.run_sync(_dataset, request, req.dataset_id)
-        return JSONResponse(overlay(resolved.scenario, ds))
+        return JSONResponse(overlay(resolved.scenario, ds, max_points=req.max_points))
 
     @router.post(
         "/calibrate",
@@ -251,30 +275,43 @@ def build_plant_router() -> APIRouter:
             key, plant_job.run_calibrate, resolved.scenario, doc, source, ds, list(req.fit), T_ref, list(req.outputs),
             deadline - (1.0 - PROFILE_SHARE) * budget, deadline=deadline,
         )  # fmt: skip
+        if not hit and TIMED_OUT.encode() in bytes(out.body):
+            service.cache.drop(key)  # cut short by the budget: a retry on a quieter server may complete it
         return _answer_response(request, out, hit, "json", "calibrate")
 
     return router
 
 
-def overlay(sc: Any, ds: Any) -> dict[str, Any]:
+def overlay(sc: Any, ds: Any, *, max_points: int = OVERLAY_POINTS) -> dict[str, Any]:
     """The plant's path on the map: residence time V_set/q_in(t) and feed temperature at each record (SI; null
-    where not recorded), with the recorded reactor temperature and the record times."""
+    where not recorded), with the recorded reactor temperature and the record times. More than ``max_points``
+    records are thinned to every k-th (the last kept)."""
     import math
 
+    import numpy as np
+
+    n = int(ds.epoch_s.size)
+    stride = max(1, math.ceil((n - 1) / (max_points - 1))) if n > max_points else 1
+    idx = np.arange(0, n, stride)
+    if idx[-1] != n - 1:
+        idx = np.append(idx, n - 1)
+
     def clean(values: Any) -> list[float | None]:
-        return [None if not math.isfinite(v) else v for v in values.tolist()]
+        return [None if not math.isfinite(v) else v for v in np.asarray(values)[idx].tolist()]
 
     t = ds.epoch_s - ds.epoch_s[0]
     q = ds.series.get("feed_flow")
     tin = ds.series.get("feed_temperature")
     T = ds.series.get("reactor_temperature")
-    nan = [None] * t.size
+    k = idx.size
     return {
         "dataset_id": ds.dataset_id,
         "start": ds.summary()["start"],
-        "time_s": t.tolist(),
-        "residence_time_s": clean(sc.vessel.V_set / q) if q is not None else [sc.tau_nominal] * t.size,
-        "feed_temperature_K": clean(tin) if tin is not None else [sc.T_in] * t.size,
-        "reactor_temperature_K": clean(T) if T is not None else nan,
+        "records": n,
+        "stride": stride,
+        "time_s": t[idx].tolist(),
+        "residence_time_s": clean(sc.vessel.V_set / q) if q is not None else [sc.tau_nominal] * k,
+        "feed_temperature_K": clean(tin) if tin is not None else [sc.T_in] * k,
+        "reactor_temperature_K": clean(T) if T is not None else [None] * k,
         "recorded": sorted(ds.series),
     }
