@@ -32,6 +32,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
+from exomap.core.eigen import FAST
 from exomap.core.manifold import W_BOUND, Manifold, Samples
 from exomap.core.regions import CODE
 from exomap.core.scenario import R_GAS
@@ -314,6 +315,7 @@ class StackedGeneralManifold(Manifold):
         super().__init__(sc)
         self.explicit = False
         i = np.asarray(sample_index, dtype=np.int64)
+        self._samples, self._sample_index = samples, i
         self.tau = np.asarray(tau, dtype=float)
         rhocpV = sc.rho * samples.cp[i] * sc.vessel.V_set
         self._kappa = samples.UA_jacket[i] / rhocpV
@@ -566,6 +568,40 @@ class StackedGeneralManifold(Manifold):
                     lr[:, k] += nk * y[:, a]
         return y, lr, ok, Jac_out, GT_out
 
+    def _stiff_points(self, *args: object):  # noqa: ANN202
+        """The base class's treatment of stiff points needs one parameter set and real residence times: here
+        :meth:`stability` hands those points to each sample's own manifold instead."""
+        return iter(())
+
+    def stability(
+        self, tau: np.ndarray, T: np.ndarray, xi: np.ndarray, C: np.ndarray | None = None
+    ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """``Manifold.stability`` per column (``tau`` the column codes). Stiff points (a diagonal entry of the
+        reduced Jacobian above ``eigen.FAST`` per residence time: a fast reaction keeps a reactant near zero,
+        and rounding hides the slow eigenvalues) are judged by the deterministic manifold of their sample,
+        whose eigenvalues come from the Schur complement of the fast variables."""
+        stable, h, hok = super().stability(tau, T, xi, C)
+        T = np.asarray(T, float)
+        code = np.broadcast_to(np.asarray(tau, float), T.shape)
+        tau_r = np.take(self.tau, code.astype(np.int64))
+        Jr = self.reduced_jacobian(tau, T, xi, C)
+        with np.errstate(invalid="ignore", over="ignore"):
+            big = np.max(np.abs(np.diagonal(Jr, axis1=-2, axis2=-1)), axis=-1) * tau_r > FAST
+        if not big.any():
+            return stable, h, hok
+        where = np.nonzero(big)
+        owner = np.take(self._sample_index, code[where].astype(np.int64))
+        xi_w = np.asarray(xi)[where]
+        C_w = None if C is None else np.asarray(C)[where]
+        stable, h, hok = stable.copy(), h.copy(), hok.copy()
+        for i in np.unique(owner):
+            k = owner == i
+            mf = Manifold(self._samples.scenario(int(i)))
+            st, hv, ok = mf.stability(tau_r[where][k], T[where][k], xi_w[k], None if C_w is None else C_w[k])
+            pts = tuple(w[k] for w in where)
+            stable[pts], h[pts], hok[pts] = st, hv, ok
+        return stable, h, hok
+
     def reduced_jacobian(
         self, tau: np.ndarray, T: np.ndarray, xi: np.ndarray, C: np.ndarray | None = None
     ) -> np.ndarray:
@@ -578,8 +614,10 @@ class StackedGeneralManifold(Manifold):
         lnk = take(self.lnk0)
         m = self.m
         logC = np.log(np.maximum(C, 1e-300))
-        r = np.empty(np.shape(T) + (m,))
+        r = np.zeros(np.shape(T) + (m,))
         for j in range(m):
+            if not self.live[j]:  # cannot run with this feed: no rate, no derivative (as Manifold.rates)
+                continue
             lr = lnk[..., j] - E[..., j] / T
             for s in self._nz[j]:
                 lr = lr + self.orders[j, s] * logC[..., s]
@@ -587,6 +625,8 @@ class StackedGeneralManifold(Manifold):
         Rn = np.zeros(np.shape(T) + (m, m))
         with np.errstate(divide="ignore", invalid="ignore"):
             for j in range(m):
+                if not self.live[j]:
+                    continue
                 for s in self._nz[j]:
                     g = r[..., j] * (self.orders[j, s] / np.maximum(C[..., s], 1e-300))
                     for k in range(m):
