@@ -26,13 +26,13 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.optimize import brentq, fsolve
+from scipy.optimize import fsolve
 
 from exomap.core.errors import ModelInputError
 from exomap.core.manifold import Manifold
 from exomap.core.opmap import FoldColumns, chains, cusps, fold_columns, unhide_fold_pairs
 from exomap.core.scenario import Scenario, validate
-from exomap.core.steady import check_point, roots_in_samples
+from exomap.core.steady import bracketed_root, check_point, roots_in_samples
 
 RESIDENCE_TIME, FEED_TEMPERATURE = "residence_time", "feed_temperature"
 #: Residence-time columns sampled for a branch along the residence time (fold locus and starting states).
@@ -138,10 +138,8 @@ def _fold_kind(mf: Manifold, tau: float, s: float) -> str:
 def _lead(mf: Manifold, tau: float, s: float) -> tuple[float, bool, float]:
     """(leading real part, complex?, |imag| of the leading pair) of the reduced Jacobian."""
     smp = _one(mf, tau, s)
-    Jr = mf.reduced_jacobian(np.array([tau]), smp.T, smp.xi, mf.state_C(smp))[0]
-    ev = np.linalg.eigvals(Jr)
-    k = int(np.argmax(ev.real))
-    return float(ev[k].real), bool(abs(ev[k].imag) > 1e-12 * max(abs(ev[k].real), 1e-30)), float(abs(ev[k].imag))
+    re, cplx, im = mf.leading_pair(np.array([tau]), smp.T, smp.xi, mf.state_C(smp))
+    return float(re[0]), bool(cplx[0]), float(im[0])
 
 
 def _hopf_fn(mf: Manifold, tau: float, s: float) -> tuple[float, bool]:
@@ -177,7 +175,7 @@ def default_range(sc: Scenario, along: str, tau: float, T_in: float) -> tuple[fl
 
 
 # -- along the feed temperature ---------------------------------------------------------------------------
-def _along_feed_temperature(mf: Manifold, tau: float, lo: float, hi: float, n: int):
+def _along_feed_temperature(mf: Manifold, tau: float, lo: float, hi: float, n: int, misses: list[str]):
     T_lo, T_hi = mf.temperature_window(lo, hi, tau)
     # a fold pair closer together than one sample (next to a cusp) is brought out first, as on the map
     smp = unhide_fold_pairs(mf, mf.sample(np.array([tau]), T_lo, T_hi, n))
@@ -188,6 +186,12 @@ def _along_feed_temperature(mf: Manifold, tau: float, lo: float, hi: float, n: i
     lead, cplx = lead[0], cplx[0]
     _, hf, hok = mf.stability(smp.tau, smp.T, smp.xi, C)
     hf, hok = hf[0], hok[0]
+    if not np.all(smp.valid[0]):
+        misses.append(f"{int(np.count_nonzero(~smp.valid[0]))} sample(s) whose mass balances did not converge")
+    unknown = ok & (np.isnan(lead) | np.isnan(hf))
+    if unknown.any():
+        misses.append(f"the stability of {int(np.count_nonzero(unknown))} sample(s) is below the rounding")
+    fold_miss = hopf_miss = 0
     points: list[BranchPoint] = []
     turns: list[TurningPoint] = []
     hopfs: list[HopfPoint] = []
@@ -213,17 +217,27 @@ def _along_feed_temperature(mf: Manifold, tau: float, lo: float, hi: float, n: i
         if k + 1 >= n or not (ok[k] and ok[k + 1]):
             continue
         if d[k] * d[k + 1] < 0:
-            sf = brentq(lambda x: float(_one(mf, tau, x).dTin_ds[0]), s[k], s[k + 1], xtol=1e-300, rtol=1e-15)
+            sf = bracketed_root(lambda x: float(_one(mf, tau, x).dTin_ds[0]), s[k], s[k + 1], xtol=1e-300, rtol=1e-15)
+            if sf is None:
+                fold_miss += bool(lo <= T_in[k] <= hi or lo <= T_in[k + 1] <= hi)
+                continue
             e = _one(mf, tau, sf)
             if lo <= e.T_in[0] <= hi:
                 turns.append(TurningPoint(_fold_kind(mf, tau, sf), tau, float(e.T_in[0]), float(e.T[0])))
         # a Hopf point: the smooth Hopf function changes sign with a complex pair possible at either end (the
         # pair may be complex at one end only: next to a fold, or where a real eigenvalue leads)
         if (hok[k] or hok[k + 1]) and hf[k] * hf[k + 1] < 0:
-            sh = brentq(lambda x: _hopf_fn(mf, tau, x)[0], s[k], s[k + 1], xtol=1e-300, rtol=1e-15)
+            sh = bracketed_root(lambda x: _hopf_fn(mf, tau, x)[0], s[k], s[k + 1], xtol=1e-300, rtol=1e-15)
+            if sh is None:  # the samples' sign change does not hold point by point
+                hopf_miss += bool(lo <= T_in[k] <= hi or lo <= T_in[k + 1] <= hi)
+                continue
             e = _one(mf, tau, sh)
             if lo <= e.T_in[0] <= hi and _is_hopf(mf, tau, sh):
                 hopfs.append(HopfPoint(tau, float(e.T_in[0]), float(e.T[0]), _lead(mf, tau, sh)[2]))
+    if fold_miss:
+        misses.append(f"{fold_miss} turning point(s) between two samples could not be solved")
+    if hopf_miss:
+        misses.append(f"{hopf_miss} change(s) of stability between two samples could not be solved")
     return points, turns, hopfs
 
 
@@ -298,9 +312,11 @@ class _Plane:
 
 def _trace(
     plane: _Plane, X: float, Y: float, direction: float, max_steps: int = 4000, max_step: float = 0.02
-) -> tuple[list[tuple[float, float, float]], bool]:
-    """Pseudo-arclength continuation from (X, Y); returns the list of (X, Y, tX) along the curve and whether
-    it came back to its start (a closed curve, an isola: the start is not repeated at the end)."""
+) -> tuple[list[tuple[float, float, float]], bool, bool]:
+    """Pseudo-arclength continuation from (X, Y); returns the list of (X, Y, tX) along the curve, whether it
+    came back to its start (a closed curve, an isola: the start is not repeated at the end), and whether it
+    ended as a curve should (out of the window or closed), not because a step could not be corrected or the
+    steps ran out."""
     path = [(X, Y, 0.0)]
     h = 0.01
     _, gx, gy = plane.grad(X, Y)
@@ -325,19 +341,19 @@ def _trace(
                     break
             h *= 0.5
         if not ok:
-            break
+            return path, False, False
         X, Y, tx, ty = Xc, Yc, ntx, nty
         path.append((X, Y, tx))
         h = min(h * 1.5, max_step)
         if not (-1e-9 <= X <= 1 + 1e-9 and -0.05 <= Y <= 1.05):
-            break
+            return path, False, True
         if step > 10 and math.hypot(X - X0, Y - Y0) < 0.5 * h:
             path.pop()  # back at the start: a closed curve (isola), each point listed once
-            return path, True
-    return path, False
+            return path, True, True
+    return path, False, False
 
 
-def _along_residence_time(mf: Manifold, T_in: float, lo: float, hi: float, max_step: float = 0.02):
+def _along_residence_time(mf: Manifold, T_in: float, lo: float, hi: float, misses: list[str], max_step: float = 0.02):
     plane = _Plane(mf, T_in, lo, hi)
     # one vectorised sampling of the manifold on 150 residence-time columns serves both the fold-locus search
     # for turning points and the steady states that start the continuation: those on the two edges, and
@@ -347,12 +363,17 @@ def _along_residence_time(mf: Manifold, T_in: float, lo: float, hi: float, max_s
     smp = cols.smp
 
     def roots(c: int) -> list[float]:
-        return roots_in_samples(mf, float(taus[c]), T_in, smp.s[c], smp.T_in[c] - T_in, smp.dTin_ds[c], smp.valid[c])
+        return roots_in_samples(
+            mf, float(taus[c]), T_in, smp.s[c], smp.T_in[c] - T_in, smp.dTin_ds[c], smp.valid[c], misses
+        )
 
     starts = [plane.XY(float(taus[c]), s) for c in (0, taus.size - 1) for s in roots(c)]
     interior = [plane.XY(float(taus[c]), s) for c in range(6, taus.size - 1, 6) for s in roots(c)]
     pieces: list[list[tuple[float, float, float]]] = []
     closed_pieces: set[int] = set()
+    stopped = 0  # traces that ended inside the window without closing
+    if not np.all(smp.valid):
+        misses.append(f"{int(np.count_nonzero(~smp.valid))} sample(s) whose mass balances did not converge")
 
     def covered(X: float, Y: float) -> bool:
         for p in pieces:
@@ -373,21 +394,26 @@ def _along_residence_time(mf: Manifold, T_in: float, lo: float, hi: float, max_s
         _, gx, gy = plane.grad(X, Y)
         if gy * direction < 0:  # tangent (gy, -gx): make its X component point into the window
             direction = -direction
-        pieces.append(_trace(plane, X, Y, direction, max_step=max_step)[0])
+        path, _, ended = _trace(plane, X, Y, direction, max_step=max_step)
+        pieces.append(path)
+        stopped += not ended
     for X, Y in interior:
         if covered(X, Y):
             continue
-        a, closed = _trace(plane, X, Y, 1.0, max_step=max_step)
+        a, closed, ended = _trace(plane, X, Y, 1.0, max_step=max_step)
+        stopped += not ended
         if closed:  # an isola: one direction has gone all the way round
             pieces.append(a)
             closed_pieces.add(len(pieces) - 1)
             continue
-        b, _ = _trace(plane, X, Y, -1.0, max_step=max_step)
+        b, _, ended = _trace(plane, X, Y, -1.0, max_step=max_step)
+        stopped += not ended
         pieces.append(list(reversed(b)) + a[1:])
 
     points: list[BranchPoint] = []
     turns: list[TurningPoint] = []
     hopfs: list[HopfPoint] = []
+    fold_miss = hopf_miss = unknown = 0
     for k, path in enumerate(pieces):
         prev = None
         # a closed piece comes back to its first point: that last step is checked for turns too, but the
@@ -411,12 +437,26 @@ def _along_residence_time(mf: Manifold, T_in: float, lo: float, hi: float, max_s
                     tp = _refine_fold(plane, 0.5 * (prev[0] + X), 0.5 * (prev[1] + Y))
                     if tp is not None:
                         turns.append(tp)
+                    else:
+                        fold_miss += 1
                 if (prev[4] or hok) and prev[3] * hf < 0:
                     hp = _refine_hopf(plane, prev, cur)
-                    if hp is not None:
+                    if hp is _NOT_SOLVED:
+                        hopf_miss += 1
+                    elif hp is not None:
                         hopfs.append(hp)
+                if math.isnan(hf) or math.isnan(re):
+                    unknown += 1
             prev = cur
     turns = _distinct(turns + _locus_turning_points(plane, taus, cols))
+    if stopped:
+        misses.append(f"{stopped} traced piece(s) of the branch stopped inside the range (a step did not converge)")
+    if fold_miss:
+        misses.append(f"{fold_miss} turning point(s) seen along the trace could not be solved")
+    if hopf_miss:
+        misses.append(f"{hopf_miss} change(s) of stability seen along the trace could not be solved")
+    if unknown:
+        misses.append(f"the stability of {unknown} point(s) is below the rounding")
     return points, turns, _distinct(hopfs)
 
 
@@ -497,7 +537,12 @@ def _refine_fold(plane: _Plane, X: float, Y: float) -> TurningPoint | None:
     return TurningPoint(_fold_kind(mf, tau, s), tau, plane.T_in, float(e.T[0]))
 
 
-def _refine_hopf(plane: _Plane, a: tuple, b: tuple) -> HopfPoint | None:
+_NOT_SOLVED = object()  # a sign change of the Hopf function that could not be refined
+
+
+def _refine_hopf(plane: _Plane, a: tuple, b: tuple) -> HopfPoint | None | object:
+    """The Hopf point between two traced points whose Hopf function changes sign: None where the zero is not
+    a Hopf point (real eigenvalues), ``_NOT_SOLVED`` where the sign change does not hold on the corrected curve."""
     mf = plane.mf
 
     def lead_on_curve(t: float) -> float:
@@ -507,10 +552,9 @@ def _refine_hopf(plane: _Plane, a: tuple, b: tuple) -> HopfPoint | None:
         tau, s = plane.tau_s(X, Y)
         return _hopf_fn(mf, tau, s)[0]
 
-    try:
-        t = brentq(lead_on_curve, 0.0, 1.0, xtol=1e-14)
-    except ValueError:
-        return None
+    t = bracketed_root(lead_on_curve, 0.0, 1.0, xtol=1e-14)
+    if t is None:
+        return _NOT_SOLVED
     X, Y, _ = plane.correct(a[0] + t * (b[0] - a[0]), a[1] + t * (b[1] - a[1]))
     tau, s = plane.tau_s(X, Y)
     if not _is_hopf(mf, tau, s):  # the Hopf function's zero with real eigenvalues: not a Hopf point
@@ -575,12 +619,16 @@ def branch(
     if not (math.isfinite(lo) and math.isfinite(hi) and 0 < lo < hi):
         raise ModelInputError(f"range must be two increasing positive values in {unit}", field="range")
     mf = Manifold(sc, c_in=c_in, T_c=T_c)
+    misses: list[str] = []
     if along == FEED_TEMPERATURE:
-        points, turns, hopfs = _along_feed_temperature(mf, tau, lo, hi, samples)
+        points, turns, hopfs = _along_feed_temperature(mf, tau, lo, hi, samples, misses)
     else:
-        points, turns, hopfs = _along_residence_time(mf, T_in, lo, hi, max_step)
+        points, turns, hopfs = _along_residence_time(mf, T_in, lo, hi, misses, max_step)
     turns.sort(key=lambda t: (t.tau, t.T_in))
-    ok = bool(points)
+    # a branch with a gap, a turning or Hopf point seen but not solved, or a stability below the rounding is
+    # not complete, and says so
+    ok = bool(points) and not misses
+    summary = f"{len(points)} points, {len(turns)} turning point(s), {len(hopfs)} Hopf point(s)"
     return BranchResult(
         along,
         tau,
@@ -591,9 +639,11 @@ def branch(
         tuple(turns),
         tuple(hopfs),
         ok,
-        f"{len(points)} points, {len(turns)} turning point(s), {len(hopfs)} Hopf point(s)"
+        summary
         if ok
-        else "no steady state in the range",
+        else "no steady state in the range"
+        if not points
+        else f"{summary}; incomplete: {'; '.join(misses)}",
     )
 
 

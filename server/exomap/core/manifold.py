@@ -33,6 +33,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from exomap.core.eigen import FAST, eigenvalues_with_errors_batched
 from exomap.core.errors import ModelInputError
 from exomap.core.scenario import R_GAS, Scenario, check_zero_orders
 
@@ -161,10 +162,14 @@ class Manifold:
         return self.c_in + xi @ self.nu.T
 
     def rates(self, C: np.ndarray, T: np.ndarray) -> np.ndarray:
-        """r (..., m) at C (..., n) and T (...), from logarithms; only species with a non-zero order enter."""
+        """r (..., m) at C (..., n) and T (...), from logarithms; only species with a non-zero order enter. A
+        reaction that cannot run with this feed (``live``) has r = 0 and no derivative: its reactant is absent
+        and stays absent, so there is no rate to perturb (not r/C = 0/0 taken at a floor of 1e-300)."""
         logC = np.log(np.maximum(C, 1e-300))
-        r = np.empty(np.shape(T) + (self.m,))
+        r = np.zeros(np.shape(T) + (self.m,))
         for j in range(self.m):
+            if not self.live[j]:  # needs a species that is neither fed nor made: never runs
+                continue
             lr = np.log(self.k0[j]) - self.E[j] / T
             for i in self._orders_nz[j]:
                 lr = lr + self.orders[j, i] * logC[..., i]
@@ -181,6 +186,8 @@ class Manifold:
         Rn = np.zeros(np.shape(T) + (self.m, self.m))
         with np.errstate(divide="ignore", invalid="ignore"):
             for j in range(self.m):
+                if not self.live[j]:
+                    continue
                 for i in self._orders_nz[j]:
                     g = r[..., j] * (self.orders[j, i] / np.maximum(C[..., i], 1e-300))
                     for k in range(self.m):
@@ -725,7 +732,8 @@ class Manifold:
             # discriminant where the rates are fast
             with np.errstate(invalid="ignore"):
                 w = np.max(np.abs(Jr), axis=(-2, -1))
-                Jr = Jr / np.where((w > 0) & np.isfinite(w), w, 1.0)[..., None, None]
+                w = np.where((w > 0) & np.isfinite(w), w, 1.0)
+                Jr = Jr / w[..., None, None]
             c2 = -(Jr[..., 0, 0] + Jr[..., 1, 1] + Jr[..., 2, 2])
             c1 = (
                 Jr[..., 0, 0] * Jr[..., 1, 1]
@@ -740,9 +748,65 @@ class Manifold:
             # -2a((l1 + a)^2 + w^2), so its sign is minus that of the pair's real part
             hurwitz = c2 * c1 - c0
             disc = 18 * c2 * c1 * c0 - 4 * c2**3 * c0 + c2**2 * c1**2 - 4 * c1**3 - 27 * c0**2
-            return (c2 > 0) & (c1 > 0) & (c0 > 0) & (hurwitz > 0), -hurwitz, disc < 0
+            stable, h, hok = (c2 > 0) & (c1 > 0) & (c0 > 0) & (hurwitz > 0), -hurwitz, disc < 0
+            for idx, ev, resolved in self._stiff_points(tau, T, xi, C, Jr * w[..., None, None]):
+                # the same function from eigenvalues that are exact there: c2 c1 - c0 of Jr / w is
+                # -(l1 + l2)(l1 + l3)(l2 + l3) / w^3
+                l1, l2, l3 = ev[:, 0], ev[:, 1], ev[:, 2]
+                hv = ((l1 + l2) * (l1 + l3) * (l2 + l3)).real / w[idx] ** 3
+                stable[idx] = resolved & np.all(ev.real < 0, axis=-1)
+                h[idx] = np.where(resolved, hv, np.nan)
+                hok[idx] = np.any(np.abs(ev.imag) > 0, axis=-1)
+            return stable, h, hok
         lead, cplx = self.leading_real_part(tau, T, xi, C)
         return lead < 0, lead, cplx
+
+    def _stiff_points(self, tau: np.ndarray, T: np.ndarray, xi: np.ndarray, C: np.ndarray | None, Jr: np.ndarray):
+        """Yields (index, eigenvalues (k, m+1), resolved (k,)) for the points whose reduced Jacobian ``Jr`` is
+        stiff (a diagonal entry above ``eigen.FAST`` / tau: a fast reaction keeps a reactant near zero), in
+        groups that share their fast variables.
+
+        The eigenvalues of a whole stiff matrix lose the slow ones (that decide stability) to rounding. Here
+        they come from the Jacobian in the coordinates (xi, theta = T - J . xi) (:meth:`theta_jacobians`, whose
+        energy row has no fast entry), split into its fast variables F and the rest S: the fast eigenvalues
+        are those of J_FF, the slow ones those of the Schur complement S0 = J_SS - J_SF J_FF^-1 J_FS, vectorised
+        over the points. Each slow eigenvalue's error is bounded by its condition number (from the
+        eigenvectors of S0) times the rounding of S0's entries plus the first-order error of the complement,
+        |lambda| ||J_SF J_FF^-1|| ||J_FF^-1 J_FS|| (S(lambda) - S(0) = -lambda J_SF J_FF^-2 J_FS + ...);
+        ``resolved`` where every slow real part is above its error and every fast eigenvalue is at least 1e3
+        times faster than the slow ones. Imaginary parts within their error are set to 0.
+        """
+        tau_b = np.broadcast_to(tau, T.shape)
+        with np.errstate(invalid="ignore", over="ignore"):
+            big = np.max(np.abs(np.diagonal(Jr, axis1=-2, axis2=-1)), axis=-1) * tau_b > FAST
+        if not big.any():
+            return
+        C = self.concentrations(xi) if C is None else C
+        where = np.nonzero(big)
+        tb = tau_b[where]
+        ev, err = eigenvalues_with_errors_batched(self.theta_jacobians(tb, T[where], C[where]), 1.0 / tb)
+        resolved = np.all(np.abs(ev.real) > err, axis=-1)
+        ev = np.where(np.abs(ev.imag) <= err, ev.real + 0j, ev)
+        yield where, ev, resolved
+
+    def theta_jacobians(self, tau: np.ndarray, T: np.ndarray, C: np.ndarray) -> np.ndarray:
+        """The reduced Jacobian at points (k,) in the coordinates (xi, theta = T - J . xi), shape (k, m+1, m+1): a
+        similarity transform of :meth:`reduced_jacobian` (same eigenvalues) whose theta row is exact and free of
+        the rates, since d(theta)/dt = (T_in - a T + J . xi + b) / tau at fixed volume:
+
+        d xi_j'/d xi_k = R_jk - delta_jk/tau + r_T,j J_k,   d xi_j'/d theta = r_T,j,
+        d theta'/d xi_k = J_k (1 - a)/tau,                d theta'/d theta = -a/tau
+        """
+        _, Rn, dr_dT = self.extent_jacobian(np.asarray(C, float), np.asarray(T, float))
+        m = self.m
+        tau = np.asarray(tau, float)
+        a = self.a(tau)
+        out = np.empty(tau.shape + (m + 1, m + 1))
+        out[..., :m, :m] = Rn - np.eye(m) / tau[..., None, None] + dr_dT[..., :, None] * self.J[None, :]
+        out[..., :m, m] = dr_dT
+        out[..., m, :m] = self.J * ((1.0 - a) / tau)[..., None]
+        out[..., m, m] = -a / tau
+        return out
 
     # -- stability on the manifold --------------------------------------------------------------------
     def reduced_jacobian(
@@ -797,7 +861,30 @@ class Manifold:
             sq = np.sqrt(np.abs(disc))
             lead = np.where(disc >= 0, 0.5 * (tr + sq), 0.5 * tr)
             return lead, disc < 0
-        ev = np.linalg.eigvals(self.reduced_jacobian(tau, T, xi, C))
+        lead, cplx, _ = self.leading_pair(tau, T, xi, C)
+        return lead, cplx
+
+    def leading_pair(
+        self, tau: np.ndarray, T: np.ndarray, xi: np.ndarray, C: np.ndarray | None = None
+    ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """(leading real part [1/s], complex?, |imaginary part| [rad/s]) of the reduced eigenvalues;
+        NaN where a stiff point's signs are below the rounding (see :meth:`_stiff_points`); one reaction from the
+        exact trace and determinant."""
+        if self.m == 1:
+            tr, det = self.trace_det(tau, T, xi, C)
+            disc = tr * tr - 4.0 * det
+            sq = np.sqrt(np.abs(disc))
+            return np.where(disc >= 0, 0.5 * (tr + sq), 0.5 * tr), disc < 0, np.where(disc < 0, 0.5 * sq, 0.0)
+        Jr = self.reduced_jacobian(tau, T, xi, C)
+        ev = np.linalg.eigvals(Jr)
         idx = np.argmax(ev.real, axis=-1)
-        lead = np.take_along_axis(ev, idx[..., None], axis=-1)[..., 0]
-        return lead.real, np.abs(lead.imag) > 1e-12 * np.maximum(np.abs(lead.real), 1e-30)
+        lead_c = np.take_along_axis(ev, idx[..., None], axis=-1)[..., 0]
+        lead, im = lead_c.real.copy(), np.abs(lead_c.imag)
+        cplx = im > 1e-12 * np.maximum(np.abs(lead), 1e-30)
+        for k, evs, resolved in self._stiff_points(tau, T, xi, C, Jr):
+            j = np.argmax(evs.real, axis=-1)[:, None]
+            top = np.take_along_axis(evs, j, axis=-1)[:, 0]
+            lead[k] = np.where(resolved, top.real, np.nan)
+            im[k] = np.abs(top.imag)
+            cplx[k] = im[k] > 0
+        return lead, cplx, im

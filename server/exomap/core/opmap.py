@@ -294,6 +294,9 @@ def operating_map(
     empty = int(np.count_nonzero(count == 0))
     unsolved = 0 if mf.explicit else int(np.count_nonzero(~smp.valid))
     problems = []
+    if states["unknown"] is not None:
+        n_unknown = int(np.count_nonzero(states["unknown"].any(axis=0)))
+        problems.append(f"{n_unknown} cell(s) with a steady state whose temperature or stability could not be computed")
     if empty:
         problems.append(f"{empty} cell(s) where no steady state was found")
     if unsolved:
@@ -494,10 +497,11 @@ def _cell_states(mf: Manifold, smp: Samples, cols: FoldColumns, T_in: np.ndarray
     # would otherwise grow with the map's size)
     T_state = np.empty(ss.shape)
     stable_s = np.empty(ss.shape, dtype=bool)
+    known_s = np.empty(ss.shape, dtype=bool)
     sens = np.empty(ss.shape)
     for a in range(0, ss.size, POLISH_CHUNK):
         b = min(a + POLISH_CHUNK, ss.size)
-        T_state[a:b], stable_s[a:b], sens[a:b] = _polish(
+        T_state[a:b], stable_s[a:b], sens[a:b], known_s[a:b] = _polish(
             mf, ts[a:b], ss[a:b], v[a:b], lo_b[a:b], hi_b[a:b], None if xi_g is None else xi_g[a:b]
         )
     shape = (S, n_tin, n_tau)
@@ -507,7 +511,11 @@ def _cell_states(mf: Manifold, smp: Samples, cols: FoldColumns, T_in: np.ndarray
     T[pi, ri, ci] = T_state
     stable[pi, ri, ci] = stable_s
     sensitivity[pi, ri, ci] = np.abs(sens)
-    return {"present": present, "T": T, "stable": stable, "sensitivity": sensitivity}
+    unknown = None
+    if not known_s.all():
+        unknown = np.zeros(shape, dtype=bool)
+        unknown[pi, ri, ci] = ~known_s
+    return {"present": present, "T": T, "stable": stable, "sensitivity": sensitivity, "unknown": unknown}
 
 
 def _hermite_start(
@@ -535,9 +543,9 @@ def _polish(
     lo_b: np.ndarray,
     hi_b: np.ndarray,
     xi_g: np.ndarray | None,
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Newton steps on T_in(s) = v from the interpolated starts, kept inside their brackets; returns the states'
-    temperature, stability and dT/dT_in.
+    temperature, stability, dT/dT_in and whether temperature and stability are known (finite).
 
     A state is done when its Newton step is below ``POLISH_ACCEPT`` (relative to max(1, |s|)): the step is taken
     and the temperature moved along it to first order (the error is of the order of the step squared, below
@@ -549,6 +557,7 @@ def _polish(
     ss = ss.copy()
     T_out = np.empty(n)
     stable = np.zeros(n, dtype=bool)
+    known = np.zeros(n, dtype=bool)
     sens = np.empty(n)
     idx = np.arange(n)
     for it in range(POLISH_ITERATIONS):
@@ -576,13 +585,14 @@ def _polish(
                 T_out[dd] = e_d.T - e_d.dT_ds * taken[d]
             else:
                 T_out[dd] = new[d]
-            stable[dd] = mf.stability(e_d.tau, e_d.T, e_d.xi, mf.state_C(e_d))[0]
+            stable[dd], h_d, _ = mf.stability(e_d.tau, e_d.T, e_d.xi, mf.state_C(e_d))
+            known[dd] = np.isfinite(T_out[dd] + h_d)
             with np.errstate(invalid="ignore", divide="ignore"):
                 sens[dd] = e_d.dT_ds / e_d.dTin_ds
         idx = idx[~done]
         if idx.size == 0:
             break
-    return T_out, stable, sens
+    return T_out, stable, sens, known
 
 
 def _take(e: Samples, k: np.ndarray) -> Samples:
@@ -593,6 +603,13 @@ def _take(e: Samples, k: np.ndarray) -> Samples:
 def _classify(sc: Scenario, st: dict) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     present, T, stable, sens = st["present"], st["T"], st["stable"], st["sensitivity"]
     count = present.sum(axis=0)
+    unknown = st.get("unknown")
+    if unknown is not None:
+        # a state whose temperature or stability could not be computed is never classified: it may be reachable
+        # (so the cell is not called `unstable`) and, without a finite temperature, above the maximum
+        # temperature (the cell is then `runaway`, the safe side); its cell's maximum temperature is unknown
+        stable = stable | unknown
+        T = np.where(unknown & ~np.isfinite(T), np.inf, T)
     reach = present & stable
     n_stable = reach.sum(axis=0)
     tmax = np.where(reach, T, -np.inf).max(axis=0)
@@ -603,6 +620,8 @@ def _classify(sc: Scenario, st: dict) -> tuple[np.ndarray, np.ndarray, np.ndarra
     region[count > 1] = CODE["multiple"]
     region[n_stable == 0] = CODE["unstable"]
     region[(n_stable > 0) & (tmax > sc.limits.T_max)] = CODE["runaway"]
+    if unknown is not None:
+        tmax = np.where((present & unknown).any(axis=0), np.nan, tmax)
     return region, count.astype(np.int16), tmax
 
 

@@ -10,14 +10,19 @@ from the eigenvalues of the species+energy Jacobian at fixed volume.
 
 Stability (DESIGN.md §2): ``stable`` when every eigenvalue has a negative real part; ``saddle`` when exactly
 one is real and positive (the middle state of a multiplicity); ``unstable`` otherwise. ``oscillatory`` flags
-a leading complex pair. The level block is decoupled at constant density (A dh/dt = q_in - q_out(h) with
-dq_out/dh > 0) and always stable, so it is left out.
+a leading complex pair. Each real part counts by its sign, judged against that eigenvalue's own rounding
+error (balanced matrix, condition number from its left and right eigenvectors [3]; the slow eigenvalues from
+the Schur complement of the fast variables where a fast reaction makes the matrix stiff); where a real part is
+within its error of zero and its sign would change the class, the answer says so and is not a success. The
+level block is decoupled at constant density (A dh/dt = q_in - q_out(h) with dq_out/dh > 0) and always
+stable, so it is left out.
 
 References
 ----------
 [1] C. van Heerden, Autothermic processes, Ind. Eng. Chem. 45 (1953) 1242-1247.
 [2] A. Uppal, W. H. Ray, A. B. Poore, On the dynamic behavior of continuous stirred tank reactors,
     Chem. Eng. Sci. 29 (1974) 967-985.
+[3] ``exomap.core.eigen`` (eigenvalues with their rounding errors; LAPACK Users' Guide section 4.8).
 """
 
 from __future__ import annotations
@@ -29,12 +34,13 @@ import numpy as np
 from scipy.optimize import brentq
 
 from exomap.core import valve as valve_mod
+from exomap.core.eigen import SADDLE, STABLE, UNSTABLE, classify, eigenvalues_with_errors
 from exomap.core.errors import ModelInputError
 from exomap.core.manifold import Manifold
 from exomap.core.model import Model, nominal_inputs
 from exomap.core.scenario import Scenario, validate
 
-STABLE, SADDLE, UNSTABLE = "stable", "saddle", "unstable"
+__all__ = ["SADDLE", "STABLE", "UNSTABLE", "SteadyState", "SteadyStateResult", "classify", "steady_states"]
 #: Samples along the manifold coordinate for a single operating point (one-reaction closed form, general
 #: path where each sample costs an isothermal Newton solve).
 POINT_SAMPLES = 3000
@@ -114,22 +120,6 @@ def _finite_or_none(x: float) -> float | None:
     return float(x) if x is not None and math.isfinite(x) else None
 
 
-def classify(eigenvalues: np.ndarray) -> tuple[str, bool]:
-    """Stability class and oscillatory flag from eigenvalues (DESIGN.md §2)."""
-    ev = np.asarray(eigenvalues)
-    re = ev.real
-    scale = max(float(np.max(np.abs(ev))), 1e-300)
-    pos = re > 1e-10 * scale
-    if not pos.any():
-        kind = STABLE
-    elif pos.sum() == 1 and abs(ev[np.argmax(re)].imag) <= 1e-10 * scale:
-        kind = SADDLE
-    else:
-        kind = UNSTABLE
-    lead = ev[np.argmax(re)]
-    return kind, bool(abs(lead.imag) > 1e-10 * scale)
-
-
 def check_point(tau: float, T_in: float) -> None:
     if not (isinstance(tau, (int, float)) and math.isfinite(tau) and tau > 0):
         raise ModelInputError(
@@ -141,21 +131,58 @@ def check_point(tau: float, T_in: float) -> None:
         )
 
 
-def roots_along(mf: Manifold, tau: float, T_in: float, T_lo: float, T_hi: float, n: int = POINT_SAMPLES) -> list[float]:
+def roots_along(
+    mf: Manifold,
+    tau: float,
+    T_in: float,
+    T_lo: float,
+    T_hi: float,
+    n: int = POINT_SAMPLES,
+    misses: list[str] | None = None,
+) -> list[float]:
     """Coordinates s of every root of T_in(tau, s) = T_in, for one tau. A fold pair closer together than one
     sample (next to a cusp) is brought out first (``opmap.unhide_fold_pairs``, as the map does), so the three
-    states between its two folds are not reported as one."""
+    states between its two folds are not reported as one. What may hide a root (samples whose mass balances
+    did not converge, a bracket that did not hold) is appended to ``misses``."""
     from exomap.core.opmap import unhide_fold_pairs
 
     smp = unhide_fold_pairs(mf, mf.sample(np.array([tau]), T_lo, T_hi, n))
-    return roots_in_samples(mf, tau, T_in, smp.s[0], smp.T_in[0] - T_in, smp.dTin_ds[0], smp.valid[0])
+    if misses is not None and not np.all(smp.valid[0]):
+        misses.append(f"{int(np.count_nonzero(~smp.valid[0]))} sample(s) whose mass balances did not converge")
+    return roots_in_samples(mf, tau, T_in, smp.s[0], smp.T_in[0] - T_in, smp.dTin_ds[0], smp.valid[0], misses)
+
+
+def bracketed_root(fn, a: float, b: float, **kwargs: float) -> float | None:
+    """Brent's method on [a, b] only where ``fn`` itself changes sign there (the samples that pointed to the
+    interval may come from a different evaluation); None where it does not, or does not converge."""
+    fa, fb = fn(a), fn(b)
+    if not (math.isfinite(fa) and math.isfinite(fb)):
+        return None
+    if fa == 0.0:
+        return a
+    if fb == 0.0:
+        return b
+    if fa * fb > 0:
+        return None
+    try:
+        return float(brentq(fn, a, b, maxiter=200, **kwargs))
+    except (RuntimeError, ValueError):
+        return None
 
 
 def roots_in_samples(
-    mf: Manifold, tau: float, T_in: float, s: np.ndarray, f: np.ndarray, d: np.ndarray, valid: np.ndarray
+    mf: Manifold,
+    tau: float,
+    T_in: float,
+    s: np.ndarray,
+    f: np.ndarray,
+    d: np.ndarray,
+    valid: np.ndarray,
+    misses: list[str] | None = None,
 ) -> list[float]:
     """Roots of f = T_in(tau, s) - T_in from samples (s, f, d = dT_in/ds) of one column, refined by Brent's
-    method; two roots on either side of an extremum between two samples are found too."""
+    method; two roots on either side of an extremum between two samples are found too. An interval whose
+    sign change does not hold when refined is appended to ``misses`` (never an exception)."""
     ok = valid & np.isfinite(f)
 
     def phi(x: float) -> float:
@@ -163,6 +190,10 @@ def roots_in_samples(
 
     def dphi(x: float) -> float:
         return float(mf.evaluate(np.array([tau]), np.array([x])).dTin_ds[0])
+
+    def miss(k: int) -> None:
+        if misses is not None:
+            misses.append(f"a root between s = {s[k]:.9g} and {s[k + 1]:.9g} could not be refined")
 
     roots: list[float] = []
     # only the sample intervals with a sign change of f or of its slope need a closer look
@@ -175,14 +206,24 @@ def roots_in_samples(
         if fb == 0.0:
             continue  # taken as the left end of the next interval (or the last sample below)
         if fa * fb < 0:
-            roots.append(brentq(phi, s[k], s[k + 1], xtol=1e-14 * max(abs(s[k]), 1.0), rtol=1e-15, maxiter=200))
+            r = bracketed_root(phi, s[k], s[k + 1], xtol=1e-14 * max(abs(s[k]), 1.0), rtol=1e-15)
+            if r is None:
+                miss(k)
+            else:
+                roots.append(r)
         elif d[k] * d[k + 1] < 0:
             # an extremum between two samples: two roots may hide on its either side
-            se = brentq(dphi, s[k], s[k + 1], xtol=1e-15 * max(abs(s[k]), 1.0), rtol=1e-15, maxiter=200)
+            se = bracketed_root(dphi, s[k], s[k + 1], xtol=1e-15 * max(abs(s[k]), 1.0), rtol=1e-15)
+            if se is None:
+                miss(k)
+                continue
             fe = phi(se)
             if fe * fa < 0:
-                roots.append(brentq(phi, s[k], se, rtol=1e-15, maxiter=200))
-                roots.append(brentq(phi, se, s[k + 1], rtol=1e-15, maxiter=200))
+                r1 = bracketed_root(phi, s[k], se, rtol=1e-15)
+                r2 = bracketed_root(phi, se, s[k + 1], rtol=1e-15)
+                if r1 is None or r2 is None:
+                    miss(k)
+                roots += [r for r in (r1, r2) if r is not None]
             elif fe == 0.0:
                 roots.append(se)
     if ok[-1] and f[-1] == 0.0:
@@ -241,21 +282,26 @@ def steady_states(
     mf = Manifold(sc, c_in=c_in, T_c=T_c)
     T_lo, T_hi = mf.temperature_window(T_in, T_in, tau)
     samples = samples or (POINT_SAMPLES if mf.explicit else POINT_SAMPLES_GENERAL)
-    roots = roots_along(mf, tau, T_in, T_lo, T_hi, samples)
+    misses: list[str] = []
+    roots = roots_along(mf, tau, T_in, T_lo, T_hi, samples, misses)
     model = Model(sc)
     q = sc.vessel.V_set / tau
     u = nominal_inputs(sc, tau=tau, T_in=T_in, c_in=tuple(mf.c_in), T_c=mf.T_c)
     opening = valve_mod.opening_for_flow(sc, q)
     states = []
+    unresolved: list[float] = []  # temperatures of the states whose stability the rounding hides
     for s_root in roots:
         smp = mf.evaluate(np.array([tau]), np.array([s_root]))
         T0 = float(smp.T[0])
         C0 = mf.state_C(smp)[0]
         C, T, res = _polish(model, u, C0, T0)
         y = model.pack(sc.vessel.h_set, C, T, 0.0)
-        ev = np.linalg.eigvals(model.reactor_block(y, u))
-        ev = ev[np.argsort(-ev.real)]
-        kind, osc = classify(ev)
+        ev, err = eigenvalues_with_errors(model.reactor_block(y, u), slow_rate=1.0 / tau)
+        order = np.argsort(-ev.real)
+        ev, err = ev[order], err[order]
+        kind, osc, resolved = classify(ev, err)
+        if not resolved:
+            unresolved.append(T)
         dT = float(smp.dT_ds[0])
         dTin = float(smp.dTin_ds[0])
         sens = dT / dTin if dTin != 0 else math.inf
@@ -274,14 +320,25 @@ def steady_states(
             )
         )
     states.sort(key=lambda st: st.T)
-    ok = bool(states) and all(st.residual < 1e-8 for st in states)
-    msg = (
-        f"{len(states)} steady state(s)"
-        if ok
-        else "no steady state converged"
-        if not states
-        else ("a steady state did not polish to tolerance")
-    )
+    converged = bool(states) and all(st.residual < 1e-8 for st in states)
+    ok = converged and not unresolved and not misses
+    if ok:
+        msg = f"{len(states)} steady state(s)"
+    elif misses:
+        msg = f"{len(states)} steady state(s) found, but the search is incomplete: " + "; ".join(misses)
+    elif not states:
+        msg = "no steady state converged"
+    elif not converged:
+        msg = "a steady state did not polish to tolerance"
+    else:
+        msg = (
+            "the stability of the state(s) at "
+            + ", ".join(f"{t:.6g} K" for t in sorted(unresolved))
+            + (
+                " cannot be resolved: an eigenvalue's real part is within its rounding error of zero (a fast reaction"
+                " next to slow dynamics, or a point on a stability boundary)"
+            )
+        )
     return SteadyStateResult(
         tau=tau,
         T_in=T_in,
@@ -327,4 +384,16 @@ def _polish(model: Model, u, C: np.ndarray, T: float, iterations: int = 4) -> tu
         if err < 1e-14:
             break
     zb, err = best
-    return zb[:n], float(zb[n]), err
+    C_out = zb[:n].copy()
+    # Newton in linear concentrations resolves them only to about eps x the feed scale: a reactant that a fast
+    # reaction keeps at 1e-30 mol/m3 can come out as -3e-30. A negative value that small is rounding (far
+    # below what the residual tolerance, 1e-8 of the scale, can see): the start's value, solved in logarithms
+    # and positive, is kept there. A negative concentration beyond that is a failed polish, never reported
+    # as converged.
+    neg = C_out < 0
+    if neg.any():
+        tiny = neg & (np.abs(C_out) <= 1e-10 * scale[:n])
+        C_out[tiny] = np.maximum(C[tiny], 0.0)
+        if np.any(C_out < 0):
+            err = math.inf
+    return C_out, float(zb[n]), err
