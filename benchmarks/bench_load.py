@@ -9,8 +9,10 @@ server's latency, not the load generator's own queue). Memory of the server and 
 every 0.5 s.
 
 Printed: throughput, median and p95 latency of maps and checks, errors (any non-200 answer or failed
-request), health latency median/p99/max under load against health on the idle server (the baseline), and
-the peak server RSS. Targets (project goals): zero errors, health p99 < 50 ms, RSS < 400 MB.
+request), health latency median/p99/max under load against health on the idle server (the baseline) and
+against how late a 1 ms sleep of the prober wakes up (the machine's scheduling delay, which no server can
+remove), the server process's CPU per answer, and the peak server RSS. Targets (project goals): zero errors,
+health p99 < 50 ms, RSS < 400 MB.
 
 Then a burst (issue 12): ``BURST`` different maps of ``BURST_POINTS`` sent at once, more than the workers plus
 the queue (``EXOMAP_MAX_QUEUED``) hold. Printed: how the burst was answered (200, 503 ``busy`` and how fast
@@ -48,6 +50,7 @@ def health_prober(url: str, duration_s: float, conn) -> None:  # noqa: ANN001 - 
 
     latencies: list[float] = []
     errors: list[str] = []
+    late: list[float] = []
     stop = time.monotonic() + duration_s
     with httpx.Client(base_url=url, timeout=30) as client:
         while time.monotonic() < stop:
@@ -59,8 +62,12 @@ def health_prober(url: str, duration_s: float, conn) -> None:  # noqa: ANN001 - 
             except httpx.HTTPError as exc:
                 errors.append(f"health {type(exc).__name__}")
             latencies.append(time.perf_counter() - t0)
+            # the machine's own scheduling delay, for comparison: how late a 1 ms sleep of this process wakes up
+            t0 = time.perf_counter()
+            time.sleep(0.001)
+            late.append(time.perf_counter() - t0 - 0.001)
             time.sleep(HEALTH_PERIOD_S)
-    conn.send((latencies, errors))
+    conn.send((latencies, errors, late))
     conn.close()
 
 
@@ -160,7 +167,7 @@ async def run(url: str, pid: int) -> dict:
         await asyncio.gather(*(user(rng.randrange(1 << 30)) for _ in range(CLIENTS)), memory())
         elapsed = time.monotonic() - started
         server_cpu = process_cpu_s(pid) - cpu_before
-        health, health_errors = await asyncio.to_thread(parent.recv)
+        health, health_errors, late = await asyncio.to_thread(parent.recv)
         probe.join(timeout=30)
         lat["health"].extend(health)
         errors.extend(health_errors)
@@ -173,6 +180,7 @@ async def run(url: str, pid: int) -> dict:
         "idle": idle,
         "check": check_ok,
         "server_cpu": server_cpu,
+        "late": late,
     }
 
 
@@ -259,6 +267,8 @@ def main() -> int:
     print(summary("check", lat["check"]))
     print(summary("health, idle server (base)", out["idle"]))
     print(summary("health, under load", lat["health"]))
+    print(summary("(a 1 ms sleep's lateness)", out["late"]))
+    print("   ^ the prober's own wake-up delay on this machine: the part of health's latency no server can remove")
     print(f"  errors {len(errors)}" + (f": first {errors[:3]}" if errors else ""))
     peak = max(rss) / 2**20 if rss else float("nan")
     print(f"  server RSS (process and workers) peak {peak:.0f} MB, end {rss[-1] / 2**20:.0f} MB")

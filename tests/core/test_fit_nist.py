@@ -98,3 +98,14 @@ def test_boxbod_from_its_first_start_is_not_passed_off_as_a_fit():
     fit = least_squares_fit(lambda b: MODELS["BoxBOD"](b, d["x"]) - d["y"], d["starts"][:, 0], names=["b1", "b2"])
     assert fit.ssr > 2 * d["ssr"]
     assert any("cannot determine" in w or "not identifiable" in w for w in fit.warnings), fit.warnings
+
+
+def test_a_parameter_without_effect_is_open_on_both_sides_and_said_so():
+    # y does not depend on c at all (analytic): its profile is flat everywhere, both ends open
+    x = np.linspace(0.0, 1.0, 20)
+    y = 2.0 * x + np.sin(7 * x) * 1e-2
+    fit = least_squares_fit(lambda p: p[0] * x + 0.0 * p[1] - y, [1.0, 1.0], names=["a", "c"])
+    assert fit.interval_95[1] == (None, None)
+    assert any(w.startswith("c is not identifiable") and "on both sides of" in w for w in fit.warnings), fit.warnings
+    lo, hi = fit.interval_95[0]
+    assert lo is not None and hi is not None and lo < fit.estimates[0] < hi

@@ -191,3 +191,43 @@ def test_runaway_counted_for_samples_whose_hot_state_is_within_1e15_of_full_conv
             assert 0 < expected < ps.n
     # the case is the one asked about: (nearly) every hot state is within 1e-15 of full conversion
     assert tiny >= 0.9 * ps.n * um.T_in.size * um.tau.size
+
+
+def test_stiff_points_are_judged_like_each_samples_own_manifold():
+    # invariant: where a fast reaction makes the reduced Jacobian stiff (the deterministic core's finding
+    # stiff-stability-threshold, three reactions), the stacked manifold's stability is that of each sample's own
+    # manifold, whose slow eigenvalues come from the Schur complement of the fast variables
+    import json
+    from pathlib import Path
+
+    from exomap.core.eigen import FAST
+    from exomap.schema import parse_scenario
+
+    rec = json.loads(
+        (Path(__file__).resolve().parents[1] / "reference" / "findings" / "stiff-stability-threshold.json").read_text()
+    )
+    sc = parse_scenario(rec["scenario"]).to_core()
+    tau0, T0 = rec["point"]["tau"], rec["point"]["T"]
+    spec = UncertaintySpec(
+        parameters=(UncertainParameter("reactions[0].activation_energy", "normal", sd=500.0),), samples=8, seed=2
+    )
+    ps = draw(sc, spec)
+    tau = np.array([0.9 * tau0, tau0, 1.1 * tau0])
+    idx = np.repeat(np.arange(ps.n), tau.size)
+    smf = StackedGeneralManifold(ps, np.tile(tau, ps.n), idx)
+    T = np.linspace(T0 - 3.0, T0 + 3.0, 7)
+    code = np.arange(idx.size, dtype=float)
+    e = smf.general_eval(code[:, None], np.broadcast_to(T, (idx.size, T.size)))
+    st, h, ok = smf.stability(e.tau, e.T, e.xi, e.C)
+    stiff = 0
+    for i in range(ps.n):
+        mf = Manifold(ps.scenario(i))
+        rows = slice(i * tau.size, (i + 1) * tau.size)
+        d = mf.general_eval(tau[:, None], np.broadcast_to(T, (tau.size, T.size)))
+        ds = mf.stability(d.tau, d.T, d.xi, d.C)
+        v = d.valid & e.valid[rows]
+        np.testing.assert_array_equal(st[rows][v], ds[0][v])
+        np.testing.assert_allclose(h[rows][v], ds[1][v], rtol=1e-6, atol=1e-300)
+        Jr = mf.reduced_jacobian(d.tau, d.T, d.xi, d.C)
+        stiff += int(np.sum((np.max(np.abs(np.diagonal(Jr, axis1=-2, axis2=-1)), axis=-1) * d.tau > FAST) & v))
+    assert stiff > 0  # the case is the one meant: stiff points were compared

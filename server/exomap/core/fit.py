@@ -277,7 +277,8 @@ def least_squares_fit(
             if lo_i is None or hi_i is None:
                 warnings.append(
                     f"{names[i]} is not identifiable from these data: its profile stays flat "
-                    f"{'below' if lo_i is None else 'above'} the estimate"
+                    + ("on both sides of" if lo_i is None and hi_i is None else "below" if lo_i is None else "above")
+                    + " the estimate"
                 )
         if timed_out:
             warnings.append(

@@ -32,6 +32,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
+from exomap.core.eigen import FAST
 from exomap.core.manifold import W_BOUND, Manifold, Samples
 from exomap.core.regions import CODE
 from exomap.core.scenario import R_GAS
@@ -48,7 +49,8 @@ def _gather(code: np.ndarray) -> Callable[[np.ndarray], np.ndarray]:
         rows = code[..., :1].astype(np.int64)
     else:
         rows = code.astype(np.int64)
-    return lambda arr: arr[rows]
+    # np.take along the first axis: several times faster than arr[rows] for a 2-D arr
+    return lambda arr: np.take(arr, rows, axis=0)
 
 
 def _heat_window(
@@ -264,6 +266,15 @@ class StackedManifold:
 
 
 # -- any scenario: the general path -------------------------------------------------------------------------
+def _rowdot(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """sum(a * b) over the few columns of two (pts, m) arrays, element-wise (a reduction along a short axis costs
+    more than the arithmetic)."""
+    out = a[..., 0] * b[..., 0]
+    for j in range(1, a.shape[-1]):
+        out = out + a[..., j] * b[..., j]
+    return out
+
+
 def _rowmax(a: np.ndarray) -> np.ndarray:
     """max |a| over the few columns of a (pts, p) array, element-wise (np.max along a short axis is slower)."""
     out = np.abs(a[:, 0])
@@ -304,6 +315,8 @@ class StackedGeneralManifold(Manifold):
         super().__init__(sc)
         self.explicit = False
         i = np.asarray(sample_index, dtype=np.int64)
+        self._samples, self._sample_index = samples, i
+        self._jacobian: tuple | None = None
         self.tau = np.asarray(tau, dtype=float)
         rhocpV = sc.rho * samples.cp[i] * sc.vessel.V_set
         self._kappa = samples.UA_jacket[i] / rhocpV
@@ -397,27 +410,32 @@ class StackedGeneralManifold(Manifold):
         Tf = T.reshape(-1)
         pts = col.size
         m, n, p = self.m, self.n, self.S.size
-        E = self.E_col[col]
-        lnk = self.lnk0[col] - E / Tf[:, None]
-        ln_tau = self.ln_tau[col]
-        cin = self.c_col[col]
+        E = np.take(self.E_col, col, axis=0)  # np.take: several times faster than fancy rows of a 2-D array
+        lnk = np.take(self.lnk0, col, axis=0) - E / Tf[:, None]
+        ln_tau = np.take(self.ln_tau, col)
+        cin = np.take(self.c_col, col, axis=0)
         dT = E / (Tf * Tf)[:, None]
         y, lr, ok, Jac, GT = self._solve_isothermal(lnk, ln_tau, cin, dT, C0, pts)
         with np.errstate(over="ignore", invalid="ignore", under="ignore"):
             xi = np.exp(lr + ln_tau[:, None])
             dxi = xi * dT
             if p:
-                dy = -_solve(np.where(ok[:, None, None], Jac, np.eye(p)), np.nan_to_num(GT))
+                if not ok.all():  # no derivative where the solve failed (those points are not valid)
+                    Jac, GT = Jac.copy(), GT.copy()
+                    Jac[~ok], GT[~ok] = np.eye(p), 0.0
+                dy = -_solve(Jac, GT)
                 for k, terms in self._ords.items():
                     for a, nk in terms:
                         dxi[:, k] += xi[:, k] * nk * dy[:, a]
-        C = cin + xi @ self.nu.T
+        C = cin.copy()
+        for k in range(m):  # C = C_in + nu xi, a column at a time (a (pts, m) @ (m, n) product is slower)
+            C += xi[:, k, None] * self.nu[:, k]
         if p:
             C[:, self.S] = np.exp(y)
-        J = self.J_col[col]
-        a = self.a_col[col]
-        T_in = a * Tf - np.sum(xi * J, axis=1) - self.b_col[col]
-        dTin = a - np.sum(dxi * J, axis=1)
+        J = np.take(self.J_col, col, axis=0)
+        a = np.take(self.a_col, col)
+        T_in = a * Tf - _rowdot(xi, J) - np.take(self.b_col, col)
+        dTin = a - _rowdot(dxi, J)
         valid = ok & np.isfinite(T_in) & np.isfinite(dTin)
         return Samples(
             code,
@@ -487,7 +505,7 @@ class StackedGeneralManifold(Manifold):
             lr = np.where(self.live, lnk, -np.inf)
             return np.zeros((pts, 0)), lr, np.ones(pts, dtype=bool), np.zeros((pts, 0, 0)), np.zeros((pts, 0))
         cS = cin[:, self.S]
-        low = np.log(np.maximum(np.max(cin, axis=1), 1e-300)) - 12.0
+        low = np.log(np.maximum(_rowmax(cin), 1e-300)) - 12.0
         cold = np.where(cS > 0, np.log(np.maximum(cS, 1e-300)), low[:, None])
         if C0 is None:
             y = cold.copy()
@@ -508,8 +526,14 @@ class StackedGeneralManifold(Manifold):
                 else:
                     if active.size == 0:
                         break
-                    ya = y[active]
-                    args = (lnk[active], ya, ln_tau[active], cS[active], dT[active])
+                    ya = np.take(y, active, axis=0)
+                    args = (
+                        np.take(lnk, active, axis=0),
+                        ya,
+                        np.take(ln_tau, active),
+                        np.take(cS, active, axis=0),
+                        np.take(dT, active, axis=0),
+                    )
                 G, Jac, GT = self._system(*args)
                 err = _rowmax(G)
                 step = -_solve(Jac, G)
@@ -523,9 +547,14 @@ class StackedGeneralManifold(Manifold):
                 else:
                     prev[active] = err
                     idx = active[done]
-                if idx.size:
+                if active is None and idx.size == pts:  # all closed at once (the common case): no copies
+                    ok[:] = True
+                    Jac_out, GT_out = Jac, GT
+                elif idx.size:
                     ok[idx] = True
-                    Jac_out[idx], GT_out[idx] = Jac[done], GT[done]
+                    di = np.nonzero(done)[0]
+                    Jac_out.reshape(pts, p * p)[idx] = np.take(Jac.reshape(-1, p * p), di, axis=0)
+                    GT_out[idx] = np.take(GT, di, axis=0)
                 step *= np.minimum(1.0, 4.0 / np.maximum(big, 1e-300))[:, None]
                 if active is None and go.all():
                     np.clip(y + step, -740.0, self._y_top, out=y)
@@ -540,10 +569,51 @@ class StackedGeneralManifold(Manifold):
                     lr[:, k] += nk * y[:, a]
         return y, lr, ok, Jac_out, GT_out
 
+    def _stiff_points(self, *args: object):  # noqa: ANN202
+        """The base class's treatment of stiff points needs one parameter set and real residence times: here
+        :meth:`stability` hands those points to each sample's own manifold instead."""
+        return iter(())
+
+    def stability(
+        self, tau: np.ndarray, T: np.ndarray, xi: np.ndarray, C: np.ndarray | None = None
+    ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """``Manifold.stability`` per column (``tau`` the column codes). Stiff points (a diagonal entry of the
+        reduced Jacobian above ``eigen.FAST`` per residence time: a fast reaction keeps a reactant near zero,
+        and rounding hides the slow eigenvalues) are judged by the deterministic manifold of their sample,
+        whose eigenvalues come from the Schur complement of the fast variables."""
+        Jr = self.reduced_jacobian(tau, T, xi, C)
+        self._jacobian = (tau, T, xi, C, Jr)  # the base class asks for the same matrices: computed once
+        try:
+            stable, h, hok = super().stability(tau, T, xi, C)
+        finally:
+            self._jacobian = None
+        T = np.asarray(T, float)
+        code = np.broadcast_to(np.asarray(tau, float), T.shape)
+        tau_r = np.take(self.tau, code.astype(np.int64))
+        with np.errstate(invalid="ignore", over="ignore"):
+            big = np.max(np.abs(np.diagonal(Jr, axis1=-2, axis2=-1)), axis=-1) * tau_r > FAST
+        if not big.any():
+            return stable, h, hok
+        where = np.nonzero(big)
+        owner = np.take(self._sample_index, code[where].astype(np.int64))
+        xi_w = np.asarray(xi)[where]
+        C_w = None if C is None else np.asarray(C)[where]
+        stable, h, hok = stable.copy(), h.copy(), hok.copy()
+        for i in np.unique(owner):
+            k = owner == i
+            mf = Manifold(self._samples.scenario(int(i)))
+            st, hv, ok = mf.stability(tau_r[where][k], T[where][k], xi_w[k], None if C_w is None else C_w[k])
+            pts = tuple(w[k] for w in where)
+            stable[pts], h[pts], hok[pts] = st, hv, ok
+        return stable, h, hok
+
     def reduced_jacobian(
         self, tau: np.ndarray, T: np.ndarray, xi: np.ndarray, C: np.ndarray | None = None
     ) -> np.ndarray:
         """As ``Manifold.reduced_jacobian``, per column (``tau`` the column codes)."""
+        held = self._jacobian
+        if held is not None and held[0] is tau and held[1] is T and held[2] is xi and held[3] is C:
+            return held[4]
         take = _gather(tau)
         tau_r = take(self.tau)
         cin = take(self.c_col)
@@ -552,8 +622,10 @@ class StackedGeneralManifold(Manifold):
         lnk = take(self.lnk0)
         m = self.m
         logC = np.log(np.maximum(C, 1e-300))
-        r = np.empty(np.shape(T) + (m,))
+        r = np.zeros(np.shape(T) + (m,))
         for j in range(m):
+            if not self.live[j]:  # cannot run with this feed: no rate, no derivative (as Manifold.rates)
+                continue
             lr = lnk[..., j] - E[..., j] / T
             for s in self._nz[j]:
                 lr = lr + self.orders[j, s] * logC[..., s]
@@ -561,6 +633,8 @@ class StackedGeneralManifold(Manifold):
         Rn = np.zeros(np.shape(T) + (m, m))
         with np.errstate(divide="ignore", invalid="ignore"):
             for j in range(m):
+                if not self.live[j]:
+                    continue
                 for s in self._nz[j]:
                     g = r[..., j] * (self.orders[j, s] / np.maximum(C[..., s], 1e-300))
                     for k in range(m):
@@ -571,8 +645,11 @@ class StackedGeneralManifold(Manifold):
         out = np.zeros(np.shape(T) + (m + 1, m + 1))
         out[..., :m, :m] = Rn - np.eye(m) / tau_r[..., None, None]
         out[..., :m, m] = dr_dT
-        out[..., m, :m] = np.einsum("...j,...jk->...k", J, Rn)
-        out[..., m, m] = -take(self.a_col) / tau_r + np.sum(dr_dT * J, axis=-1)
+        row = J[..., 0, None] * Rn[..., 0, :]  # J . Rn, a reaction at a time (einsum is slower at this size)
+        for j in range(1, m):
+            row = row + J[..., j, None] * Rn[..., j, :]
+        out[..., m, :m] = row
+        out[..., m, m] = -take(self.a_col) / tau_r + _rowdot(dr_dT, J)
         return out
 
 
