@@ -131,3 +131,27 @@ def test_a_bad_window_names_its_field_and_the_format(start, end, field, words):
     with pytest.raises(ScenarioError) as exc:
         window(ds, start, end)
     assert exc.value.field == field and words in str(exc.value), str(exc.value)
+
+
+def test_the_command_line_replays_and_fits_a_window(tmp_path, capsys):
+    # check value: the API's answer shape and the window's record count, counted from the file in the test
+    import json
+
+    from exomap.cli import main
+
+    rows = [f"2026-12-02T00:{k // 3:02d}:{20 * (k % 3):02d}Z,2.7,{50 + 0.1 * k:.1f},{80 + 0.05 * k:.2f},1.30\n"
+            for k in range(30)]  # fmt: skip
+    path = tmp_path / "plant.csv"
+    path.write_text(WIDE.splitlines(keepends=True)[0] + "".join(rows))
+    maps = [a for tag, role in MAP.items() for a in ("--map", f"{tag}={role}")]
+    base = ["jacketed-first-order", str(path), *maps, "--start", "2026-12-02T00:01:00Z", "--end", "2026-12-02T00:05:00"]
+    assert main(["replay", *base, "--json"]) == 0
+    rep = json.loads(capsys.readouterr().out)
+    # 00:01:00 .. 00:05:00 at 20 s: 13 records
+    assert rep["window"]["records"] == 13 and len(rep["time_s"]) == 13 and rep["dataset"]["records"] == 30
+    assert main(["calibrate", *base, "--fit", "jacket.ua", "--json"]) == 0
+    cal = json.loads(capsys.readouterr().out)
+    assert cal["observations"] == 13 and cal["derived_from"]["end"] == "2026-12-02T00:05:00Z"
+    assert main(["replay", *base[:-4], "--start", "2026-12-02T00:05:00Z", "--end", "00:01"]) == 2
+    err = capsys.readouterr().err
+    assert "--end" in err and "ISO 8601" in err, err
