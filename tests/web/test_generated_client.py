@@ -175,7 +175,7 @@ def test_a_generated_client_calls_every_operation_with_typed_answers(generated: 
     part = call(
         "plant_data.compute_replay",
         "ReplayAnswer",
-        body=_model("PlantRequest").from_dict({**plant, "start": "2026-11-30T06:10:00Z", "end": "2026-11-30T06:20:00Z"}),
+        body=_model("PlantRequest").from_dict({**plant, "start": "2026-11-30T06:10:00Z", "end": 1796019600.0}),
     ).parsed
     assert part.window.records == 11 and part.window.offset_s == 600.0 and len(part.time_s) == 11
     path = call(
