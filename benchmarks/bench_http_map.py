@@ -1,18 +1,26 @@
 """A 200 x 200 operating map of the adiabatic demo through HTTP, against the in-process core call.
 
-A real uvicorn server (``exomap.web.app.create_app`` with its default process pool) runs in a child process on
-a free loopback port; the client is httpx in this process. Measured, each as a median over repeats:
+A real uvicorn server (``exomap.web.app.create_app`` with its default process pool, the protocol and options of
+``exomap serve``) runs in a child process on a free loopback port; the client is httpx in this process.
+Measured, each as a median (and min) over repeats, the in-process rows interleaved with the HTTP requests so
+both see the same load on a shared machine:
 
-* baseline: ``operating_map(sc, points=(200, 200))`` in this process, plus ``to_dict()`` (what any caller of
-  the core pays to get the answer document); and the encoding of that document by the standard library's
-  ``json.dumps`` beside orjson (``exomap.web.jobs.dumps``, what the service uses);
-* HTTP, not cached: a new map window per request (the upper feed temperature moves by 1 mK), so every request
-  computes; end to end = request sent to body received and decoded, then also with ``json.loads``;
-* HTTP, cached: the same request repeated (answered from the cache, already gzipped).
+* baseline: ``operating_map(sc, points=(200, 200))`` in this process; ``to_dict()``; that document encoded by
+  the standard library's ``json.dumps`` and by orjson; the service's encoding (orjson straight from the arrays,
+  ``exomap.web.jobs.map_document``, checked byte-identical); gzip level 1 by zlib and by ISA-L (the service's),
+  and the client's gunzip;
+* HTTP, not cached (a new map window per request, so every request computes), for a client on this machine
+  (the answer as it is) and for one behind a proxy (``X-Forwarded-For``: gzipped): end to end (request sent to
+  body received), then with ``json.loads``; and the breakdown from the answer's ``Server-Timing`` (dispatch,
+  compute, encode, return, gzip, the rest of the app) plus what is left for HTTP and the client, each as a ratio
+  to the in-process core call;
+* HTTP, cached: the same requests repeated (answered from the cache).
 
-Targets (project goals, issue 12): end to end not cached <= 40 ms median, cached < 20 ms median. Prints the
-ratios and the machine's load average (the targets assume an otherwise idle machine).
-Loopback only; bounded (a few dozen requests).
+``--server-src DIR`` runs the server from another source tree (e.g. an earlier commit's ``server/``), for a
+before/after comparison against this tree's baseline in one run.
+
+Targets (project goals, issue 12): end to end not cached <= 40 ms median, cached < 20 ms median, on an otherwise
+idle machine (on a busy one read the ratios and the breakdown). Loopback only; bounded (a few dozen requests).
 """
 
 from __future__ import annotations

@@ -9,6 +9,7 @@ what it answers) and the invented plant's parameters (the 95 % intervals shown m
 
 from __future__ import annotations
 
+import json
 import math
 import shutil
 from pathlib import Path
@@ -229,3 +230,28 @@ def test_plant_records_on_the_steady_state_curves(
     assert path["x"] == tau["x"] and path["y"] == tin["x"]
     page.locator("#curve-tau").scroll_into_view_if_needed()
     _shot(page, "plant-on-curves")
+
+
+def test_a_fit_that_did_not_converge_is_not_offered_for_saving(
+    new_context: Any, server: str, api: httpx.Client, jacketed: str, plant: dict[str, Any]
+) -> None:
+    # the server's own answer, marked as a fit that stopped before converging (as scipy reports a fit out of
+    # evaluations); the page must show why and keep the values from being saved as a scenario
+    mapping = "FI-101=feed_flow,TI-101=feed_temperature,TI-201=reactor_temperature"
+    did = api.post("/api/v1/datasets", params={"map": mapping}, content=_wide_csv(plant).encode()).json()["dataset_id"]
+    body = {"scenario_id": jacketed, "dataset_id": did, "fit": ["jacket.ua"]}
+    answer = api.post("/api/v1/calibrate", json=body).json()
+    answer.update(success=False, message="The maximum number of function evaluations is exceeded.")
+    page = open_page(new_context(viewport={"width": 1366, "height": 1000}))
+    page.route(
+        "**/api/v1/calibrate",
+        lambda route: route.fulfill(status=200, content_type="application/json", body=json.dumps(answer)),
+    )
+    page.goto(f"{server}/scenarios/{jacketed}?panel=plant&dataset={did}")
+    page.wait_for_selector("#plant-dataset:not([hidden])", timeout=TIMEOUT)
+    page.check("[data-target='jacket.ua']")
+    page.click("#plant-fit")
+    page.wait_for_selector("#plant-cal:not([hidden])", timeout=TIMEOUT)
+    assert "did not converge" in page.inner_text("#plant-cal-spread")
+    assert page.is_disabled("#plant-save")
+    assert "not offered" in page.inner_text("#plant-save-error")

@@ -523,12 +523,16 @@ export class PlantPanel {
     w.textContent = "";
     for (const m of cal.warnings) w.append(el("li", { class: "warning", text: m }));
     if (!cal.warnings.length) w.append(el("li", { class: "muted small", text: "Every fitted parameter is determined by the data (no flat profile, no correlation near ±1)." }));
+    // values where a fit stopped before it converged are not estimates: they are not offered for saving
+    $("plant-save").disabled = !cal.success;
+    showError("plant-save-error", cal.success ? null
+      : new Error("This fit did not converge, so its values are not offered as a calibrated scenario."));
     $("plant-cal").hidden = false;
   }
 
   async save() {
     showError("plant-save-error", null);
-    if (!this.calibration) return;
+    if (!this.calibration || !this.calibration.success) return;
     try {
       const saved = await postJSON(urls.apiSaveScenario(this.ctx.id), this.calibration.scenario,
         "Checking and saving the calibrated scenario", authHeaders());

@@ -529,10 +529,13 @@ class Manifold:
                     for a, nk in terms:
                         dxi[:, k] += xi.reshape(-1, self.m)[:, k] * nk * dy[:, a]
         dxi_dT = dxi.reshape(shape + (self.m,))
-        C = self._full_concentrations(y, xi)
         a = self.a(tau)
-        T_in = a * T - xi @ self.J - self.b(tau)
-        dTin = a - dxi_dT @ self.J
+        # a point whose isothermal solve did not converge may carry an infinite extent: it is marked invalid,
+        # not a warning
+        with np.errstate(over="ignore", invalid="ignore"):
+            C = self._full_concentrations(y, xi)
+            T_in = a * T - xi @ self.J - self.b(tau)
+            dTin = a - dxi_dT @ self.J
         valid = ok & np.isfinite(T_in) & np.isfinite(dTin)
         return Samples(tau, T, T, xi, T_in, dTin, np.ones_like(T), valid, C)
 
@@ -558,8 +561,10 @@ class Manifold:
         as in :meth:`general_eval`."""
         tau, T = float(tau_a.reshape(-1)[0]), float(T_a.reshape(-1)[0])
         m, p = self.m, self.S.size
-        lnk = [math.log(self.k0[j]) - self.E[j] / T for j in range(m)]
-        dT = [self.E[j] / (T * T) for j in range(m)]
+        # plain floats throughout: an extreme point overflows to inf (then fails to converge), no numpy warning
+        E = self.E.tolist()
+        lnk = [math.log(float(self.k0[j])) - E[j] / T for j in range(m)]
+        dT = [E[j] / (T * T) for j in range(m)]
         ln_tau = math.log(tau)
         rows, orders = self._iso_rows, self._iso_orders
         ordmap = {k: terms for k, terms in orders}
@@ -630,7 +635,8 @@ class Manifold:
         for k, terms in orders:
             for a, nk in terms:
                 dxi[k] += xi[k] * nk * dy[a]
-        C = self._full_concentrations(np.array(y, dtype=float), np.array(xi, dtype=float))
+        with np.errstate(over="ignore", invalid="ignore"):
+            C = self._full_concentrations(np.array(y, dtype=float), np.array(xi, dtype=float))
         if ok:
             self._last_C = C
         a = 1.0 + (self.kappa + self.lam) * tau

@@ -316,6 +316,7 @@ class StackedGeneralManifold(Manifold):
         self.explicit = False
         i = np.asarray(sample_index, dtype=np.int64)
         self._samples, self._sample_index = samples, i
+        self._jacobian: tuple | None = None
         self.tau = np.asarray(tau, dtype=float)
         rhocpV = sc.rho * samples.cp[i] * sc.vessel.V_set
         self._kappa = samples.UA_jacket[i] / rhocpV
@@ -580,11 +581,15 @@ class StackedGeneralManifold(Manifold):
         reduced Jacobian above ``eigen.FAST`` per residence time: a fast reaction keeps a reactant near zero,
         and rounding hides the slow eigenvalues) are judged by the deterministic manifold of their sample,
         whose eigenvalues come from the Schur complement of the fast variables."""
-        stable, h, hok = super().stability(tau, T, xi, C)
+        Jr = self.reduced_jacobian(tau, T, xi, C)
+        self._jacobian = (tau, T, xi, C, Jr)  # the base class asks for the same matrices: computed once
+        try:
+            stable, h, hok = super().stability(tau, T, xi, C)
+        finally:
+            self._jacobian = None
         T = np.asarray(T, float)
         code = np.broadcast_to(np.asarray(tau, float), T.shape)
         tau_r = np.take(self.tau, code.astype(np.int64))
-        Jr = self.reduced_jacobian(tau, T, xi, C)
         with np.errstate(invalid="ignore", over="ignore"):
             big = np.max(np.abs(np.diagonal(Jr, axis1=-2, axis2=-1)), axis=-1) * tau_r > FAST
         if not big.any():
@@ -606,6 +611,9 @@ class StackedGeneralManifold(Manifold):
         self, tau: np.ndarray, T: np.ndarray, xi: np.ndarray, C: np.ndarray | None = None
     ) -> np.ndarray:
         """As ``Manifold.reduced_jacobian``, per column (``tau`` the column codes)."""
+        held = self._jacobian
+        if held is not None and held[0] is tau and held[1] is T and held[2] is xi and held[3] is C:
+            return held[4]
         take = _gather(tau)
         tau_r = take(self.tau)
         cin = take(self.c_col)
