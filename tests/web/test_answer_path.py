@@ -56,6 +56,7 @@ def test_non_finite_cells_are_null_in_the_array_encoding() -> None:
         (("127.0.0.1", 5000), {"x-forwarded-for": "192.0.2.7"}, False),  # a proxy on this machine relays
         (("127.0.0.1", 5000), {"forwarded": "for=192.0.2.7"}, False),
         (("127.0.0.1", 5000), {"via": "1.1 proxy"}, False),
+        (("127.0.0.1", 5000), {"x-real-ip": "192.0.2.7"}, False),
         (("testclient", 50000), {}, False),  # not an address
         (None, {}, False),
     ],

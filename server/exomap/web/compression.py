@@ -6,8 +6,8 @@ cross in well under a millisecond, while compressing them costs the server 1.5 m
 zlib) and decompressing costs the client about 2 ms, on the critical path of every answer
 (benchmarks/bench_http_map.py measures both paths). So a client connecting from a loopback address is sent
 the plain body even when it accepts gzip, unless the request came through a proxy (a ``Forwarded``,
-``X-Forwarded-For`` or ``Via`` header): a reverse proxy on this machine relays to clients elsewhere, and the
-compressed form is what it should get.
+``X-Forwarded-For``, ``X-Real-IP`` or ``Via`` header): a reverse proxy on this machine relays to clients
+elsewhere, and the compressed form is what it should get.
 
 ``NetworkGZip`` applies this to every answer of the app (wrapping Starlette's ``GZipMiddleware``);
 ``AnswerResponse`` to computation answers, whose gzip form is made once per cached answer and kept.
@@ -29,7 +29,7 @@ from exomap.web.jobs import Answer
 from exomap.web.middleware import ASGIApp, Receive, Scope, Send
 
 #: Request headers a proxy adds: a request carrying one was relayed for a client that may be elsewhere.
-PROXY_HEADERS = (b"forwarded", b"x-forwarded-for", b"via")
+PROXY_HEADERS = (b"forwarded", b"x-forwarded-for", b"x-real-ip", b"via")
 
 
 def local_client(scope: Scope) -> bool:
