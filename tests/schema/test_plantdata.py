@@ -122,6 +122,9 @@ def test_a_windowed_replay_equals_the_replay_of_the_sliced_file():
         (None, EPOCH0 + 301, "end", "after the last record"),
         (EPOCH0 + 61, EPOCH0 + 299, "end", "holds 0 records"),
         (True, None, "start", "not a time"),
+        (None, 1e300, "end", "1e+300 s since 1970 is after the last record"),
+        (-1e300, None, "start", "before the first record"),
+        ("1e400", None, "start", "not a time"),
     ],
 )
 def test_a_bad_window_names_its_field_and_the_format(start, end, field, words):

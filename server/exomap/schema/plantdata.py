@@ -502,7 +502,10 @@ def window(ds: Dataset, start: Any = None, end: Any = None, *, min_records: int 
     from datetime import UTC, datetime
 
     def iso(s: float) -> str:
-        return datetime.fromtimestamp(s, tz=UTC).isoformat().replace("+00:00", "Z")
+        try:
+            return datetime.fromtimestamp(s, tz=UTC).isoformat().replace("+00:00", "Z")
+        except (OverflowError, OSError, ValueError):  # beyond the calendar: the number as given
+            return f"{s:g} s since 1970"
 
     first, last = float(ds.epoch_s[0]), float(ds.epoch_s[-1])
     eps = 1e-6  # s: a time written to the microsecond is the record's time
