@@ -309,3 +309,18 @@ def test_negative_concentration_rounding():
     want = ref.states(p["tau"], p["T_in"])
     for a, b in zip(got.states, want, strict=True):
         assert np.max(np.abs(np.array(a.C) - np.array(b.C))) <= 1e-9 * max(sc.c_in)
+
+
+def test_map_warning_in_cusp_search():
+    # finding map-warning-in-cusp-search (seed 701285, parallel + 2A->D with heat loss): the cusp search of the
+    # map's boundaries evaluates the manifold at extreme points whose isothermal solve overflows; a numpy
+    # RuntimeWarning escaped (an error under the suite's policy) instead of the point being marked unconverged.
+    # Reference: 36 compared cells of this map agree (all `runaway`)
+    sc, ref, p = load("map-warning-in-cusp-search")
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", RuntimeWarning)
+        mp = operating_map(sc, tau_range=tuple(p["tau_range"]), T_in_range=tuple(p["T_in_range"]), points=(16, 12))
+    j = 5
+    for i in (0, 6, 11):
+        want = ref.states(float(mp.tau[j]), float(mp.T_in[i]))
+        assert KEYS[int(mp.region[i, j])] == ref.region(want) and int(mp.state_count[i, j]) == len(want)

@@ -450,7 +450,9 @@ class Manifold:
                 else:
                     if active.size == 0:
                         break
-                    ya, lk, lt, dTa, pa = y[active], lnk_all[active], ln_tau[active], dT[active], prev[active]
+                    # np.take: numpy's fancy indexing of rows of 2-D arrays is an order of magnitude slower
+                    ya, lk, dTa = (np.take(v, active, axis=0) for v in (y, lnk_all, dT))
+                    lt, pa = ln_tau[active], prev[active]
                 G, Jac, _, GT = self._iso_system(lk, ya, lt, dTa)
                 err = rowmax(G)
                 step = -_solve_small(Jac, G)
@@ -472,13 +474,15 @@ class Manifold:
                 if done.any():
                     idx = np.nonzero(done)[0] if active is None else active[done]
                     ok[idx] = True
-                    Jac_out[idx], GT_out[idx] = Jac[done], GT[done]
+                    d_i = np.nonzero(done)[0]
+                    Jac_out[idx], GT_out[idx] = np.take(Jac, d_i, axis=0), np.take(GT, d_i, axis=0)
                 step *= np.minimum(1.0, 4.0 / np.maximum(big, 1e-300))[:, None]
                 if active is None and go.all():
                     np.clip(y + step, self._y_lo, self._y_hi, out=y)
                     continue
                 moving = np.nonzero(go)[0] if active is None else active[go]
-                y[moving] = np.clip(ya[go] + step[go], self._y_lo, self._y_hi)
+                g_i = np.nonzero(go)[0]
+                y[moving] = np.clip(np.take(ya, g_i, axis=0) + np.take(step, g_i, axis=0), self._y_lo, self._y_hi)
                 active = moving
             lr_out = lnk_all.copy()
             for k in range(self.m):
@@ -525,10 +529,13 @@ class Manifold:
                     for a, nk in terms:
                         dxi[:, k] += xi.reshape(-1, self.m)[:, k] * nk * dy[:, a]
         dxi_dT = dxi.reshape(shape + (self.m,))
-        C = self._full_concentrations(y, xi)
         a = self.a(tau)
-        T_in = a * T - xi @ self.J - self.b(tau)
-        dTin = a - dxi_dT @ self.J
+        # a point whose isothermal solve did not converge may carry an infinite extent: it is marked invalid,
+        # not a warning
+        with np.errstate(over="ignore", invalid="ignore"):
+            C = self._full_concentrations(y, xi)
+            T_in = a * T - xi @ self.J - self.b(tau)
+            dTin = a - dxi_dT @ self.J
         valid = ok & np.isfinite(T_in) & np.isfinite(dTin)
         return Samples(tau, T, T, xi, T_in, dTin, np.ones_like(T), valid, C)
 
@@ -554,8 +561,10 @@ class Manifold:
         as in :meth:`general_eval`."""
         tau, T = float(tau_a.reshape(-1)[0]), float(T_a.reshape(-1)[0])
         m, p = self.m, self.S.size
-        lnk = [math.log(self.k0[j]) - self.E[j] / T for j in range(m)]
-        dT = [self.E[j] / (T * T) for j in range(m)]
+        # plain floats throughout: an extreme point overflows to inf (then fails to converge), no numpy warning
+        E = self.E.tolist()
+        lnk = [math.log(float(self.k0[j])) - E[j] / T for j in range(m)]
+        dT = [E[j] / (T * T) for j in range(m)]
         ln_tau = math.log(tau)
         rows, orders = self._iso_rows, self._iso_orders
         ordmap = {k: terms for k, terms in orders}
@@ -626,7 +635,8 @@ class Manifold:
         for k, terms in orders:
             for a, nk in terms:
                 dxi[k] += xi[k] * nk * dy[a]
-        C = self._full_concentrations(np.array(y, dtype=float), np.array(xi, dtype=float))
+        with np.errstate(over="ignore", invalid="ignore"):
+            C = self._full_concentrations(np.array(y, dtype=float), np.array(xi, dtype=float))
         if ok:
             self._last_C = C
         a = 1.0 + (self.kappa + self.lam) * tau
