@@ -215,3 +215,24 @@ def test_plant_panel_replays_and_fits_a_window_kept_in_the_link(
     page2.wait_for_function("() => document.getElementById('plant-window-note').dataset.records === '11'",
                             timeout=TIMEOUT)  # fmt: skip
     assert page2.input_value("#plant-start") == window["start"]
+
+
+def test_a_long_dataset_is_not_replayed_whole_on_opening(new_context: Any, server: str, api: httpx.Client,
+                                                         jacketed: str) -> None:  # fmt: skip
+    # invented: 25,000 one-minute records at the demo's nominal point (not plant data), more than LONG_RECORDS
+    rows = "".join(f"{1796000000 + 60 * k},2.7,50.0,{80.3 + 0.1 * ((k // 60) % 5):.2f}\n" for k in range(25_000))
+    csv = "time,FI-101 [m^3/h],TI-101 [degC],TI-201 [degC]\n" + rows
+    mapping = ",".join(f"{t}={r}" for t, r in ROLES.items())
+    did = api.post("/api/v1/datasets", params={"map": mapping}, content=csv.encode()).json()["dataset_id"]
+    page = open_page(new_context(viewport={"width": 1366, "height": 1000}))
+    page.goto(f"{server}/scenarios/{jacketed}?panel=plant&dataset={did}")
+    page.wait_for_selector("#plant-long", timeout=TIMEOUT)
+    assert "25000 records" in page.inner_text("#plant-long")
+    assert page.get_attribute("#plant-replay", "data-series") is None
+    # two hours (epoch seconds, as the file's times): 121 records replayed
+    page.fill("#plant-start", str(1796000000 + 3600))
+    page.fill("#plant-end", str(1796000000 + 3 * 3600))
+    page.click("#plant-replay-button")
+    page.wait_for_function("() => document.getElementById('plant-replay').dataset.series === '2'", timeout=TIMEOUT)
+    assert page.get_attribute("#plant-window-note", "data-records") == "121"
+    assert page.evaluate("() => document.getElementById('plant-replay').data[1].x.length") == 121

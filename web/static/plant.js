@@ -20,6 +20,11 @@ const ROLE_WORDS = {
 };
 // A sequential colour of our own for time along the plant's path: light sand to dark blue-black, lightness
 // falling evenly so early and late read apart in greyscale too.
+// More records than one replay of the whole is likely to finish in the server's time allowance (about a
+// millisecond of computing per record of a noisy 20-s record, measured on this machine under load): a dataset
+// this long is not replayed on opening, the user chooses a window first.
+export const LONG_RECORDS = 20000;
+
 export const TIME_SCALE = [[0, "#f3e3b3"], [0.35, "#c9a25a"], [0.7, "#4f6d8a"], [1, "#101c2c"]];
 
 const api = {
@@ -339,6 +344,14 @@ export class PlantPanel {
     notes.textContent = "";
     for (const n of ds.notes || []) notes.append(el("li", { text: n }));
     this.drawOverlay();
+    if (ds.records > LONG_RECORDS && !st.data_start && !st.data_end) {
+      $("plant-replay").textContent = "";
+      $("plant-replay").append(el("p", { id: "plant-long", class: "small" }, `This dataset holds ${ds.records} records, `
+        + "more than one replay is likely to finish in the server's time allowance: choose a window above (From, To) "
+        + "and press Replay this window. The fit uses the same window."));
+      $("plant-start").focus();
+      return;
+    }
     this.replay();
   }
 
