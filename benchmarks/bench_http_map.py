@@ -46,7 +46,10 @@ from exomap.web.app import create_app
 from exomap.web.protocol import uvicorn_options
 from exomap.web.settings import Settings
 settings = Settings(data_dir=sys.argv[1], host="127.0.0.1", port=int(sys.argv[2]), workers=int(sys.argv[3]))
-uvicorn.run(create_app(settings, warm_up=True), log_level="warning", **uvicorn_options(settings))
+options = uvicorn_options(settings)
+if sys.argv[4] == "plain":  # uvicorn's own h11 protocol instead of exomap's guarded one (bench_protocol.py)
+    options["http"] = "h11"
+uvicorn.run(create_app(settings, warm_up=True), log_level="warning", **options)
 """
 
 
@@ -59,9 +62,10 @@ def free_port() -> int:
 class Server:
     """``with Server() as base_url:`` runs the app under uvicorn in a child process on a free loopback port."""
 
-    def __init__(self, workers: int = 2, src: str | None = None) -> None:
+    def __init__(self, workers: int = 2, src: str | None = None, protocol: str = "guarded") -> None:
         self.workers = workers
         self.src = src  # another source tree of exomap to run the server from (a before/after comparison)
+        self.protocol = protocol  # "guarded" (exomap serve's) or "plain" (uvicorn's h11)
         self.proc: subprocess.Popen | None = None
         self._tmp = tempfile.TemporaryDirectory(prefix="exomap-bench-")
 
@@ -73,7 +77,7 @@ class Server:
         if self.src:
             env["PYTHONPATH"] = os.pathsep.join(p for p in (self.src, env.get("PYTHONPATH")) if p)
         self.proc = subprocess.Popen(
-            [sys.executable, "-c", SERVER_CODE, self._tmp.name, str(port), str(self.workers)],
+            [sys.executable, "-c", SERVER_CODE, self._tmp.name, str(port), str(self.workers), self.protocol],
             stdout=subprocess.DEVNULL,
             env=env,
         )

@@ -157,3 +157,82 @@ def test_edit_save_compare_with_the_original_and_print(
     assert page.inner_text("#cp-prepared") == "A. Engineer"
     assert page.inner_text("#cp-ref") == "MOC-0002"
     _shot(page, "compare-print-from-lineage")
+
+
+def test_plant_panel_replays_and_fits_a_window_kept_in_the_link(
+    new_context: Any, server: str, api: httpx.Client, jacketed: str, tmp_path: Path
+) -> None:
+    mapping = ",".join(f"{t}={r}" for t, r in ROLES.items())
+    did = api.post("/api/v1/datasets", params={"map": mapping}, content=PLANT_CSV.encode()).json()["dataset_id"]
+    page = open_page(new_context(viewport={"width": 1366, "height": 1000}))
+    page.goto(f"{server}/scenarios/{jacketed}?panel=plant&dataset={did}")
+    page.wait_for_selector("#plant-dataset:not([hidden])", timeout=TIMEOUT)
+    # the inputs start as the dataset's first and last record (the API's summary)
+    summary = api.get(f"/api/v1/datasets/{did}").json()
+    assert page.input_value("#plant-start") == summary["start"] == "2026-11-30T06:00:00Z"
+    assert page.input_value("#plant-end") == summary["end"]
+    page.wait_for_function("() => document.getElementById('plant-window-note').dataset.records === '30'",
+                           timeout=TIMEOUT)  # fmt: skip
+    # a window ending before it starts is refused beside its inputs, naming the field
+    page.fill("#plant-end", "2026-11-30T05:00:00Z")
+    page.click("#plant-replay-button")
+    page.wait_for_selector("#plant-window-error:not([hidden])", timeout=TIMEOUT)
+    assert "(end)" in page.inner_text("#plant-window-error")
+    assert page.get_attribute("#plant-end", "aria-invalid") == "true"
+    # 06:10 .. 06:20 (the end typed without a zone: UTC) holds 11 records
+    page.fill("#plant-start", "2026-11-30T06:10:00Z")
+    page.fill("#plant-end", "2026-11-30T06:20:00")
+    page.click("#plant-replay-button")
+    page.wait_for_function("() => document.getElementById('plant-window-note').dataset.records === '11'",
+                           timeout=TIMEOUT)  # fmt: skip
+    assert page.is_hidden("#plant-window-error")
+    window = {"start": "2026-11-30T06:10:00Z", "end": "2026-11-30T06:20:00"}
+    rep = api.post("/api/v1/replay", json={"scenario_id": jacketed, "dataset_id": did, **window}).json()
+    assert rep["window"]["records"] == 11
+    page.wait_for_function("() => document.getElementById('plant-replay').dataset.series === '2'", timeout=TIMEOUT)
+    sim = page.evaluate("() => document.getElementById('plant-replay').data[1].y")
+    assert sim == pytest.approx([k - 273.15 for k in rep["simulated"]["temperature_K"]], abs=1e-9)
+    # the map path holds the window's records only
+    page.wait_for_function("() => document.getElementById('map').dataset.plantPath === '11'", timeout=TIMEOUT)
+    query = parse_qs(urlparse(page.url).query)
+    assert query["data_start"] == [window["start"]] and query["data_end"] == [window["end"]]
+    # the fit uses the window too
+    page.check("[data-target='jacket.ua']")
+    page.click("#plant-fit")
+    page.wait_for_selector("#plant-cal:not([hidden])", timeout=TIMEOUT)
+    cal = api.post(
+        "/api/v1/calibrate", json={"scenario_id": jacketed, "dataset_id": did, "fit": ["jacket.ua"], **window}
+    ).json()
+    assert cal["observations"] == 11
+    row = page.locator("#plant-estimates tr[data-target='jacket.ua']")
+    assert float(row.get_attribute("data-value")) == cal["estimates"][0]["value"]
+    assert "(11)" in page.inner_text("#plant-cal-spread")
+    page.locator("#plant-window").scroll_into_view_if_needed()
+    _shot(page, "plant-window")
+    # the link re-opens the same window
+    page2 = open_page(new_context(viewport={"width": 1366, "height": 900}))
+    page2.goto(page.url)
+    page2.wait_for_function("() => document.getElementById('plant-window-note').dataset.records === '11'",
+                            timeout=TIMEOUT)  # fmt: skip
+    assert page2.input_value("#plant-start") == window["start"]
+
+
+def test_a_long_dataset_is_not_replayed_whole_on_opening(new_context: Any, server: str, api: httpx.Client,
+                                                         jacketed: str) -> None:  # fmt: skip
+    # invented: 25,000 one-minute records at the demo's nominal point (not plant data), more than LONG_RECORDS
+    rows = "".join(f"{1796000000 + 60 * k},2.7,50.0,{80.3 + 0.1 * ((k // 60) % 5):.2f}\n" for k in range(25_000))
+    csv = "time,FI-101 [m^3/h],TI-101 [degC],TI-201 [degC]\n" + rows
+    mapping = ",".join(f"{t}={r}" for t, r in ROLES.items())
+    did = api.post("/api/v1/datasets", params={"map": mapping}, content=csv.encode()).json()["dataset_id"]
+    page = open_page(new_context(viewport={"width": 1366, "height": 1000}))
+    page.goto(f"{server}/scenarios/{jacketed}?panel=plant&dataset={did}")
+    page.wait_for_selector("#plant-long", timeout=TIMEOUT)
+    assert "25000 records" in page.inner_text("#plant-long")
+    assert page.get_attribute("#plant-replay", "data-series") is None
+    # two hours (epoch seconds, as the file's times): 121 records replayed
+    page.fill("#plant-start", str(1796000000 + 3600))
+    page.fill("#plant-end", str(1796000000 + 3 * 3600))
+    page.click("#plant-replay-button")
+    page.wait_for_function("() => document.getElementById('plant-replay').dataset.series === '2'", timeout=TIMEOUT)
+    assert page.get_attribute("#plant-window-note", "data-records") == "121"
+    assert page.evaluate("() => document.getElementById('plant-replay').data[1].x.length") == 121

@@ -82,3 +82,79 @@ def test_bad_input_names_the_place(text, mapping, units, field, words):
     e = err.value.errors[0]
     assert e["field"].startswith(field), e
     assert words in e["message"], e
+
+
+def test_a_windowed_replay_equals_the_replay_of_the_sliced_file():
+    # check value: the same file cut to the window's rows (text slicing, no exomap code), read and replayed
+    from exomap.core.replay import replay
+    from exomap.schema import parse_scenario
+    from exomap.schema.plantdata import window
+
+    rows = [f"2026-12-02T00:{k // 3:02d}:{20 * (k % 3):02d}Z,{2.7 + 0.01 * (k % 5):.2f},{50 + 0.1 * k:.1f},"
+            f"{80 + 0.05 * k:.2f},1.30\n" for k in range(40)]  # fmt: skip
+    head = WIDE.splitlines(keepends=True)[0]
+    ds = read_plant_csv(head + "".join(rows), mapping=MAP)
+    part, info = window(ds, "2026-12-02T00:02:00Z", EPOCH0 + 500)  # records 6..25 (00:02:00 .. 00:08:20)
+    assert info == {"start": "2026-12-02T00:02:00Z", "end": "2026-12-02T00:08:20Z", "records": 20,
+                    "offset_s": 120.0, "whole": False}  # fmt: skip
+    cut = read_plant_csv(head + "".join(rows[6:26]), mapping=MAP)
+    assert part.dataset_id == cut.dataset_id
+    import json
+    from pathlib import Path
+
+    import exomap.demos
+
+    doc = json.loads((Path(exomap.demos.__file__).parent / "jacketed-first-order.json").read_text())
+    sc = parse_scenario(doc).to_core()
+    a, b = replay(sc, part.record()), replay(sc, cut.record())
+    np.testing.assert_array_equal(a.t, b.t)
+    np.testing.assert_array_equal(a.T, b.T)
+    # no window: the whole dataset, itself
+    assert window(ds)[0] is ds and window(ds)[1]["whole"] is True
+
+
+@pytest.mark.parametrize(
+    ("start", "end", "field", "words"),
+    [
+        ("noon", None, "start", "expected ISO 8601"),
+        (None, "2026-12-02T00:06:00+01:00", "end", "not after start"),  # 23:06 the day before, in UTC
+        (EPOCH0 - 1, None, "start", "before the first record"),
+        (None, EPOCH0 + 301, "end", "after the last record"),
+        (EPOCH0 + 61, EPOCH0 + 299, "end", "holds 0 records"),
+        (True, None, "start", "not a time"),
+        (None, 1e300, "end", "1e+300 s since 1970 is after the last record"),
+        (-1e300, None, "start", "before the first record"),
+        ("1e400", None, "start", "not a time"),
+    ],
+)
+def test_a_bad_window_names_its_field_and_the_format(start, end, field, words):
+    from exomap.schema.plantdata import window
+
+    ds = read_plant_csv(WIDE, mapping=MAP)
+    with pytest.raises(ScenarioError) as exc:
+        window(ds, start, end)
+    assert exc.value.field == field and words in str(exc.value), str(exc.value)
+
+
+def test_the_command_line_replays_and_fits_a_window(tmp_path, capsys):
+    # check value: the API's answer shape and the window's record count, counted from the file in the test
+    import json
+
+    from exomap.cli import main
+
+    rows = [f"2026-12-02T00:{k // 3:02d}:{20 * (k % 3):02d}Z,2.7,{50 + 0.1 * k:.1f},{80 + 0.05 * k:.2f},1.30\n"
+            for k in range(30)]  # fmt: skip
+    path = tmp_path / "plant.csv"
+    path.write_text(WIDE.splitlines(keepends=True)[0] + "".join(rows))
+    maps = [a for tag, role in MAP.items() for a in ("--map", f"{tag}={role}")]
+    base = ["jacketed-first-order", str(path), *maps, "--start", "2026-12-02T00:01:00Z", "--end", "2026-12-02T00:05:00"]
+    assert main(["replay", *base, "--json"]) == 0
+    rep = json.loads(capsys.readouterr().out)
+    # 00:01:00 .. 00:05:00 at 20 s: 13 records
+    assert rep["window"]["records"] == 13 and len(rep["time_s"]) == 13 and rep["dataset"]["records"] == 30
+    assert main(["calibrate", *base, "--fit", "jacket.ua", "--json"]) == 0
+    cal = json.loads(capsys.readouterr().out)
+    assert cal["observations"] == 13 and cal["derived_from"]["end"] == "2026-12-02T00:05:00Z"
+    assert main(["replay", *base[:-4], "--start", "2026-12-02T00:05:00Z", "--end", "00:01"]) == 2
+    err = capsys.readouterr().err
+    assert "--end" in err and "ISO 8601" in err, err

@@ -292,6 +292,36 @@ CASES: list[Case] = [
         expect=lambda a: a["residual_statistics"]["reactor_temperature_K"]["count"] == 30,
     ),  # fmt: skip
     Case(
+        "replay-window",
+        "computeReplay",
+        "POST",
+        "/api/v1/replay",
+        json={
+            "scenario_id": "jacketed-first-order",
+            "dataset_id": DATASET,
+            "start": "2026-11-30T06:10:00Z",
+            "end": 1796019600.0,
+        },  # 06:20:00Z in epoch seconds: 20787 days * 86400 s + 22800 s
+        expect=lambda a: (
+            a["window"]["records"] == 11
+            and a["window"]["end"] == "2026-11-30T06:20:00Z"
+            and a["residual_statistics"]["reactor_temperature_K"]["count"] == 11
+        ),
+    ),  # fmt: skip
+    Case(
+        "error-replay-window",
+        "computeReplay",
+        "POST",
+        "/api/v1/replay",
+        422,
+        json={
+            "scenario_id": "jacketed-first-order",
+            "dataset_id": DATASET,
+            "start": "2026-11-30T06:10:00Z",
+            "end": "2026-11-30T06:00:00Z",
+        },
+    ),  # fmt: skip
+    Case(
         "error-replay",
         "computeReplay",
         "POST",

@@ -172,6 +172,12 @@ def test_a_generated_client_calls_every_operation_with_typed_answers(generated: 
     plant = {"scenario_id": "jacketed-first-order", "dataset_id": did}
     replayed = call("plant_data.compute_replay", "ReplayAnswer", body=_model("PlantRequest").from_dict(plant)).parsed
     assert replayed.residual_statistics.additional_properties["reactor_temperature_K"].count == 30
+    part = call(
+        "plant_data.compute_replay",
+        "ReplayAnswer",
+        body=_model("PlantRequest").from_dict({**plant, "start": "2026-11-30T06:10:00Z", "end": 1796019600.0}),
+    ).parsed
+    assert part.window.records == 11 and part.window.offset_s == 600.0 and len(part.time_s) == 11
     path = call(
         "plant_data.compute_overlay",
         "OverlayAnswer",

@@ -45,23 +45,31 @@ def test_page_twin_is_the_probability_map_of_its_link(client: Any) -> None:
 def test_page_of_a_demo_name_redirects_and_unknown_is_404(client: Any) -> None:
     r = client.get("/scenarios/adiabatic-second-order/uncertainty?samples=64&seed=2", follow_redirects=False)
     assert r.status_code == 307
-    assert r.headers["location"].endswith("/uncertainty?samples=64&seed=2")
+    # the demo's grid is 200 x 200: the page's default is capped at 100 x 100 (a probability map is one map per
+    # sample; several reactions at 200 x 200 and 256 samples run past the web time budget)
+    assert r.headers["location"].endswith("/uncertainty?samples=64&seed=2&points=100,100")
     assert client.get("/scenarios/0123456789abcdef/uncertainty").status_code == 404
 
 
-def test_the_link_always_names_samples_and_seed(client: Any) -> None:
-    # missing ones are filled from the scenario's uncertainty block (here 128 and 7), then the defaults 256, 0
+def test_the_link_always_names_samples_seed_and_grid(client: Any) -> None:
+    # missing ones are filled from the scenario's uncertainty block (here 128 and 7), then the defaults 256, 0;
+    # the grid is the scenario's (here 40 x 40), at most 100 x 100
     doc = copy.deepcopy(UNCERTAIN)
     doc["uncertainty"] = {**doc["uncertainty"], "samples": 128, "seed": 7}
     sid = client.post("/api/v1/scenarios", json=doc).json()["id"]
     r = client.get(f"/scenarios/{sid}/uncertainty?show=runaway", follow_redirects=False)
     assert r.status_code == 307
-    assert r.headers["location"] == urls.uncertainty_page(sid, {"samples": "128", "seed": "7", "show": "runaway"})
+    assert r.headers["location"] == urls.uncertainty_page(
+        sid, {"samples": "128", "seed": "7", "show": "runaway", "points": "40,40"}
+    )
     r = client.get(f"/scenarios/{sid}/uncertainty?seed=1", follow_redirects=False)
-    assert r.headers["location"].endswith("?samples=128&seed=1")
+    assert r.headers["location"].endswith("?samples=128&seed=1&points=40,40")
     plain = client.post("/api/v1/scenarios", json=ADIABATIC).json()["id"]
     r = client.get(f"/scenarios/{plain}/uncertainty", follow_redirects=False)
-    assert r.headers["location"].endswith("?samples=256&seed=0")
+    assert r.headers["location"].endswith("?samples=256&seed=0&points=40,40")
+    # a link that names its grid keeps it, finer than the default included
+    r = client.get(f"/scenarios/{plain}/uncertainty?samples=8&seed=0&points=150,120", follow_redirects=False)
+    assert r.status_code == 200
 
 
 def test_probability_palette_darkens_steadily() -> None:
@@ -101,4 +109,4 @@ def test_the_check_with_confidence_is_linked_with_its_setpoint_samples_and_seed(
     assert u["samples"] == 16 and u["seed"] == 4
     # a link without samples keeps its setpoint through the redirect that names them
     r = client.get(f"/scenarios/{sid}/uncertainty?residence_time=1500&branch=high", follow_redirects=False)
-    assert r.headers["location"].endswith("?samples=256&seed=0&residence_time=1500&branch=high")
+    assert r.headers["location"].endswith("?samples=256&seed=0&points=40,40&residence_time=1500&branch=high")

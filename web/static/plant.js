@@ -1,7 +1,8 @@
 // The "Plant data" panel of the scenario page (DESIGN.md §12): load a historian export (CSV), map its columns to
 // roles with their units, then show what was read, the plant's path on the operating map, a replay of the
 // scenario on the recorded inputs, and a calibration whose result can be saved as a new scenario. The dataset id
-// travels in the page link (view state key "dataset"), so a shared link opens the same data.
+// travels in the page link (view state key "dataset"), so a shared link opens the same data; a window of its
+// records (keys "data_start", "data_end", as typed) travels with it and limits the path, the replay and the fit.
 
 import * as urls from "./urls.js";
 import { getJSON, postJSON, plotlyReady, ApiError } from "./api.js";
@@ -19,6 +20,11 @@ const ROLE_WORDS = {
 };
 // A sequential colour of our own for time along the plant's path: light sand to dark blue-black, lightness
 // falling evenly so early and late read apart in greyscale too.
+// More records than one replay of the whole is likely to finish in the server's time allowance (about a
+// millisecond of computing per record of a noisy 20-s record, measured on this machine under load): a dataset
+// this long is not replayed on opening, the user chooses a window first.
+export const LONG_RECORDS = 20000;
+
 export const TIME_SCALE = [[0, "#f3e3b3"], [0.35, "#c9a25a"], [0.7, "#4f6d8a"], [1, "#101c2c"]];
 
 const api = {
@@ -187,6 +193,13 @@ export class PlantPanel {
     $("plant-upload").addEventListener("click", () => this.upload());
     $("plant-calibrate").addEventListener("submit", (ev) => { ev.preventDefault(); this.calibrate(); });
     $("plant-save").addEventListener("click", () => this.save());
+    $("plant-window").addEventListener("submit", (ev) => { ev.preventDefault(); this.applyWindow(); });
+    $("plant-window-all").addEventListener("click", () => {
+      if (!this.dataset) return;
+      $("plant-start").value = this.dataset.start;
+      $("plant-end").value = this.dataset.end;
+      this.applyWindow();
+    });
     const doc = this.ctx.scenario();
     const box = $("plant-targets");
     box.textContent = "";
@@ -302,7 +315,16 @@ export class PlantPanel {
     this.calibration = null;
     $("plant-cal").hidden = true;
     const st = this.ctx.state();
-    if (st.dataset !== ds.dataset_id) { st.dataset = ds.dataset_id; this.ctx.syncURL(true); }
+    if (st.dataset !== ds.dataset_id) {
+      // another dataset: its window starts as the whole of it
+      Object.assign(st, { dataset: ds.dataset_id, data_start: null, data_end: null });
+      this.ctx.syncURL(true);
+    }
+    // the window's inputs: the link's, else the dataset's first and last record
+    $("plant-start").value = st.data_start || ds.start;
+    $("plant-end").value = st.data_end || ds.end;
+    showError("plant-window-error", null);
+    $("plant-window-note").textContent = "";
     $("plant-dataset").hidden = false;
     $("plant-dataset").dataset.datasetId = ds.dataset_id;
     const dl = $("plant-summary");
@@ -322,10 +344,63 @@ export class PlantPanel {
     notes.textContent = "";
     for (const n of ds.notes || []) notes.append(el("li", { text: n }));
     this.drawOverlay();
+    if (ds.records > LONG_RECORDS && !st.data_start && !st.data_end) {
+      $("plant-replay").textContent = "";
+      $("plant-replay").append(el("p", { id: "plant-long", class: "small" }, `This dataset holds ${ds.records} records, `
+        + "more than one replay is likely to finish in the server's time allowance: choose a window above (From, To) "
+        + "and press Replay this window. The fit uses the same window."));
+      $("plant-start").focus();
+      return;
+    }
     this.replay();
   }
 
-  body(extra = {}) { return { scenario_id: this.ctx.id, dataset_id: this.dataset.dataset_id, ...extra }; }
+  body(extra = {}) {
+    return { scenario_id: this.ctx.id, dataset_id: this.dataset.dataset_id, ...this.windowFields(), ...extra };
+  }
+
+  // start and end of the window as typed (the server reads them: ISO 8601 or epoch seconds); omitted when empty
+  windowFields() {
+    const out = {};
+    const a = $("plant-start").value.trim(), b = $("plant-end").value.trim();
+    if (a) out.start = /^-?\d+(\.\d*)?$/.test(a) ? Number(a) : a;
+    if (b) out.end = /^-?\d+(\.\d*)?$/.test(b) ? Number(b) : b;
+    return out;
+  }
+
+  // The window typed goes in the link (nothing when it is the whole dataset), then the path and the replay.
+  applyWindow() {
+    if (!this.dataset) return;
+    const st = this.ctx.state();
+    const a = $("plant-start").value.trim(), b = $("plant-end").value.trim();
+    st.data_start = a && a !== this.dataset.start ? a : null;
+    st.data_end = b && b !== this.dataset.end ? b : null;
+    this.ctx.syncURL(true);
+    this.drawOverlay();
+    this.replay();
+  }
+
+  // A refused window (422 naming start or end) is shown beside its inputs; true when e was one.
+  windowError(e) {
+    const bad = e instanceof ApiError ? e.fields.filter((f) => f.field === "start" || f.field === "end") : [];
+    $("plant-start").removeAttribute("aria-invalid");
+    $("plant-end").removeAttribute("aria-invalid");
+    if (!bad.length) return false;
+    for (const f of bad) $(`plant-${f.field}`).setAttribute("aria-invalid", "true");
+    showError("plant-window-error", new Error(bad.map((f) => `${f.field === "start" ? "From" : "To"} (${f.field}): `
+      + f.message).join("; ")));
+    $("plant-window-note").textContent = "";
+    return true;
+  }
+
+  describeWindow(w) {
+    const ds = this.dataset;
+    $("plant-window-note").textContent = w.whole
+      ? `The whole dataset: ${w.records} records, ${w.start} to ${w.end}.`
+      : `Window: ${w.records} of ${ds ? ds.records : "?"} records, ${w.start} to ${w.end} (from ${hours(w.offset_s)} `
+        + "after the first record); times below are from the window's first record.";
+    $("plant-window-note").dataset.records = String(w.records);
+  }
 
   async drawOverlay() {
     try {
@@ -333,7 +408,7 @@ export class PlantPanel {
       this.overlayLoading = null;
       await this.redrawOverlay();
     } catch (e) {
-      showError("plant-error", e);
+      if (!this.windowError(e)) showError("plant-error", e);
     }
   }
 
@@ -360,7 +435,8 @@ export class PlantPanel {
       $("map-legend").after(note);
     }
     note.textContent = `Plant's path (dataset ${ov.dataset_id}): ${x.length} records from ${ov.start}${thinned(ov)}, `
-      + "light dots first, dark dots last; the scale beside the map is minutes from the first record.";
+      + `light dots first, dark dots last; the scale beside the map is minutes from ${ov.window && !ov.window.whole
+        ? "the window's first record" : "the first record"}.`;
     $("map").dataset.plantPath = String(x.length);
   }
 
@@ -371,7 +447,10 @@ export class PlantPanel {
     if (!id) return null;
     if (this.overlay && this.overlay.dataset_id === id) return this.overlay;
     if (!this.overlayLoading || this.overlayLoading.id !== id) {
+      const st = this.ctx.state();
       const body = { scenario_id: this.ctx.id, dataset_id: id };
+      if (st.data_start) body.start = st.data_start;
+      if (st.data_end) body.end = st.data_end;
       const p = postJSON(api.overlay(), body, "Placing the plant's records").then(async (ov) => {
         this.overlay = ov;
         await this.redrawOverlay();
@@ -409,10 +488,13 @@ export class PlantPanel {
   async replay() {
     const n = ++this.seq;
     $("plant-residuals").textContent = "";
+    showError("plant-window-error", null);
     try {
       const rep = await postJSON(api.replay(), this.body(), "Replaying the scenario on the recorded inputs");
       if (n !== this.seq) return;
       this.replayAnswer = rep;
+      this.windowError(null);
+      this.describeWindow(rep.window);
       const Plotly = await plotlyReady();
       const t = rep.time_s.map(toMin);
       const rec = (rep.recorded.reactor_temperature_K || []).map((v) => (v === null ? null : toC(v)));
@@ -427,7 +509,8 @@ export class PlantPanel {
       await Plotly.react(node, data, {
         height: 260, margin: { l: 56, r: 10, t: 10, b: 40 }, showlegend: true,
         legend: { orientation: "h", y: 1.12, x: 0 },
-        xaxis: { title: { text: "Time from the first record [min]" }, ticks: "outside" },
+        xaxis: { title: { text: rep.window.whole ? "Time from the first record [min]"
+          : "Time from the window's first record [min]" }, ticks: "outside" },
         yaxis: { title: { text: "Reactor temperature [°C]" }, ticks: "outside" },
         font: { family: "system-ui, sans-serif", size: 12 }, plot_bgcolor: "#ffffff",
       }, { displayModeBar: false, responsive: true });
@@ -440,7 +523,12 @@ export class PlantPanel {
       if (!rep.success) $("plant-residuals").textContent += ` The replay did not finish: ${rep.message}`;
       node.dataset.series = String(data.length);
     } catch (e) {
-      if (n === this.seq) { $("plant-replay").textContent = ""; showError("plant-error", e); }
+      if (n !== this.seq) return;
+      $("plant-replay").textContent = "";
+      if (this.windowError(e)) return;
+      // too long for one replay: the server says to choose a window; point at its inputs
+      showError("plant-error", e);
+      if (e instanceof ApiError && e.fields.some((f) => f.field === "start")) $("plant-start").focus();
     }
   }
 
@@ -462,7 +550,7 @@ export class PlantPanel {
     const status = $("plant-cal-status");
     const t0 = performance.now();
     status.textContent = `Fitting ${fit.length} parameter${fit.length > 1 ? "s" : ""}: every trial replays the `
-      + "whole record, and each 95 % interval needs a few fits of its own; this takes seconds to tens of seconds.";
+      + "window of records, and each 95 % interval needs a few fits of its own; this takes seconds to tens of seconds.";
     const tick = setInterval(() => {
       status.textContent = status.textContent.replace(/ \(\d+ s so far\)$/, "")
         + ` (${Math.round((performance.now() - t0) / 1000)} s so far)`;
@@ -474,6 +562,7 @@ export class PlantPanel {
       status.textContent = `Fitted in ${((performance.now() - t0) / 1000).toFixed(1)} s.`;
     } catch (e) {
       status.textContent = "";
+      this.windowError(e);
       showError("plant-cal-error", e instanceof ApiError && e.fields.length
         ? new Error(e.fields.map((f) => `${f.field}: ${f.message}`).join("; ")) : e);
     } finally {
@@ -501,7 +590,9 @@ export class PlantPanel {
         el("td", { class: "interval", text: `${side(lo)} to ${side(hi)}` })));
     }
     const sd = cal.residual_sd.reactor_temperature;
+    const w = cal.window;
     $("plant-cal-spread").textContent = `Reference temperature ${fmtTemp(cal.reference_temperature_K)}; `
+      + (w && !w.whole ? `records ${w.start} to ${w.end} (${w.records}); ` : `all ${w ? w.records : ""} records; `)
       + `${cal.observations} observations, ${cal.degrees_of_freedom} degrees of freedom`
       + (Number.isFinite(sd) ? `; residual spread ${sd.toFixed(2)} K.` : ".")
       + (cal.success ? "" : ` The fit did not converge: ${cal.message}`);
@@ -519,10 +610,10 @@ export class PlantPanel {
       });
       cor.append(t);
     }
-    const w = $("plant-warnings");
-    w.textContent = "";
-    for (const m of cal.warnings) w.append(el("li", { class: "warning", text: m }));
-    if (!cal.warnings.length) w.append(el("li", { class: "muted small", text: "Every fitted parameter is determined by the data (no flat profile, no correlation near ±1)." }));
+    const warn = $("plant-warnings");
+    warn.textContent = "";
+    for (const m of cal.warnings) warn.append(el("li", { class: "warning", text: m }));
+    if (!cal.warnings.length) warn.append(el("li", { class: "muted small", text: "Every fitted parameter is determined by the data (no flat profile, no correlation near ±1)." }));
     // values where a fit stopped before it converged are not estimates: they are not offered for saving
     $("plant-save").disabled = !cal.success;
     showError("plant-save-error", cal.success ? null

@@ -2,13 +2,15 @@
 // View state lives in the query string in SI numbers: residence_time [s], feed_temperature [K],
 // coolant_temperature [K] (jacketed tanks), map_residence_time "lo,hi" [s], map_feed_temperature "lo,hi" [K],
 // points "n_tau,n_tin", branch, panel, upset; a simulation as sim_start (low | high), sim_duration [s] and
-// sim_events (the event lines as typed, one a line); dataset (the plant dataset the Plant data panel shows). The print sheet adds its sign-off fields (SIGNOFF_KEYS):
+// sim_events (the event lines as typed, one a line); dataset (the plant dataset the Plant data panel shows) and
+// data_start, data_end (its window of records, as typed: ISO 8601 or epoch seconds). The print sheet adds its sign-off fields (SIGNOFF_KEYS):
 // they travel in its link and are never stored.
 
 export const API = "/api/v1";
 export const VIEW_KEYS = [
   "residence_time", "feed_temperature", "coolant_temperature", "map_residence_time", "map_feed_temperature",
   "points", "branch", "panel", "upset", "sim_start", "sim_duration", "sim_events", "dataset",
+  "data_start", "data_end",
 ];
 export const SIGNOFF_KEYS = ["prepared_by", "reviewed_by", "change_reference", "review_date"];
 export const PANELS = ["check", "curves", "simulate", "editor", "plant"];
@@ -63,6 +65,9 @@ export function readState(search = window.location.search) {
     sim_events: q.has("sim_events") ? q.get("sim_events").slice(0, TEXT_LIMIT.sim_events) : null,
     // the plant dataset the "Plant data" panel shows (a content id: hex digits)
     dataset: /^[0-9a-f]{1,64}$/.test(q.get("dataset") || "") ? q.get("dataset") : null,
+    // its window of records as typed (the server reads and checks the times)
+    data_start: q.get("data_start") ? q.get("data_start").slice(0, 64) : null,
+    data_end: q.get("data_end") ? q.get("data_end").slice(0, 64) : null,
   };
   if (st.points) st.points = st.points.map((n) => Math.round(n));
   for (const k of SIGNOFF_KEYS) st[k] = q.has(k) ? q.get(k).slice(0, 200) : null;

@@ -9,7 +9,7 @@ from pathlib import Path
 
 from exomap.cli import CliInputError, print_json, quantity, read_scenario_document
 from exomap.cli import _format as fmt
-from exomap.cli.plant import add_data_arguments, load_dataset
+from exomap.cli.plant import add_data_arguments, load_dataset, windowed
 
 
 def add_parser(subparsers: argparse._SubParsersAction) -> argparse.ArgumentParser:
@@ -39,15 +39,18 @@ def add_parser(subparsers: argparse._SubParsersAction) -> argparse.ArgumentParse
     return parser
 
 
-def answer(doc, ds, cal, source_id=None) -> dict:  # noqa: ANN001
+def answer(doc, ds, cal, source_id=None, window=None) -> dict:  # noqa: ANN001
+    from exomap.schema import scenario_id
     from exomap.schema.calibration import calibrated_document
+    from exomap.schema.plantdata import window as whole
 
+    win = window or whole(ds)[1]
     out = cal.to_dict()
     out["dataset"] = ds.summary()
-    out["scenario"] = calibrated_document(doc, cal, dataset_id=ds.dataset_id, source_id=source_id)
-    from exomap.schema import scenario_id
-
-    out["derived_from"] = {"scenario_id": source_id or scenario_id(doc), "dataset_id": ds.dataset_id}
+    out["window"] = win
+    out["scenario"] = calibrated_document(doc, cal, dataset_id=ds.dataset_id, source_id=source_id, window=win)
+    out["derived_from"] = {"scenario_id": source_id or scenario_id(doc), "dataset_id": ds.dataset_id,
+                           "start": win["start"], "end": win["end"]}  # fmt: skip
     return out
 
 
@@ -60,9 +63,10 @@ def run(args: argparse.Namespace) -> int:
     doc = read_scenario_document(args.scenario)
     sc = parse_scenario(doc).to_core()
     ds = load_dataset(args)
+    part, win = windowed(args, ds, len(args.fit) + 2)
     T_ref = quantity(args.reference_temperature, "temperature", "--reference-temperature")
-    cal = calibrate(sc, ds.record(), args.fit, T_ref=T_ref, outputs=tuple(args.output) or ("reactor_temperature",))
-    ans = answer(doc, ds, cal)
+    cal = calibrate(sc, part.record(), args.fit, T_ref=T_ref, outputs=tuple(args.output) or ("reactor_temperature",))
+    ans = answer(doc, ds, cal, window=win)
     if args.save:
         try:
             Path(args.save).write_text(json.dumps(ans["scenario"], indent=2) + "\n", encoding="utf-8")
@@ -80,6 +84,7 @@ def run(args: argparse.Namespace) -> int:
     lines = [
         f"Calibration on dataset {ds.dataset_id} ({ans['observations']} residuals), reference temperature "
         f"{fmt.celsius(cal.T_ref)}",
+        *([] if win["whole"] else [f"window: {win['start']} .. {win['end']}, {win['records']} records"]),
         "",
         fmt.table(["target", "estimate", "std. error", "95 % interval (profile)", "unit (SI)"], rows),
         "",

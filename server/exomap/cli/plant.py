@@ -24,6 +24,10 @@ def add_data_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
         "--unit", action="append", default=[], metavar="TAG=UNIT", help="unit of a tag whose header has none"
     )
+    parser.add_argument(
+        "--start", metavar="TIME", help="use the records from TIME (ISO 8601, no zone: UTC; or epoch seconds)"
+    )
+    parser.add_argument("--end", metavar="TIME", help="use the records up to TIME (included), after --start")
 
 
 def pairs(values: list[str], option: str) -> dict[str, str]:
@@ -50,3 +54,14 @@ def load_dataset(args: argparse.Namespace) -> Any:
         time_column=args.time,
         units=pairs(args.unit, "--unit"),
     )
+
+
+def windowed(args: argparse.Namespace, ds: Any, min_records: int = 2) -> tuple[Any, dict[str, Any]]:
+    """The records of ``ds`` between ``--start`` and ``--end`` and what the window was (errors name the option)."""
+    from exomap.schema.errors import ScenarioError
+    from exomap.schema.plantdata import window
+
+    try:
+        return window(ds, args.start, args.end, min_records=min_records)
+    except ScenarioError as exc:
+        raise CliInputError(f"--{exc.field}", exc.errors[0]["message"]) from None

@@ -7,7 +7,7 @@ import argparse
 
 from exomap.cli import _format as fmt
 from exomap.cli import load_scenario, print_json
-from exomap.cli.plant import add_data_arguments, load_dataset
+from exomap.cli.plant import add_data_arguments, load_dataset, windowed
 
 
 def add_parser(subparsers: argparse._SubParsersAction) -> argparse.ArgumentParser:
@@ -23,8 +23,10 @@ def add_parser(subparsers: argparse._SubParsersAction) -> argparse.ArgumentParse
     return parser
 
 
-def answer(ds, res) -> dict:  # noqa: ANN001 - Dataset, ReplayResult
-    return {"dataset": ds.summary(), **res.to_dict()}
+def answer(ds, res, window=None) -> dict:  # noqa: ANN001 - Dataset, ReplayResult, window description
+    from exomap.schema.plantdata import window as whole
+
+    return {"dataset": ds.summary(), "window": window or whole(ds)[1], **res.to_dict()}
 
 
 def run(args: argparse.Namespace) -> int:
@@ -32,9 +34,10 @@ def run(args: argparse.Namespace) -> int:
 
     sc = load_scenario(args.scenario)
     ds = load_dataset(args)
-    res = replay(sc, ds.record())
+    part, win = windowed(args, ds)
+    res = replay(sc, part.record())
     if args.json:
-        print_json(answer(ds, res))
+        print_json(answer(ds, res, win))
         return 0
     s = ds.summary()
     lines = [
@@ -42,6 +45,7 @@ def run(args: argparse.Namespace) -> int:
         f" ({fmt.minutes(s['duration_s'])}), {len(s['gaps'])} gaps, "
         f"bad values dropped: {sum(s['dropped_bad'].values())}",
         *[f"note: {n}" for n in s["notes"]],
+        *([] if win["whole"] else [f"window: {win['start']} .. {win['end']}, {win['records']} records"]),
         f"start: steady state at {fmt.celsius(res.start_T)}",
         "",
     ]

@@ -450,7 +450,9 @@ class Manifold:
                 else:
                     if active.size == 0:
                         break
-                    ya, lk, lt, dTa, pa = y[active], lnk_all[active], ln_tau[active], dT[active], prev[active]
+                    # np.take: numpy's fancy indexing of rows of 2-D arrays is an order of magnitude slower
+                    ya, lk, dTa = (np.take(v, active, axis=0) for v in (y, lnk_all, dT))
+                    lt, pa = ln_tau[active], prev[active]
                 G, Jac, _, GT = self._iso_system(lk, ya, lt, dTa)
                 err = rowmax(G)
                 step = -_solve_small(Jac, G)
@@ -472,13 +474,15 @@ class Manifold:
                 if done.any():
                     idx = np.nonzero(done)[0] if active is None else active[done]
                     ok[idx] = True
-                    Jac_out[idx], GT_out[idx] = Jac[done], GT[done]
+                    d_i = np.nonzero(done)[0]
+                    Jac_out[idx], GT_out[idx] = np.take(Jac, d_i, axis=0), np.take(GT, d_i, axis=0)
                 step *= np.minimum(1.0, 4.0 / np.maximum(big, 1e-300))[:, None]
                 if active is None and go.all():
                     np.clip(y + step, self._y_lo, self._y_hi, out=y)
                     continue
                 moving = np.nonzero(go)[0] if active is None else active[go]
-                y[moving] = np.clip(ya[go] + step[go], self._y_lo, self._y_hi)
+                g_i = np.nonzero(go)[0]
+                y[moving] = np.clip(np.take(ya, g_i, axis=0) + np.take(step, g_i, axis=0), self._y_lo, self._y_hi)
                 active = moving
             lr_out = lnk_all.copy()
             for k in range(self.m):

@@ -176,39 +176,45 @@ def _refine(
     guess: np.ndarray | None,
     iterations: int = 60,
 ) -> tuple[np.ndarray, Samples]:
-    """Vectorised root of func(Samples) bracketed by coordinates a and b, by the Illinois variant of the
-    false-position method (superlinear, never leaves the bracket), to machine precision. Each iteration
-    evaluates only the roots not yet converged."""
+    """Vectorised root of func(Samples) bracketed by coordinates a and b, to machine precision: the secant
+    through the two latest points where it falls inside the bracket, else false position with the
+    Anderson-Bjorck weighting (the end kept twice has its value scaled by 1 - f(c)/f(b), or halved when that is
+    not positive); never leaves the bracket. Each iteration evaluates only the roots not yet converged."""
     fb = func(_eval(mf, tau, b, guess))
     fa = np.asarray(fa, dtype=float).copy()
-    a, b = a.astype(float).copy(), b.astype(float).copy()
-    side = np.zeros(a.shape)
+    a, b = a.astype(float).copy(), b.astype(float).copy()  # (a, fa) the older end, (b, fb) the latest
+    p_, fp = a.copy(), fa.copy()  # the point before the latest
     c_prev = np.full(a.shape, np.nan)
-    c = 0.5 * (a + b)
+    c = np.where(fb == 0, b, 0.5 * (a + b))
     guess = None if guess is None else guess.copy()
-    act = np.arange(a.size)
+    act = np.nonzero(fb != 0)[0]
     for _ in range(iterations):
         if act.size == 0:
             break
-        A, B, FA, FB = a[act], b[act], fa[act], fb[act]
+        A, B, FA, FB, P, FP = a[act], b[act], fa[act], fb[act], p_[act], fp[act]
+        lo, hi = np.minimum(A, B), np.maximum(A, B)
         with np.errstate(invalid="ignore", divide="ignore"):
             C = (A * FB - B * FA) / (FB - FA)
-        C = np.where(np.isfinite(C) & (C > np.minimum(A, B)) & (C < np.maximum(A, B)), C, 0.5 * (A + B))
-        e = _eval(mf, tau[act], C, None if guess is None else guess[act])
+            # the secant through the two latest points where it stays inside the bracket (superlinear where the
+            # kept end's weight makes false position linear)
+            sec = B - FB * (B - P) / (FB - FP)
+        C = np.where(np.isfinite(sec) & (sec > lo) & (sec < hi), sec, C)
+        C = np.where(np.isfinite(C) & (C > lo) & (C < hi), C, 0.5 * (A + B))
+        # np.take: numpy's fancy indexing of rows of a 2-D array is several times slower
+        e = _eval(mf, tau[act], C, None if guess is None else np.take(guess, act, axis=0))
         FC = func(e)
-        left = np.sign(FC) == np.sign(FA)
-        # Illinois: halve the weight of the end that stays twice in a row
-        S = side[act]
-        A, FA, B, FB = (np.where(left, C, A), np.where(left, FC, FA), np.where(left, B, C), np.where(left, FB, FC))
-        FB = np.where(left & (S > 0), 0.5 * FB, FB)
-        FA = np.where(~left & (S < 0), 0.5 * FA, FA)
-        a[act], fa[act], b[act], fb[act] = A, FA, B, FB
-        side[act] = np.where(left, 1.0, -1.0)
+        swap = np.sign(FC) != np.sign(FB)  # the root lies between C and B: B becomes the older end
+        with np.errstate(invalid="ignore", divide="ignore"):
+            m = 1.0 - FC / FB
+        m = np.where(m > 0, m, 0.5)
+        A, FA = np.where(swap, B, A), np.where(swap, FB, FA * m)
+        p_[act], fp[act] = B, FB
+        a[act], fa[act], b[act], fb[act] = A, FA, C, FC
         c[act] = C
         if guess is not None:
             guess[act] = e.C
         done = (
-            (np.abs(B - A) <= 4e-16 * np.maximum(np.maximum(np.abs(A), np.abs(B)), 1.0))
+            (np.abs(C - A) <= 4e-16 * np.maximum(np.maximum(np.abs(A), np.abs(C)), 1.0))
             | (FC == 0)
             | (np.abs(C - c_prev[act]) <= 1e-15 * np.abs(C))
         )
@@ -492,7 +498,8 @@ def _cell_states(mf: Manifold, smp: Samples, cols: FoldColumns, T_in: np.ndarray
         for off in (0, 1):
             xiL[fc, end_slot + off] = cols.fold.C[order]
         xi_flat = xiL.reshape(-1, mf.n)
-        xi_g = xi_flat[k0] + w[:, None] * (xi_flat[k1] - xi_flat[k0])
+        x0 = np.take(xi_flat, k0, axis=0)
+        xi_g = x0 + w[:, None] * (np.take(xi_flat, k1, axis=0) - x0)
     # polish in chunks of states, so the working arrays stay in the processor's cache (the cost per state
     # would otherwise grow with the map's size)
     T_state = np.empty(ss.shape)
@@ -563,7 +570,7 @@ def _polish(
     for it in range(POLISH_ITERATIONS):
         full = idx.size == n
         t_i, s_i = (ts, ss) if full else (ts[idx], ss[idx])
-        g_i = None if xi_g is None else (xi_g if full else xi_g[idx])
+        g_i = None if xi_g is None else (xi_g if full else np.take(xi_g, idx, axis=0))
         e = _eval(mf, t_i, s_i, g_i)
         v_i = v if full else v[idx]
         with np.errstate(invalid="ignore", divide="ignore"):
@@ -597,7 +604,8 @@ def _polish(
 
 def _take(e: Samples, k: np.ndarray) -> Samples:
     """The points k of 1-D manifold samples."""
-    return Samples(*(None if getattr(e, f) is None else getattr(e, f)[k] for f in SAMPLE_FIELDS))
+    # np.take: numpy's fancy indexing of rows of a 2-D array (xi, C) is several times slower
+    return Samples(*(None if getattr(e, f) is None else np.take(getattr(e, f), k, axis=0) for f in SAMPLE_FIELDS))
 
 
 def _classify(sc: Scenario, st: dict) -> tuple[np.ndarray, np.ndarray, np.ndarray]:

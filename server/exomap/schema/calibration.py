@@ -48,7 +48,12 @@ def uncertainty_block(result: Any) -> dict[str, Any]:
 
 
 def calibrated_document(
-    doc: dict[str, Any] | ScenarioDoc, result: Any, *, dataset_id: str, source_id: str | None = None
+    doc: dict[str, Any] | ScenarioDoc,
+    result: Any,
+    *,
+    dataset_id: str,
+    source_id: str | None = None,
+    window: dict[str, Any] | None = None,
 ) -> dict[str, Any]:
     """A new scenario document with the fitted values, the fit's ``uncertainty`` block (when the scenario
     format knows it) and a description saying which scenario and dataset it came from."""
@@ -74,7 +79,10 @@ def calibrated_document(
                 + str(out.get("description", ""))
             )
     fitted = ", ".join(t.path for t in result.targets)
-    note = f"Calibrated from scenario {source_id} on plant dataset {dataset_id} (fitted: {fitted})."
+    part = ""
+    if window is not None and not window.get("whole", True):
+        part = f", records {window['start']} to {window['end']} ({window['records']})"
+    note = f"Calibrated from scenario {source_id} on plant dataset {dataset_id}{part} (fitted: {fitted})."
     out["description"] = (note + " " + str(out.get("description", ""))).strip()[:5000]
     title = str(out.get("title", "") or "")
     out["title"] = (title + " (calibrated)")[:200] if not title.endswith("(calibrated)") else title

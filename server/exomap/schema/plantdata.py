@@ -458,3 +458,94 @@ def dataset_from_canonical(summary: Mapping[str, Any], content: str) -> Dataset:
         str(summary.get("layout", "wide")),
         list(summary.get("notes", [])),
     )
+
+
+#: How a window's time is written (the import's conventions), for error messages.
+TIME_FORMAT = "ISO 8601 (2026-12-02T08:00:00Z; without a zone read as UTC) or epoch seconds"
+
+
+def parse_time(value: Any, field_name: str) -> float:
+    """Epoch seconds of one time given as the import reads times: ISO 8601 (no zone: UTC) or epoch seconds (a
+    number or its text); ``ScenarioError`` naming ``field_name`` and the format otherwise."""
+    import pandas as pd
+
+    if isinstance(value, bool):
+        raise _fail(field_name, f"{value!r} is not a time; expected {TIME_FORMAT}")
+    if isinstance(value, (int, float)):
+        if not math.isfinite(value):
+            raise _fail(field_name, f"{value!r} is not a time; expected {TIME_FORMAT}")
+        return float(value)
+    text = str(value).strip()
+    try:
+        seconds = float(text)
+    except ValueError:
+        pass
+    else:
+        if math.isfinite(seconds):
+            return seconds
+    try:
+        parsed = pd.to_datetime(text, format="ISO8601", utc=True)
+    except (ValueError, TypeError, OverflowError):
+        parsed = None
+    if parsed is None or pd.isna(parsed):
+        raise _fail(field_name, f"{text!r} is not a time; expected {TIME_FORMAT}")
+    return float((parsed - pd.Timestamp(0, tz="UTC")) / pd.Timedelta(seconds=1))
+
+
+def window(ds: Dataset, start: Any = None, end: Any = None, *, min_records: int = 2) -> tuple[Dataset, dict]:
+    """The records of ``ds`` from ``start`` to ``end`` (both included; either may be None: the first or last
+    record), as a dataset, and what the window was: ``{start, end, records, offset_s, whole}`` (``offset_s``:
+    seconds from the dataset's first record to the window's first).
+
+    ``ScenarioError`` naming ``start`` or ``end`` when a time cannot be read, the window is not inside the data,
+    ends before it starts, or holds fewer than ``min_records`` records."""
+    from datetime import UTC, datetime
+
+    def iso(s: float) -> str:
+        try:
+            return datetime.fromtimestamp(s, tz=UTC).isoformat().replace("+00:00", "Z")
+        except (OverflowError, OSError, ValueError):  # beyond the calendar: the number as given
+            return f"{s:g} s since 1970"
+
+    first, last = float(ds.epoch_s[0]), float(ds.epoch_s[-1])
+    eps = 1e-6  # s: a time written to the microsecond is the record's time
+    a = first if start is None else parse_time(start, "start")
+    b = last if end is None else parse_time(end, "end")
+    if a < first - eps:
+        raise _fail("start", f"{iso(a)} is before the first record ({iso(first)}); the window must lie inside the "
+                             f"data; expected {TIME_FORMAT}")  # fmt: skip
+    if b > last + eps:
+        raise _fail("end", f"{iso(b)} is after the last record ({iso(last)}); the window must lie inside the "
+                           f"data; expected {TIME_FORMAT}")  # fmt: skip
+    if b <= a:
+        raise _fail("end", f"{iso(b)} is not after start ({iso(a)}); expected a later time, {TIME_FORMAT}")
+    lo = int(np.searchsorted(ds.epoch_s, a - eps, side="left"))
+    hi = int(np.searchsorted(ds.epoch_s, b + eps, side="right"))
+    n = hi - lo
+    if n < min_records:
+        raise _fail("end", f"the window {iso(a)} .. {iso(b)} holds {n} records; at least {min_records} are needed: "
+                           "choose a later end or an earlier start")  # fmt: skip
+    info = {
+        "start": iso(float(ds.epoch_s[lo])),
+        "end": iso(float(ds.epoch_s[hi - 1])),
+        "records": n,
+        "offset_s": float(ds.epoch_s[lo] - ds.epoch_s[0]),
+        "whole": lo == 0 and hi == ds.epoch_s.size,
+    }
+    if info["whole"]:
+        return ds, info
+    t = ds.epoch_s[lo:hi]
+    sliced = Dataset(
+        t,
+        {r: v[lo:hi] for r, v in ds.series.items()},
+        dict(ds.tags),
+        dict(ds.units),
+        n,
+        dict(ds.dropped_bad),
+        [(g0, g1) for g0, g1 in ds.gaps if g0 >= t[0] and g1 <= t[-1]],
+        ds.median_step_s,
+        ds.irregular,
+        ds.layout,
+        list(ds.notes),
+    )
+    return sliced, info

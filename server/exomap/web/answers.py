@@ -674,11 +674,22 @@ class ResidualStatisticsAnswer(Answer):
     max_abs: float
 
 
+class WindowAnswer(Answer):
+    """The records a replay, overlay or calibration used: the request's start and end, or the whole dataset."""
+
+    start: str = Field(description="Time of the window's first record (ISO 8601, UTC).")
+    end: str = Field(description="Time of the window's last record (ISO 8601, UTC).")
+    records: int = Field(description="Records in the window.")
+    offset_s: float = Field(description="Seconds from the dataset's first record to the window's first.")
+    whole: bool = Field(description="True when the window is the whole dataset.")
+
+
 class ReplayAnswer(Answer):
     """The scenario driven by recorded inputs, beside the recorded outputs (SI; null where missing)."""
 
     dataset: DatasetSummaryAnswer
-    time_s: list[float] = Field(description="Record times from the first record [s].")
+    window: WindowAnswer
+    time_s: list[float] = Field(description="Record times from the window's first record [s].")
     simulated: SimulatedSeriesAnswer
     recorded: dict[str, list[float | None]] = Field(
         description="Recorded outputs: reactor_temperature_K, level_m, valve_opening, outlet_flow_m3_per_s."
@@ -695,12 +706,13 @@ class OverlayAnswer(Answer):
     """Where the plant ran: its (residence time, feed temperature) path in time, for the operating map."""
 
     dataset_id: str
-    start: str = Field(description="Time of the first record (ISO 8601, UTC).")
-    records: int = Field(description="Records in the dataset.")
+    start: str = Field(description="Time of the window's first record (ISO 8601, UTC).")
+    records: int = Field(description="Records in the dataset (the window's: window.records).")
+    window: WindowAnswer
     stride: int = Field(
         description="Every stride-th record is answered (1: all), the last always, so at most max_points."
     )
-    time_s: list[float] = Field(description="Record times from the first record [s].")
+    time_s: list[float] = Field(description="Record times from the window's first record [s].")
     residence_time_s: list[float | None] = Field(description="V_set / recorded feed flow [s]; null where missing.")
     feed_temperature_K: list[float | None] = Field(description="Recorded feed temperature [K]; null where missing.")
     reactor_temperature_K: list[float | None] = Field(description="Recorded reactor temperature [K], or nulls.")
@@ -723,6 +735,8 @@ class EstimateAnswer(Answer):
 class ProvenanceAnswer(Answer):
     scenario_id: str = Field(description="The scenario the calibration started from.")
     dataset_id: str = Field(description="The dataset it was fitted to.")
+    start: str = Field(description="First record of the window fitted (ISO 8601, UTC).")
+    end: str = Field(description="Last record of the window fitted (ISO 8601, UTC).")
 
 
 class CalibrationAnswer(Answer):
@@ -739,6 +753,7 @@ class CalibrationAnswer(Answer):
     success: bool
     message: str
     dataset: DatasetSummaryAnswer
+    window: WindowAnswer
     scenario: dict[str, JsonValue] = Field(
         description="The calibrated scenario document (canonical, SI) with the fit's uncertainty block."
     )

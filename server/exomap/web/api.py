@@ -46,7 +46,7 @@ SCENARIO_FORMAT = "exomap-scenario/1"
 #: enumeration value); MAJOR for anything that breaks a client generated from the previous document (a key,
 #: route or operation id removed or renamed, a type or unit changed, a request field made required) -- a
 #: MAJOR bump also moves the routes to the next prefix (/api/v2) and keeps /api/v1 serving until retired.
-API_VERSION = "1.5.0"
+API_VERSION = "1.6.0"
 
 SUMMARIES = {
     "steady": "Every steady state at an operating point, with its stability",

@@ -45,6 +45,17 @@ class PlantRequest(BaseModel):
     scenario: InlineScenario = Field(default=None, description="A whole scenario document; or scenario_id.")
     scenario_id: str | None = Field(default=None, min_length=1, max_length=200, description="Stored id or demo name.")
     dataset_id: DatasetId
+    start: str | float | None = Field(
+        default=None,
+        description="First time of the window of records used: ISO 8601 (without a zone read as UTC) or epoch "
+        "seconds, as the import reads times; default: the first record. The answer's 'window' says what was used.",
+        examples=["2026-12-02T08:00:00Z"],
+    )
+    end: str | float | None = Field(
+        default=None,
+        description="Last time of the window (included), after start; default: the last record.",
+        examples=["2026-12-02T12:00:00Z"],
+    )
 
     @model_validator(mode="after")
     def _one_scenario(self) -> PlantRequest:
@@ -128,6 +139,37 @@ def _dataset(request: Request, did: str) -> Any:
         raise ApiError(404, "not_found", f"no dataset with id {did!r}",
                        [{"field": "dataset_id", "message": "no stored dataset has this id"}])  # fmt: skip
     return ds
+
+
+#: What an error says when the data are too long for one computation.
+WINDOW_HINT = "window of the data: 'start' and 'end' (ISO 8601, e.g. 2026-12-02T08:00:00Z, or epoch seconds)"
+
+
+def _windowed(request: Request, req: PlantRequest, min_records: int = 2) -> tuple[Any, dict[str, Any], Any]:
+    """The stored dataset, its window's records (a dataset) and what the window was; 422 naming start/end."""
+    from exomap.schema.errors import ScenarioError
+    from exomap.schema.plantdata import window
+
+    ds = _dataset(request, req.dataset_id)
+    try:
+        part, info = window(ds, req.start, req.end, min_records=min_records)
+    except ScenarioError as exc:
+        raise ApiError(422, "invalid_request", str(exc), exc.errors) from None
+    return ds, info, part
+
+
+async def _with_hint(call: Any, info: dict[str, Any]) -> Any:
+    """``await call`` with a 422 evaluation cap or 503 time budget that says to choose a (shorter) window."""
+    try:
+        return await call
+    except ApiError as exc:
+        cap = exc.code == "no_convergence" and "model evaluations" in exc.message
+        if not (cap or exc.code == "time_budget_exceeded"):
+            raise
+        held = f"the window held {info['records']} records" if not info["whole"] else "the whole dataset was used"
+        hint = f"{exc.message}; {held}: choose a {'' if info['whole'] else 'shorter '}{WINDOW_HINT}"
+        fields = [{"field": f, "message": hint} for f in ("start", "end")]
+        raise ApiError(exc.status, exc.code, hint, fields, exc.headers) from None
 
 
 def _document(service: Any, req: PlantRequest) -> tuple[dict[str, Any], str]:
@@ -229,9 +271,11 @@ def build_plant_router() -> APIRouter:
     async def replay_route(request: Request, req: PlantRequest) -> Response:
         service = await get_service(request)
         resolved = await anyio.to_thread.run_sync(service.resolve, req)
-        ds = await anyio.to_thread.run_sync(_dataset, request, req.dataset_id)
-        key = ("replay", resolved.id, ds.dataset_id)
-        out, hit = await service.computed(key, plant_job.run_replay, resolved.scenario, ds)
+        ds, info, part = await anyio.to_thread.run_sync(_windowed, request, req)
+        key = ("replay", resolved.id, ds.dataset_id, info["start"], info["end"])
+        out, hit = await _with_hint(
+            service.computed(key, plant_job.run_replay, resolved.scenario, part, info, ds.summary()), info
+        )
         return _answer_response(request, out, hit, "json", "replay")
 
     @router.post(
@@ -245,8 +289,8 @@ def build_plant_router() -> APIRouter:
     async def overlay_route(request: Request, req: OverlayRequest) -> JSONResponse:
         service = await get_service(request)
         resolved = await anyio.to_thread.run_sync(service.resolve, req)
-        ds = await anyio.to_thread.run_sync(_dataset, request, req.dataset_id)
-        return JSONResponse(overlay(resolved.scenario, ds, max_points=req.max_points))
+        ds, info, part = await anyio.to_thread.run_sync(_windowed, request, req)
+        return JSONResponse(overlay(resolved.scenario, part, max_points=req.max_points, window=info, full=ds))
 
     @router.post(
         "/calibrate",
@@ -262,19 +306,21 @@ def build_plant_router() -> APIRouter:
         service = await get_service(request)
         resolved = await anyio.to_thread.run_sync(service.resolve, req)
         doc, source = await anyio.to_thread.run_sync(_document, service, req)
-        ds = await anyio.to_thread.run_sync(_dataset, request, req.dataset_id)
+        # a fit needs more records than parameters (one degree of freedom at least)
+        ds, info, part = await anyio.to_thread.run_sync(_windowed, request, req, len(req.fit) + 2)
         T_ref = None
         if req.reference_temperature is not None:
             T_ref = quantity(req.reference_temperature, "temperature", "reference_temperature")
-        key = ("calibrate", resolved.id, ds.dataset_id, tuple(req.fit), T_ref, tuple(req.outputs))
+        key = ("calibrate", resolved.id, ds.dataset_id, info["start"], info["end"], tuple(req.fit), T_ref,
+               tuple(req.outputs))  # fmt: skip
         # the profiles stop at PROFILE_SHARE of the time budget (their intervals then not given, with a warning),
         # so the estimates come back inside the budget rather than a 503 after all of it
         budget = service.settings.request_time_budget_s
         deadline = time.monotonic() + budget
-        out, hit = await service.computed(
-            key, plant_job.run_calibrate, resolved.scenario, doc, source, ds, list(req.fit), T_ref, list(req.outputs),
-            deadline - (1.0 - PROFILE_SHARE) * budget, deadline=deadline,
-        )  # fmt: skip
+        out, hit = await _with_hint(service.computed(
+            key, plant_job.run_calibrate, resolved.scenario, doc, source, part, list(req.fit), T_ref, list(req.outputs),
+            deadline - (1.0 - PROFILE_SHARE) * budget, info, ds.summary(), ds.dataset_id, deadline=deadline,
+        ), info)  # fmt: skip
         if not hit and TIMED_OUT.encode() in bytes(out.body):
             service.cache.drop(key)  # cut short by the budget: a retry on a quieter server may complete it
         return _answer_response(request, out, hit, "json", "calibrate")
@@ -282,15 +328,23 @@ def build_plant_router() -> APIRouter:
     return router
 
 
-def overlay(sc: Any, ds: Any, *, max_points: int = OVERLAY_POINTS) -> dict[str, Any]:
+def overlay(
+    sc: Any, ds: Any, *, max_points: int = OVERLAY_POINTS, window: dict[str, Any] | None = None, full: Any = None
+) -> dict[str, Any]:
     """The plant's path on the map: residence time V_set/q_in(t) and feed temperature at each record (SI; null
     where not recorded), with the recorded reactor temperature and the record times. More than ``max_points``
-    records are thinned to every k-th (the last kept)."""
+    records are thinned to every k-th (the last kept). ``ds`` may be a window's records of the dataset ``full``
+    (``exomap.schema.plantdata.window``, whose description is ``window``); times are from the window's start."""
     import math
 
     import numpy as np
 
+    full = ds if full is None else full
     n = int(ds.epoch_s.size)
+    if window is None:
+        from exomap.schema.plantdata import window as whole
+
+        window = whole(ds)[1]
     stride = max(1, math.ceil((n - 1) / (max_points - 1))) if n > max_points else 1
     idx = np.arange(0, n, stride)
     if idx[-1] != n - 1:
@@ -305,9 +359,10 @@ def overlay(sc: Any, ds: Any, *, max_points: int = OVERLAY_POINTS) -> dict[str, 
     T = ds.series.get("reactor_temperature")
     k = idx.size
     return {
-        "dataset_id": ds.dataset_id,
-        "start": ds.summary()["start"],
-        "records": n,
+        "dataset_id": full.dataset_id,
+        "start": window["start"],
+        "records": int(full.epoch_s.size),
+        "window": window,
         "stride": stride,
         "time_s": t[idx].tolist(),
         "residence_time_s": clean(sc.vessel.V_set / q) if q is not None else [sc.tau_nominal] * k,

@@ -29,13 +29,22 @@ def _errors(fn: Any) -> Answer | JobError:
         return JobError("budget", str(exc))
 
 
-def run_replay(sc: Any, dataset: Any) -> Answer | JobError:
-    """``exomap.core.replay.replay`` of a stored dataset: the answer with the dataset's summary."""
+def _window(dataset: Any, window: dict | None, summary: dict | None) -> tuple[dict, dict]:
+    from exomap.schema.plantdata import window as whole
+
+    return (window if window is not None else whole(dataset)[1]), (summary or dataset.summary())
+
+
+def run_replay(sc: Any, dataset: Any, window: dict | None = None, summary: dict | None = None) -> Answer | JobError:
+    """``exomap.core.replay.replay`` of a stored dataset, or of a window's records of it (``dataset`` then the
+    window's records, ``window`` what the window was and ``summary`` the whole dataset's): the answer with the
+    dataset's summary and the window."""
     from exomap.core.replay import replay
 
     def go() -> dict:
+        info, whole = _window(dataset, window, summary)
         res = replay(sc, dataset.record())
-        return {"dataset": dataset.summary(), **res.to_dict()}
+        return {"dataset": whole, "window": info, **res.to_dict()}
 
     return _errors(go)
 
@@ -49,20 +58,27 @@ def run_calibrate(
     T_ref: float | None,
     outputs: list[str],
     profile_deadline: float | None = None,
+    window: dict | None = None,
+    summary: dict | None = None,
+    dataset_id: str | None = None,
 ) -> Answer | JobError:
     """``exomap.core.calibrate.calibrate``: estimates with their uncertainty and the calibrated scenario.
 
     ``profile_deadline`` (``time.monotonic()``, one clock for every process of the machine) is when the
-    profile-likelihood intervals stop."""
+    profile-likelihood intervals stop. ``dataset`` may be a window's records (``window``, ``summary`` and
+    ``dataset_id`` then describe the window and the whole stored dataset), as in ``run_replay``."""
     from exomap.core.calibrate import calibrate
     from exomap.schema.calibration import calibrated_document
 
     def go() -> dict:
+        info, whole = _window(dataset, window, summary)
+        did = dataset_id or dataset.dataset_id
         cal = calibrate(sc, dataset.record(), targets, T_ref=T_ref, outputs=tuple(outputs), deadline=profile_deadline)
         out = cal.to_dict()
-        out["dataset"] = dataset.summary()
-        out["scenario"] = calibrated_document(doc, cal, dataset_id=dataset.dataset_id, source_id=source_id)
-        out["derived_from"] = {"scenario_id": source_id, "dataset_id": dataset.dataset_id}
+        out["dataset"] = whole
+        out["window"] = info
+        out["scenario"] = calibrated_document(doc, cal, dataset_id=did, source_id=source_id, window=info)
+        out["derived_from"] = {"scenario_id": source_id, "dataset_id": did, "start": info["start"], "end": info["end"]}
         return out
 
     return _errors(go)

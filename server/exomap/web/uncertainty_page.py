@@ -2,7 +2,9 @@
 
 Its view state is its query string (``exomap.web.urls.UNCERTAINTY_KEYS``): ``samples``, ``seed``, ``show``
 (which probability is shaded), and the map window ``map_residence_time``, ``map_feed_temperature``,
-``points``, so a link reproduces the view. Its JSON twin is the map answer with the same samples and seed.
+``points``, so a link reproduces the view; a link without samples, seed or points is sent on to the one that
+names them (the grid defaults to the scenario's, at most 100 x 100). Its JSON twin is the map answer with the
+same samples and seed.
 """
 
 from __future__ import annotations
@@ -32,6 +34,22 @@ def _block(document: str) -> tuple[str, str]:
     return str(block.get("samples", 256)), str(block.get("seed", 0))
 
 
+# the probability map's grid when the link names none: the scenario's, at most this many points per axis (a
+# probability map computes one map per sample; at 256 samples a 200 x 200 grid of several reactions takes
+# tens of seconds, past the web time budget on a busy server, while 100 x 100 takes a few)
+DEFAULT_MAX_POINTS = 100
+
+
+def _points(document: str) -> str:
+    """The default grid ``n_tau,n_tin`` of the page: the scenario's map points, each at most
+    ``DEFAULT_MAX_POINTS`` (100 x 100 when the scenario names none)."""
+    spec = _document(document).get("map") or {}
+    pts = spec.get("points") if isinstance(spec, dict) else None
+    if not (isinstance(pts, list) and len(pts) == 2 and all(isinstance(n, int) and n >= 2 for n in pts)):
+        pts = [DEFAULT_MAX_POINTS, DEFAULT_MAX_POINTS]
+    return ",".join(str(min(n, DEFAULT_MAX_POINTS)) for n in pts)
+
+
 def _in_order(state: dict[str, Any]) -> dict[str, Any]:
     return {k: state[k] for k in urls.UNCERTAINTY_KEYS if k in state}
 
@@ -49,11 +67,17 @@ def install_pages(app: FastAPI, render: Any) -> None:
             )
             response.status_code = 404
             return response
-        if stored.id != scenario_id or "samples" not in state or "seed" not in state:
-            # the link always names its samples and seed: missing ones are the scenario's block's (256 and 0
-            # by default), and a demo named by its file name goes to its content id, so the link is exact
+        if stored.id != scenario_id or any(k not in state for k in ("samples", "seed", "points")):
+            # the link always names its samples, seed and grid: missing samples and seed are the scenario's
+            # block's (256 and 0 by default), a missing grid the scenario's capped at DEFAULT_MAX_POINTS per
+            # axis, and a demo named by its file name goes to its content id, so the link is exact
             block = _block(stored.document)
-            state = {**state, "samples": state.get("samples", block[0]), "seed": state.get("seed", block[1])}
+            state = {
+                **state,
+                "samples": state.get("samples", block[0]),
+                "seed": state.get("seed", block[1]),
+                "points": state.get("points", _points(stored.document)),
+            }
             return RedirectResponse(urls.uncertainty_page(stored.id, _in_order(state)), status_code=307)
         return render(
             "uncertainty.html",

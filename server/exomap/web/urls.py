@@ -48,6 +48,8 @@ VIEW_KEYS = (
     "sim_duration",
     "sim_events",
     "dataset",
+    "data_start",
+    "data_end",
 )
 #: Sign-off fields of the print sheet: in its link only, never stored.
 SIGNOFF_KEYS = ("prepared_by", "reviewed_by", "change_reference", "review_date")
