@@ -324,3 +324,14 @@ def test_map_warning_in_cusp_search():
     for i in (0, 6, 11):
         want = ref.states(float(mp.tau[j]), float(mp.T_in[i]))
         assert KEYS[int(mp.region[i, j])] == ref.region(want) and int(mp.state_count[i, j]) == len(want)
+
+
+def test_multiple_flushing_eigenvalue():
+    # finding multiple-flushing-eigenvalue (seed 702386, adiabatic series A->B->C->D): -1/tau is a double
+    # eigenvalue (one reaction invariant, and T - J . xi without heat exchange); a multiple eigenvalue has no
+    # individual condition number, so the error bound called its sign unknown and the answer said "cannot be
+    # resolved". Reference: one stable state (383.303982 K), and three (stable, saddle, stable) at the second
+    # point; 60-digit eigenvalues (mpmath) of the first: -1.906e13, -6137.44, -8.305, -1.9362e-4 (twice)
+    sc, ref, p = load("multiple-flushing-eigenvalue")
+    assert_same_states(sc, ref, p["tau"], p["T_in"])
+    assert_same_states(sc, ref, p["tau_b"], p["T_in_b"])

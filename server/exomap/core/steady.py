@@ -288,6 +288,9 @@ def steady_states(
     q = sc.vessel.V_set / tau
     u = nominal_inputs(sc, tau=tau, T_in=T_in, c_in=tuple(mf.c_in), T_c=mf.T_c)
     opening = valve_mod.opening_for_flow(sc, q)
+    # eigenvalues known exactly: -1/tau once per reaction invariant (n - rank(nu)), and once more without jacket
+    # and heat loss (T - J . xi is then flushed at 1/tau too)
+    n_exact = sc.n_species - int(np.linalg.matrix_rank(sc.nu)) + int(mf.kappa + mf.lam == 0.0)
     states = []
     unresolved: list[float] = []  # temperatures of the states whose stability the rounding hides
     for s_root in roots:
@@ -297,6 +300,7 @@ def steady_states(
         C, T, res = _polish(model, u, C0, T0)
         y = model.pack(sc.vessel.h_set, C, T, 0.0)
         ev, err = eigenvalues_with_errors(model.reactor_block(y, u), slow_rate=1.0 / tau)
+        ev, err = _exact_flushing_modes(ev, err, tau, n_exact)
         order = np.argsort(-ev.real)
         ev, err = ev[order], err[order]
         kind, osc, resolved = classify(ev, err)
@@ -353,6 +357,21 @@ def steady_states(
         species=sc.species,
         samples=samples,
     )
+
+
+def _exact_flushing_modes(ev: np.ndarray, err: np.ndarray, tau: float, q: int) -> tuple[np.ndarray, np.ndarray]:
+    """The q eigenvalues -1/tau known exactly (flushing of the reaction invariants, and of T - J . xi when the tank
+    exchanges no heat): the q computed ones closest to it, where each lies within its error of it, are set to it
+    with no error. A multiple eigenvalue has no individual condition number (its eigenvectors are not unique), so
+    the bound of ``eigen`` would call its sign unknown although it is known exactly."""
+    if q <= 0 or ev.size == 0:
+        return ev, err
+    lam = -1.0 / tau
+    idx = np.argsort(np.abs(ev - lam))[:q]
+    ok = np.abs(ev[idx] - lam) <= np.maximum(err[idx], 1e-9 * abs(lam))
+    ev, err = ev.copy(), err.copy()
+    ev[idx[ok]], err[idx[ok]] = lam, 0.0
+    return ev, err
 
 
 def _polish(model: Model, u, C: np.ndarray, T: float, iterations: int = 4) -> tuple[np.ndarray, float, float]:
