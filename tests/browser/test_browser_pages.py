@@ -496,6 +496,8 @@ def test_browser_urls_match_the_server_module(page: Any, server: str) -> None:
         "sim_duration": 7200,
         "sim_events": "at 10 min do feed_stop\nat 20 min scale feed_flow by 1.5",
         "dataset": "0123456789abcdef",
+        "data_start": "2026-11-30T06:10:00Z",
+        "data_end": "1796019600",
         "prepared_by": None,
         "reviewed_by": None,
         "change_reference": None,
