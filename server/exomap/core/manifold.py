@@ -60,7 +60,7 @@ def _solve_list(A: list[list[float]], b: list[float]) -> list[float]:
     return x
 
 
-def _solve_small(A: np.ndarray, b: np.ndarray) -> np.ndarray:
+def solve_small(A: np.ndarray, b: np.ndarray) -> np.ndarray:
     """Solve stacked small systems A x = b (A (..., m, m), b (..., m)); closed form for m <= 2, where
     numpy's batched LAPACK call costs more than the arithmetic."""
     m = A.shape[-1]
@@ -455,7 +455,7 @@ class Manifold:
                     lt, pa = ln_tau[active], prev[active]
                 G, Jac, _, GT = self._iso_system(lk, ya, lt, dTa)
                 err = rowmax(G)
-                step = -_solve_small(Jac, G)
+                step = -solve_small(Jac, G)
                 big = rowmax(step)
                 # converged: closed to 1e-12 (G is ln of inflow over outflow, so relative), or closed to 1e-9
                 # one Newton step after being closed to 1e-9 (quadratic convergence: the rounding level);
@@ -524,7 +524,7 @@ class Manifold:
             dxi = xi.reshape(-1, self.m) * dT
             if p:
                 # dG/dy and dG/dT of the evaluation that converged, at the answer itself
-                dy = -_solve_small(np.where(ok.reshape(-1)[:, None, None], Jac, np.eye(p)), np.nan_to_num(GT))
+                dy = -solve_small(np.where(ok.reshape(-1)[:, None, None], Jac, np.eye(p)), np.nan_to_num(GT))
                 for k, terms in self._iso_orders:
                     for a, nk in terms:
                         dxi[:, k] += xi.reshape(-1, self.m)[:, k] * nk * dy[:, a]

@@ -33,7 +33,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from exomap.core.eigen import FAST
-from exomap.core.manifold import W_BOUND, Manifold, Samples
+from exomap.core.manifold import W_BOUND, Manifold, Samples, solve_small
 from exomap.core.regions import CODE
 from exomap.core.scenario import R_GAS
 
@@ -283,22 +283,6 @@ def _rowmax(a: np.ndarray) -> np.ndarray:
     return out
 
 
-def _solve(A: np.ndarray, b: np.ndarray) -> np.ndarray:
-    """Stacked small systems A x = b (closed form for sizes 1 and 2, where numpy's batched LAPACK call costs
-    more than the arithmetic; the same as the deterministic core's private helper)."""
-    m = A.shape[-1]
-    if m == 1:
-        return b / A[..., 0]
-    if m == 2:
-        a, bb, c, d = A[..., 0, 0], A[..., 0, 1], A[..., 1, 0], A[..., 1, 1]
-        det = a * d - bb * c
-        return np.stack(((d * b[..., 0] - bb * b[..., 1]) / det, (a * b[..., 1] - c * b[..., 0]) / det), axis=-1)
-    try:
-        return np.linalg.solve(A, b[..., None])[..., 0]
-    except np.linalg.LinAlgError:
-        return np.einsum("...ij,...j->...i", np.linalg.pinv(A), b)
-
-
 class StackedGeneralManifold(Manifold):
     """The general path of ``Manifold`` (coordinate T, isothermal balances by Newton's method in ln C) with the
     parameters of each column: rate constants, activation energies, heats of reaction, heat capacity, feed
@@ -423,7 +407,7 @@ class StackedGeneralManifold(Manifold):
                 if not ok.all():  # no derivative where the solve failed (those points are not valid)
                     Jac, GT = Jac.copy(), GT.copy()
                     Jac[~ok], GT[~ok] = np.eye(p), 0.0
-                dy = -_solve(Jac, GT)
+                dy = -solve_small(Jac, GT)
                 for k, terms in self._ords.items():
                     for a, nk in terms:
                         dxi[:, k] += xi[:, k] * nk * dy[:, a]
@@ -536,7 +520,7 @@ class StackedGeneralManifold(Manifold):
                     )
                 G, Jac, GT = self._system(*args)
                 err = _rowmax(G)
-                step = -_solve(Jac, G)
+                step = -solve_small(Jac, G)
                 big = _rowmax(step)
                 pa = prev if active is None else prev[active]
                 done = (err <= 1e-12) | ((err <= 1e-9) & (pa <= 1e-9))
