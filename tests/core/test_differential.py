@@ -105,6 +105,13 @@ def test_harness_oscillation_flag_near_coalescence_is_skipped(monkeypatch):
     assert not compare._oscillation_ill_conditioned(
         state(-0.0034593784 + 4.1677e-5j, -0.0034593784 - 4.1677e-5j, -0.0034834922, -1232388.99)
     )
+    # a multiple -1/tau is exactly real where the balances' structure makes it so (flushing modes; here two: the
+    # products P and Q of A -> P, A -> Q with a jacket, which no rate depends on), and the harness compares the flag
+    flush = state(-5.1903943167e-03, -5.1903943167e-03, -5.2290012021e-03, -5.9988201890e-03)
+    pb = random_case(705000).problem
+    assert compare.flushing_modes(pb) == 2
+    assert compare._oscillation_ill_conditioned(flush)
+    assert not compare._oscillation_ill_conditioned(flush, 1 / 5.1903943167e-03, 2)
     real = steady_mod.eigenvalues_with_errors
 
     def blurred(J, slow_rate=None):  # every slow imaginary part below its error: exomap says "cannot be resolved"
@@ -114,7 +121,7 @@ def test_harness_oscillation_flag_near_coalescence_is_skipped(monkeypatch):
     monkeypatch.setattr(steady_mod, "eigenvalues_with_errors", blurred)
     strict = compare_case(random_case(705044), level="quick")
     assert any(d["what"] == "success" for d in strict.disagreements)  # well-conditioned there: a disagreement
-    monkeypatch.setattr(compare, "_oscillation_ill_conditioned", lambda s: True)
+    monkeypatch.setattr(compare, "_oscillation_ill_conditioned", lambda *a: True)
     lenient = compare_case(random_case(705044), level="quick")
     assert not lenient.disagreements
     assert lenient.skipped.get("oscillatory (coalescence)", 0) >= 1
