@@ -335,3 +335,26 @@ def test_multiple_flushing_eigenvalue():
     sc, ref, p = load("multiple-flushing-eigenvalue")
     assert_same_states(sc, ref, p["tau"], p["T_in"])
     assert_same_states(sc, ref, p["tau_b"], p["T_in_b"])
+
+
+@pytest.mark.parametrize("name", ["hopf-at-stiff-point", "hopf-at-stiff-point-b"])
+def test_hopf_at_stiff_point(name):
+    # finding 22 hopf-at-stiff-point (s3-diff's run 707000-708999, seeds 707585 A+B->P, P->D with jacket and
+    # agitator, and 707963 series with jacket, heat loss, agitator): on the feed-temperature branch a complex
+    # pair crosses the axis at a stiff point; exactly at the crossing the Hopf function is NaN (a sign below the
+    # rounding), Brent's method stopped on it, and the branch listed no Hopf point (success false). Reference:
+    # one Hopf point in the range (bialternate test, compared to compare.py's tolerances); both codes' steady
+    # states 0.05 K either side have the leading pair's real part +-9.3e-5 1/s (707585)
+    from exomap.core.branch import branch
+    from reference.solver import Column
+
+    sc, ref, p = load(name)
+    col = Column(ref, p["tau"], *ref.temperature_window(p["lo"], p["hi"], p["tau"]))
+    want = [h for h in col.hopfs if p["lo"] < h.T_in < p["hi"]]
+    assert len(want) == 1
+    got = branch(sc, "feed_temperature", tau=p["tau"], lo=p["lo"], hi=p["hi"])
+    assert got.success, got.message
+    assert len(got.hopf_points) == 1
+    h = got.hopf_points[0]
+    assert h.T_in == pytest.approx(want[0].T_in, abs=1e-5) and h.T == pytest.approx(want[0].T, abs=1e-4)
+    assert h.frequency == pytest.approx(want[0].frequency, rel=1e-4)

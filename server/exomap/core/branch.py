@@ -152,10 +152,19 @@ def _hopf_fn(mf: Manifold, tau: float, s: float) -> tuple[float, bool]:
     return float(h[0]), bool(ok[0])
 
 
+def _hopf_value(mf: Manifold, tau: float, s: float) -> float:
+    """The Hopf function for root finding between two samples where its sign is known: where a stiff point's
+    signs are below the rounding (``Manifold.stability`` gives NaN there), the point is on the stability
+    boundary to within that rounding, so it counts as a zero (Brent's method cannot step on a NaN)."""
+    h = _hopf_fn(mf, tau, s)[0]
+    return 0.0 if math.isnan(h) else h
+
+
 def _is_hopf(mf: Manifold, tau: float, s: float) -> bool:
-    """A zero of the Hopf function is a Hopf point when the leading pair there is complex and on the axis."""
+    """A zero of the Hopf function is a Hopf point when the leading pair there is complex and on the axis (a
+    stiff point's leading real part is NaN where it is within its rounding error of zero: on the axis)."""
     re, cplx, im = _lead(mf, tau, s)
-    return cplx and abs(re) <= 1e-6 * max(im, 1e-300)
+    return cplx and (math.isnan(re) or abs(re) <= 1e-6 * max(im, 1e-300))
 
 
 def _conversion(mf: Manifold, C: np.ndarray) -> float:
@@ -227,7 +236,7 @@ def _along_feed_temperature(mf: Manifold, tau: float, lo: float, hi: float, n: i
         # a Hopf point: the smooth Hopf function changes sign with a complex pair possible at either end (the
         # pair may be complex at one end only: next to a fold, or where a real eigenvalue leads)
         if (hok[k] or hok[k + 1]) and hf[k] * hf[k + 1] < 0:
-            sh = bracketed_root(lambda x: _hopf_fn(mf, tau, x)[0], s[k], s[k + 1], xtol=1e-300, rtol=1e-15)
+            sh = bracketed_root(lambda x: _hopf_value(mf, tau, x), s[k], s[k + 1], xtol=1e-300, rtol=1e-15)
             if sh is None:  # the samples' sign change does not hold point by point
                 hopf_miss += bool(lo <= T_in[k] <= hi or lo <= T_in[k + 1] <= hi)
                 continue
@@ -550,7 +559,7 @@ def _refine_hopf(plane: _Plane, a: tuple, b: tuple) -> HopfPoint | None | object
         Y = a[1] + t * (b[1] - a[1])
         X, Y, _ = plane.correct(X, Y)
         tau, s = plane.tau_s(X, Y)
-        return _hopf_fn(mf, tau, s)[0]
+        return _hopf_value(mf, tau, s)
 
     t = bracketed_root(lead_on_curve, 0.0, 1.0, xtol=1e-14)
     if t is None:

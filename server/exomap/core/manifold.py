@@ -627,6 +627,13 @@ class Manifold:
         y, ok = solve(start) if p else ([], True)
         if not ok and start is not cold:
             y, ok = solve(cold)
+        if not ok:
+            # the vectorised iteration (its own convergence test) as the last resort: seed 707819 (two reactions
+            # 1e30 times faster than the flow) converges there from the feed where this loop does not
+            smp = self.general_eval(tau_a.reshape(1), T_a.reshape(1))
+            if bool(smp.valid[0]):
+                self._last_C = smp.C[0]
+                return smp
         G, Jac, lr, GT = system(y) if p else ([], [], [-math.inf] * m, [])
         ok = ok and max((abs(g) for g in G), default=0.0) <= 1e-10
         xi = [math.exp(lr[k] + ln_tau) if math.isfinite(lr[k]) else 0.0 for k in range(m)]
