@@ -23,7 +23,7 @@ from __future__ import annotations
 import csv
 import io
 import math
-from dataclasses import dataclass, fields
+from dataclasses import dataclass
 
 import numpy as np
 from scipy.optimize import brentq
@@ -53,7 +53,6 @@ UNHIDE_ZOOMS = 3
 BOUNDARY_COLUMNS = 200
 SPACINGS = ("log", "linear")
 #: None as a 0-d object array: np.where with it gives object arrays whose tolist() has None for NaN.
-SAMPLE_FIELDS = tuple(f.name for f in fields(Samples))
 _NONE = np.array(None, dtype=object)
 
 
@@ -489,8 +488,9 @@ def _cell_states(mf: Manifold, smp: Samples, cols: FoldColumns, T_in: np.ndarray
     lo_b = np.minimum(sa, sb)
     hi_b = np.maximum(sa, sb)
     ts = smp.tau[ci, 0]
+    flat = (pi * n_tin + ri) * n_tau + ci  # where each state goes in the dense (S, n_tin, n_tau) arrays
     present = np.zeros((S, n_tin, n_tau), dtype=bool)
-    present[pi, ri, ci] = True
+    present.ravel()[flat] = True
     xi_g = None
     if not mf.explicit:
         xiL = np.repeat(smp.C[:, -1:], L, axis=1)
@@ -515,13 +515,14 @@ def _cell_states(mf: Manifold, smp: Samples, cols: FoldColumns, T_in: np.ndarray
     T = np.full(shape, np.nan)
     stable = np.zeros(shape, dtype=bool)
     sensitivity = np.zeros(shape)
-    T[pi, ri, ci] = T_state
-    stable[pi, ri, ci] = stable_s
-    sensitivity[pi, ri, ci] = np.abs(sens)
+    # one flat index instead of three (numpy's multi-index scatter costs several times more)
+    T.ravel()[flat] = T_state
+    stable.ravel()[flat] = stable_s
+    sensitivity.ravel()[flat] = np.abs(sens)
     unknown = None
     if not known_s.all():
         unknown = np.zeros(shape, dtype=bool)
-        unknown[pi, ri, ci] = ~known_s
+        unknown.ravel()[flat] = ~known_s
     return {"present": present, "T": T, "stable": stable, "sensitivity": sensitivity, "unknown": unknown}
 
 
@@ -563,9 +564,11 @@ def _polish(
     n = ss.size
     ss = ss.copy()
     T_out = np.empty(n)
-    stable = np.zeros(n, dtype=bool)
-    known = np.zeros(n, dtype=bool)
-    sens = np.empty(n)
+    # the point of each state's last evaluation (overwritten while the state steps on): stability and slope
+    # are taken there, for the whole chunk at once after the loop
+    s_e, T_e, dT_e, dTin_e = np.empty(n), np.empty(n), np.empty(n), np.empty(n)
+    xi_e = np.empty((n, mf.m))
+    C_e = None if mf.explicit else np.empty((n, mf.n))
     idx = np.arange(n)
     for it in range(POLISH_ITERATIONS):
         full = idx.size == n
@@ -578,34 +581,30 @@ def _polish(
         step = np.where(np.isfinite(step), step, 0.0)
         new = np.clip(s_i - step, lo_b if full else lo_b[idx], hi_b if full else hi_b[idx])
         taken = s_i - new
-        done = np.abs(taken) <= POLISH_ACCEPT * np.maximum(np.abs(s_i), 1.0)
-        if it == POLISH_ITERATIONS - 1:
-            done[:] = True
-        ss[idx] = new
+        T_i = e.T - e.dT_ds * taken if mf.explicit else new
+        if full:
+            ss[:] = new
+            s_e[:], T_e[:], dT_e[:], dTin_e[:], xi_e[:], T_out[:] = s_i, e.T, e.dT_ds, e.dTin_ds, e.xi, T_i
+            if C_e is not None:
+                C_e[:] = e.C
+        else:
+            ss[idx] = new
+            s_e[idx], T_e[idx], dT_e[idx], dTin_e[idx], T_out[idx] = s_i, e.T, e.dT_ds, e.dTin_ds, T_i
+            xi_e[idx] = e.xi
+            if C_e is not None:
+                C_e[idx] = e.C
         if xi_g is not None and e.C is not None:
             xi_g[idx] = e.C
-        d = np.nonzero(done)[0]
-        if d.size:
-            dd = idx[d]
-            e_d = e if d.size == e.T.size else _take(e, d)
-            if mf.explicit:
-                T_out[dd] = e_d.T - e_d.dT_ds * taken[d]
-            else:
-                T_out[dd] = new[d]
-            stable[dd], h_d, _ = mf.stability(e_d.tau, e_d.T, e_d.xi, mf.state_C(e_d))
-            known[dd] = np.isfinite(T_out[dd] + h_d)
-            with np.errstate(invalid="ignore", divide="ignore"):
-                sens[dd] = e_d.dT_ds / e_d.dTin_ds
-        idx = idx[~done]
+        if it == POLISH_ITERATIONS - 1:
+            break
+        idx = idx[np.abs(taken) > POLISH_ACCEPT * np.maximum(np.abs(s_i), 1.0)]
         if idx.size == 0:
             break
+    stable, h, _ = mf.stability(ts, T_e, xi_e, mf.explicit_C(s_e) if C_e is None else C_e)
+    known = np.isfinite(T_out + h)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        sens = dT_e / dTin_e
     return T_out, stable, sens, known
-
-
-def _take(e: Samples, k: np.ndarray) -> Samples:
-    """The points k of 1-D manifold samples."""
-    # np.take: numpy's fancy indexing of rows of a 2-D array (xi, C) is several times slower
-    return Samples(*(None if getattr(e, f) is None else np.take(getattr(e, f), k, axis=0) for f in SAMPLE_FIELDS))
 
 
 def _classify(sc: Scenario, st: dict) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
