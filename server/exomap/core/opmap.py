@@ -43,8 +43,13 @@ SAMPLES_EXPLICIT = 256
 SAMPLES_GENERAL = 160
 #: States polished at once (keeps the working arrays in cache; see _cell_states).
 POLISH_CHUNK = 8192
-# Newton evaluations of a state at most, and the step below which it is done (relative to max(1, |s|))
+# Newton evaluations of a state at most. A state is done when the error its last Newton step leaves, predicted
+# from the step and the curvature of T_in(s) across its interval, is below POLISH_ERROR and the step below
+# POLISH_STEP (both relative to max(1, |s|)); where the curvature is not known, when the step is below
+# POLISH_ACCEPT.
 POLISH_ITERATIONS = 8
+POLISH_ERROR = 1e-14
+POLISH_STEP = 1e-6
 POLISH_ACCEPT = 1e-9
 # points of the grid searched for a hidden fold pair inside a dip of |dT_in/ds|
 UNHIDE_GRID = 17
@@ -487,6 +492,8 @@ def _cell_states(mf: Manifold, smp: Samples, cols: FoldColumns, T_in: np.ndarray
     ss = _hermite_start(w, dirn * (vb_s - va_s), sa, sb, dirn * d_flat[k0], dirn * d_flat[k1])
     lo_b = np.minimum(sa, sb)
     hi_b = np.maximum(sa, sb)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        curv = np.abs(d_flat[k1] - d_flat[k0]) / (hi_b - lo_b)  # |d2 T_in/ds2| across the interval
     ts = smp.tau[ci, 0]
     flat = (pi * n_tin + ri) * n_tau + ci  # where each state goes in the dense (S, n_tin, n_tau) arrays
     present = np.zeros((S, n_tin, n_tau), dtype=bool)
@@ -509,7 +516,7 @@ def _cell_states(mf: Manifold, smp: Samples, cols: FoldColumns, T_in: np.ndarray
     for a in range(0, ss.size, POLISH_CHUNK):
         b = min(a + POLISH_CHUNK, ss.size)
         T_state[a:b], stable_s[a:b], sens[a:b], known_s[a:b] = _polish(
-            mf, ts[a:b], ss[a:b], v[a:b], lo_b[a:b], hi_b[a:b], None if xi_g is None else xi_g[a:b]
+            mf, ts[a:b], ss[a:b], v[a:b], lo_b[a:b], hi_b[a:b], curv[a:b], None if xi_g is None else xi_g[a:b]
         )
     shape = (S, n_tin, n_tau)
     T = np.full(shape, np.nan)
@@ -550,17 +557,21 @@ def _polish(
     v: np.ndarray,
     lo_b: np.ndarray,
     hi_b: np.ndarray,
+    curv: np.ndarray,
     xi_g: np.ndarray | None,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Newton steps on T_in(s) = v from the interpolated starts, kept inside their brackets; returns the states'
     temperature, stability, dT/dT_in and whether temperature and stability are known (finite).
 
-    A state is done when its Newton step is below ``POLISH_ACCEPT`` (relative to max(1, |s|)): the step is taken
-    and the temperature moved along it to first order (the error is of the order of the step squared, below
-    1e-15 K on the explicit path; on the general path s is the temperature itself), with stability and slope
-    taken at the point of that last evaluation (closer to the state than any sample can resolve). The others
-    step again, on the shrinking subset only; after ``POLISH_ITERATIONS`` evaluations whatever is left is taken
-    as it stands (a state on a fold, where T_in(s) is flat and Newton slow)."""
+    A state is done when the error left by its Newton step, predicted as |T_in''| h^2 / (2 |T_in'|) for the step h
+    with the curvature ``curv`` of T_in(s) across the state's interval, is below ``POLISH_ERROR`` and the step
+    below ``POLISH_STEP`` (relative to max(1, |s|); where the curvature is not finite, a step below
+    ``POLISH_ACCEPT``): the step is taken and the temperature moved along it to first order (an error of the
+    same order: about 1e-14 of s, ~1e-12 K on the demos' explicit path; on the general path s is the temperature
+    itself), with stability and slope taken at the point of that last evaluation (closer to the state than any
+    sample can resolve). The others step again, on the shrinking subset only; after ``POLISH_ITERATIONS``
+    evaluations whatever is left is taken as it stands (a state on a fold, where T_in(s) is flat and Newton
+    slow)."""
     n = ss.size
     ss = ss.copy()
     T_out = np.empty(n)
@@ -597,7 +608,16 @@ def _polish(
             xi_g[idx] = e.C
         if it == POLISH_ITERATIONS - 1:
             break
-        idx = idx[np.abs(taken) > POLISH_ACCEPT * np.maximum(np.abs(s_i), 1.0)]
+        scale = np.maximum(np.abs(s_i), 1.0)
+        with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+            error = (curv if full else curv[idx]) * (taken * taken) / (2.0 * np.abs(e.dTin_ds))
+        size = np.abs(taken)
+        done = np.where(
+            np.isfinite(error),
+            (error <= POLISH_ERROR * scale) & (size <= POLISH_STEP * scale),
+            size <= POLISH_ACCEPT * scale,
+        )
+        idx = idx[~done]
         if idx.size == 0:
             break
     stable, h, _ = mf.stability(ts, T_e, xi_e, mf.explicit_C(s_e) if C_e is None else C_e)
