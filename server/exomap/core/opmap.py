@@ -749,7 +749,7 @@ def _solve_cusp(
     mf: Manifold, x_fold: float, x_none: float, s_lo: float, s_hi: float
 ) -> tuple[float, float, float] | None:
     """Cusp between ln(tau) = x_fold (a fold pair) and x_none (none): at fixed tau the extremum of
-    dT_in/ds over s touches zero. Nested one-dimensional solves: a zoomed grid search for the extremum in s,
+    dT_in/ds over s touches zero. Nested one-dimensional solves: zoomed grid searches for the extremum in s,
     Brent's method in ln(tau) for its value."""
 
     def d1(x: float, s: np.ndarray) -> np.ndarray:
@@ -758,21 +758,29 @@ def _solve_cusp(
     # the sign dT_in/ds keeps across the window where there is no fold
     sgn = math.copysign(1.0, float(d1(x_none, np.array([0.5 * (s_lo + s_hi)]))[0]))
 
-    def extremum(x: float) -> tuple[float, float]:
-        # two zooms of a 33-point grid (one vectorised evaluation each), then a parabola through the
-        # three points around the extremum
-        a, b = s_lo, s_hi
-        for _ in range(3):
-            s = np.linspace(a, b, 33)
+    def vertex(x: float, a: float, b: float, sizes: tuple[int, ...]) -> float:
+        # grids of the given sizes, each across the two intervals around the previous one's extremum (one
+        # vectorised evaluation each), then a parabola through the three points around the extremum
+        for n in sizes:
+            s = np.linspace(a, b, n)
             f = sgn * d1(x, s)
-            k = int(np.clip(np.argmin(f), 1, 31))
+            k = int(np.clip(np.argmin(f), 1, n - 2))
             a, b = s[k - 1], s[k + 1]
         f0, f1, f2 = f[k - 1], f[k], f[k + 1]
         h = s[k] - s[k - 1]
         den = f0 - 2 * f1 + f2
         off = 0.5 * h * (f0 - f2) / den if den > 0 else 0.0
-        s_ext = s[k] + float(np.clip(off, -h, h))
-        return s_ext, float(d1(x, np.array([s_ext]))[0])
+        return s[k] + float(np.clip(off, -h, h))
+
+    memo: dict[float, tuple[float, float]] = {}
+
+    def extremum(x: float) -> tuple[float, float]:
+        # the extremum's value is insensitive to where in s it is taken (to second order), so a last spacing of
+        # 1/4096 of the window is plenty here; kept per x (Brent's method returns a point it has evaluated)
+        if x not in memo:
+            s_ext = vertex(x, s_lo, s_hi, (257, 33))
+            memo[x] = (s_ext, float(d1(x, np.array([s_ext]))[0]))
+        return memo[x]
 
     try:
         f_fold, f_none = extremum(x_fold)[1], extremum(x_none)[1]
@@ -781,6 +789,8 @@ def _solve_cusp(
         x_c = brentq(lambda x: extremum(x)[1], x_fold, x_none, xtol=1e-13, rtol=1e-14, maxiter=200)
     except (ValueError, RuntimeError):
         return None
+    # the cusp's place in s (its temperature) is that of the extremum, which rounding fixes only to about the
+    # square root of the precision (dT_in/ds is flat there): finer grids would not make it better
     s_c = extremum(x_c)[0]
     e = mf.evaluate(np.array([math.exp(x_c)]), np.array([s_c]))
     if not np.isfinite(e.T_in[0]):
