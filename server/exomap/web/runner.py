@@ -57,6 +57,7 @@ def _worker_main(conn: Any) -> None:
         os.nice(WORKER_NICENESS)
     except OSError:  # pragma: no cover - not permitted here
         pass
+    _tune_allocator()
     _warm()
     conn.send(("ready", None))
     while True:
@@ -82,6 +83,34 @@ def _worker_main(conn: Any) -> None:
             conn.send(reply)
         except Exception:  # noqa: BLE001 - the value or exception did not pickle; send what can be sent
             conn.send(("error", RuntimeError(f"job result could not be returned: {reply[1]!r}")))
+
+
+#: glibc allocator settings of a worker process: arrays up to this size come from the heap (not a fresh mmap each)...
+MALLOC_MMAP_THRESHOLD = 16 << 20
+#: ...and this much freed memory is kept at the top of the heap rather than handed back to the system at once.
+MALLOC_TRIM_THRESHOLD = 32 << 20
+
+
+def _tune_allocator() -> None:
+    """Keep a worker's freed array memory for its next job (glibc only; elsewhere nothing changes).
+
+    A map allocates and frees arrays of about 0.3-1 MB many times over. With glibc's defaults they come from
+    fresh memory mappings or a heap top that was just given back, so every job touches new pages: 500-2,500
+    page faults per 200 x 200 map, ~1 ms of it here. With these settings a worker reuses its heap: no page
+    faults after the first job, about 5 % off the map's time (benchmarks/bench_http_map.py), and at most
+    ``MALLOC_TRIM_THRESHOLD`` more memory held per idle worker (measured: no change in peak RSS for a
+    200 x 200 map).
+    """
+    try:
+        import ctypes
+
+        libc = ctypes.CDLL("libc.so.6")
+        mallopt = libc.mallopt
+    except (OSError, AttributeError):  # not glibc
+        return
+    M_TRIM_THRESHOLD, M_MMAP_THRESHOLD = -1, -3  # malloc.h
+    mallopt(M_TRIM_THRESHOLD, MALLOC_TRIM_THRESHOLD)
+    mallopt(M_MMAP_THRESHOLD, MALLOC_MMAP_THRESHOLD)
 
 
 def _warm() -> None:
