@@ -122,3 +122,145 @@ def test_batched_stiff_eigenvalues_against_60_digits():
         # the first-order complement (no fixed-point iteration here) is within its error bound above; at these
         # points that is 2e-8 relative
         assert np.max(ev[k].real) == pytest.approx(np.max(exact.real), rel=1e-6)
+
+
+def _state_60_digits(doc: dict, tau: float, T_in: float, start) -> tuple[list, mpmath.matrix]:
+    """The steady state at (tau, T_in) converged by Newton's method in 60-digit arithmetic (mpmath) on the
+    balances of DESIGN.md §2 written here from the reference's plain SI problem (tests/reference), from
+    ``start`` (concentrations..., T), and the Jacobian of those balances there (mpmath's own differentiation)."""
+    import sys
+
+    sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+    from reference.scenarios import problem_from_doc
+    from reference.solver import R
+
+    pb = problem_from_doc(doc)
+    mpf = mpmath.mpf
+    with mpmath.workdps(60):
+        tau_, T_in_, rc = mpf(tau), mpf(T_in), mpf(pb.rho) * mpf(pb.cp)
+        kap, lam = mpf(pb.UA_jacket) / (rc * mpf(pb.V)), mpf(pb.UA_loss) / (rc * mpf(pb.V))
+        p = mpf(pb.P_agitator) / (rc * mpf(pb.V))
+        n = len(pb.species)
+
+        def balances(*x):
+            C, T = x[:n], x[n]
+            r = []
+            for rx in pb.reactions:
+                k = mpf(rx.k0) * mpmath.exp(-mpf(rx.Ea) / (mpf(R) * T))
+                for c, o in zip(C, rx.orders, strict=True):
+                    k = k * c ** mpf(o) if o else k
+                r.append(k)
+            out = [
+                (mpf(pb.c_in[i]) - C[i]) / tau_
+                + sum(mpf(rx.nu[i]) * rj for rx, rj in zip(pb.reactions, r, strict=True))
+                for i in range(n)
+            ]
+            heat = sum(-mpf(rx.dH) / rc * rj for rx, rj in zip(pb.reactions, r, strict=True))
+            out.append((T_in_ - T) / tau_ + heat - kap * (T - mpf(pb.T_c)) - lam * (T - mpf(pb.T_amb)) + p)
+            return out
+
+        x = mpmath.matrix([mpf(v) for v in start])
+        for _ in range(40):
+            dx = mpmath.lu_solve(mpmath.jacobian(balances, list(x)), mpmath.matrix(balances(*x)))
+            x = x - dx
+            if mpmath.norm(dx) <= mpf(10) ** -50 * mpmath.norm(x):
+                break
+        assert mpmath.norm(mpmath.matrix(balances(*x))) < mpf(10) ** -45
+        return list(x), mpmath.jacobian(balances, list(x))
+
+
+def test_oscillation_within_rounding():
+    # finding 20 oscillation-within-rounding (seed 705044, series A->B->C, jacketed; s3-diff's 2,000-seed run):
+    # the slow eigenvalues are a nearly defective cluster (-0.0034594 +- 4.17e-5 i and -0.0034835 1/s) beside
+    # -1.23e6 1/s. The whole stiff matrix's first-order bound (2.8e-3 1/s) swallowed the imaginary part, so
+    # steady_states said "not oscillatory" as a fact. Check value: the eigenvalues of the balances' Jacobian at
+    # the state converged in 60-digit arithmetic (mpmath): a complex pair leads
+    rec = json.loads((FINDINGS / "oscillation-within-rounding.json").read_text(encoding="utf-8"))
+    sc, p = parse_scenario(rec["scenario"]).to_core(), rec["point"]
+    res = steady_states(sc, p["tau"], p["T_in"])
+    assert res.success and len(res.states) == 1
+    st = res.states[0]
+    x, J = _state_60_digits(rec["scenario"], p["tau"], p["T_in"], list(st.C) + [st.T])
+    with mpmath.workdps(60):
+        exact = np.array([complex(e) for e in mpmath.eig(J, left=False, right=False)])
+        assert abs(float(x[-1]) - st.T) < 1e-9
+    lead = exact[np.argmax(exact.real)]
+    # 60 digits: -0.00345937840160898 +- 4.16771181258e-5 i 1/s leads, -0.00348349217309350 1/s next
+    assert abs(lead.imag) == pytest.approx(4.16771181258e-5, rel=1e-10)
+    kind, osc, resolved = classify(exact)
+    assert (kind, osc, resolved) == ("stable", True, True)
+    assert (st.stability, st.oscillatory) == (kind, osc)
+    got = np.array(st.eigenvalues)
+    slow = np.abs(exact) * p["tau"] < 1e3
+    assert np.all(np.abs(_match(got, exact)[slow] - exact[slow]) <= 1e-9 * np.abs(exact[slow]))
+
+
+def test_oscillation_below_rounding_is_not_resolved(monkeypatch):
+    from exomap.core.eigen import oscillation_known
+
+    # a pair whose imaginary part is within its error may be two real eigenvalues, and two real eigenvalues
+    # within their errors of each other may be a pair: neither is a fact
+    assert not oscillation_known(np.array([-1e-3 + 1e-9j, -1e-3 - 1e-9j, -1e6]), np.array([1e-8, 1e-8, 1e-9]))
+    assert not oscillation_known(np.array([-1e-3 + 0j, -1.000001e-3, -1e6]), np.array([1e-8, 1e-8, 1e-9]))
+    # a real and a complex eigenvalue whose real parts are within their errors: which leads is unknown
+    assert not oscillation_known(np.array([-1e-3, -1.000001e-3 + 1e-4j, -1.000001e-3 - 1e-4j]), np.full(3, 1e-8))
+    # resolved either way where the errors are small, and exactly known eigenvalues (no error) are real
+    assert oscillation_known(np.array([-1e-3 + 1e-9j, -1e-3 - 1e-9j, -1e6]), np.array([1e-12, 1e-12, 1e-9]))
+    assert oscillation_known(np.array([-1e-3 + 0j, -1.000001e-3, -1e6]), np.array([1e-12, 1e-12, 1e-9]))
+    assert oscillation_known(np.array([-1e-3 + 0j, -1e-3 + 0j, -2.0]), np.array([0.0, 0.0, 1e-15]))
+    # steady_states then says so: not a success, and the message names the oscillation
+    import exomap.core.steady as steady_mod
+
+    rec = json.loads((FINDINGS / "oscillation-within-rounding.json").read_text(encoding="utf-8"))
+    sc, p = parse_scenario(rec["scenario"]).to_core(), rec["point"]
+    real = steady_mod.eigenvalues_with_errors
+
+    def blurred(J, slow_rate=None):
+        ev, err = real(J, slow_rate)
+        slow = np.abs(ev) * p["tau"] < 1e3
+        return ev, np.where(slow, 1e-4, err)  # above the pair's imaginary part, below every real part
+
+    monkeypatch.setattr(steady_mod, "eigenvalues_with_errors", blurred)
+    res = steady_states(sc, p["tau"], p["T_in"])
+    assert res.states and res.states[0].stability == "stable" and not res.success
+    assert "oscillate cannot be resolved" in res.message and "385.354 K" in res.message
+
+
+def test_balancing_a_widely_scaled_matrix_warns_nothing():
+    # a fast reaction's Jacobian needs balancing factors above 2^63; scipy's matrix_balance then warned "invalid
+    # value encountered in cast" (casting the factors to integers with the permutation), about once per 1,000
+    # bulk-run scenarios. Check value: the eigenvalues of [[a, b], [c, a]] are a +- sqrt(b c) (closed form), here
+    # -1 +- 1
+    import warnings
+
+    J = np.array([[-1.0, 1e-60], [1e60, -1.0]])
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        ev, err = eigenvalues_with_errors(J, slow_rate=1.0)
+    assert np.allclose(np.sort(ev.real), [-2.0, 0.0], atol=1e-14) and np.all(ev.imag == 0)
+    assert np.all(err < 1e-14)
+
+
+def test_balance_cast_warning():
+    # seed 706155 (series A->B->C->D; s3-diff, traced from the bulk runs' one scipy warning per ~1,000 seeds):
+    # the hot states' Jacobians hold a fast reaction's 1e25..1e31 1/s beside 1e-3 1/s, and scipy's
+    # matrix_balance warned there (see above). Now no warning, and every state's class is that of its Jacobian's
+    # eigenvalues in 60-digit arithmetic (mpmath)
+    import warnings
+
+    rec = json.loads((FINDINGS / "balance-cast-warning.json").read_text(encoding="utf-8"))
+    sc, p = parse_scenario(rec["scenario"]).to_core(), rec["point"]
+    model = Model(sc)
+    n_states = 0
+    for tau, T_in in ((p["tau"], p["T_in"]), (p["tau_b"], p["T_in_b"])):
+        with warnings.catch_warnings():
+            warnings.simplefilter("error", RuntimeWarning)
+            res = steady_states(sc, tau, T_in)
+        assert res.success
+        u = nominal_inputs(sc, tau=tau, T_in=T_in)
+        for st in res.states:
+            J = model.reactor_block(model.pack(sc.vessel.h_set, np.array(st.C), st.T, 0.0), u)
+            kind, osc, resolved = classify(_exact_eigenvalues(J))
+            assert resolved and (kind, osc) == (st.stability, st.oscillatory)
+            n_states += 1
+    assert n_states == 4  # 3 states at the first point (stable, saddle, stable), 1 at the second

@@ -11,15 +11,20 @@ tolerance is skipped and counted as such, never passed silently):
   1e-13 of the largest eigenvalue, the rounding of the eigenvalue solver);
 * steady states at random operating points and at a point between two folds: count, temperatures
   (``T_ATOL`` K, widened by the conditioning 1/|dT_in/dT| next to folds), concentrations (``C_RTOL``
-  relative to the feed scale), stability class and the oscillatory flag; a result that is not complete must
-  not say ``success``;
+  relative to the feed scale), stability class and the oscillatory flag (skipped where the leading eigenvalues
+  are within ``OSC_SKIP`` of meeting: an imaginary part below ``OSC_SKIP`` x |lambda|, two real ones that close,
+  or a real and a complex one that close in real part); a result that is not complete must not say ``success``,
+  and a complete one must, except where exomap says a class or flag "cannot be resolved" for states whose
+  comparison was skipped as ill-conditioned here (counted apart, never passed);
 * turning points (kind, tau, T_in, T) and Hopf points (tau, T_in, T, frequency) of a branch along the feed
-  temperature and, at the ``full`` level, of a branch along the residence time.
+  temperature and of a branch along the residence time (at the ``full`` level on every seed, at ``quick`` on one
+  seed in 40 and at ``bulk`` on one in 10: the reference's grid for it costs ~5 s).
 """
 
 from __future__ import annotations
 
 import math
+import re
 import traceback
 from dataclasses import dataclass, field
 
@@ -33,6 +38,7 @@ C_RTOL = 1e-6  # concentrations, relative to the largest feed concentration
 FOLD_SKIP = 1e-5  # K of feed temperature: closer to a fold the state count is ill-conditioned
 EDGE_SKIP = 1e-5  # K: a stable state this close to the maximum temperature makes the region ambiguous
 MARGIN_SKIP = 1e-7  # distance of the closest eigenvalue from the imaginary axis times the residence time
+OSC_SKIP = 1e-6  # relative to |leading eigenvalue|: closer to a coalescence the oscillatory flag is ill-conditioned
 FOLD_TIN_ATOL = 1e-6  # K, feed temperature of a turning point along the feed temperature
 FOLD_T_ATOL = 1e-3  # K, temperature of a turning point (ill-conditioned: a square root of the error)
 FOLD_TAU_RTOL = 1e-6  # residence time of a turning point along the residence time
@@ -72,6 +78,49 @@ def _near_axis(state, tau: float) -> bool:
     return closest * tau < MARGIN_SKIP or closest < 1e-13 * float(np.max(np.abs(ev)))
 
 
+def flushing_modes(pb) -> int:
+    """How many eigenvalues of the species + energy Jacobian are exactly -1/tau, from the balances' structure:
+    J + I/tau = [nu, 0; h, -(kappa + lambda)] [dr/dC, dr/dT; 0, 1] (the last row and column only with heat
+    exchange), so the eigenvalue -1/tau has at least n - rank(nu) (+1 without heat exchange: T - J.xi) independent
+    eigenvectors (left ones: the reaction invariants), and at least n - (species some rate depends on) (right
+    ones: a species no rate depends on is only flushed). Semisimple: real whatever the rounding."""
+    nu = np.array([r.nu for r in pb.reactions], dtype=float).T  # species x reactions
+    n = nu.shape[0]
+    no_exchange = int(pb.UA_jacket == 0.0 and pb.UA_loss == 0.0)
+    used = np.any(np.array([r.orders for r in pb.reactions], dtype=float) != 0.0, axis=0)
+    return max(n - int(np.linalg.matrix_rank(nu)) + no_exchange, n - int(np.count_nonzero(used)))
+
+
+def _oscillation_ill_conditioned(state, tau: float = math.inf, flushing: int = 0) -> bool:
+    """Whether the leading eigenvalues are a complex pair is ill-conditioned: they are within ``OSC_SKIP`` (relative
+    to the leading eigenvalue's modulus) of meeting each other (a node turning into a focus, a nearly defective
+    cluster), or a real and a complex eigenvalue are that close to leading together. The ``flushing`` eigenvalues
+    closest to -1/tau (:func:`flushing_modes`), where they lie within ``OSC_SKIP`` of it, are exactly real."""
+    ev = np.array(state.eigenvalues, dtype=complex)
+    exact = np.zeros(ev.size, dtype=bool)
+    if flushing and math.isfinite(tau):
+        lam = -1.0 / tau
+        idx = np.argsort(np.abs(ev - lam))[:flushing]
+        idx = idx[np.abs(ev[idx] - lam) <= OSC_SKIP * abs(lam)]
+        ev[idx], exact[idx] = lam, True
+    k = int(np.argmax(ev.real))
+    tol = OSC_SKIP * abs(ev[k])
+    lead = np.nonzero(ev.real >= ev[k].real - tol)[0]
+    kinds = set()
+    for i in lead:
+        if exact[i]:
+            kinds.add("real")
+        elif abs(ev[i].imag) > tol:
+            kinds.add("complex")
+        elif ev[i].imag != 0.0:
+            return True  # an imaginary part within the tolerance
+        elif np.any(~exact & (ev.imag == 0.0) & (np.abs(ev.real - ev[i].real) <= tol) & (np.arange(ev.size) != i)):
+            return True  # two real eigenvalues that close may be a pair
+        else:
+            kinds.add("real")
+    return len(kinds) > 1
+
+
 def _ambiguous_cell(ref: Reference, col: Column, T_in: float, states) -> str | None:
     if any(abs(f.T_in - T_in) < FOLD_SKIP for f in col.folds):
         return "fold"
@@ -97,7 +146,16 @@ LEVELS = {
         "tau_every": 10,
     },
     "lite": {"map": (8, 10), "columns": 2, "points": 1, "tin_branch": True, "tau_branch": False},
-    "quick": {"map": (16, 12), "columns": 3, "points": 2, "tin_branch": True, "tau_branch": False},
+    # the reference's residence-time branch costs ~5 s (a 160 x 1200 grid of isothermal solves), 7 times the rest
+    # of a quick scenario: one seed in 40 (+0.12 s per scenario on average)
+    "quick": {
+        "map": (16, 12),
+        "columns": 3,
+        "points": 2,
+        "tin_branch": True,
+        "tau_branch": False,
+        "tau_every": 40,
+    },
     "full": {"map": (24, 20), "columns": 5, "points": 4, "tin_branch": True, "tau_branch": True},
 }
 
@@ -121,6 +179,7 @@ def compare_case(case: Case, level: str = "quick", rng_seed: int | None = None) 
     keys = {code: key for code, key, _ in REGIONS}
     (tlo, thi), (Tlo, Thi) = case.tau_range, case.T_in_range
     c_scale = max(max(case.problem.c_in), 1e-300)
+    n_flush = flushing_modes(case.problem)
 
     def guarded(what: str, fn, *args, **kwargs):
         try:
@@ -236,6 +295,7 @@ def compare_case(case: Case, level: str = "quick", rng_seed: int | None = None) 
                 continue
             out.disagree("success", tau=tau, T_in=T_in, note="wrong states with success")
             continue
+        ill_T = []  # exomap's temperatures of the states whose class or flag is ill-conditioned here
         for s_ex, s_ref in zip(res.states, want, strict=True):
             out.count("states")
             dc = np.max(np.abs(np.array(s_ex.C) - np.array(s_ref.C))) / c_scale
@@ -243,8 +303,13 @@ def compare_case(case: Case, level: str = "quick", rng_seed: int | None = None) 
                 out.disagree("concentrations", tau=tau, T_in=T_in, exomap=list(s_ex.C), reference=list(s_ref.C))
             if _near_axis(s_ref, tau):
                 out.skip("stability (margin)")
+                ill_T.append(s_ex.T)
                 continue
-            if s_ex.stability != s_ref.stability or s_ex.oscillatory != s_ref.oscillatory:
+            osc_ill = _oscillation_ill_conditioned(s_ref, tau, n_flush)
+            if osc_ill:
+                out.skip("oscillatory (coalescence)")
+                ill_T.append(s_ex.T)
+            if s_ex.stability != s_ref.stability or (not osc_ill and s_ex.oscillatory != s_ref.oscillatory):
                 out.disagree(
                     "stability",
                     tau=tau,
@@ -255,6 +320,11 @@ def compare_case(case: Case, level: str = "quick", rng_seed: int | None = None) 
                     eigenvalues=[str(v) for v in s_ref.eigenvalues],
                 )
         if not res.success:
+            # exomap may say that the rounding hides a class or flag only for states found ill-conditioned here
+            named = set(re.findall(r"(\d[\d.e+-]*) K", res.message))
+            if ill_T and "cannot be resolved" in res.message and named <= {f"{t:.6g}" for t in ill_T}:
+                out.skip("point success (unresolved where ill-conditioned)")
+                continue
             out.disagree("success", tau=tau, T_in=T_in, note="complete answer says no success", message=res.message)
 
     # -- branch along the feed temperature ------------------------------------------------------------

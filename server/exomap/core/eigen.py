@@ -18,17 +18,41 @@ References
 from __future__ import annotations
 
 import numpy as np
-from scipy.linalg import eig, matrix_balance
+from scipy.linalg import eig
+from scipy.linalg.lapack import get_lapack_funcs
 
 STABLE, SADDLE, UNSTABLE = "stable", "saddle", "unstable"
 
 
+def _balanced(J: np.ndarray) -> tuple[np.ndarray, int, int]:
+    """J balanced by LAPACK ``gebal`` (permutation and diagonal scaling, a similarity [2]) and the range lo..hi
+    (inclusive, 0-based) of its rows and columns left after the permutation has isolated eigenvalues: outside
+    it the balanced matrix is upper triangular, so its diagonal entries there are eigenvalues exactly (a
+    variable whose row or column has no off-diagonal entry, e.g. a product no rate depends on). Called
+    directly: scipy's ``matrix_balance`` casts gebal's scale factors to integers with its permutation indices,
+    which warns ("invalid value encountered in cast") for a factor above 2^63, as a fast reaction's Jacobian
+    needs (entries 1e-30 and 1e30 in one row and column); only the balanced matrix is used here."""
+    gebal = get_lapack_funcs("gebal", (J,))
+    B, lo, hi, _scale, info = gebal(J, scale=1, permute=1)
+    if info != 0:
+        return J, 0, J.shape[0] - 1
+    return B, int(lo), int(hi)
+
+
 def _eig_errors(J: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Eigenvalues of the balanced matrix and the first-order bound eps ||B||_F / s_i of each one's error [1]."""
-    B, _ = matrix_balance(J, permute=True, scale=True)
-    w, vl, vr = eig(B, left=True, right=True)
+    """Eigenvalues of the balanced matrix and the first-order bound eps ||B||_F / s_i of each one's error [1];
+    the eigenvalues the balancing isolates are diagonal entries, exact (no error)."""
+    B, lo, hi = _balanced(J)
+    n = B.shape[0]
+    iso = np.r_[0:lo, hi + 1 : n]
+    core = B[lo : hi + 1, lo : hi + 1]
+    w0, e0 = np.diag(B)[iso].astype(complex), np.zeros(iso.size)
+    if core.shape[0] == 0:
+        return w0, e0
+    w, vl, vr = eig(core, left=True, right=True)
     s = np.abs(np.sum(np.conj(vl) * vr, axis=0)) / (np.linalg.norm(vl, axis=0) * np.linalg.norm(vr, axis=0))
-    return w, np.finfo(float).eps * np.linalg.norm(B) / np.maximum(s, 1e-300)
+    err = np.finfo(float).eps * np.linalg.norm(core) / np.maximum(s, 1e-300)
+    return np.concatenate((w0, w)), np.concatenate((e0, err))
 
 
 #: A diagonal entry this many times the slow rate marks a fast variable (a reactant a fast reaction keeps near
@@ -63,7 +87,7 @@ def eigenvalues_with_errors(
     if not np.all(np.isfinite(J)):
         return np.full(n, np.nan + 0j), np.full(n, np.inf)
     w, err = _eig_errors(J)
-    if slow_rate is None or n < 2 or _depth > 6 or np.all(np.abs(w.real) > err):
+    if slow_rate is None or n < 2 or _depth > 6 or (np.all(np.abs(w.real) > err) and oscillation_known(w, err)):
         return w, err
     d = np.maximum(np.abs(np.diag(J)), slow_rate)
     fast = d > FAST * slow_rate
@@ -140,6 +164,38 @@ def _kind(positive: np.ndarray, real: np.ndarray) -> str:
     return UNSTABLE
 
 
+def oscillation_known(eigenvalues: np.ndarray, errors: np.ndarray | None = None) -> bool:
+    """Whether the rounding decides the oscillatory flag (the leading eigenvalue is one of a complex pair).
+
+    Next to a coalescence of two eigenvalues (a node turning into a focus, a nearly defective cluster) whether
+    the pair is complex is ill-conditioned: an imaginary part within its error of zero may be rounding, and two
+    real eigenvalues within their errors of each other may be a pair with a small imaginary part (a real matrix's
+    real eigenvalue turns complex only by meeting another real one). The flag is known when every eigenvalue
+    that may lead (real part within the errors of the largest) is surely complex, or every one surely real. An
+    eigenvalue with no error (set exactly, e.g. a flushing mode) is what it is."""
+    ev = np.asarray(eigenvalues, dtype=complex)
+    err = np.zeros(ev.shape) if errors is None else np.asarray(errors, dtype=float)
+    if ev.size == 0:
+        return True
+    if not (np.all(np.isfinite(ev)) and np.all(np.isfinite(err))):
+        return False
+    k = int(np.argmax(ev.real))
+    lead = np.nonzero(ev.real + err >= ev.real[k] - err[k])[0]
+    kinds = set()
+    for i in lead:
+        if abs(ev[i].imag) > err[i]:
+            kinds.add("complex")
+        elif ev[i].imag == 0.0 and err[i] == 0.0:
+            kinds.add("real")
+        elif ev[i].imag == 0.0:
+            others = np.arange(ev.size) != i
+            near = others & (ev.imag == 0.0) & (err > 0.0) & (np.abs(ev.real - ev[i].real) <= err + err[i])
+            kinds.add("unknown" if near.any() else "real")
+        else:
+            kinds.add("unknown")
+    return kinds in ({"complex"}, {"real"})
+
+
 def classify(eigenvalues: np.ndarray, errors: np.ndarray | None = None) -> tuple[str, bool, bool]:
     """Stability class, oscillatory flag and whether the class is resolved, from eigenvalues (DESIGN.md §2).
 
@@ -147,7 +203,7 @@ def classify(eigenvalues: np.ndarray, errors: np.ndarray | None = None) -> tuple
     not make a slowly growing oscillation look stable). With ``errors`` (each eigenvalue's rounding error,
     :func:`eigenvalues_with_errors`) a real part within its error of zero has no known sign: the class is
     ``resolved`` only when it comes out the same whichever sign such real parts take. An imaginary part within
-    its error of zero counts as real.
+    its error of zero counts as real; whether the oscillatory flag is then a fact is :func:`oscillation_known`.
     """
     ev = np.asarray(eigenvalues, dtype=complex)
     err = np.zeros(ev.shape) if errors is None else np.asarray(errors, dtype=float)

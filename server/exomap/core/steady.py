@@ -13,8 +13,9 @@ one is real and positive (the middle state of a multiplicity); ``unstable`` othe
 a leading complex pair. Each real part counts by its sign, judged against that eigenvalue's own rounding
 error (balanced matrix, condition number from its left and right eigenvectors [3]; the slow eigenvalues from
 the Schur complement of the fast variables where a fast reaction makes the matrix stiff); where a real part is
-within its error of zero and its sign would change the class, the answer says so and is not a success. The
-level block is decoupled at constant density (A dh/dt = q_in - q_out(h) with dq_out/dh > 0) and always
+within its error of zero and its sign would change the class, the answer says so and is not a success; so
+too where the rounding cannot tell whether the leading eigenvalues are a complex pair (``eigen.oscillation_known``).
+The level block is decoupled at constant density (A dh/dt = q_in - q_out(h) with dq_out/dh > 0) and always
 stable, so it is left out.
 
 References
@@ -34,7 +35,7 @@ import numpy as np
 from scipy.optimize import brentq
 
 from exomap.core import valve as valve_mod
-from exomap.core.eigen import SADDLE, STABLE, UNSTABLE, classify, eigenvalues_with_errors
+from exomap.core.eigen import SADDLE, STABLE, UNSTABLE, classify, eigenvalues_with_errors, oscillation_known
 from exomap.core.errors import ModelInputError
 from exomap.core.manifold import Manifold
 from exomap.core.model import Model, nominal_inputs
@@ -293,6 +294,7 @@ def steady_states(
     n_exact = sc.n_species - int(np.linalg.matrix_rank(sc.nu)) + int(mf.kappa + mf.lam == 0.0)
     states = []
     unresolved: list[float] = []  # temperatures of the states whose stability the rounding hides
+    unresolved_osc: list[float] = []  # ... and of those whose oscillatory flag it hides
     for s_root in roots:
         smp = mf.evaluate(np.array([tau]), np.array([s_root]))
         T0 = float(smp.T[0])
@@ -306,6 +308,8 @@ def steady_states(
         kind, osc, resolved = classify(ev, err)
         if not resolved:
             unresolved.append(T)
+        elif not oscillation_known(ev, err):
+            unresolved_osc.append(T)
         dT = float(smp.dT_ds[0])
         dTin = float(smp.dTin_ds[0])
         sens = dT / dTin if dTin != 0 else math.inf
@@ -325,7 +329,7 @@ def steady_states(
         )
     states.sort(key=lambda st: st.T)
     converged = bool(states) and all(st.residual < 1e-8 for st in states)
-    ok = converged and not unresolved and not misses
+    ok = converged and not unresolved and not unresolved_osc and not misses
     if ok:
         msg = f"{len(states)} steady state(s)"
     elif misses:
@@ -335,14 +339,27 @@ def steady_states(
     elif not converged:
         msg = "a steady state did not polish to tolerance"
     else:
-        msg = (
-            "the stability of the state(s) at "
-            + ", ".join(f"{t:.6g} K" for t in sorted(unresolved))
-            + (
-                " cannot be resolved: an eigenvalue's real part is within its rounding error of zero (a fast reaction"
-                " next to slow dynamics, or a point on a stability boundary)"
+        parts = []
+        if unresolved:
+            parts.append(
+                "the stability of the state(s) at "
+                + ", ".join(f"{t:.6g} K" for t in sorted(unresolved))
+                + (
+                    " cannot be resolved: an eigenvalue's real part is within its rounding error of zero (a fast"
+                    " reaction next to slow dynamics, or a point on a stability boundary)"
+                )
             )
-        )
+        if unresolved_osc:
+            parts.append(
+                "whether the state(s) at "
+                + ", ".join(f"{t:.6g} K" for t in sorted(unresolved_osc))
+                + (
+                    " oscillate cannot be resolved: the leading eigenvalues are within their rounding error of"
+                    " meeting (the imaginary part of the pair is below its error; a point where a node turns into a"
+                    " focus)"
+                )
+            )
+        msg = "; ".join(parts)
     return SteadyStateResult(
         tau=tau,
         T_in=T_in,
