@@ -23,7 +23,7 @@ from __future__ import annotations
 import csv
 import io
 import math
-from dataclasses import dataclass, fields
+from dataclasses import dataclass
 
 import numpy as np
 from scipy.optimize import brentq
@@ -43,8 +43,13 @@ SAMPLES_EXPLICIT = 256
 SAMPLES_GENERAL = 160
 #: States polished at once (keeps the working arrays in cache; see _cell_states).
 POLISH_CHUNK = 8192
-# Newton evaluations of a state at most, and the step below which it is done (relative to max(1, |s|))
+# Newton evaluations of a state at most. A state is done when the error its last Newton step leaves, predicted
+# from the step and the curvature of T_in(s) across its interval, is below POLISH_ERROR and the step below
+# POLISH_STEP (both relative to max(1, |s|)); where the curvature is not known, when the step is below
+# POLISH_ACCEPT.
 POLISH_ITERATIONS = 8
+POLISH_ERROR = 1e-14
+POLISH_STEP = 1e-6
 POLISH_ACCEPT = 1e-9
 # points of the grid searched for a hidden fold pair inside a dip of |dT_in/ds|
 UNHIDE_GRID = 17
@@ -53,7 +58,6 @@ UNHIDE_ZOOMS = 3
 BOUNDARY_COLUMNS = 200
 SPACINGS = ("log", "linear")
 #: None as a 0-d object array: np.where with it gives object arrays whose tolist() has None for NaN.
-SAMPLE_FIELDS = tuple(f.name for f in fields(Samples))
 _NONE = np.array(None, dtype=object)
 
 
@@ -488,9 +492,12 @@ def _cell_states(mf: Manifold, smp: Samples, cols: FoldColumns, T_in: np.ndarray
     ss = _hermite_start(w, dirn * (vb_s - va_s), sa, sb, dirn * d_flat[k0], dirn * d_flat[k1])
     lo_b = np.minimum(sa, sb)
     hi_b = np.maximum(sa, sb)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        curv = np.abs(d_flat[k1] - d_flat[k0]) / (hi_b - lo_b)  # |d2 T_in/ds2| across the interval
     ts = smp.tau[ci, 0]
+    flat = (pi * n_tin + ri) * n_tau + ci  # where each state goes in the dense (S, n_tin, n_tau) arrays
     present = np.zeros((S, n_tin, n_tau), dtype=bool)
-    present[pi, ri, ci] = True
+    present.ravel()[flat] = True
     xi_g = None
     if not mf.explicit:
         xiL = np.repeat(smp.C[:, -1:], L, axis=1)
@@ -509,19 +516,20 @@ def _cell_states(mf: Manifold, smp: Samples, cols: FoldColumns, T_in: np.ndarray
     for a in range(0, ss.size, POLISH_CHUNK):
         b = min(a + POLISH_CHUNK, ss.size)
         T_state[a:b], stable_s[a:b], sens[a:b], known_s[a:b] = _polish(
-            mf, ts[a:b], ss[a:b], v[a:b], lo_b[a:b], hi_b[a:b], None if xi_g is None else xi_g[a:b]
+            mf, ts[a:b], ss[a:b], v[a:b], lo_b[a:b], hi_b[a:b], curv[a:b], None if xi_g is None else xi_g[a:b]
         )
     shape = (S, n_tin, n_tau)
     T = np.full(shape, np.nan)
     stable = np.zeros(shape, dtype=bool)
     sensitivity = np.zeros(shape)
-    T[pi, ri, ci] = T_state
-    stable[pi, ri, ci] = stable_s
-    sensitivity[pi, ri, ci] = np.abs(sens)
+    # one flat index instead of three (numpy's multi-index scatter costs several times more)
+    T.ravel()[flat] = T_state
+    stable.ravel()[flat] = stable_s
+    sensitivity.ravel()[flat] = np.abs(sens)
     unknown = None
     if not known_s.all():
         unknown = np.zeros(shape, dtype=bool)
-        unknown[pi, ri, ci] = ~known_s
+        unknown.ravel()[flat] = ~known_s
     return {"present": present, "T": T, "stable": stable, "sensitivity": sensitivity, "unknown": unknown}
 
 
@@ -549,23 +557,29 @@ def _polish(
     v: np.ndarray,
     lo_b: np.ndarray,
     hi_b: np.ndarray,
+    curv: np.ndarray,
     xi_g: np.ndarray | None,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Newton steps on T_in(s) = v from the interpolated starts, kept inside their brackets; returns the states'
     temperature, stability, dT/dT_in and whether temperature and stability are known (finite).
 
-    A state is done when its Newton step is below ``POLISH_ACCEPT`` (relative to max(1, |s|)): the step is taken
-    and the temperature moved along it to first order (the error is of the order of the step squared, below
-    1e-15 K on the explicit path; on the general path s is the temperature itself), with stability and slope
-    taken at the point of that last evaluation (closer to the state than any sample can resolve). The others
-    step again, on the shrinking subset only; after ``POLISH_ITERATIONS`` evaluations whatever is left is taken
-    as it stands (a state on a fold, where T_in(s) is flat and Newton slow)."""
+    A state is done when the error left by its Newton step, predicted as |T_in''| h^2 / (2 |T_in'|) for the step h
+    with the curvature ``curv`` of T_in(s) across the state's interval, is below ``POLISH_ERROR`` and the step
+    below ``POLISH_STEP`` (relative to max(1, |s|); where the curvature is not finite, a step below
+    ``POLISH_ACCEPT``): the step is taken and the temperature moved along it to first order (an error of the
+    same order: about 1e-14 of s, ~1e-12 K on the demos' explicit path; on the general path s is the temperature
+    itself), with stability and slope taken at the point of that last evaluation (closer to the state than any
+    sample can resolve). The others step again, on the shrinking subset only; after ``POLISH_ITERATIONS``
+    evaluations whatever is left is taken as it stands (a state on a fold, where T_in(s) is flat and Newton
+    slow)."""
     n = ss.size
     ss = ss.copy()
     T_out = np.empty(n)
-    stable = np.zeros(n, dtype=bool)
-    known = np.zeros(n, dtype=bool)
-    sens = np.empty(n)
+    # the point of each state's last evaluation (overwritten while the state steps on): stability and slope
+    # are taken there, for the whole chunk at once after the loop
+    s_e, T_e, dT_e, dTin_e = np.empty(n), np.empty(n), np.empty(n), np.empty(n)
+    xi_e = np.empty((n, mf.m))
+    C_e = None if mf.explicit else np.empty((n, mf.n))
     idx = np.arange(n)
     for it in range(POLISH_ITERATIONS):
         full = idx.size == n
@@ -578,34 +592,39 @@ def _polish(
         step = np.where(np.isfinite(step), step, 0.0)
         new = np.clip(s_i - step, lo_b if full else lo_b[idx], hi_b if full else hi_b[idx])
         taken = s_i - new
-        done = np.abs(taken) <= POLISH_ACCEPT * np.maximum(np.abs(s_i), 1.0)
-        if it == POLISH_ITERATIONS - 1:
-            done[:] = True
-        ss[idx] = new
+        T_i = e.T - e.dT_ds * taken if mf.explicit else new
+        if full:
+            ss[:] = new
+            s_e[:], T_e[:], dT_e[:], dTin_e[:], xi_e[:], T_out[:] = s_i, e.T, e.dT_ds, e.dTin_ds, e.xi, T_i
+            if C_e is not None:
+                C_e[:] = e.C
+        else:
+            ss[idx] = new
+            s_e[idx], T_e[idx], dT_e[idx], dTin_e[idx], T_out[idx] = s_i, e.T, e.dT_ds, e.dTin_ds, T_i
+            xi_e[idx] = e.xi
+            if C_e is not None:
+                C_e[idx] = e.C
         if xi_g is not None and e.C is not None:
             xi_g[idx] = e.C
-        d = np.nonzero(done)[0]
-        if d.size:
-            dd = idx[d]
-            e_d = e if d.size == e.T.size else _take(e, d)
-            if mf.explicit:
-                T_out[dd] = e_d.T - e_d.dT_ds * taken[d]
-            else:
-                T_out[dd] = new[d]
-            stable[dd], h_d, _ = mf.stability(e_d.tau, e_d.T, e_d.xi, mf.state_C(e_d))
-            known[dd] = np.isfinite(T_out[dd] + h_d)
-            with np.errstate(invalid="ignore", divide="ignore"):
-                sens[dd] = e_d.dT_ds / e_d.dTin_ds
+        if it == POLISH_ITERATIONS - 1:
+            break
+        scale = np.maximum(np.abs(s_i), 1.0)
+        with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+            error = (curv if full else curv[idx]) * (taken * taken) / (2.0 * np.abs(e.dTin_ds))
+        size = np.abs(taken)
+        done = np.where(
+            np.isfinite(error),
+            (error <= POLISH_ERROR * scale) & (size <= POLISH_STEP * scale),
+            size <= POLISH_ACCEPT * scale,
+        )
         idx = idx[~done]
         if idx.size == 0:
             break
+    stable, h, _ = mf.stability(ts, T_e, xi_e, mf.explicit_C(s_e) if C_e is None else C_e)
+    known = np.isfinite(T_out + h)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        sens = dT_e / dTin_e
     return T_out, stable, sens, known
-
-
-def _take(e: Samples, k: np.ndarray) -> Samples:
-    """The points k of 1-D manifold samples."""
-    # np.take: numpy's fancy indexing of rows of a 2-D array (xi, C) is several times slower
-    return Samples(*(None if getattr(e, f) is None else np.take(getattr(e, f), k, axis=0) for f in SAMPLE_FIELDS))
 
 
 def _classify(sc: Scenario, st: dict) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -730,7 +749,7 @@ def _solve_cusp(
     mf: Manifold, x_fold: float, x_none: float, s_lo: float, s_hi: float
 ) -> tuple[float, float, float] | None:
     """Cusp between ln(tau) = x_fold (a fold pair) and x_none (none): at fixed tau the extremum of
-    dT_in/ds over s touches zero. Nested one-dimensional solves: a zoomed grid search for the extremum in s,
+    dT_in/ds over s touches zero. Nested one-dimensional solves: zoomed grid searches for the extremum in s,
     Brent's method in ln(tau) for its value."""
 
     def d1(x: float, s: np.ndarray) -> np.ndarray:
@@ -739,21 +758,29 @@ def _solve_cusp(
     # the sign dT_in/ds keeps across the window where there is no fold
     sgn = math.copysign(1.0, float(d1(x_none, np.array([0.5 * (s_lo + s_hi)]))[0]))
 
-    def extremum(x: float) -> tuple[float, float]:
-        # two zooms of a 33-point grid (one vectorised evaluation each), then a parabola through the
-        # three points around the extremum
-        a, b = s_lo, s_hi
-        for _ in range(3):
-            s = np.linspace(a, b, 33)
+    def vertex(x: float, a: float, b: float, sizes: tuple[int, ...]) -> float:
+        # grids of the given sizes, each across the two intervals around the previous one's extremum (one
+        # vectorised evaluation each), then a parabola through the three points around the extremum
+        for n in sizes:
+            s = np.linspace(a, b, n)
             f = sgn * d1(x, s)
-            k = int(np.clip(np.argmin(f), 1, 31))
+            k = int(np.clip(np.argmin(f), 1, n - 2))
             a, b = s[k - 1], s[k + 1]
         f0, f1, f2 = f[k - 1], f[k], f[k + 1]
         h = s[k] - s[k - 1]
         den = f0 - 2 * f1 + f2
         off = 0.5 * h * (f0 - f2) / den if den > 0 else 0.0
-        s_ext = s[k] + float(np.clip(off, -h, h))
-        return s_ext, float(d1(x, np.array([s_ext]))[0])
+        return s[k] + float(np.clip(off, -h, h))
+
+    memo: dict[float, tuple[float, float]] = {}
+
+    def extremum(x: float) -> tuple[float, float]:
+        # the extremum's value is insensitive to where in s it is taken (to second order), so a last spacing of
+        # 1/4096 of the window is plenty here; kept per x (Brent's method returns a point it has evaluated)
+        if x not in memo:
+            s_ext = vertex(x, s_lo, s_hi, (257, 33))
+            memo[x] = (s_ext, float(d1(x, np.array([s_ext]))[0]))
+        return memo[x]
 
     try:
         f_fold, f_none = extremum(x_fold)[1], extremum(x_none)[1]
@@ -762,6 +789,8 @@ def _solve_cusp(
         x_c = brentq(lambda x: extremum(x)[1], x_fold, x_none, xtol=1e-13, rtol=1e-14, maxiter=200)
     except (ValueError, RuntimeError):
         return None
+    # the cusp's place in s (its temperature) is that of the extremum, which rounding fixes only to about the
+    # square root of the precision (dT_in/ds is flat there): finer grids would not make it better
     s_c = extremum(x_c)[0]
     e = mf.evaluate(np.array([math.exp(x_c)]), np.array([s_c]))
     if not np.isfinite(e.T_in[0]):
