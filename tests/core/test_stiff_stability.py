@@ -301,3 +301,22 @@ def test_hot_state_single_point_solve():
         with mpmath.workdps(60):
             exact = np.array([complex(e) for e in mpmath.eig(J, left=False, right=False)])
         assert np.all(exact.real < 0) and hot.stability == "stable"
+
+
+def test_frozen_state_oscillation_is_decided():
+    # finding 24 frozen-state-oscillation (seed 708195, series A->B->C with agitator; s3-diff's run 707000-708999):
+    # at 145.6 K the reactions are frozen and every eigenvalue of J is -1/tau to 15 digits, so J's rounding cannot
+    # tell a pair from two real eigenvalues and steady_states said "cannot be resolved". The eigenvalues of the
+    # block without the flow term K = J + I/tau (built without it) decide it. Check value: K at the state
+    # converged in 60 digits (mpmath), its eigenvalues at 60 digits: 0, -8.0e-47, 2.5e-37, 5.8e-32 1/s, all real
+    rec = json.loads((FINDINGS / "frozen-state-oscillation.json").read_text(encoding="utf-8"))
+    sc, p = parse_scenario(rec["scenario"]).to_core(), rec["point"]
+    res = steady_states(sc, p["tau"], p["T_in"])
+    assert res.success, res.message
+    cold = res.states[0]
+    _, J = _state_60_digits(rec["scenario"], p["tau"], p["T_in"], list(cold.C) + [cold.T])
+    with mpmath.workdps(60):
+        K = J + mpmath.eye(J.rows) / mpmath.mpf(p["tau"])
+        exact = [complex(e) for e in mpmath.eig(K, left=False, right=False)]
+    assert all(e.imag == 0.0 for e in exact) and max(abs(e) for e in exact) < 1e-30
+    assert (cold.stability, cold.oscillatory) == ("stable", False)

@@ -29,7 +29,7 @@ References
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 from scipy.optimize import brentq
@@ -291,7 +291,12 @@ def steady_states(
     opening = valve_mod.opening_for_flow(sc, q)
     # eigenvalues known exactly: -1/tau once per reaction invariant (n - rank(nu)), and once more without jacket
     # and heat loss (T - J . xi is then flushed at 1/tau too)
-    n_exact = sc.n_species - int(np.linalg.matrix_rank(sc.nu)) + int(mf.kappa + mf.lam == 0.0)
+    # and, as many times, once per species no rate depends on (its column of J is -1/tau on the diagonal only;
+    # J + I/tau = [nu; h] [dr/dC, dr/dT] has rank at most the number of the others plus one, with T)
+    n_used = int(np.count_nonzero(np.any(sc.orders != 0.0, axis=0)))
+    n_exact = max(
+        sc.n_species - int(np.linalg.matrix_rank(sc.nu)) + int(mf.kappa + mf.lam == 0.0), sc.n_species - n_used
+    )
     states = []
     unresolved: list[float] = []  # temperatures of the states whose stability the rounding hides
     unresolved_osc: list[float] = []  # ... and of those whose oscillatory flag it hides
@@ -301,14 +306,14 @@ def steady_states(
         C0 = mf.state_C(smp)[0]
         C, T, res = _polish(model, u, C0, T0)
         y = model.pack(sc.vessel.h_set, C, T, 0.0)
-        ev, err = eigenvalues_with_errors(model.reactor_block(y, u), slow_rate=1.0 / tau)
+        ev, err, osc_known = _block_eigenvalues(model, y, u, tau, n_exact)
         ev, err = _exact_flushing_modes(ev, err, tau, n_exact)
         order = np.argsort(-ev.real)
         ev, err = ev[order], err[order]
         kind, osc, resolved = classify(ev, err)
         if not resolved:
             unresolved.append(T)
-        elif not oscillation_known(ev, err):
+        elif not osc_known:
             unresolved_osc.append(T)
         dT = float(smp.dT_ds[0])
         dTin = float(smp.dTin_ds[0])
@@ -376,6 +381,22 @@ def steady_states(
     )
 
 
+def _block_eigenvalues(model: Model, y: np.ndarray, u, tau: float, q: int) -> tuple[np.ndarray, np.ndarray, bool]:
+    """Eigenvalues and errors of the species+energy Jacobian J = -(q_in/V) I + K, and whether the rounding decides
+    the oscillatory flag. K (the block without the flow term) is built without it, so that a frozen reaction's
+    terms of 1e-20 x q_in/V are not rounded away; J's eigenvalues are K's shifted by the exact scalar -q_in/V
+    (plus eps |lambda| of error for the shift). Whether two eigenvalues are a complex pair is the same for J and
+    K and is judged on K, with K's q eigenvalues known to be 0 (the flushing modes, see
+    :func:`_exact_flushing_modes`) set exactly: a frozen reaction leaves every eigenvalue of J at -q_in/V to 15
+    digits, where J's own rounding cannot tell a pair from two real eigenvalues."""
+    K = model.reactor_block(y, replace(u, q_in=0.0))
+    ev, err = eigenvalues_with_errors(K, slow_rate=1.0 / tau)
+    ev, err = _exact_flushing_modes(ev, err, math.inf, q)
+    known = oscillation_known(ev, err)
+    ev = ev - u.q_in / (model.A * y[0])
+    return ev, err + np.finfo(float).eps * np.abs(ev), known
+
+
 def _exact_flushing_modes(ev: np.ndarray, err: np.ndarray, tau: float, q: int) -> tuple[np.ndarray, np.ndarray]:
     """The q eigenvalues -1/tau known exactly (flushing of the reaction invariants, and of T - J . xi when the tank
     exchanges no heat): the q computed ones closest to it, where each lies within its error of it, are set to it
@@ -383,7 +404,7 @@ def _exact_flushing_modes(ev: np.ndarray, err: np.ndarray, tau: float, q: int) -
     the bound of ``eigen`` would call its sign unknown although it is known exactly."""
     if q <= 0 or ev.size == 0:
         return ev, err
-    lam = -1.0 / tau
+    lam = -1.0 / tau  # 0 for tau = inf: the modes of the block without the flow term
     idx = np.argsort(np.abs(ev - lam))[:q]
     ok = np.abs(ev[idx] - lam) <= np.maximum(err[idx], 1e-9 * abs(lam))
     ev, err = ev.copy(), err.copy()
