@@ -812,6 +812,9 @@ def tau_branch_points(
 
         def lead(z, u0=u0):
             ee = at(z, u0)
+            Jm = ref.jacobians(math.exp(z[0]), ee["u"], ee["C"], z[1], ee["lnr"])
+            if not np.all(np.isfinite(Jm)):
+                return ee, None  # the solver stepped where the state does not exist (seed 711161): no pair here
             w = ref.eig(math.exp(z[0]), ee["u"], ee["C"], z[1], ee["lnr"])[0]
             c = w[np.abs(w.imag) > 1e-9 * np.max(np.abs(w))]
             return ee, (c[np.argmin(np.abs(c.real))] if c.size else None)
