@@ -358,3 +358,15 @@ def test_hopf_at_stiff_point(name):
     h = got.hopf_points[0]
     assert h.T_in == pytest.approx(want[0].T_in, abs=1e-5) and h.T == pytest.approx(want[0].T, abs=1e-4)
     assert h.frequency == pytest.approx(want[0].frequency, rel=1e-4)
+
+
+def test_frozen_state_below_window_floor():
+    # finding frozen-state-below-window-floor (seed 715015, A+B->P, P->D, adiabatic; a feed at 30.53 K): every
+    # temperature window started at 50 K at the lowest, so the frozen state (the rate ~1e-56 1/s at 30 K: the
+    # energy balance puts it at the feed temperature to far below 1e-12 K) was never looked for, and the answer
+    # said success with two states. Reference: three states, 30.5338207450163 (stable), 347.3077041450 (saddle),
+    # 424.2040893921 K (stable)
+    sc, ref, p = load("frozen-state-below-window-floor")
+    assert_same_states(sc, ref, p["tau"], p["T_in"])
+    got = steady_states(sc, p["tau"], p["T_in"])
+    assert abs(got.states[0].T - p["T_in"]) < 1e-9

@@ -91,6 +91,16 @@ class Samples:
     C: np.ndarray | None  # (..., n) concentrations (general path; None on the explicit one: Manifold.state_C)
 
 
+def window_floor(lo: float | np.ndarray, coldest: float | np.ndarray) -> float | np.ndarray:
+    """Lower end of a temperature window [K]: 2 K below the lowest steady temperature the balances allow (``lo``),
+    kept above half the coldest stream's temperature (an endothermic bound can fall to or below 0 K). No fixed
+    floor: a feed at 30 K has its frozen steady state at about 30 K (differential check, seed 715015), which a
+    floor of 50 K hid while the answer said it was complete."""
+    return (
+        np.maximum(lo - 2.0, 0.5 * np.asarray(coldest)) if isinstance(lo, np.ndarray) else max(lo - 2.0, 0.5 * coldest)
+    )
+
+
 class Manifold:
     """Steady states of one scenario at fixed feed composition ``c_in`` and coolant temperature ``T_c``."""
 
@@ -666,12 +676,12 @@ class Manifold:
 
     def temperature_window(self, T_in_lo: float, T_in_hi: float, tau_hi: float) -> tuple[float, float]:
         """Bounds on every steady temperature for feed temperatures in [T_in_lo, T_in_hi] [K]."""
-        lo = min(T_in_lo, self.T_c if self.kappa > 0 else np.inf, self.sc.T_amb if self.lam > 0 else np.inf)
+        coldest = min(T_in_lo, self.T_c if self.kappa > 0 else np.inf, self.sc.T_amb if self.lam > 0 else np.inf)
         hi = max(T_in_hi, self.T_c if self.kappa > 0 else -np.inf, self.sc.T_amb if self.lam > 0 else -np.inf)
         rise = self.max_heat_release()
         hi = hi + max(rise, 0.0) + self.p * tau_hi
-        lo = lo + min(self.min_heat_release(), 0.0)
-        return max(lo - 2.0, 50.0), hi + 5.0
+        lo = coldest + min(self.min_heat_release(), 0.0)
+        return window_floor(lo, coldest), hi + 5.0
 
     def max_heat_release(self) -> float:
         """Largest adiabatic temperature rise the feed can give, max J.xi over feasible extents [K]."""

@@ -33,7 +33,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from exomap.core.eigen import FAST
-from exomap.core.manifold import W_BOUND, Manifold, Samples, solve_small
+from exomap.core.manifold import W_BOUND, Manifold, Samples, solve_small, window_floor
 from exomap.core.regions import CODE
 from exomap.core.scenario import R_GAS
 
@@ -69,11 +69,11 @@ def _heat_window(
     plus the largest heat release and the agitator's heat."""
     inf = np.inf
     n = np.shape(kappa)
-    lo = np.minimum.reduce([np.full(n, T_in_lo), np.where(kappa > 0, T_c, inf), np.where(lam > 0, T_amb, inf)])
+    coldest = np.minimum.reduce([np.full(n, T_in_lo), np.where(kappa > 0, T_c, inf), np.where(lam > 0, T_amb, inf)])
     hi = np.maximum.reduce([np.full(n, T_in_hi), np.where(kappa > 0, T_c, -inf), np.where(lam > 0, T_amb, -inf)])
     hi = hi + np.maximum(rise_hi, 0.0) + p_tau
-    lo = lo + np.minimum(rise_lo, 0.0)
-    return float(np.min(np.maximum(lo - 2.0, 50.0))), float(np.max(hi + 5.0))
+    lo = coldest + np.minimum(rise_lo, 0.0)
+    return float(np.min(window_floor(lo, coldest))), float(np.max(hi + 5.0))
 
 
 # -- one reaction, closed form ----------------------------------------------------------------------------
