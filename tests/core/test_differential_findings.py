@@ -358,3 +358,15 @@ def test_hopf_at_stiff_point(name):
     h = got.hopf_points[0]
     assert h.T_in == pytest.approx(want[0].T_in, abs=1e-5) and h.T == pytest.approx(want[0].T, abs=1e-4)
     assert h.frequency == pytest.approx(want[0].frequency, rel=1e-4)
+
+
+def test_lone_imaginary_rounding():
+    # finding 25 lone-imaginary-rounding (seed 707462, series A->B->C->D; s3-diff's third run): the stiff split's
+    # complex fixed-point iteration left imaginary parts of 1e-19 (below their errors, with no conjugate partner)
+    # on real eigenvalues, and the oscillatory flag was called unresolved ("complete answer says no success"). A
+    # real matrix's complex eigenvalues come in conjugate pairs. Reference: three states (stable, saddle, stable),
+    # all real eigenvalues, and a complete answer
+    sc, ref, p = load("lone-imaginary-rounding")
+    assert_same_states(sc, ref, p["tau"], p["T_in"])
+    got = steady_states(sc, p["tau"], p["T_in"])
+    assert [s.oscillatory for s in got.states] == [s.oscillatory for s in ref.states(p["tau"], p["T_in"])]
