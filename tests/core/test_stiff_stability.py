@@ -215,6 +215,8 @@ def test_oscillation_below_rounding_is_not_resolved(monkeypatch):
     assert oscillation_known(np.array([-1e-3 + 1e-9j, -1e-3 - 1e-9j, -1e6]), np.array([1e-12, 1e-12, 1e-9]))
     assert oscillation_known(np.array([-1e-3 + 0j, -1.000001e-3, -1e6]), np.array([1e-12, 1e-12, 1e-9]))
     assert oscillation_known(np.array([-1e-3 + 0j, -1e-3 + 0j, -2.0]), np.array([0.0, 0.0, 1e-15]))
+    # a tiny imaginary part with no partner near its conjugate is a real eigenvalue's rounding
+    assert oscillation_known(np.array([3e-3 - 1e-19j, -1.6e-3 - 6e-20j, -3.5e3]), np.array([3e-18, 2e-18, 1e-12]))
     # steady_states then says so: not a success, and the message names the oscillation
     import exomap.core.steady as steady_mod
 

@@ -187,6 +187,13 @@ def oscillation_known(eigenvalues: np.ndarray, errors: np.ndarray | None = None)
             kinds.add("complex")
         elif ev[i].imag == 0.0 and err[i] == 0.0:
             kinds.add("real")
+        elif ev[i].imag != 0.0 and not np.any(
+            (np.arange(ev.size) != i) & (np.abs(ev - np.conj(ev[i])) <= err + err[i])
+        ):
+            # a real matrix's complex eigenvalues come in conjugate pairs: a tiny imaginary part with no partner
+            # near its conjugate is rounding of a real eigenvalue (e.g. from the complex fixed-point iteration of
+            # the stiff split)
+            kinds.add("real")
         elif ev[i].imag == 0.0:
             others = np.arange(ev.size) != i
             near = others & (ev.imag == 0.0) & (err > 0.0) & (np.abs(ev.real - ev[i].real) <= err + err[i])
