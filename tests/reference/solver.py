@@ -787,7 +787,10 @@ def tau_branch_points(
             ee = at(z, u0)
             return [ee["T_in"][0] - T_in, ee["dTin"][0]]
 
-        z, _, ier, _ = fsolve(eqs, z0, full_output=True, xtol=1e-13)
+        try:
+            z, _, ier, _ = fsolve(eqs, z0, full_output=True, xtol=1e-13)
+        except (OverflowError, FloatingPointError, np.linalg.LinAlgError):
+            continue  # the solver stepped to a residence time that overflows (seed 715601): no point from this seed
         if not (lt_lo - 1e-9 <= z[0] <= lt_hi + 1e-9):
             continue
         r = eqs(z)
@@ -823,7 +826,10 @@ def tau_branch_points(
             ee, lp = lead(z)
             return [ee["T_in"][0] - T_in, lp.real * math.exp(z[0]) if lp is not None else 1.0]
 
-        z, _, ier, _ = fsolve(eqs, z0, full_output=True, xtol=1e-13)
+        try:
+            z, _, ier, _ = fsolve(eqs, z0, full_output=True, xtol=1e-13)
+        except (OverflowError, FloatingPointError, np.linalg.LinAlgError):
+            continue  # the solver stepped to a residence time that overflows (seed 715601): no point from this seed
         if not (lt_lo - 1e-9 <= z[0] <= lt_hi + 1e-9):
             continue
         r = eqs(z)
