@@ -382,3 +382,18 @@ def test_lone_imaginary_rounding():
     assert_same_states(sc, ref, p["tau"], p["T_in"])
     got = steady_states(sc, p["tau"], p["T_in"])
     assert [s.oscillatory for s in got.states] == [s.oscillatory for s in ref.states(p["tau"], p["T_in"])]
+
+
+def test_cusp_grid_overflow():
+    # finding cusp-grid-overflow (seed 716069, series A->B->C->D with agitator; the lead's run of session s3): the
+    # cusp search's 257-point grid reached points whose evaluation overflows, and the parabola through three of
+    # them took inf - inf (a RuntimeWarning, an error under the suite's policy). Reference: the compared cells
+    # of this map agree
+    sc, ref, p = load("cusp-grid-overflow")
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", RuntimeWarning)
+        mp = operating_map(sc, tau_range=tuple(p["tau_range"]), T_in_range=tuple(p["T_in_range"]), points=(16, 12))
+    j = 5
+    for i in (0, 6, 11):
+        want = ref.states(float(mp.tau[j]), float(mp.T_in[i]))
+        assert KEYS[int(mp.region[i, j])] == ref.region(want) and int(mp.state_count[i, j]) == len(want)

@@ -251,7 +251,9 @@ def compare_case(case: Case, level: str = "quick", rng_seed: int | None = None) 
     for col in columns.values():
         ig = [f for f in col.folds if f.kind == "ignition"]
         ex = [f for f in col.folds if f.kind == "extinction"]
-        if ig and ex:
+        # (not where the folds lie below 0 K of feed temperature: no feed is that cold, and exomap refuses it as bad
+        # input, rightly; seed 716979)
+        if ig and ex and 0.5 * (ig[0].T_in + ex[0].T_in) > 0:
             points.append((col.tau, 0.5 * (ig[0].T_in + ex[0].T_in)))
             break
     for tau, T_in in points:

@@ -764,12 +764,14 @@ def _solve_cusp(
         for n in sizes:
             s = np.linspace(a, b, n)
             f = sgn * d1(x, s)
+            f = np.where(np.isfinite(f), f, np.inf)  # a point that overflows is no extremum (seed 716069)
             k = int(np.clip(np.argmin(f), 1, n - 2))
             a, b = s[k - 1], s[k + 1]
         f0, f1, f2 = f[k - 1], f[k], f[k + 1]
         h = s[k] - s[k - 1]
-        den = f0 - 2 * f1 + f2
-        off = 0.5 * h * (f0 - f2) / den if den > 0 else 0.0
+        with np.errstate(invalid="ignore", over="ignore"):
+            den = f0 - 2 * f1 + f2
+            off = 0.5 * h * (f0 - f2) / den if np.isfinite(den) and den > 0 else 0.0
         return s[k] + float(np.clip(off, -h, h))
 
     memo: dict[float, tuple[float, float]] = {}
