@@ -311,12 +311,9 @@ def test_negative_concentration_rounding():
         assert np.max(np.abs(np.array(a.C) - np.array(b.C))) <= 1e-9 * max(sc.c_in)
 
 
-def test_map_warning_in_cusp_search():
-    # finding map-warning-in-cusp-search (seed 701285, parallel + 2A->D with heat loss): the cusp search of the
-    # map's boundaries evaluates the manifold at extreme points whose isothermal solve overflows; a numpy
-    # RuntimeWarning escaped (an error under the suite's policy) instead of the point being marked unconverged.
-    # Reference: 36 compared cells of this map agree (all `runaway`)
-    sc, ref, p = load("map-warning-in-cusp-search")
+def assert_map_warns_nothing_and_agrees(name: str) -> None:
+    """The finding's 16 x 12 map under warnings-as-errors, and three cells of one column against the reference."""
+    sc, ref, p = load(name)
     with warnings.catch_warnings():
         warnings.simplefilter("error", RuntimeWarning)
         mp = operating_map(sc, tau_range=tuple(p["tau_range"]), T_in_range=tuple(p["T_in_range"]), points=(16, 12))
@@ -324,6 +321,14 @@ def test_map_warning_in_cusp_search():
     for i in (0, 6, 11):
         want = ref.states(float(mp.tau[j]), float(mp.T_in[i]))
         assert KEYS[int(mp.region[i, j])] == ref.region(want) and int(mp.state_count[i, j]) == len(want)
+
+
+def test_map_warning_in_cusp_search():
+    # finding map-warning-in-cusp-search (seed 701285, parallel + 2A->D with heat loss): the cusp search of the
+    # map's boundaries evaluates the manifold at extreme points whose isothermal solve overflows; a numpy
+    # RuntimeWarning escaped (an error under the suite's policy) instead of the point being marked unconverged.
+    # Reference: 36 compared cells of this map agree (all `runaway`)
+    assert_map_warns_nothing_and_agrees("map-warning-in-cusp-search")
 
 
 def test_multiple_flushing_eigenvalue():
@@ -389,11 +394,4 @@ def test_cusp_grid_overflow():
     # cusp search's 257-point grid reached points whose evaluation overflows, and the parabola through three of
     # them took inf - inf (a RuntimeWarning, an error under the suite's policy). Reference: the compared cells
     # of this map agree
-    sc, ref, p = load("cusp-grid-overflow")
-    with warnings.catch_warnings():
-        warnings.simplefilter("error", RuntimeWarning)
-        mp = operating_map(sc, tau_range=tuple(p["tau_range"]), T_in_range=tuple(p["T_in_range"]), points=(16, 12))
-    j = 5
-    for i in (0, 6, 11):
-        want = ref.states(float(mp.tau[j]), float(mp.T_in[i]))
-        assert KEYS[int(mp.region[i, j])] == ref.region(want) and int(mp.state_count[i, j]) == len(want)
+    assert_map_warns_nothing_and_agrees("cusp-grid-overflow")

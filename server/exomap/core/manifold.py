@@ -96,9 +96,7 @@ def window_floor(lo: float | np.ndarray, coldest: float | np.ndarray) -> float |
     kept above half the coldest stream's temperature (an endothermic bound can fall to or below 0 K). No fixed
     floor: a feed at 30 K has its frozen steady state at about 30 K (differential check, seed 715015), which a
     floor of 50 K hid while the answer said it was complete."""
-    return (
-        np.maximum(lo - 2.0, 0.5 * np.asarray(coldest)) if isinstance(lo, np.ndarray) else max(lo - 2.0, 0.5 * coldest)
-    )
+    return np.maximum(lo - 2.0, 0.5 * coldest)
 
 
 class Manifold:
@@ -681,7 +679,7 @@ class Manifold:
         rise = self.max_heat_release()
         hi = hi + max(rise, 0.0) + self.p * tau_hi
         lo = coldest + min(self.min_heat_release(), 0.0)
-        return window_floor(lo, coldest), hi + 5.0
+        return float(window_floor(lo, coldest)), hi + 5.0
 
     def max_heat_release(self) -> float:
         """Largest adiabatic temperature rise the feed can give, max J.xi over feasible extents [K]."""
