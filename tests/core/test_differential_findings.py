@@ -1,4 +1,4 @@
-"""Regression tests for the disagreements the differential check found (issue 9; /work/notes/diff-findings.md).
+"""Regression tests for the disagreements the differential check found (issue 9; docs/differential-findings.md).
 
 Each finding keeps its scenario document in ``tests/reference/findings/<name>.json`` (bare SI numbers, as
 the generator wrote it) and the point where exomap went wrong. What is true comes from the independent
@@ -395,3 +395,77 @@ def test_cusp_grid_overflow():
     # them took inf - inf (a RuntimeWarning, an error under the suite's policy). Reference: the compared cells
     # of this map agree
     assert_map_warns_nothing_and_agrees("cusp-grid-overflow")
+
+
+def test_intermediate_below_log_floor():
+    # finding intermediate-below-log-floor (seed 718531, series A->B->C, jacket, agitator; a feed at 7.46 K): the
+    # temperature window reaches down to 5.46 K, where the intermediate B is made by a frozen reaction at
+    # ln C ~ -1450. The isothermal solve bounded ln C at -740 (and its inflow at 1e-300) and started from
+    # ln(feed) - 12, so 853 samples below ~18.5 K never converged and the answer said "incomplete" beside five
+    # correct states. Reference: five states, 261.5130416300 (stable), 296.0467252730 (saddle), 357.9303265736
+    # (stable), 368.9633031534 (saddle), 379.1960871306 K (unstable), and a complete answer
+    sc, ref, p = load("intermediate-below-log-floor")
+    assert_same_states(sc, ref, p["tau"], p["T_in"])
+    # the cold samples themselves converge, and put B where the frozen chain does: C_B = tau r_1(C_A) to first
+    # order (r_2 and the outflow's share of A are ~1e-600 and ~1e-630 of it)
+    from exomap.core.manifold import Manifold
+
+    mf = Manifold(sc)
+    T = np.array([5.5, 10.0, 18.0])
+    y, lr, ok = mf.isothermal(np.full(3, p["tau"]), T)
+    assert ok.all()
+    ln_CB = np.log(p["tau"]) + np.log(sc.k0[0]) - sc.Ea[0] / (8.314462618 * T) + sc.orders[0, 0] * y[:, 0]
+    assert np.allclose(y[:, 1], ln_CB, rtol=0, atol=1e-9)
+    assert np.allclose(np.exp(y[:, 0]), sc.c_in[0], rtol=1e-12)
+
+
+def test_hot_state_excess_reactant():
+    # finding hot-state-excess-reactant (seed 715507, A+B->P, P->D, adiabatic, A fed in excess): at hot
+    # temperatures the isothermal solve from the feed took A and B down together (their balances' Jacobian is
+    # nearly singular along A - B) and stalled with both near 1e-19, where the answer keeps A at its excess
+    # (152.2 mol/m^3) and B at ~1e-40; the hot state was lost ("a root ... could not be refined", 0 states).
+    # The reference solver had the same trouble from its own start (it could not check the seed until it gained
+    # continuation in T). Reference: one state at 631.0889983988516 K. Its eigenvalues span 1e40 (B is consumed
+    # at -9.5e35 1/s), beyond what the reference's plain eigenvalue solve resolves (it says saddle, and the
+    # differential check skips that class as ill-conditioned); the check value for the class is the Jacobian's
+    # eigenvalues at the state converged in 60-digit arithmetic (mpmath): -1/tau three times, -378.376837919315,
+    # -9.48038519842111e35 1/s, stable
+    from test_stiff_stability import _state_60_digits
+
+    sc, ref, p = load("hot-state-excess-reactant")
+    want = ref.states(p["tau"], p["T_in"])
+    got = steady_states(sc, p["tau"], p["T_in"])
+    assert got.success and len(got.states) == len(want) == 1
+    assert got.states[0].T == pytest.approx(want[0].T, abs=1e-9)
+    doc = json.loads((FINDINGS / "hot-state-excess-reactant.json").read_text(encoding="utf-8"))["scenario"]
+    x, J = _state_60_digits(doc, p["tau"], p["T_in"], list(got.states[0].C) + [got.states[0].T])
+    import mpmath
+
+    with mpmath.workdps(60):
+        exact = np.array([complex(e) for e in mpmath.eig(J, left=False, right=False)])
+    assert abs(float(x[-1]) - got.states[0].T) < 1e-9
+    assert np.all(exact.real < 0) and got.states[0].stability == "stable"
+    slow = np.sort(exact.real)[-4:]  # the three flushing modes and the reaction's slow mode
+    assert np.allclose(np.sort(np.array(got.states[0].eigenvalues).real)[-4:], slow, rtol=1e-9, atol=0)
+    A0, B0 = sc.c_in[0], sc.c_in[1]
+    # the excess of A over B passes through (A - B is a reaction invariant), to the rounding of the feed
+    assert got.states[0].C[0] - got.states[0].C[1] == pytest.approx(A0 - B0, rel=1e-12)
+    # the samples of a hot column converge from the feed (continuation in the residence time where Newton stalls)
+    from exomap.core.manifold import Manifold
+
+    T = np.linspace(540.0, 686.0, 9)
+    y, _, ok = Manifold(sc).isothermal(np.full(T.shape, p["tau"]), T)
+    assert ok.all()
+    assert np.allclose(np.exp(y[:, 0]), A0 - B0, rtol=1e-9)
+
+
+def test_frozen_mode_beside_flushing():
+    # finding frozen-mode-beside-flushing (seed 715507, as above; the harness's point between two folds, a feed
+    # at 121.8 K): the frozen reaction's eigenvalue lies within 1e-50 of -1/tau, where three flushing eigenvalues
+    # are exact; its imaginary part of 2e-51 found the exact ones as "partners" and the oscillatory flag was called
+    # unresolved. An exactly real eigenvalue is no one's conjugate. Reference: three states, all real eigenvalues
+    # (stable, saddle, stable), a complete answer
+    sc, ref, p = load("frozen-mode-beside-flushing")
+    assert_same_states(sc, ref, p["tau"], p["T_in"])
+    got = steady_states(sc, p["tau"], p["T_in"])
+    assert [s.oscillatory for s in got.states] == [s.oscillatory for s in ref.states(p["tau"], p["T_in"])]

@@ -231,3 +231,38 @@ def test_stiff_points_are_judged_like_each_samples_own_manifold():
         Jr = mf.reduced_jacobian(d.tau, d.T, d.xi, d.C)
         stiff += int(np.sum((np.max(np.abs(np.diagonal(Jr, axis1=-2, axis2=-1)), axis=-1) * d.tau > FAST) & v))
     assert stiff > 0  # the case is the one meant: stiff points were compared
+
+
+@pytest.mark.parametrize(
+    "finding, tau, T",
+    [
+        # A + B -> P with A in excess, hot: Newton from the feed stalls with both reactants near 1e-19
+        ("hot-state-excess-reactant", 23336.34098535964, np.linspace(540.0, 686.0, 9)),
+        # an intermediate made by a frozen reaction at ln C ~ -1450 (a feed at 7.5 K)
+        ("intermediate-below-log-floor", 3103.128408159542, np.array([5.5, 8.0, 12.0, 18.0, 25.0])),
+    ],
+)
+def test_hard_isothermal_points_solve_like_each_samples_own_manifold(finding, tau, T):
+    # invariant: the differential findings whose isothermal solves failed on the deterministic path (28: an
+    # intermediate below the smallest double; 29: the excess-reactant stall) converge on the stacked path too,
+    # to what each sample's own manifold gives (the solution of the isothermal balances is unique)
+    import json
+    from pathlib import Path
+
+    from exomap.schema import parse_scenario
+
+    rec = json.loads((Path(__file__).resolve().parents[1] / "reference" / "findings" / f"{finding}.json").read_text())
+    sc = parse_scenario(rec["scenario"]).to_core()
+    spec = UncertaintySpec(
+        parameters=(UncertainParameter("reactions[0].activation_energy", "normal", sd=500.0),), samples=8, seed=5
+    )
+    ps = draw(sc, spec)
+    smf = StackedGeneralManifold(ps, np.full(ps.n, tau), np.arange(ps.n))
+    assert smf.same_structure
+    e = smf.general_eval(np.arange(ps.n, dtype=float)[:, None], np.broadcast_to(T, (ps.n, T.size)))
+    assert e.valid.all()
+    for i in range(ps.n):
+        d = Manifold(ps.scenario(i)).general_eval(np.full(T.shape, tau), T)
+        assert d.valid.all()
+        for name in ("T_in", "dTin_ds", "xi", "C"):
+            np.testing.assert_allclose(getattr(e, name)[i], getattr(d, name), rtol=1e-9, atol=1e-300, err_msg=name)

@@ -283,7 +283,44 @@ class Reference:
             bad = ~ok
             ub, okb = self.isothermal(np.exp(lntau[bad]), T[bad])
             u[bad], ok[bad] = ub, okb
+        elif not ok.all() and ok.any():
+            self._continue_in_T(u, ok, lntau, T)
         return u, ok
+
+    def _continue_in_T(self, u: np.ndarray, ok: np.ndarray, lntau: np.ndarray, T: np.ndarray) -> None:
+        """Points whose solve from the upper bounds failed, solved by continuation in T from the nearest solved
+        point of the same residence time (in place). The solution of the isothermal balances is unique, so any
+        point that converges is the answer; the start only decides whether Newton gets there. Seed 715507 (A + B
+        -> P with A in excess, hot): the sweep from the upper bounds leaves A near zero and B at its bound, and
+        Newton stalls there; from the neighbouring cooler answer it converges in a few steps."""
+        order = np.lexsort((T, lntau))
+        for _sweep in range(2):
+            for seq in (order, order[::-1]):
+                for prev, i in zip(seq[:-1], seq[1:], strict=True):
+                    if ok[i] or not ok[prev] or lntau[i] != lntau[prev]:
+                        continue
+                    u[i], ok[i] = self._walk(u[prev], float(T[prev]), float(T[i]), float(lntau[i]))
+            if ok.all():
+                return
+
+    def _walk(self, u: np.ndarray, T0: float, T1: float, lntau: float) -> tuple[np.ndarray, bool]:
+        """Continuation of one point's answer u at T0 to T1, halving the step where Newton does not converge."""
+        u = u.copy()
+        T, h = T0, T1 - T0
+        lt = np.array([lntau])
+        for _ in range(200):
+            if T == T1:
+                return u, True
+            Tn = T1 if abs(T1 - T) <= abs(h) else T + h
+            trial = u[None, :].copy()
+            if self._newton(trial, lt, np.array([Tn]))[0]:
+                u, T = trial[0], Tn
+                h *= 1.5
+            else:
+                h *= 0.5
+                if abs(h) < 1e-9 * max(abs(T), 1.0):
+                    break
+        return u, False
 
     def _newton(self, u: np.ndarray, lntau: np.ndarray, T: np.ndarray, iterations: int = 60) -> np.ndarray:
         G, Gu, _, _ = self._G(u, lntau, T)

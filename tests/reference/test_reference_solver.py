@@ -239,3 +239,30 @@ def test_folds_are_where_the_jacobian_is_singular():
         # and the states on either side of it in T_in: two on one side, none on the other (locally)
         n_at = [len([s for s in col.states(f.T_in + d) if abs(s.T - f.T) < 5.0]) for d in (-1e-3, 1e-3)]
         assert sorted(n_at) == [0, 2]
+
+
+def test_isothermal_solve_with_an_excess_reactant_when_hot():
+    # A + B -> P (orders 1/2, 1/2) with A in excess: at hot temperatures the answer keeps A at its excess and B
+    # near 1e-40, and Newton from the upper bounds stalls with both near 1e-19 (seed 715507); the reference then
+    # continues in T from the cooler answers. Check value: the scalar balance of B, with A = A0 - B0 + B (the
+    # invariant A - B), solved by scipy's brentq in ln B: ln B0 - ln B = ln(1 + tau k sqrt(A/B))... written as
+    # B + tau k sqrt(A B) = B0
+    A0, B0, tau = 1294.0, 1142.0, 8000.0
+    k0, Ea = 9.7e33, 212.6e3
+    rx = Reaction((-1.0, -1.0, 1.0), (0.5, 0.5, 0.0), k0, Ea, -223e3)
+    pb = Problem(("A", "B", "P"), (rx,), (A0, B0, 0.0), 1000.0, 3000.0, 1.0, 0.0, 300.0)
+    ref = Reference(pb)
+    T = np.linspace(300.0, 690.0, 400)
+    e = ref.evaluate(tau, T)
+    assert e["ok"].all()
+    for i in (150, 250, 399):
+        k = k0 * math.exp(-Ea / (R * T[i]))
+
+        def f(lnB, k=k):
+            B = math.exp(lnB)
+            return math.log(B + tau * k * math.sqrt((A0 - B0 + B) * B)) - math.log(B0)
+
+        lnB = brentq(f, -700.0, math.log(B0), xtol=1e-14, rtol=1e-15)
+        assert math.log(e["C"][i, 1]) == pytest.approx(lnB, abs=1e-9)
+        assert e["C"][i, 0] == pytest.approx(A0 - B0 + math.exp(lnB), rel=1e-12)
+    assert e["C"][-1, 1] < 1e-30  # the hard end of the column was reached

@@ -181,6 +181,7 @@ def oscillation_known(eigenvalues: np.ndarray, errors: np.ndarray | None = None)
         return False
     k = int(np.argmax(ev.real))
     lead = np.nonzero(ev.real + err >= ev.real[k] - err[k])[0]
+    exact = (err == 0.0) & (ev.imag == 0.0)
     kinds = set()
     for i in lead:
         if abs(ev[i].imag) > err[i]:
@@ -188,11 +189,12 @@ def oscillation_known(eigenvalues: np.ndarray, errors: np.ndarray | None = None)
         elif ev[i].imag == 0.0 and err[i] == 0.0:
             kinds.add("real")
         elif ev[i].imag != 0.0 and not np.any(
-            (np.arange(ev.size) != i) & (np.abs(ev - np.conj(ev[i])) <= err + err[i])
+            (np.arange(ev.size) != i) & (np.abs(ev - np.conj(ev[i])) <= err + err[i]) & ~exact
         ):
             # a real matrix's complex eigenvalues come in conjugate pairs: a tiny imaginary part with no partner
             # near its conjugate is rounding of a real eigenvalue (e.g. from the complex fixed-point iteration of
-            # the stiff split)
+            # the stiff split). An eigenvalue set exactly (a flushing mode) is real and no one's partner: a frozen
+            # reaction's mode within rounding of the flushing modes has none (seed 715507)
             kinds.add("real")
         elif ev[i].imag == 0.0:
             others = np.arange(ev.size) != i

@@ -336,7 +336,21 @@ class Manifold:
         self._iso_order_map = dict(self._iso_orders)
         total = float(np.sum(self.c_in)) * max(float(np.max(np.abs(self.nu))), 1.0) * (1 + self.m)
         self._y_hi = math.log(max(total, 1e-300)) + 2.0  # no concentration can exceed this [ln mol/m^3]
-        self._y_lo = -740.0
+        # ln C can go far below the smallest double: an intermediate made by a frozen reaction at a cold
+        # feed has ln C ~ -1500 (seed 718531), and a bound at the underflow of exp (-745) left such points
+        # unsolved. exp(y) is then 0 in the concentrations, which is what a double can say of it.
+        self._y_lo = -1.0e6
+        # per solved species: [(k, ln nu_ik, [(b, n_kb)])] of the reactions making it, when every order of
+        # that reaction is >= 0 (then the rate at upper bounds of the concentrations bounds the rate above)
+        self._ub_rows = [
+            (
+                a,
+                c0,
+                [(k, math.log(nu), self._iso_order_map[k]) for k, nu in makes],
+                all(nk >= 0 for k, _ in makes for _, nk in self._iso_order_map[k]),
+            )
+            for a, c0, makes, _ in self._iso_rows
+        ]
 
     def _iso_system(
         self, lnk: np.ndarray, y: np.ndarray, ln_tau: np.ndarray, dT: np.ndarray | None = None
@@ -366,14 +380,23 @@ class Manifold:
         GT = np.empty((pts, p)) if dT is not None else None
         orders = self._iso_order_map
         for a, c0, makes, uses in self._iso_rows:
-            made = [nu * tr[:, k] for k, nu in makes]
             used = [nu * np.exp(lr[:, k] - y[:, a]) for k, nu in uses]  # |nu| tau r / C, never tau r / C
-            inflow = c0 + sum(made) if made else np.full(pts, c0)
-            inflow = np.maximum(inflow, 1e-300)
+            if c0 > 0 or not makes:
+                made = [nu * tr[:, k] for k, nu in makes]
+                inflow = c0 + sum(made) if made else np.full(pts, c0)
+                inflow = np.maximum(inflow, 1e-300)
+                f_in = 1.0 / inflow
+                ln_in = np.log(inflow)
+            else:
+                # not fed: the inflow is what the reactions make, as a logarithm (it may be far below the
+                # smallest double, seed 718531), and each term's share of it, t/inflow, without underflow
+                lm = [math.log(nu) + lr[:, k] for k, nu in makes]
+                ln_in = lm[0] if len(lm) == 1 else np.logaddexp.reduce(lm, axis=0)
+                made = [np.exp(v - ln_in) for v in lm]  # shares: f_in is then 1
+                f_in = np.ones(pts)
             Lv = sum(used) if used else np.zeros(pts)
-            f_in = 1.0 / inflow
             f_out = 1.0 / (1.0 + Lv)
-            G[:, a] = np.log(inflow) - y[:, a] - np.log1p(Lv)
+            G[:, a] = ln_in - y[:, a] - np.log1p(Lv)
             row = Jac[:, a, :]
             row[:, a] = -1.0
             for (k, _), t in zip(makes, made, strict=True):
@@ -391,10 +414,40 @@ class Manifold:
                 GT[:, a] = PT * f_in - LT * f_out
         return G, Jac, lr - ln_tau[:, None], GT
 
-    def _cold_guess(self, shape: tuple[int, ...]) -> np.ndarray:
+    def _cold_guess(
+        self, shape: tuple[int, ...], lnk: np.ndarray | None = None, ln_tau: np.ndarray | None = None
+    ) -> np.ndarray:
+        """Start of the isothermal Newton solve, ln C of the solved species (shape + (p,)): the feed, and for a
+        species not fed a small fraction of the feed scale; with ``lnk`` (pts, m) and ``ln_tau`` (pts,) (then
+        ``shape`` is (pts,)) never above an upper bound of the answer.
+
+        The bound: C_i = (C_i,in + P_i)/(1 + L_i) <= C_i,in + sum nu_ik tau r_k(C), and r_k grows with every
+        concentration it has a non-negative order in, so sweeps from C = e^y_hi that put the bounds back into the
+        rates come down through a chain of reactions. Where a reaction is frozen (a cold point) the bound of its
+        product is its answer, far below the default start: an intermediate at ln C ~ -1500 would otherwise
+        need hundreds of Newton steps of the limited size (seed 718531).
+        """
         c = self.c_in[self.S]
         low = math.log(max(float(np.max(self.c_in)), 1e-300)) - 12.0
-        return np.broadcast_to(np.where(c > 0, np.log(np.maximum(c, 1e-300)), low), shape + (self.S.size,)).copy()
+        base = np.where(c > 0, np.log(np.maximum(c, 1e-300)), low)
+        out = np.broadcast_to(base, shape + (self.S.size,)).copy()
+        if lnk is None or ln_tau is None or not self.S.size:
+            return out
+        ub = np.full(out.shape, self._y_hi)
+        with np.errstate(over="ignore", invalid="ignore", under="ignore", divide="ignore"):
+            for _ in range(self.S.size):
+                for a, c0, makes, bounded in self._ub_rows:
+                    if not bounded:
+                        continue
+                    terms = [np.full(ln_tau.shape, math.log(c0))] if c0 > 0 else []
+                    for k, lnu, orders in makes:
+                        v = lnk[:, k] + ln_tau + lnu
+                        for b, nk in orders:
+                            v = v + nk * ub[:, b]
+                        terms.append(v)
+                    if terms:
+                        ub[:, a] = np.minimum(np.logaddexp.reduce(terms, axis=0), self._y_hi)
+            return np.where(np.isfinite(ub), np.minimum(out, ub), out)
 
     def isothermal(
         self, tau: np.ndarray, T: np.ndarray, C0: np.ndarray | None = None
@@ -432,14 +485,84 @@ class Manifold:
                 np.zeros((pts, 0)),
             )
         if C0 is None:
-            y = self._cold_guess((pts,))
+            y = self._cold_guess((pts,), lnk_all, ln_tau)
         else:
             C0 = np.broadcast_to(np.asarray(C0, float), shape + (self.n,)).reshape(pts, self.n)
-            y = np.log(np.maximum(C0[:, self.S], 1e-300))
-            y = np.where(np.isfinite(y), y, self._cold_guess((pts,)))
+            with np.errstate(divide="ignore", invalid="ignore"):
+                y = np.log(C0[:, self.S])
+            # a guess that underflowed (or is missing) says only that the answer is tiny: start from the bound
+            y = np.where(np.isfinite(y) & (y > -690.0), y, self._cold_guess((pts,), lnk_all, ln_tau))
         y = np.clip(y, self._y_lo, self._y_hi)
-        ok = np.zeros(pts, dtype=bool)
         dT = self.E[None, :] / (flat_T * flat_T)[:, None]
+        y, ok, Jac_out, GT_out = self._newton_iso(lnk_all, ln_tau, dT, y, max_iter)
+        if not ok.all():
+            self._homotopy_in_tau(lnk_all, ln_tau, dT, y, ok, Jac_out, GT_out)
+        with np.errstate(over="ignore", invalid="ignore", divide="ignore", under="ignore"):
+            lr_out = lnk_all.copy()
+            for k in range(self.m):
+                if not self.live[k]:
+                    lr_out[:, k] = -np.inf
+            for k, terms in self._iso_orders:
+                for a, nk in terms:
+                    lr_out[:, k] += nk * y[:, a]
+        return y.reshape(shape + (p,)), lr_out.reshape(shape + (self.m,)), ok.reshape(shape), Jac_out, GT_out
+
+    def _homotopy_in_tau(
+        self,
+        lnk_all: np.ndarray,
+        ln_tau: np.ndarray,
+        dT: np.ndarray,
+        y: np.ndarray,
+        ok: np.ndarray,
+        Jac_out: np.ndarray,
+        GT_out: np.ndarray,
+    ) -> None:
+        """The points whose Newton solve did not converge, solved again by continuation in the residence time at
+        their own temperature (in place): at a residence time e^30 times shorter than every reaction the feed
+        is the answer, and the answer moves continuously with tau (the isothermal solution is unique), so
+        steps in ln tau, halved where Newton does not converge from the previous answer, reach it.
+
+        Where this is needed: A + B -> P with A in excess at a hot point (seed 715507): from the feed, Newton
+        takes both reactants down together (their balances' Jacobian is nearly singular along A - B) and stalls
+        with both near 1e-19, where the answer keeps A at its excess and B at 1e-40.
+        """
+        idx = np.nonzero(~ok & np.all(np.isfinite(lnk_all), axis=1) & np.isfinite(ln_tau))[0]
+        if idx.size == 0:
+            return
+        lk, target, dTs = lnk_all[idx], ln_tau[idx], dT[idx]
+        c_max = max(float(np.max(self.c_in)), 1e-300)
+        # a first-order rate constant of each reaction at the feed scale: ln k + (sum of orders - 1) ln c_max
+        eff = lk + ((np.sum(self.orders, axis=1) - 1.0) * math.log(c_max))[None, :]
+        eff = np.where(self.live[None, :], eff, -np.inf)
+        lt = target - np.maximum(np.max(eff, axis=1) + target + 30.0, 0.0)
+        ys = np.clip(self._cold_guess((idx.size,), lk, lt), self._y_lo, self._y_hi)
+        h = np.zeros(idx.size)  # the first round solves at the start itself
+        live = np.arange(idx.size)
+        for _ in range(400):
+            if live.size == 0:
+                break
+            trial = np.minimum(lt[live] + h[live], target[live])
+            yt, okt, Jt, GTt = self._newton_iso(lk[live], trial, dTs[live], ys[live].copy(), 30)
+            acc = live[okt]
+            ys[acc], lt[acc] = yt[okt], trial[okt]
+            h[acc] = np.where(h[acc] == 0.0, 1.0, np.minimum(h[acc] * 1.5, 8.0))
+            fin = okt & (trial >= target[live])
+            if fin.any():
+                at = idx[live[fin]]
+                y[at], ok[at], Jac_out[at], GT_out[at] = yt[fin], True, Jt[fin], GTt[fin]
+            rej = live[~okt]
+            h[rej] *= 0.5
+            first = rej[h[rej] == 0.0]  # not even the start converged: give up on those
+            keep = ~fin & ~np.isin(live, first) & ((h[live] >= 1e-6) | okt)
+            live = live[keep]
+
+    def _newton_iso(
+        self, lnk_all: np.ndarray, ln_tau: np.ndarray, dT: np.ndarray, y: np.ndarray, max_iter: int
+    ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """The Newton iteration of :meth:`_isothermal` from ``y`` (pts, p) (changed in place): (y, converged,
+        dG/dy and dG/dT of the converged evaluation)."""
+        pts, p = y.shape
+        ok = np.zeros(pts, dtype=bool)
         Jac_out = np.empty((pts, p, p))  # filled where ok
         GT_out = np.empty((pts, p))
         active = None  # index of the points still iterating; None: all of them (no copies)
@@ -492,14 +615,7 @@ class Manifold:
                 g_i = np.nonzero(go)[0]
                 y[moving] = np.clip(np.take(ya, g_i, axis=0) + np.take(step, g_i, axis=0), self._y_lo, self._y_hi)
                 active = moving
-            lr_out = lnk_all.copy()
-            for k in range(self.m):
-                if not self.live[k]:
-                    lr_out[:, k] = -np.inf
-            for k, terms in self._iso_orders:
-                for a, nk in terms:
-                    lr_out[:, k] += nk * y[:, a]
-        return y.reshape(shape + (p,)), lr_out.reshape(shape + (self.m,)), ok.reshape(shape), Jac_out, GT_out
+        return y, ok, Jac_out, GT_out
 
     def _full_concentrations(self, y: np.ndarray, xi: np.ndarray) -> np.ndarray:
         """C (..., n): the solved species from y = ln C, the others from C_in + nu xi."""
@@ -591,8 +707,14 @@ class Manifold:
                 P = Lv = PT = LT = 0.0
                 dP = [0.0] * p
                 dL = [0.0] * p
+                if c0 > 0 or not makes:
+                    scale = 0.0  # the terms as they are
+                else:  # not fed: the terms relative to the largest, so a frozen inflow does not underflow
+                    scale = max(lr[k] + ln_tau + math.log(nu) for k, nu in makes)
+                    if not math.isfinite(scale):
+                        scale = 0.0
                 for k, nu in makes:
-                    t = nu * math.exp(min(lr[k] + ln_tau, 709.0))
+                    t = nu * math.exp(min(lr[k] + ln_tau - scale, 709.0))
                     P += t
                     PT += t * dT[k]
                     for b, nk in ordmap[k]:
@@ -605,7 +727,7 @@ class Manifold:
                         dL[b] += nk * t
                     dL[a] -= t
                 inflow = max(c0 + P, 1e-300)
-                G[a] = math.log(inflow) - y[a] - math.log1p(Lv)
+                G[a] = math.log(inflow) + scale - y[a] - math.log1p(Lv)
                 for b in range(p):
                     Jac[a][b] = dP[b] / inflow - dL[b] / (1.0 + Lv)
                 Jac[a][a] -= 1.0
@@ -628,13 +750,21 @@ class Manifold:
                     return y, True
             return y, False
 
-        cold = self._cold_guess(()).tolist()
-        start = cold
+        cold: list[float] = []
+
+        def cold_start() -> list[float]:  # numpy's per-call cost: only when needed
+            if not cold:
+                cold.extend(self._cold_guess((1,), np.array([lnk]), np.array([ln_tau]))[0].tolist())
+            return cold
+
+        start = None
         if self._last_C is not None and p:
-            start = [math.log(max(float(self._last_C[i]), 1e-300)) for i in self.S.tolist()]
-        y, ok = solve(start) if p else ([], True)
-        if not ok and start is not cold:
-            y, ok = solve(cold)
+            last = [float(self._last_C[i]) for i in self.S.tolist()]
+            # a concentration that underflowed says only that it is tiny: start that one from the bound
+            start = [math.log(c) if c > 1e-290 else cold_start()[a] for a, c in enumerate(last)]
+        y, ok = solve(start if start is not None else cold_start()) if p else ([], True)
+        if not ok and start is not None:
+            y, ok = solve(cold_start())
         if not ok:
             # the vectorised iteration (its own convergence test) as the last resort: seed 707819 (two reactions
             # 1e30 times faster than the flow) converges there from the feed where this loop does not

@@ -400,6 +400,8 @@ class StackedGeneralManifold(Manifold):
         cin = np.take(self.c_col, col, axis=0)
         dT = E / (Tf * Tf)[:, None]
         y, lr, ok, Jac, GT = self._solve_isothermal(lnk, ln_tau, cin, dT, C0, pts)
+        if not ok.all():
+            y, lr, ok, Jac, GT = self._solve_by_sample(col, Tf, y, lr, ok, Jac, GT)
         with np.errstate(over="ignore", invalid="ignore", under="ignore"):
             xi = np.exp(lr + ln_tau[:, None])
             dxi = xi * dT
@@ -552,6 +554,32 @@ class StackedGeneralManifold(Manifold):
                 for a, nk in terms:
                     lr[:, k] += nk * y[:, a]
         return y, lr, ok, Jac_out, GT_out
+
+    def _solve_by_sample(
+        self,
+        col: np.ndarray,
+        T: np.ndarray,
+        y: np.ndarray,
+        lr: np.ndarray,
+        ok: np.ndarray,
+        Jac: np.ndarray,
+        GT: np.ndarray,
+    ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """The points whose stacked Newton solve did not converge, solved again by the deterministic manifold of
+        their own sample (``Manifold._isothermal``: an inflow below the smallest double kept as a logarithm, a start
+        under the upper bound of the answer, continuation in the residence time where Newton stalls; differential
+        findings 28 and 29), so a hard point of a sample is no harder here than on that sample's own map. Every
+        sample feeds the same species (``same_structure``), so the solved species are the same."""
+        bad = np.nonzero(~ok)[0]
+        owner = np.take(self._sample_index, col[bad])
+        y, lr, ok = y.copy(), lr.copy(), ok.copy()
+        Jac, GT = Jac.copy(), GT.copy()
+        for i in np.unique(owner):
+            at = bad[owner == i]
+            mf = Manifold(self._samples.scenario(int(i)))
+            yi, lri, oki, Ji, GTi = mf._isothermal(np.take(self.tau, col[at]), T[at])
+            y[at], lr[at], ok[at], Jac[at], GT[at] = yi, lri, oki, Ji, GTi
+        return y, lr, ok, Jac, GT
 
     def _stiff_points(self, *args: object):  # noqa: ANN202
         """The base class's treatment of stiff points needs one parameter set and real residence times: here
