@@ -491,7 +491,11 @@ class Manifold:
             with np.errstate(divide="ignore", invalid="ignore"):
                 y = np.log(C0[:, self.S])
             # a guess that underflowed (or is missing) says only that the answer is tiny: start from the bound
-            y = np.where(np.isfinite(y) & (y > -690.0), y, self._cold_guess((pts,), lnk_all, ln_tau))
+            # (computed only for those points: this is the map's hot path)
+            redo = np.nonzero(~np.all(np.isfinite(y) & (y > -690.0), axis=1))[0]
+            if redo.size:
+                fine = np.isfinite(y[redo]) & (y[redo] > -690.0)
+                y[redo] = np.where(fine, y[redo], self._cold_guess((redo.size,), lnk_all[redo], ln_tau[redo]))
         y = np.clip(y, self._y_lo, self._y_hi)
         dT = self.E[None, :] / (flat_T * flat_T)[:, None]
         y, ok, Jac_out, GT_out = self._newton_iso(lnk_all, ln_tau, dT, y, max_iter)
